@@ -1,0 +1,39 @@
+#!/usr/bin/env bash
+# Installs exactly the Debian (bookworm) packages that plumb's build, tests and demo need.
+# Idempotent; run as root. Skips apt entirely when everything is already installed.
+set -euo pipefail
+
+PACKAGES=(
+  # toolchain
+  build-essential cmake ninja-build pkg-config git ca-certificates
+  # libraries
+  libgrpc++-dev protobuf-compiler-grpc libprotobuf-dev protobuf-compiler
+  libeigen3-dev librocksdb-dev prometheus-cpp-dev
+  libcli11-dev libspdlog-dev libtomlplusplus-dev
+  libgtest-dev libgmock-dev libbenchmark-dev
+  # tests and demo: a real Prometheus (promtool), Python reference checks and clients
+  prometheus python3 python3-numpy python3-sklearn python3-grpcio python3-protobuf
+  curl procps
+)
+
+missing=()
+for p in "${PACKAGES[@]}"; do
+  if ! dpkg-query -W -f='${Status}' "$p" 2>/dev/null | grep -q "install ok installed"; then
+    missing+=("$p")
+  fi
+done
+
+if [ ${#missing[@]} -eq 0 ]; then
+  echo "install-deps: all ${#PACKAGES[@]} packages present"
+  exit 0
+fi
+
+if [ "$(id -u)" -ne 0 ]; then
+  echo "install-deps: missing packages (${missing[*]}); run this script as root" >&2
+  exit 1
+fi
+
+echo "install-deps: installing ${missing[*]}"
+export DEBIAN_FRONTEND=noninteractive
+apt-get update -qq
+apt-get install -y -qq --no-install-recommends "${missing[@]}"

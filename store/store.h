@@ -1,0 +1,241 @@
+// plumb::store::Store — the only code in plumb that knows RocksDB.
+//
+// One database directory holds everything plumb persists, by column family:
+//   events       big-endian uint64 sequence -> StoredEvent (the durable event log)
+//   event_ids    client event_id -> sequence and receive time (de-duplication)
+//   ids          'u'|'i' + 'x' + external id -> dense uint32 index, and
+//                'u'|'i' + 'n' + big-endian index -> external id (append-only dictionaries)
+//   interactions big-endian user index + big-endian item index -> (empty): per-user item sets
+//   degrees      big-endian item index -> uint32 training degree (live, not per version)
+//   models       'm' + big-endian version -> StoredManifest;
+//                'b' + big-endian version + kind byte + big-endian block -> float32 rows;
+//                'd' + big-endian version + big-endian block -> uint32 item degrees
+//   meta         small named values: active version, consumer cursor, next version, ...
+// Keys are big-endian so that iteration order is numeric order.
+//
+// One process opens the directory as the primary (the only writer: plumb-train or the
+// `plumb` command line); any number of readers open it as secondaries (plumb-serve) and
+// call CatchUp() to see what the primary wrote since. Every write below is one RocksDB
+// write batch, so a reader (and a process restarted after a crash) sees all of it or none.
+//
+// Thread safety: all methods may be called from several threads at once. Writes are
+// serialised internally. On a secondary, reads may run concurrently with CatchUp(); a read
+// sees the state before or after a catch-up, never a mix within one call.
+#pragma once
+
+#include <cstdint>
+#include <functional>
+#include <map>
+#include <memory>
+#include <optional>
+#include <span>
+#include <string>
+#include <string_view>
+#include <utility>
+#include <vector>
+
+#include "core/status.h"
+
+namespace plumb::store {
+
+// The two id dictionaries. Users and items are numbered separately from 0.
+enum class IdSpace : char { kUser = 'u', kItem = 'i' };
+
+// Which matrix of a version.
+enum class MatrixKind : char { kUsers = 'u', kItems = 'i' };
+
+// Outcome of the trainer's validation gate for a version.
+enum class GateOutcome : int { kUnspecified = 0, kPassed = 1, kFailed = 2, kSkipped = 3 };
+
+struct StoreOptions {
+  // Create the directory and column families when missing (primary only).
+  bool create_if_missing = true;
+  // fsync the write-ahead log before AppendEvents / Commit return. With false, a crash of
+  // the machine (not of the process) can lose the last writes; acknowledged-means-durable
+  // then holds only against process crashes.
+  bool sync = true;
+  // How many versions to keep. Commit() deletes the oldest beyond this number in the same
+  // write batch; the active version is never deleted. At least 1.
+  uint32_t keep_versions = 5;
+  // Rows per stored block of an embedding matrix.
+  uint32_t rows_per_block = 4096;
+  // A duplicate event_id is recognised if its first copy was received within this window.
+  // Longer windows cost disk (one small record per event id). 0 = forever.
+  int64_t dedup_window_ms = 24LL * 3600 * 1000;
+};
+
+// An event as submitted, already validated by the caller.
+struct EventInput {
+  std::string user_id;
+  std::string item_id;
+  int64_t timestamp_ms = 0;
+  std::string event_id;  // empty: no de-duplication
+  float weight = 1.0f;
+};
+
+// An event as stored in the log.
+struct Event : EventInput {
+  uint64_t seq = 0;
+  int64_t received_ms = 0;
+};
+
+struct AppendResult {
+  uint64_t appended = 0;
+  uint64_t duplicates = 0;
+  // One entry per input: the sequence number given to it, or, for a duplicate, the
+  // sequence number of the earlier copy.
+  std::vector<uint64_t> seqs;
+  std::vector<bool> duplicate;
+  // Highest sequence number in the log after the append.
+  uint64_t last_seq = 0;
+};
+
+struct VersionManifest {
+  uint64_t version = 0;  // assigned by Commit() when 0
+  int64_t created_ms = 0;
+  std::string objective;
+  uint64_t events_seen = 0;  // log sequence this version was trained up to
+  uint64_t num_interactions = 0;
+  uint32_t num_users = 0;
+  uint32_t num_items = 0;
+  uint32_t dim = 0;
+  double validation_recall = 0.0;  // NaN when not measured
+  uint32_t validation_k = 0;
+  GateOutcome gate = GateOutcome::kUnspecified;
+  std::string gate_reason;
+  std::map<std::string, double> figures;
+};
+
+// A borrowed view of a row-major float32 matrix: rows * dim values.
+struct MatrixView {
+  const float* data = nullptr;
+  uint32_t rows = 0;
+  uint32_t dim = 0;
+};
+
+// An embedding version to publish. The views must stay valid during Commit().
+struct VersionWrite {
+  VersionManifest manifest;            // num_users/num_items/dim must match the views
+  MatrixView users;                    // num_users x dim
+  MatrixView items;                    // num_items x dim
+  std::span<const uint32_t> item_degrees;  // num_items training degrees
+};
+
+// A group of changes that Commit() applies as one atomic write.
+struct StateChange {
+  // New dictionary entries (index, external id). Indexes must continue the dictionary
+  // without gaps: the next user index is IdCount(kUser), and so on.
+  std::vector<std::pair<uint32_t, std::string>> new_users;
+  std::vector<std::pair<uint32_t, std::string>> new_items;
+  // (user index, item index) pairs added to the interaction sets. Re-adding is harmless.
+  std::vector<std::pair<uint32_t, uint32_t>> new_interactions;
+  // (item index, degree): absolute live degree values to store.
+  std::vector<std::pair<uint32_t, uint32_t>> item_degrees;
+  // The consumer cursor: the last log sequence folded into this state.
+  std::optional<uint64_t> cursor;
+  // A version to publish, or null.
+  const VersionWrite* version = nullptr;
+  // Make the published version the active one.
+  bool activate_published = false;
+  // Make an already stored version the active one (ignored if activate_published).
+  std::optional<uint64_t> activate;
+  // Named meta values to set (e.g. "auto_activate"). Keys starting with "plumb." are reserved.
+  std::vector<std::pair<std::string, std::string>> meta;
+};
+
+class Store {
+ public:
+  // Opens `dir` read-write. Fails with IoError if another process holds it.
+  static Status OpenPrimary(const std::string& dir, const StoreOptions& options,
+                            std::unique_ptr<Store>* out);
+
+  // Opens `dir` as a read-only follower of the primary. `scratch_dir` is this follower's
+  // own directory for RocksDB's info log (created if missing; one per follower process).
+  // The store must exist. Call CatchUp() to see later writes of the primary.
+  static Status OpenSecondary(const std::string& dir, const std::string& scratch_dir,
+                              std::unique_ptr<Store>* out);
+
+  Store(const Store&) = delete;
+  Store& operator=(const Store&) = delete;
+  virtual ~Store();
+
+  bool is_primary() const;
+
+  // Secondary: replays what the primary wrote since the last catch-up. Primary: no-op.
+  Status CatchUp();
+
+  // ---- event log -------------------------------------------------------------------
+
+  // Appends events with consecutive sequence numbers in one atomic, durable write (fsync
+  // when options.sync). Events whose event_id was seen within the de-duplication window
+  // are not appended again (reported in the result). On error nothing was appended.
+  Status AppendEvents(std::span<const EventInput> events, AppendResult* result);
+
+  // Up to `max_events` events with sequence > after_seq, in order.
+  Status ReadEvents(uint64_t after_seq, size_t max_events, std::vector<Event>* out) const;
+
+  // Highest sequence number in the log, 0 when empty.
+  uint64_t LastSequence() const;
+
+  // ---- training state -------------------------------------------------------------
+
+  // The consumer cursor (0 when never set).
+  Status GetCursor(uint64_t* seq) const;
+
+  // Index of an external id; NotFound when it has none.
+  Status LookupId(IdSpace space, std::string_view external, uint32_t* index) const;
+
+  // Number of entries in a dictionary.
+  uint32_t IdCount(IdSpace space) const;
+
+  // External ids of indexes [0, count), in index order. Corruption if one is missing.
+  Status LoadIds(IdSpace space, uint32_t count, std::vector<std::string>* out) const;
+
+  // Calls fn(user, item) for every stored interaction, ordered by user then item.
+  Status ForEachInteraction(const std::function<void(uint32_t, uint32_t)>& fn) const;
+
+  // The item indexes of one user's interaction set, ascending.
+  Status UserItems(uint32_t user, std::vector<uint32_t>* items) const;
+
+  // Live item degrees, one per item index [0, IdCount(kItem)); missing entries are 0.
+  Status LoadItemDegrees(std::vector<uint32_t>* degrees) const;
+
+  // Applies `change` atomically and durably. With a version, assigns its number (when
+  // manifest.version is 0), writes manifest and all blocks, then deletes versions beyond
+  // keep_versions (never the active one). `published` receives the version number (0 when
+  // none). InvalidArgument on inconsistent input; nothing is written then.
+  Status Commit(const StateChange& change, uint64_t* published = nullptr);
+
+  // ---- versions -------------------------------------------------------------------
+
+  // The active version, 0 when none.
+  Status GetActiveVersion(uint64_t* version) const;
+
+  // Manifests of all kept versions, newest first.
+  Status ListVersions(std::vector<VersionManifest>* out) const;
+
+  Status ReadManifest(uint64_t version, VersionManifest* out) const;
+
+  // Fills dest (exactly rows * dim floats, caller-owned, e.g. an aligned buffer) with a
+  // matrix of a version. NotFound for a version not kept; Corruption for a missing or
+  // wrongly sized block.
+  Status ReadMatrix(uint64_t version, MatrixKind kind, std::span<float> dest) const;
+
+  // The item degrees stored with a version (num_items values).
+  Status ReadVersionDegrees(uint64_t version, std::vector<uint32_t>* out) const;
+
+  // Makes a kept, complete version active. NotFound / FailedPrecondition otherwise.
+  Status Activate(uint64_t version);
+
+  // Named meta values set through StateChange::meta. NotFound when unset.
+  Status GetMeta(std::string_view key, std::string* value) const;
+
+ protected:
+  Store();
+
+ private:
+  struct Impl;
+  std::unique_ptr<Impl> impl_;
+};
+
+}  // namespace plumb::store

@@ -1,0 +1,125 @@
+#include "trainer/online/training_state.h"
+
+#include <algorithm>
+
+namespace plumb::online {
+
+uint32_t IdDictionary::Intern(std::string_view external, bool* created) {
+  auto [it, inserted] = index_.try_emplace(std::string(external), size());
+  if (inserted) names_.push_back(it->first);
+  if (created) *created = inserted;
+  return it->second;
+}
+
+bool IdDictionary::Find(std::string_view external, uint32_t* index) const {
+  auto it = index_.find(std::string(external));
+  if (it == index_.end()) return false;
+  *index = it->second;
+  return true;
+}
+
+bool IsHeldOut(std::string_view user, std::string_view item, double holdout_fraction) {
+  if (holdout_fraction <= 0.0) return false;
+  if (holdout_fraction >= 1.0) return true;
+  // 64-bit FNV-1a (Fowler–Noll–Vo): fixed constants, so the split never depends on the
+  // standard library's std::hash.
+  uint64_t h = 14695981039346656037ULL;
+  auto mix = [&h](std::string_view s) {
+    for (unsigned char c : s) {
+      h ^= c;
+      h *= 1099511628211ULL;
+    }
+  };
+  mix(user);
+  mix(std::string_view("\0", 1));
+  mix(item);
+  // Top 53 bits as a uniform double in [0, 1).
+  double u = static_cast<double>(h >> 11) * (1.0 / 9007199254740992.0);
+  return u < holdout_fraction;
+}
+
+Status TrainingState::Load(const store::Store& store, double holdout_fraction,
+                           TrainingState* out, uint64_t* cursor) {
+  TrainingState state(holdout_fraction);
+  PLUMB_RETURN_IF_ERROR(store.GetCursor(cursor));
+  for (auto space : {store::IdSpace::kUser, store::IdSpace::kItem}) {
+    std::vector<std::string> names;
+    PLUMB_RETURN_IF_ERROR(store.LoadIds(space, store.IdCount(space), &names));
+    IdDictionary& dict = space == store::IdSpace::kUser ? state.users_ : state.items_;
+    for (const std::string& n : names) {
+      bool created = false;
+      dict.Intern(n, &created);
+      if (!created) return Status::Corruption("id dictionary holds '" + n + "' twice");
+    }
+  }
+  const uint32_t stored_users = state.users_.size();
+  const uint32_t stored_items = state.items_.size();
+  PLUMB_RETURN_IF_ERROR(state.train_.EnsureShape(stored_users, stored_items));
+
+  std::vector<store::Event> batch;
+  uint64_t after = 0;
+  while (after < *cursor) {
+    PLUMB_RETURN_IF_ERROR(store.ReadEvents(after, 8192, &batch));
+    if (batch.empty()) break;
+    for (const store::Event& ev : batch) {
+      if (ev.seq > *cursor) break;
+      PLUMB_RETURN_IF_ERROR(state.Apply(ev, nullptr));
+      after = ev.seq;
+    }
+    if (batch.back().seq > *cursor) break;
+  }
+  if (after != *cursor) {
+    return Status::Corruption("event log ends at " + std::to_string(after) +
+                              " but the cursor is " + std::to_string(*cursor));
+  }
+  if (state.users_.size() != stored_users || state.items_.size() != stored_items) {
+    return Status::Corruption("replaying the log up to the cursor created ids the stored "
+                              "dictionary does not have");
+  }
+  state.persisted_users_ = state.users_.size();
+  state.persisted_items_ = state.items_.size();
+  state.persisted_pairs_ = state.train_.size();
+  *out = std::move(state);
+  return Status::Ok();
+}
+
+Status TrainingState::Apply(const store::Event& event, std::vector<uint64_t>* new_pairs) {
+  const uint32_t u = users_.Intern(event.user_id, nullptr);
+  const uint32_t i = items_.Intern(event.item_id, nullptr);
+  PLUMB_RETURN_IF_ERROR(train_.EnsureShape(users_.size(), items_.size()));
+  if (IsHeldOut(event.user_id, event.item_id, holdout_fraction_)) {
+    const uint64_t key = (static_cast<uint64_t>(u) << 32) | i;
+    if (validation_keys_.insert(key).second) validation_.push_back({u, i});
+    return Status::Ok();
+  }
+  bool added = false;
+  PLUMB_RETURN_IF_ERROR(train_.Add(u, i, &added));
+  if (added && new_pairs) new_pairs->push_back(train_.size() - 1);
+  return Status::Ok();
+}
+
+void TrainingState::CollectChanges(store::StateChange* change) const {
+  for (uint32_t u = persisted_users_; u < users_.size(); ++u) {
+    change->new_users.emplace_back(u, users_.name(u));
+  }
+  for (uint32_t i = persisted_items_; i < items_.size(); ++i) {
+    change->new_items.emplace_back(i, items_.name(i));
+  }
+  std::vector<uint32_t> touched;
+  for (uint64_t p = persisted_pairs_; p < train_.size(); ++p) {
+    const trainer::Pair& pair = train_.pair(p);
+    change->new_interactions.emplace_back(pair.user, pair.item);
+    touched.push_back(pair.item);
+  }
+  std::sort(touched.begin(), touched.end());
+  touched.erase(std::unique(touched.begin(), touched.end()), touched.end());
+  for (uint32_t item : touched) change->item_degrees.emplace_back(item, train_.item_degree(item));
+}
+
+void TrainingState::MarkPersisted() {
+  persisted_users_ = users_.size();
+  persisted_items_ = items_.size();
+  persisted_pairs_ = train_.size();
+}
+
+}  // namespace plumb::online

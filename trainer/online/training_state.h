@@ -1,0 +1,89 @@
+// TrainingState: what a trainer knows about the data, kept in memory and derived from the
+// store's event log — the external-id dictionaries, the training interactions, and the
+// held-out validation pairs. Both the offline `plumb fit` and the online plumb-train fold
+// events in through Apply() and persist what changed through CollectChanges(), which fills a
+// store::StateChange to be committed atomically with a version and the cursor.
+//
+// Hold-out: a (user, item) pair goes to validation when a 64-bit FNV-1a hash of
+// "user\0item" falls below holdout_fraction · 2^64. The hash depends only on the external
+// ids, so the decision is stable across restarts and repeated events of the same pair.
+// Held-out pairs are never trained on and are not written to the store's interaction sets.
+//
+// Not thread-safe: one owner (the training thread) calls everything.
+#pragma once
+
+#include <cstdint>
+#include <span>
+#include <string>
+#include <string_view>
+#include <unordered_map>
+#include <unordered_set>
+#include <vector>
+
+#include "core/status.h"
+#include "store/store.h"
+#include "trainer/interactions.h"
+
+namespace plumb::online {
+
+// Append-only map between external ids and dense indexes.
+class IdDictionary {
+ public:
+  // The index of `external`, assigning the next one when new (*created set accordingly).
+  uint32_t Intern(std::string_view external, bool* created);
+  // The index of `external`, or false when unknown.
+  bool Find(std::string_view external, uint32_t* index) const;
+  const std::string& name(uint32_t index) const { return names_[index]; }
+  const std::vector<std::string>& names() const { return names_; }
+  uint32_t size() const { return static_cast<uint32_t>(names_.size()); }
+
+ private:
+  std::unordered_map<std::string, uint32_t> index_;
+  std::vector<std::string> names_;
+};
+
+// True when the pair is held out for validation at this fraction (see the file comment).
+bool IsHeldOut(std::string_view user, std::string_view item, double holdout_fraction);
+
+class TrainingState {
+ public:
+  explicit TrainingState(double holdout_fraction = 0.0) : holdout_fraction_(holdout_fraction) {}
+
+  // Rebuilds the state of `store` as of its cursor: loads the dictionaries (so indexes match
+  // the store's), replays events 1..cursor, and marks everything as already persisted.
+  // *cursor receives the cursor. Corruption if the log and the dictionaries disagree.
+  static Status Load(const store::Store& store, double holdout_fraction, TrainingState* out,
+                     uint64_t* cursor);
+
+  // Folds one event in: interns its ids, and adds the pair to the training interactions or
+  // the validation set. When the pair is a new training pair, its index in train().pairs()
+  // is appended to *new_pairs (if not null).
+  Status Apply(const store::Event& event, std::vector<uint64_t>* new_pairs);
+
+  // Adds everything not yet persisted (new ids, new training pairs, the degrees of items
+  // those pairs touched) to *change. Other fields of *change are left alone. Call
+  // MarkPersisted() once the change is committed; until then the same changes are collected
+  // again by the next call (a failed commit loses nothing).
+  void CollectChanges(store::StateChange* change) const;
+  void MarkPersisted();
+
+  const trainer::Interactions& train() const { return train_; }
+  const std::vector<trainer::Pair>& validation() const { return validation_; }
+  const IdDictionary& users() const { return users_; }
+  const IdDictionary& items() const { return items_; }
+  double holdout_fraction() const { return holdout_fraction_; }
+
+ private:
+  double holdout_fraction_;
+  IdDictionary users_;
+  IdDictionary items_;
+  trainer::Interactions train_;
+  std::vector<trainer::Pair> validation_;
+  std::unordered_set<uint64_t> validation_keys_;  // (user << 32 | item), for de-duplication
+  // Persisted watermarks: everything below them is already in the store.
+  uint32_t persisted_users_ = 0;
+  uint32_t persisted_items_ = 0;
+  uint64_t persisted_pairs_ = 0;
+};
+
+}  // namespace plumb::online

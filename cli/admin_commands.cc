@@ -1,0 +1,157 @@
+// plumb versions / activate / inspect / export / synth: looking at and steering a store.
+#include <cmath>
+#include <cstdio>
+#include <ctime>
+#include <filesystem>
+#include <fstream>
+
+#include "cli/commands.h"
+#include "cli/store_access.h"
+
+namespace plumb::cli {
+namespace {
+
+std::string FormatTime(int64_t ms) {
+  std::time_t t = static_cast<std::time_t>(ms / 1000);
+  std::tm tm{};
+  gmtime_r(&t, &tm);
+  char buf[32];
+  std::strftime(buf, sizeof buf, "%Y-%m-%d %H:%M:%SZ", &tm);
+  return buf;
+}
+
+const char* GateName(store::GateOutcome g) {
+  switch (g) {
+    case store::GateOutcome::kPassed: return "passed";
+    case store::GateOutcome::kFailed: return "failed";
+    case store::GateOutcome::kSkipped: return "skipped";
+    default: return "-";
+  }
+}
+
+}  // namespace
+
+Status RunSynth(const trainer::SynthOptions& options, const std::string& out_dir) {
+  std::fprintf(stderr, "synth: %u members, %u tools, about %llu borrowings, seed %llu\n",
+               options.users, options.items,
+               static_cast<unsigned long long>(options.target_interactions),
+               static_cast<unsigned long long>(options.seed));
+  trainer::SynthWorld world;
+  PLUMB_RETURN_IF_ERROR(trainer::GenerateSynthWorld(options, &world));
+  PLUMB_RETURN_IF_ERROR(trainer::WriteSynthCsv(world, out_dir));
+  std::printf("wrote %s/events.csv (%zu borrowings), %s/test.csv (%zu ground-truth pairs), "
+              "%s/items.csv (%zu tools)\n",
+              out_dir.c_str(), world.events.size(), out_dir.c_str(), world.test.size(),
+              out_dir.c_str(), world.item_names.size());
+  return Status::Ok();
+}
+
+Status RunVersions(const AdminArgs& args) {
+  std::unique_ptr<store::Store> store;
+  PLUMB_RETURN_IF_ERROR(OpenForRead(args.db, &store));
+  std::vector<store::VersionManifest> versions;
+  PLUMB_RETURN_IF_ERROR(store->ListVersions(&versions));
+  uint64_t active = 0;
+  PLUMB_RETURN_IF_ERROR(store->GetActiveVersion(&active));
+  if (versions.empty()) {
+    std::printf("no versions in %s\n", args.db.c_str());
+    return Status::Ok();
+  }
+  std::printf("%-3s %8s  %-20s  %-4s %9s %8s %8s %4s  %-10s %s\n", "", "version", "created (UTC)",
+              "obj", "events", "users", "items", "dim", "val.recall", "gate");
+  for (const store::VersionManifest& m : versions) {
+    char recall[32] = "-";
+    if (!std::isnan(m.validation_recall) && m.validation_k > 0) {
+      std::snprintf(recall, sizeof recall, "%.4f@%u", m.validation_recall, m.validation_k);
+    }
+    std::printf("%-3s %8llu  %-20s  %-4s %9llu %8u %8u %4u  %-10s %s%s%s\n",
+                m.version == active ? "*" : "", static_cast<unsigned long long>(m.version),
+                FormatTime(m.created_ms).c_str(), m.objective.c_str(),
+                static_cast<unsigned long long>(m.events_seen), m.num_users, m.num_items, m.dim,
+                recall, GateName(m.gate), m.gate_reason.empty() ? "" : ": ",
+                m.gate_reason.c_str());
+  }
+  std::printf("(* active)\n");
+  return Status::Ok();
+}
+
+Status RunActivate(const AdminArgs& args) {
+  if (args.version == 0) return Status::InvalidArgument("--version is required");
+  std::unique_ptr<store::Store> store;
+  PLUMB_RETURN_IF_ERROR(OpenForWrite(args.db, store::StoreOptions{}, &store));
+  uint64_t before = 0;
+  PLUMB_RETURN_IF_ERROR(store->GetActiveVersion(&before));
+  PLUMB_RETURN_IF_ERROR(store->Activate(args.version));
+  std::printf("version %llu is active (was %llu)\n",
+              static_cast<unsigned long long>(args.version),
+              static_cast<unsigned long long>(before));
+  return Status::Ok();
+}
+
+Status RunInspect(const AdminArgs& args) {
+  std::unique_ptr<store::Store> store;
+  PLUMB_RETURN_IF_ERROR(OpenForRead(args.db, &store));
+  uint64_t cursor = 0, active = 0;
+  PLUMB_RETURN_IF_ERROR(store->GetCursor(&cursor));
+  PLUMB_RETURN_IF_ERROR(store->GetActiveVersion(&active));
+  std::vector<store::VersionManifest> versions;
+  PLUMB_RETURN_IF_ERROR(store->ListVersions(&versions));
+  uint64_t interactions = 0;
+  PLUMB_RETURN_IF_ERROR(store->ForEachInteraction([&](uint32_t, uint32_t) { ++interactions; }));
+  std::printf("store           %s\n", args.db.c_str());
+  std::printf("event log       %llu events\n",
+              static_cast<unsigned long long>(store->LastSequence()));
+  std::printf("trained up to   %llu (lag %llu events)\n", static_cast<unsigned long long>(cursor),
+              static_cast<unsigned long long>(store->LastSequence() - cursor));
+  std::printf("users, items    %u, %u\n", store->IdCount(store::IdSpace::kUser),
+              store->IdCount(store::IdSpace::kItem));
+  std::printf("interactions    %llu distinct (user, item) training pairs\n",
+              static_cast<unsigned long long>(interactions));
+  std::printf("versions kept   %zu, active %llu\n", versions.size(),
+              static_cast<unsigned long long>(active));
+  std::string auto_activate;
+  if (store->GetMeta("auto_activate", &auto_activate).ok()) {
+    std::printf("auto-activate   %s\n", auto_activate == "1" ? "on" : "off (paused)");
+  }
+  return Status::Ok();
+}
+
+Status RunExport(const AdminArgs& args) {
+  if (args.out.empty()) return Status::InvalidArgument("--out is required");
+  std::unique_ptr<store::Store> store;
+  PLUMB_RETURN_IF_ERROR(OpenForRead(args.db, &store));
+  LoadedModel loaded;
+  PLUMB_RETURN_IF_ERROR(LoadModel(*store, args.version, &loaded));
+  std::error_code ec;
+  std::filesystem::create_directories(args.out, ec);
+  if (ec) return Status::IoError("cannot create " + args.out + ": " + ec.message());
+  auto write = [&](const std::string& name, const std::vector<std::string>& ids,
+                   const trainer::RowMatrix& m) -> Status {
+    const std::string path = (std::filesystem::path(args.out) / name).string();
+    std::ofstream out(path);
+    if (!out) return Status::IoError("cannot write " + path);
+    char buf[32];
+    for (size_t r = 0; r < ids.size(); ++r) {
+      out << ids[r] << '\t';
+      for (Eigen::Index c = 0; c < m.cols(); ++c) {
+        std::snprintf(buf, sizeof buf, "%.9g", static_cast<double>(m(r, c)));
+        if (c) out << ' ';
+        out << buf;
+      }
+      out << '\n';
+    }
+    out.flush();
+    if (!out) return Status::IoError("write failed: " + path);
+    return Status::Ok();
+  };
+  PLUMB_RETURN_IF_ERROR(write("users.tsv", loaded.user_ids, loaded.model.users()));
+  PLUMB_RETURN_IF_ERROR(write("items.tsv", loaded.item_ids, loaded.model.items()));
+  std::printf("version %llu exported to %s/users.tsv (%zu rows) and %s/items.tsv (%zu rows), "
+              "dim %u\n",
+              static_cast<unsigned long long>(loaded.manifest.version), args.out.c_str(),
+              loaded.user_ids.size(), args.out.c_str(), loaded.item_ids.size(),
+              loaded.manifest.dim);
+  return Status::Ok();
+}
+
+}  // namespace plumb::cli

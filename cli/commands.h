@@ -1,0 +1,82 @@
+// The `plumb` command line: the offline side of the same library the two processes use.
+// Each command returns a Status; main() prints its message on one line and exits non-zero.
+// Results go to stdout, progress to stderr.
+#pragma once
+
+#include <cstdint>
+#include <string>
+
+#include "core/status.h"
+#include "trainer/synth.h"
+#include "trainer/trainer.h"
+
+namespace plumb::cli {
+
+struct ImportArgs {
+  std::string events;  // CSV path
+  std::string db;
+  bool skip_bad = false;
+  bool sync = true;
+};
+
+struct FitArgs {
+  ImportArgs import;   // import.events may be empty: train on what the store holds
+  std::string objective = "cpr";
+  std::string optimizer = "adagrad";
+  uint32_t dim = 64;
+  uint32_t epochs = 20;
+  uint32_t k = 2;             // CPR sample size
+  double k3_share = 0.0;      // share of k=3 samples mixed in
+  double beta = 3.0;
+  double learning_rate = 0.05;
+  double l2 = 1e-4;
+  uint32_t batch_size = 1024;
+  uint32_t threads = 2;
+  uint64_t seed = 1;
+  double holdout = 0.0;       // share of pairs held out (stored as the store's holdout)
+  bool activate = true;
+  uint32_t keep_versions = 5;
+};
+
+struct EvalArgs {
+  std::string db;
+  std::string test;           // CSV with `user,item`
+  uint64_t version = 0;       // 0: the active version
+  uint32_t k = 20;
+  uint32_t groups = 5;
+  uint32_t threads = 2;
+  bool json = false;
+};
+
+struct CompareArgs {
+  trainer::SynthOptions world;
+  uint32_t dim = 64;
+  uint32_t epochs = 20;
+  uint32_t threads = 2;
+  uint32_t k = 20;
+  uint32_t groups = 5;
+  double beta = 3.0;
+  bool json = false;
+};
+
+struct AdminArgs {
+  std::string db;
+  uint64_t version = 0;
+  std::string out;            // export directory
+  bool json = false;
+};
+
+Status RunSynth(const trainer::SynthOptions& options, const std::string& out_dir);
+Status RunImport(const ImportArgs& args);
+Status RunFit(const FitArgs& args);
+Status RunEval(const EvalArgs& args);
+Status RunCompare(const CompareArgs& args);
+Status RunVersions(const AdminArgs& args);
+Status RunActivate(const AdminArgs& args);
+Status RunInspect(const AdminArgs& args);
+Status RunExport(const AdminArgs& args);
+
+// Fills trainer options from the fit arguments (shared by fit and compare).
+Status MakeTrainOptions(const FitArgs& args, trainer::TrainOptions* out);
+
+}  // namespace plumb::cli

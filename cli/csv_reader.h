@@ -1,0 +1,47 @@
+// Reading the comma-separated files the `plumb` command line takes: interaction histories
+// (`user,item[,ts][,weight][,event_id]`) and test sets (`user,item`).
+#pragma once
+
+#include <cstdint>
+#include <functional>
+#include <string>
+#include <string_view>
+#include <vector>
+
+#include "core/status.h"
+
+namespace plumb::cli {
+
+// Splits one CSV line into fields. Fields may be double-quoted ("a,b" and "say ""hi""").
+// InvalidArgument for an unterminated quote or text after a closing quote.
+Status SplitCsvLine(std::string_view line, std::vector<std::string>* fields);
+
+struct CsvEvent {
+  std::string user;
+  std::string item;
+  int64_t timestamp_ms = 0;  // 0 when the file has no ts column
+  float weight = 1.0f;
+  std::string event_id;
+};
+
+struct CsvReadOptions {
+  // With true, malformed lines are counted and skipped; otherwise the first one stops the
+  // read with an error naming the file, the line number and the reason.
+  bool skip_bad = false;
+};
+
+struct CsvReadReport {
+  uint64_t lines = 0;  // data lines (header excluded)
+  uint64_t read = 0;
+  uint64_t skipped = 0;
+  std::string first_skip_reason;  // "file:line: reason" of the first skipped line
+};
+
+// Reads an event file. The header names the columns, in any order: `user` and `item` are
+// required; `ts` (milliseconds since the epoch, integer), `weight` (in (0, 1000]) and
+// `event_id` are optional; other columns are ignored. Ids are 1..256 bytes.
+// On error `out` is left empty: nothing of a file with a bad line is kept.
+Status ReadEventCsv(const std::string& path, const CsvReadOptions& options,
+                    std::vector<CsvEvent>* out, CsvReadReport* report);
+
+}  // namespace plumb::cli

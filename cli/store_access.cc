@@ -1,0 +1,58 @@
+#include "cli/store_access.h"
+
+#include <unistd.h>
+
+#include <filesystem>
+
+namespace plumb::cli {
+
+Status OpenForWrite(const std::string& db, const store::StoreOptions& options,
+                    std::unique_ptr<store::Store>* out) {
+  Status s = store::Store::OpenPrimary(db, options, out);
+  if (!s.ok() && s.message().find("lock") != std::string::npos) {
+    return Status::Unavailable(
+        db + " is in use by another process (is plumb-train running? while it runs, change "
+             "versions through its ModelControl service): " + s.message());
+  }
+  return s;
+}
+
+Status OpenForRead(const std::string& db, std::unique_ptr<store::Store>* out) {
+  if (!std::filesystem::exists(db)) return Status::NotFound("no store at " + db);
+  const std::string scratch = (std::filesystem::temp_directory_path() /
+                               ("plumb-cli-" + std::to_string(::getpid())))
+                                  .string();
+  Status s = store::Store::OpenSecondary(db, scratch, out);
+  if (s.ok()) s = (*out)->CatchUp();
+  return s;
+}
+
+Status LoadModel(const store::Store& store, uint64_t version, LoadedModel* out) {
+  if (version == 0) {
+    PLUMB_RETURN_IF_ERROR(store.GetActiveVersion(&version));
+    if (version == 0) return Status::FailedPrecondition("no version is active in this store");
+  }
+  LoadedModel m;
+  PLUMB_RETURN_IF_ERROR(store.ReadManifest(version, &m.manifest));
+  const auto& man = m.manifest;
+  trainer::RowMatrix users(man.num_users, man.dim);
+  trainer::RowMatrix items(man.num_items, man.dim);
+  PLUMB_RETURN_IF_ERROR(store.ReadMatrix(version, store::MatrixKind::kUsers,
+                                         std::span<float>(users.data(), users.size())));
+  PLUMB_RETURN_IF_ERROR(store.ReadMatrix(version, store::MatrixKind::kItems,
+                                         std::span<float>(items.data(), items.size())));
+  PLUMB_RETURN_IF_ERROR(
+      trainer::Embeddings::FromMatrices(std::move(users), std::move(items), 1, &m.model));
+  std::vector<trainer::Pair> pairs;
+  PLUMB_RETURN_IF_ERROR(store.ForEachInteraction([&](uint32_t u, uint32_t i) {
+    if (u < man.num_users && i < man.num_items) pairs.push_back({u, i});
+  }));
+  PLUMB_RETURN_IF_ERROR(
+      trainer::Interactions::Build(pairs, man.num_users, man.num_items, &m.train));
+  PLUMB_RETURN_IF_ERROR(store.LoadIds(store::IdSpace::kUser, man.num_users, &m.user_ids));
+  PLUMB_RETURN_IF_ERROR(store.LoadIds(store::IdSpace::kItem, man.num_items, &m.item_ids));
+  *out = std::move(m);
+  return Status::Ok();
+}
+
+}  // namespace plumb::cli

@@ -91,11 +91,13 @@ double coverage(std::span<const uint64_t> counts);
 // ---- Popularity groups -------------------------------------------------------------------
 
 // Cuts the catalogue into num_groups popularity groups with about equal degree sums: items
-// are sorted by degree ascending (ties by index), walked in that order with a running sum
-// S_cum (including the current item), and the walk moves to the next group as soon as
-// S_cum >= (g+1)·S/num_groups, S the total degree. Group 0 holds the least popular items.
-// A single item whose degree exceeds S/num_groups can close several groups at once, leaving
-// some groups empty. If S == 0, every item is in group 0.
+// are sorted by degree ascending (ties by index) and walked in that order with a running sum
+// C (including the current item); the item goes to group g = ceil(C · G / S) − 1, clamped to
+// [0, G−1], where S is the total degree and G = num_groups. So group g collects the items
+// whose running sum ends in ((g/G)·S, ((g+1)/G)·S], and group 0 holds the least popular
+// items. A single item whose degree exceeds S/G spans several such intervals: it goes to the
+// last of them and the others stay empty, so the most popular items always land in the top
+// groups. If S == 0, every item is in group 0.
 // On success (*group_of_item)[i] is item i's group. Errors: InvalidArgument if num_groups
 // == 0 or group_of_item is null.
 Status popularity_groups(std::span<const uint64_t> degrees, std::size_t num_groups,

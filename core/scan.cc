@@ -1,0 +1,284 @@
+#include "core/scan.h"
+
+#include <algorithm>
+#include <bit>
+#include <cmath>
+#include <cstring>
+#include <limits>
+#include <string>
+
+namespace plumb {
+namespace {
+
+// Eight float lanes as a GCC/Clang vector type: the compiler lowers it to two SSE registers on
+// baseline x86-64 and to one AVX register in the AVX2 clone below. Plain loops would not
+// vectorise a float reduction without -ffast-math (reassociation changes rounding); with
+// explicit lanes the summation order is ours and fixed.
+typedef float Lanes __attribute__((vector_size(32)));
+constexpr std::size_t kLanes = 8;
+
+// The helpers take and give Lanes by reference: passing a 32-byte vector by value has an ABI
+// that differs with and without AVX, which GCC warns about (-Wpsabi).
+inline void LoadLanes(const float* p, Lanes& v) {
+  std::memcpy(&v, p, sizeof(v));  // unaligned-safe; compiles to vector loads
+}
+
+// Lane sum in a fixed tree, ((v0+v1)+(v2+v3)) + ((v4+v5)+(v6+v7)): the same tree that
+// SumEightRows applies to each of its rows, so a row scores identically on either path.
+inline float SumLanes(const Lanes& v) {
+  return ((v[0] + v[1]) + (v[2] + v[3])) + ((v[4] + v[5]) + (v[6] + v[7]));
+}
+
+// Out lane i = SumLanes(a[i]) for eight accumulators at once, by a transpose-and-add tree
+// (7 vector adds, 14 shuffles) instead of eight separate horizontal sums.
+inline void SumEightRows(const Lanes (&a)[8], Lanes& out) {
+#if defined(__clang__)
+  // Clang spells the shuffle differently; the plain form rounds the same way.
+  for (int i = 0; i < 8; ++i) out[i] = SumLanes(a[i]);
+#else
+  typedef int Index __attribute__((vector_size(32)));
+  const Index even = {0, 8, 2, 10, 4, 12, 6, 14}, odd = {1, 9, 3, 11, 5, 13, 7, 15};
+  // t01 = [x0+x1, y0+y1, x2+x3, y2+y3, x4+x5, y4+y5, x6+x7, y6+y7] for rows x = 0, y = 1.
+  const Lanes t01 = __builtin_shuffle(a[0], a[1], even) + __builtin_shuffle(a[0], a[1], odd);
+  const Lanes t23 = __builtin_shuffle(a[2], a[3], even) + __builtin_shuffle(a[2], a[3], odd);
+  const Lanes t45 = __builtin_shuffle(a[4], a[5], even) + __builtin_shuffle(a[4], a[5], odd);
+  const Lanes t67 = __builtin_shuffle(a[6], a[7], even) + __builtin_shuffle(a[6], a[7], odd);
+  // u = [(r0 low half), r1, r2, r3, (r0 high half), r1, r2, r3], each half summed in pairs.
+  const Index lo = {0, 1, 8, 9, 4, 5, 12, 13}, hi = {2, 3, 10, 11, 6, 7, 14, 15};
+  const Lanes u = __builtin_shuffle(t01, t23, lo) + __builtin_shuffle(t01, t23, hi);
+  const Lanes v = __builtin_shuffle(t45, t67, lo) + __builtin_shuffle(t45, t67, hi);
+  const Index first = {0, 1, 2, 3, 8, 9, 10, 11}, second = {4, 5, 6, 7, 12, 13, 14, 15};
+  out = __builtin_shuffle(u, v, first) + __builtin_shuffle(u, v, second);
+#endif
+}
+
+// The scoring kernel: out[r] = <rows[r], q> for r < n. Eight rows at a time share each load
+// of q and give eight independent accumulator chains, which hides the add latency; the item
+// rows are read once, front to back, so the scan runs close to the speed of reading memory.
+#if defined(__x86_64__) && defined(__GNUC__) && !defined(__clang__) && \
+    !defined(__SANITIZE_ADDRESS__)
+// One clone for AVX2 machines (x86-64-v3), one for baseline x86-64; the dynamic loader picks
+// one at start-up, so a generic build still uses the wide registers where they exist. FMA
+// contraction is off for this file (see CMakeLists.txt), so both clones round identically.
+#define PLUMB_SCAN_CLONES __attribute__((target_clones("arch=x86-64-v3", "default")))
+#else
+#define PLUMB_SCAN_CLONES
+#endif
+
+PLUMB_SCAN_CLONES
+void ScoreRows(const float* rows, std::size_t n, std::size_t dim, const float* q, float* out) {
+  const std::size_t full = dim - dim % kLanes;
+  std::size_t r = 0;
+  for (; r + 8 <= n; r += 8) {
+    const float* base = rows + r * dim;
+    Lanes a[8] = {};
+    for (std::size_t d = 0; d < full; d += kLanes) {
+      Lanes qv;
+      LoadLanes(q + d, qv);
+      for (std::size_t i = 0; i < 8; ++i) {
+        Lanes x;
+        LoadLanes(base + i * dim + d, x);
+        a[i] += x * qv;
+      }
+    }
+    Lanes sums;
+    SumEightRows(a, sums);
+    for (std::size_t i = 0; i < 8; ++i) {
+      float s = sums[i];
+      for (std::size_t d = full; d < dim; ++d) s += base[i * dim + d] * q[d];
+      out[r + i] = s;
+    }
+  }
+  for (; r < n; ++r) {
+    const float* row = rows + r * dim;
+    Lanes a = {};
+    for (std::size_t d = 0; d < full; d += kLanes) {
+      Lanes x, qv;
+      LoadLanes(row + d, x);
+      LoadLanes(q + d, qv);
+      a += x * qv;
+    }
+    float s = SumLanes(a);
+    for (std::size_t d = full; d < dim; ++d) s += row[d] * q[d];
+    out[r] = s;
+  }
+}
+
+// One dot product with the same arithmetic as ScoreRows (same lanes, same order), so a
+// gathered score equals the scanned score of the same row bit for bit.
+float DotRow(const float* row, std::size_t dim, const float* q) {
+  float s;
+  ScoreRows(row, 1, dim, q, &s);
+  return s;
+}
+
+constexpr float kNaN = std::numeric_limits<float>::quiet_NaN();
+
+// Walks the exclusions alongside the blocks: both are visited in ascending row order, so the
+// sorted-list cursor only moves forward over the whole scan.
+class ExclusionCursor {
+ public:
+  explicit ExclusionCursor(const Exclusions& e) : e_(e) {}
+
+  // Marks excluded rows of block [begin, end) with NaN in scores (scores[0] is row begin);
+  // TopKSelector never keeps a NaN.
+  void MarkBlock(std::size_t begin, std::size_t end, float* scores) {
+    const std::size_t bits = e_.bitmap.size() * 64;
+    if (begin < bits) {
+      const std::size_t stop = std::min(end, bits);
+      std::size_t r = begin;
+      while (r < stop) {
+        const std::size_t word_index = r / 64;
+        uint64_t word = e_.bitmap[word_index] >> (r % 64);
+        const std::size_t word_end = std::min(stop, (word_index + 1) * 64);
+        while (word != 0) {
+          const std::size_t hit = r + static_cast<std::size_t>(std::countr_zero(word));
+          if (hit >= word_end) break;
+          scores[hit - begin] = kNaN;
+          word &= word - 1;
+        }
+        r = word_end;
+      }
+    }
+    const auto& list = e_.sorted_rows;
+    while (next_ < list.size() && list[next_] < begin) ++next_;
+    while (next_ < list.size() && list[next_] < end) {
+      scores[list[next_] - begin] = kNaN;
+      ++next_;
+    }
+  }
+
+ private:
+  const Exclusions& e_;
+  std::size_t next_ = 0;
+};
+
+Status CheckScanArgs(MatrixView items, std::span<const float> query, std::span<float> scratch,
+                     TopKSelector* selector, ScanOutcome* outcome) {
+  if (selector == nullptr || outcome == nullptr) {
+    return Status::InvalidArgument("scan needs a selector and an outcome");
+  }
+  if (query.size() != items.dim) {
+    return Status::InvalidArgument("query has " + std::to_string(query.size()) +
+                                   " dimensions, items have " + std::to_string(items.dim));
+  }
+  if (scratch.empty() && items.rows > 0) {
+    return Status::InvalidArgument("scan needs a non-empty scratch buffer");
+  }
+  return Status::Ok();
+}
+
+// The shared block loop. `adjust(begin, n, scores)` turns raw dot products of rows
+// [begin, begin + n) into final scores (identity for dot, normalisation for cosine).
+template <typename Adjust>
+void ScanBlocks(MatrixView items, std::span<const float> query, const Exclusions& excluded,
+                std::span<float> scratch, TopKSelector* selector, ScanOutcome* outcome,
+                StopCheck should_stop, Adjust adjust) {
+  *outcome = ScanOutcome{};
+  const std::size_t block = scratch.size();
+  float* scores = scratch.data();
+  ExclusionCursor cursor(excluded);
+  for (std::size_t begin = 0; begin < items.rows; begin += block) {
+    if (begin > 0 && should_stop()) {
+      outcome->stopped_early = true;
+      return;
+    }
+    const std::size_t n = std::min(block, items.rows - begin);
+    ScoreRows(items.data + begin * items.dim, n, items.dim, query.data(), scores);
+    adjust(begin, n, scores);
+    cursor.MarkBlock(begin, begin + n, scores);
+    for (std::size_t i = 0; i < n; ++i) {
+      selector->Push(static_cast<uint32_t>(begin + i), scores[i]);
+    }
+    outcome->rows_scanned = begin + n;
+  }
+}
+
+}  // namespace
+
+Status dot_scores(MatrixView items, std::span<const float> query, std::span<float> scores) {
+  if (query.size() != items.dim) {
+    return Status::InvalidArgument("query has " + std::to_string(query.size()) +
+                                   " dimensions, items have " + std::to_string(items.dim));
+  }
+  if (scores.size() < items.rows) {
+    return Status::InvalidArgument("scores buffer holds " + std::to_string(scores.size()) +
+                                   " values, need " + std::to_string(items.rows));
+  }
+  if (items.rows > 0) ScoreRows(items.data, items.rows, items.dim, query.data(), scores.data());
+  return Status::Ok();
+}
+
+Status gather_dot_scores(MatrixView items, std::span<const uint32_t> rows,
+                         std::span<const float> query, std::span<float> scores) {
+  if (query.size() != items.dim) {
+    return Status::InvalidArgument("query has " + std::to_string(query.size()) +
+                                   " dimensions, items have " + std::to_string(items.dim));
+  }
+  if (scores.size() < rows.size()) {
+    return Status::InvalidArgument("scores buffer holds " + std::to_string(scores.size()) +
+                                   " values, need " + std::to_string(rows.size()));
+  }
+  for (uint32_t r : rows) {
+    if (r >= items.rows) {
+      return Status::InvalidArgument("row " + std::to_string(r) + " out of range (" +
+                                     std::to_string(items.rows) + " rows)");
+    }
+  }
+  for (std::size_t j = 0; j < rows.size(); ++j) {
+    scores[j] = DotRow(items.data + std::size_t{rows[j]} * items.dim, items.dim, query.data());
+  }
+  return Status::Ok();
+}
+
+Status row_norms(MatrixView items, std::span<float> norms) {
+  if (norms.size() < items.rows) {
+    return Status::InvalidArgument("norms buffer holds " + std::to_string(norms.size()) +
+                                   " values, need " + std::to_string(items.rows));
+  }
+  for (std::size_t r = 0; r < items.rows; ++r) {
+    // Accumulate in double: norms are computed once per version, so precision is cheap.
+    double s = 0.0;
+    for (float v : items.row(r)) s += double{v} * double{v};
+    norms[r] = static_cast<float>(std::sqrt(s));
+  }
+  return Status::Ok();
+}
+
+Status top_k_by_dot(MatrixView items, std::span<const float> query, const Exclusions& excluded,
+                    std::span<float> scratch, TopKSelector* selector, ScanOutcome* outcome,
+                    StopCheck should_stop) {
+  PLUMB_RETURN_IF_ERROR(CheckScanArgs(items, query, scratch, selector, outcome));
+  ScanBlocks(items, query, excluded, scratch, selector, outcome, should_stop,
+             [](std::size_t, std::size_t, float*) {});
+  return Status::Ok();
+}
+
+Status top_k_by_cosine(MatrixView items, std::span<const float> norms,
+                       std::span<const float> query, const Exclusions& excluded,
+                       std::span<float> scratch, TopKSelector* selector, ScanOutcome* outcome,
+                       StopCheck should_stop) {
+  PLUMB_RETURN_IF_ERROR(CheckScanArgs(items, query, scratch, selector, outcome));
+  if (norms.size() < items.rows) {
+    return Status::InvalidArgument("norms hold " + std::to_string(norms.size()) +
+                                   " values, items have " + std::to_string(items.rows) +
+                                   " rows");
+  }
+  double qq = 0.0;
+  for (float v : query) qq += double{v} * double{v};
+  const double query_norm = std::sqrt(qq);
+  if (!(query_norm > 0.0) || !std::isfinite(query_norm)) {
+    return Status::InvalidArgument("cosine similarity needs a finite, non-zero query");
+  }
+  const float inv_query_norm = static_cast<float>(1.0 / query_norm);
+  ScanBlocks(items, query, excluded, scratch, selector, outcome, should_stop,
+             [&](std::size_t begin, std::size_t n, float* scores) {
+               for (std::size_t i = 0; i < n; ++i) {
+                 const float norm = norms[begin + i];
+                 scores[i] = norm > 0.0f ? scores[i] * inv_query_norm / norm : 0.0f;
+               }
+             });
+  return Status::Ok();
+}
+
+}  // namespace plumb

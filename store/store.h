@@ -11,7 +11,14 @@
 //                'b' + big-endian version + kind byte + big-endian block -> float32 rows;
 //                'd' + big-endian version + big-endian block -> uint32 item degrees
 //   meta         small named values: active version, consumer cursor, next version, ...
-// Keys are big-endian so that iteration order is numeric order.
+// Keys are big-endian so that iteration order is numeric order. Integers and float32 rows
+// inside values are little-endian (store/keys.h has the exact layout). Matrices and version
+// degrees are cut into blocks of StoreOptions::rows_per_block rows; the last may be shorter.
+//
+// Errors: a value that cannot be what the store wrote (unparseable, truncated, wrong size,
+// a block missing) is reported as Corruption with a message naming the record, e.g.
+// "version 7 items matrix: block 3 is missing"; the store never crashes on one. A write on
+// a store opened as a secondary fails with FailedPrecondition.
 //
 // One process opens the directory as the primary (the only writer: plumb-train or the
 // `plumb` command line); any number of readers open it as secondaries (plumb-serve) and
@@ -55,7 +62,8 @@ struct StoreOptions {
   // then holds only against process crashes.
   bool sync = true;
   // How many versions to keep. Commit() deletes the oldest beyond this number in the same
-  // write batch; the active version is never deleted. At least 1.
+  // write batch; the active version is never deleted (it is kept in addition to the newest
+  // keep_versions when it is older). At least 1.
   uint32_t keep_versions = 5;
   // Rows per stored block of an embedding matrix.
   uint32_t rows_per_block = 4096;
@@ -115,9 +123,9 @@ struct MatrixView {
 
 // An embedding version to publish. The views must stay valid during Commit().
 struct VersionWrite {
-  VersionManifest manifest;            // num_users/num_items/dim must match the views
-  MatrixView users;                    // num_users x dim
-  MatrixView items;                    // num_items x dim
+  VersionManifest manifest;                // num_users/num_items/dim must match the views
+  MatrixView users;                        // num_users x dim
+  MatrixView items;                        // num_items x dim
   std::span<const uint32_t> item_degrees;  // num_items training degrees
 };
 
@@ -145,19 +153,23 @@ struct StateChange {
 
 class Store {
  public:
-  // Opens `dir` read-write. Fails with IoError if another process holds it.
+  // Opens `dir` read-write. Fails with IoError if another process (or another Store in this
+  // process) holds it, InvalidArgument for bad options, Corruption if the store's counters
+  // are unreadable. On success *out owns the store; on failure *out is null.
   static Status OpenPrimary(const std::string& dir, const StoreOptions& options,
                             std::unique_ptr<Store>* out);
 
   // Opens `dir` as a read-only follower of the primary. `scratch_dir` is this follower's
   // own directory for RocksDB's info log (created if missing; one per follower process).
-  // The store must exist. Call CatchUp() to see later writes of the primary.
+  // The store must exist (NotFound otherwise). Call CatchUp() to see later writes of the
+  // primary; until then the secondary shows the state it opened with.
   static Status OpenSecondary(const std::string& dir, const std::string& scratch_dir,
                               std::unique_ptr<Store>* out);
 
   Store(const Store&) = delete;
   Store& operator=(const Store&) = delete;
-  virtual ~Store();
+  // Closes the database. Blocks until background work of RocksDB has stopped.
+  ~Store();
 
   bool is_primary() const;
 
@@ -168,10 +180,12 @@ class Store {
 
   // Appends events with consecutive sequence numbers in one atomic, durable write (fsync
   // when options.sync). Events whose event_id was seen within the de-duplication window
-  // are not appended again (reported in the result). On error nothing was appended.
+  // are not appended again (reported in the result); so are repeats of one event_id within
+  // the batch. InvalidArgument for an event with an empty user or item id; Corruption if a
+  // stored de-duplication record is unreadable. On error nothing was appended.
   Status AppendEvents(std::span<const EventInput> events, AppendResult* result);
 
-  // Up to `max_events` events with sequence > after_seq, in order.
+  // Replaces *out with up to `max_events` events with sequence > after_seq, in order.
   Status ReadEvents(uint64_t after_seq, size_t max_events, std::vector<Event>* out) const;
 
   // Highest sequence number in the log, 0 when empty.
@@ -201,9 +215,15 @@ class Store {
   Status LoadItemDegrees(std::vector<uint32_t>* degrees) const;
 
   // Applies `change` atomically and durably. With a version, assigns its number (when
-  // manifest.version is 0), writes manifest and all blocks, then deletes versions beyond
-  // keep_versions (never the active one). `published` receives the version number (0 when
-  // none). InvalidArgument on inconsistent input; nothing is written then.
+  // manifest.version is 0; an explicit number must be higher than any published before),
+  // sets created_ms to now when 0, writes manifest and all blocks, then deletes versions
+  // beyond keep_versions (never the active one). `published` receives the version number
+  // (0 when none). Everything is checked before anything is written: InvalidArgument for
+  // inconsistent input (index gaps, known or repeated external ids, interactions or
+  // degrees naming unknown indexes, a cursor beyond LastSequence(), matrix or degree sizes
+  // that differ from the manifest, more rows than the dictionaries hold, reserved or empty
+  // meta keys); `activate` of a version not kept gives NotFound, of an incomplete one
+  // FailedPrecondition. Nothing is written then.
   Status Commit(const StateChange& change, uint64_t* published = nullptr);
 
   // ---- versions -------------------------------------------------------------------
@@ -224,17 +244,16 @@ class Store {
   // The item degrees stored with a version (num_items values).
   Status ReadVersionDegrees(uint64_t version, std::vector<uint32_t>* out) const;
 
-  // Makes a kept, complete version active. NotFound / FailedPrecondition otherwise.
+  // Makes a kept, complete version active (manifest readable, every block present and of
+  // the right size). NotFound / FailedPrecondition (naming the damaged record) otherwise.
   Status Activate(uint64_t version);
 
   // Named meta values set through StateChange::meta. NotFound when unset.
   Status GetMeta(std::string_view key, std::string* value) const;
 
- protected:
-  Store();
-
  private:
   struct Impl;
+  explicit Store(std::unique_ptr<Impl> impl);
   std::unique_ptr<Impl> impl_;
 };
 

@@ -1,0 +1,27 @@
+// TEST ONLY — never call from a shipped binary (the target plumb_store_testing is linked
+// only by tests). Reads and overwrites single raw records of a *closed* store, bypassing
+// every check of Store, so that tests can damage a store on purpose and see that the store
+// reports Corruption instead of crashing or returning garbage.
+//
+// `family` is a column family name (store/keys.h: keys::kEventsFamily, ...); keys are built
+// with the functions of store/keys.h. Each call opens the database, does one synced write
+// or one read, and closes it again; it fails with IoError while a Store holds the directory.
+#pragma once
+
+#include <string>
+#include <string_view>
+
+#include "core/status.h"
+
+namespace plumb::store::testing {
+
+Status PutRawRecord(const std::string& dir, std::string_view family, std::string_view key,
+                    std::string_view value);
+
+Status DeleteRawRecord(const std::string& dir, std::string_view family, std::string_view key);
+
+// NotFound when the key is absent.
+Status GetRawRecord(const std::string& dir, std::string_view family, std::string_view key,
+                    std::string* value);
+
+}  // namespace plumb::store::testing

@@ -1,0 +1,123 @@
+#include "store/records.h"
+
+#include <google/protobuf/io/coded_stream.h>
+#include <google/protobuf/io/zero_copy_stream_impl_lite.h>
+
+#include "plumb/v1/storage.pb.h"
+
+namespace plumb::store::records {
+
+using plumb::v1::storage::StoredEvent;
+using plumb::v1::storage::StoredManifest;
+
+std::string EncodeEvent(const EventInput& event, int64_t received_ms) {
+  StoredEvent stored;
+  stored.set_user_id(event.user_id);
+  stored.set_item_id(event.item_id);
+  stored.set_timestamp_ms(event.timestamp_ms);
+  stored.set_event_id(event.event_id);
+  stored.set_weight(event.weight);
+  stored.set_received_ms(received_ms);
+  std::string out;
+  stored.SerializeToString(&out);
+  return out;
+}
+
+bool DecodeEvent(std::string_view value, uint64_t seq, Event* out, std::string* why) {
+  StoredEvent stored;
+  if (!stored.ParseFromArray(value.data(), static_cast<int>(value.size()))) {
+    *why = "value does not parse as an event record";
+    return false;
+  }
+  if (stored.user_id().empty() || stored.item_id().empty()) {
+    *why = "record has no user or item id";
+    return false;
+  }
+  if (stored.received_ms() <= 0) {
+    *why = "record has no receive time (truncated?)";
+    return false;
+  }
+  out->user_id = stored.user_id();
+  out->item_id = stored.item_id();
+  out->timestamp_ms = stored.timestamp_ms();
+  out->event_id = stored.event_id();
+  out->weight = stored.weight();
+  out->seq = seq;
+  out->received_ms = stored.received_ms();
+  return true;
+}
+
+std::string EncodeManifest(const VersionManifest& manifest, uint32_t rows_per_block) {
+  StoredManifest stored;
+  stored.set_version(manifest.version);
+  stored.set_created_ms(manifest.created_ms);
+  stored.set_objective(manifest.objective);
+  stored.set_events_seen(manifest.events_seen);
+  stored.set_num_users(manifest.num_users);
+  stored.set_num_items(manifest.num_items);
+  stored.set_dim(manifest.dim);
+  stored.set_rows_per_block(rows_per_block);
+  stored.set_validation_recall(manifest.validation_recall);
+  stored.set_validation_k(manifest.validation_k);
+  stored.set_gate(static_cast<int32_t>(manifest.gate));
+  stored.set_gate_reason(manifest.gate_reason);
+  for (const auto& [name, value] : manifest.figures) (*stored.mutable_figures())[name] = value;
+  stored.set_num_interactions(manifest.num_interactions);
+  std::string out;
+  // Deterministic so that the same manifest always yields the same bytes (map order).
+  {
+    google::protobuf::io::StringOutputStream stream(&out);
+    google::protobuf::io::CodedOutputStream coded(&stream);
+    coded.SetSerializationDeterministic(true);
+    stored.SerializeToCodedStream(&coded);
+  }
+  return out;
+}
+
+bool DecodeManifest(std::string_view value, uint64_t version, VersionManifest* out,
+                    uint32_t* rows_per_block, std::string* why) {
+  StoredManifest stored;
+  if (!stored.ParseFromArray(value.data(), static_cast<int>(value.size()))) {
+    *why = "value does not parse as a manifest record";
+    return false;
+  }
+  if (stored.version() != version) {
+    *why = "record names version " + std::to_string(stored.version());
+    return false;
+  }
+  if (stored.rows_per_block() == 0) {
+    *why = "record has no block size";
+    return false;
+  }
+  if (stored.dim() == 0 && (stored.num_users() > 0 || stored.num_items() > 0)) {
+    *why = "record has rows but dimension 0";
+    return false;
+  }
+  if (stored.created_ms() <= 0) {
+    *why = "record has no creation time";
+    return false;
+  }
+  if (stored.gate() < static_cast<int32_t>(GateOutcome::kUnspecified) ||
+      stored.gate() > static_cast<int32_t>(GateOutcome::kSkipped)) {
+    *why = "record has unknown gate outcome " + std::to_string(stored.gate());
+    return false;
+  }
+  out->version = stored.version();
+  out->created_ms = stored.created_ms();
+  out->objective = stored.objective();
+  out->events_seen = stored.events_seen();
+  out->num_interactions = stored.num_interactions();
+  out->num_users = stored.num_users();
+  out->num_items = stored.num_items();
+  out->dim = stored.dim();
+  out->validation_recall = stored.validation_recall();
+  out->validation_k = stored.validation_k();
+  out->gate = static_cast<GateOutcome>(stored.gate());
+  out->gate_reason = stored.gate_reason();
+  out->figures.clear();
+  for (const auto& [name, figure] : stored.figures()) out->figures[name] = figure;
+  *rows_per_block = stored.rows_per_block();
+  return true;
+}
+
+}  // namespace plumb::store::records

@@ -24,13 +24,7 @@ float CprMargin(const float* const* p, const float* const* q, uint32_t k, uint32
 }  // namespace
 
 float CprObjective::Margin(const Embeddings& model, const Sample& sample) const {
-  const float* p[kMaxSampleSlots];
-  const float* q[kMaxSampleSlots];
-  for (uint32_t t = 0; t < sample.k; ++t) {
-    p[t] = model.user_row(sample.users[t]);
-    q[t] = model.item_row(sample.items[t]);
-  }
-  return CprMargin(p, q, sample.k, model.dim());
+  return CprMarginOf(sample, [&model](uint32_t u, uint32_t i) { return model.Score(u, i); });
 }
 
 float CprObjective::LossAndGradient(const Embeddings& model, const Sample& sample,

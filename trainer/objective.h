@@ -129,6 +129,22 @@ class BceObjective final : public Objective {
   uint32_t Positives(const Sample&) const override { return 1; }
 };
 
+// The CPR margin m = (1/k) (sum_t s(u_t, i_t) - sum_t s(u_t, i_{t+1 mod k})) of a sample
+// under any score function score(user, item) -> T (float or double). CprObjective::Margin is
+// this with the model's dot-product score; tests use it to check that additive user and
+// item terms cancel.
+template <typename ScoreFn>
+auto CprMarginOf(const Sample& sample, ScoreFn&& score) {
+  using T = decltype(score(sample.users[0], sample.items[0]));
+  const uint32_t k = sample.k;
+  T sum = 0;
+  for (uint32_t t = 0; t < k; ++t) {
+    const uint32_t next = (t + 1 == k) ? 0 : t + 1;
+    sum += score(sample.users[t], sample.items[t]) - score(sample.users[t], sample.items[next]);
+  }
+  return sum / static_cast<T>(k);
+}
+
 // The objective of a kind (stateless, so one instance serves any number of threads).
 std::unique_ptr<Objective> MakeObjective(ObjectiveKind kind);
 

@@ -1,0 +1,292 @@
+#include "trainer/synth.h"
+
+#include <algorithm>
+#include <cmath>
+#include <filesystem>
+#include <fstream>
+#include <numeric>
+#include <string>
+#include <system_error>
+
+#include "trainer/rng.h"
+
+namespace plumb::trainer {
+
+namespace {
+
+// Stream ids for mix_seed, one per purpose, so that changing one part of the world (say the
+// test size) leaves the others unchanged.
+enum Stream : uint64_t {
+  kTasteStream = 1,
+  kTraitStream,
+  kAppealStream,
+  kVisibilityStream,
+  kActivityStream,
+  kCalibrationStream,
+  kBorrowStream,
+  kTestStream,
+  kNameStream,
+};
+
+constexpr const char* kAdjectives[] = {
+    "cordless", "heavy-duty", "folding", "compact", "telescopic", "electric", "manual",
+    "adjustable", "extra-long", "lightweight", "petrol", "rechargeable", "two-speed",
+    "industrial", "mini", "wide", "quick-release", "ergonomic", "steel", "weatherproof"};
+constexpr const char* kTools[] = {
+    "hedge trimmer", "drill", "ladder", "circular saw", "jigsaw", "lawn mower", "leaf blower",
+    "pressure washer", "wheelbarrow", "sander", "tile cutter", "wallpaper steamer",
+    "socket set", "stud finder", "chainsaw", "post hole digger", "paint sprayer", "router",
+    "angle grinder", "workbench", "spirit level", "pipe wrench", "soldering iron", "glue gun",
+    "carpet cleaner", "log splitter", "rotavator", "scaffold tower", "nail gun", "jack stand"};
+
+double Logistic(double x) { return 1.0 / (1.0 + std::exp(-x)); }
+
+}  // namespace
+
+Status ValidateSynthOptions(const SynthOptions& o) {
+  auto bad = [](const std::string& m) { return Status::InvalidArgument("synth: " + m); };
+  if (o.users < 2 || o.users > 10'000'000) return bad("users must be in 2..10000000");
+  if (o.items < 2 || o.items > 10'000'000) return bad("items must be in 2..10000000");
+  if (o.truth_dim < 1 || o.truth_dim > 256) return bad("truth_dim must be in 1..256");
+  if (!(o.alpha >= 0.0 && o.alpha <= 10.0)) return bad("alpha must be in [0, 10]");
+  if (!(o.zipf >= 0.0 && o.zipf <= 5.0)) return bad("zipf must be in [0, 5]");
+  if (!(o.activity_sigma >= 0.0 && o.activity_sigma <= 5.0)) {
+    return bad("activity_sigma must be in [0, 5]");
+  }
+  if (o.target_interactions < 1) return bad("target_interactions must be >= 1");
+  if (static_cast<double>(o.target_interactions) >
+      0.5 * static_cast<double>(o.users) * static_cast<double>(o.items)) {
+    return bad("target_interactions must be at most half of users x items");
+  }
+  if (!(std::isfinite(o.relevance_scale) && std::isfinite(o.relevance_offset) &&
+        o.appeal_sigma >= 0.0 && std::isfinite(o.appeal_sigma))) {
+    return bad("relevance parameters must be finite (appeal_sigma >= 0)");
+  }
+  if (o.test_items_per_user > o.items) return bad("test_items_per_user must be <= items");
+  if (o.days < 1) return bad("days must be >= 1");
+  return Status::Ok();
+}
+
+double SynthWorld::Relevance(uint32_t user, uint32_t item) const {
+  const double dot =
+      static_cast<double>(user_taste.row(user).dot(item_traits.row(item))) /
+      std::sqrt(static_cast<double>(options.truth_dim));
+  return Logistic(options.relevance_scale * dot + item_appeal[item] + options.relevance_offset);
+}
+
+void SynthWorld::TrueScores(uint32_t user, std::span<float> scores) const {
+  const double norm = 1.0 / std::sqrt(static_cast<double>(options.truth_dim));
+  for (uint32_t i = 0; i < options.items && i < scores.size(); ++i) {
+    const double dot = static_cast<double>(user_taste.row(user).dot(item_traits.row(i))) * norm;
+    scores[i] = static_cast<float>(options.relevance_scale * dot + item_appeal[i]);
+  }
+}
+
+Status SynthWorld::TrainInteractions(Interactions* out) const {
+  std::vector<Pair> pairs;
+  pairs.reserve(events.size());
+  for (const SynthEvent& e : events) pairs.push_back(Pair{e.user, e.item});
+  return Interactions::Build(pairs, options.users, options.items, out);
+}
+
+// Built by append: GCC 12 warns falsely (-Wrestrict) on "x" + std::to_string(n).
+std::string MemberLabel(uint32_t user) {
+  std::string s = "m";
+  s.append(std::to_string(user));
+  return s;
+}
+std::string ToolLabel(uint32_t item) {
+  std::string s = "t";
+  s.append(std::to_string(item));
+  return s;
+}
+
+Status GenerateSynthWorld(const SynthOptions& o, SynthWorld* out) {
+  PLUMB_RETURN_IF_ERROR(ValidateSynthOptions(o));
+  SynthWorld w;
+  w.options = o;
+  const uint32_t U = o.users, I = o.items, D = o.truth_dim;
+
+  // Latent truth.
+  w.user_taste.resize(U, D);
+  w.item_traits.resize(I, D);
+  for (uint32_t u = 0; u < U; ++u) {
+    Rng rng(mix_seed(o.seed, kTasteStream, u));
+    for (uint32_t d = 0; d < D; ++d) w.user_taste(u, d) = static_cast<float>(rng.Normal());
+  }
+  w.item_appeal.resize(I);
+  for (uint32_t i = 0; i < I; ++i) {
+    Rng rng(mix_seed(o.seed, kTraitStream, i));
+    for (uint32_t d = 0; d < D; ++d) w.item_traits(i, d) = static_cast<float>(rng.Normal());
+    Rng arng(mix_seed(o.seed, kAppealStream, i));
+    w.item_appeal[i] = o.appeal_sigma * arng.Normal();
+  }
+
+  // Visibility: a random shelf order (Fisher-Yates) and a Zipf-like curve over it.
+  std::vector<uint32_t> by_rank(I);
+  std::iota(by_rank.begin(), by_rank.end(), 0u);
+  {
+    Rng rng(mix_seed(o.seed, kVisibilityStream));
+    for (uint32_t n = I - 1; n > 0; --n) std::swap(by_rank[n], by_rank[rng.Uniform(n + 1)]);
+  }
+  std::vector<double> vis_at_rank(I);
+  w.item_visibility.resize(I);
+  for (uint32_t r = 0; r < I; ++r) {
+    vis_at_rank[r] = std::pow(static_cast<double>(r) + 1.0, -o.zipf);
+    w.item_visibility[by_rank[r]] = vis_at_rank[r];
+  }
+  w.user_activity.resize(U);
+  for (uint32_t u = 0; u < U; ++u) {
+    Rng rng(mix_seed(o.seed, kActivityStream, u));
+    w.user_activity[u] = std::exp(o.activity_sigma * rng.Normal());
+  }
+
+  // Calibrate c by Monte Carlo over random pairs: E[count](c) = U I mean(r min(1, c e_u e_i r^a)).
+  {
+    constexpr uint32_t kProbes = 1u << 19;
+    Rng rng(mix_seed(o.seed, kCalibrationStream));
+    std::vector<double> rel(kProbes), rel_a(kProbes), ee(kProbes);
+    for (uint32_t m = 0; m < kProbes; ++m) {
+      const uint32_t u = static_cast<uint32_t>(rng.Uniform(U));
+      const uint32_t i = static_cast<uint32_t>(rng.Uniform(I));
+      rel[m] = w.Relevance(u, i);
+      rel_a[m] = std::pow(rel[m], o.alpha);
+      ee[m] = w.user_activity[u] * w.item_visibility[i];
+    }
+    const double pairs = static_cast<double>(U) * static_cast<double>(I);
+    auto expected = [&](double c) {
+      double s = 0.0;
+      for (uint32_t m = 0; m < kProbes; ++m) s += rel[m] * std::min(1.0, c * ee[m] * rel_a[m]);
+      return s / kProbes * pairs;
+    };
+    const double target = static_cast<double>(o.target_interactions);
+    double lo = -30.0, hi = 30.0;  // log c
+    if (expected(std::exp(hi)) < target) {
+      return Status::InvalidArgument(
+          "synth: target_interactions is unreachable: even with full exposure only about " +
+          std::to_string(static_cast<uint64_t>(expected(std::exp(hi)))) +
+          " interactions are relevant; raise relevance_offset or lower the target");
+    }
+    for (int it = 0; it < 100; ++it) {
+      const double mid = 0.5 * (lo + hi);
+      (expected(std::exp(mid)) < target ? lo : hi) = mid;
+    }
+    w.exposure_scale = std::exp(0.5 * (lo + hi));
+  }
+
+  // Borrowings, member by member, by thinning (see the header).
+  const double c = w.exposure_scale;
+  const int64_t window_ms = static_cast<int64_t>(o.days) * 86'400'000;
+  std::vector<std::vector<uint32_t>> seen(U);
+  for (uint32_t u = 0; u < U; ++u) {
+    Rng rng(mix_seed(o.seed, kBorrowStream, u));
+    const double a_u = c * w.user_activity[u];
+    auto consider = [&](uint32_t rank, double bound) {
+      const uint32_t item = by_rank[rank];
+      const double r = w.Relevance(u, item);
+      const double p = r * std::min(1.0, a_u * vis_at_rank[rank] * std::pow(r, o.alpha));
+      if (rng.UniformDouble() * bound < p) {
+        seen[u].push_back(item);
+        w.events.push_back(SynthEvent{u, item, o.start_ms + static_cast<int64_t>(
+                                                               rng.Uniform(window_ms))});
+      }
+    };
+    // Blocks of ranks [s, 2s + 1): within a block the candidate probability
+    // min(1, a_u vis) is at most its value at the block's first rank.
+    for (uint32_t s = 0; s < I;) {
+      const uint32_t end = static_cast<uint32_t>(std::min<uint64_t>(I, 2ull * s + 1));
+      const double p_max = std::min(1.0, a_u * vis_at_rank[s]);
+      if (p_max >= 0.25) {
+        for (uint32_t rank = s; rank < end; ++rank) {
+          const double p = std::min(1.0, a_u * vis_at_rank[rank]);
+          if (rng.UniformDouble() < p) consider(rank, p);
+        }
+      } else if (p_max > 0.0) {
+        const double log_q = std::log1p(-p_max);
+        uint64_t rank = s;
+        while (true) {
+          // Failures before the next success of a Bernoulli(p_max) sequence.
+          const double uni = 1.0 - rng.UniformDouble();  // (0, 1]
+          const double skip = std::floor(std::log(uni) / log_q);
+          if (skip >= static_cast<double>(end - rank)) break;
+          rank += static_cast<uint64_t>(skip);
+          const double p = std::min(1.0, a_u * vis_at_rank[rank]);
+          if (rng.UniformDouble() * p_max < p) consider(static_cast<uint32_t>(rank), p);
+          ++rank;
+        }
+      }
+      s = end;
+    }
+    std::sort(seen[u].begin(), seen[u].end());
+  }
+  std::sort(w.events.begin(), w.events.end(), [](const SynthEvent& a, const SynthEvent& b) {
+    if (a.ts_ms != b.ts_ms) return a.ts_ms < b.ts_ms;
+    return a.user != b.user ? a.user < b.user : a.item < b.item;
+  });
+
+  // Debiased test set: uniform proposals over the catalogue, accepted by a fresh relevance
+  // draw, never an observed tool.
+  for (uint32_t u = 0; u < U && o.test_items_per_user > 0; ++u) {
+    if (seen[u].empty()) continue;
+    Rng rng(mix_seed(o.seed, kTestStream, u));
+    std::vector<uint32_t> chosen;
+    const uint64_t max_probes = std::max<uint64_t>(4ull * I, 200ull * o.test_items_per_user);
+    for (uint64_t probe = 0; probe < max_probes && chosen.size() < o.test_items_per_user;
+         ++probe) {
+      const uint32_t i = static_cast<uint32_t>(rng.Uniform(I));
+      if (std::binary_search(seen[u].begin(), seen[u].end(), i)) continue;
+      if (std::find(chosen.begin(), chosen.end(), i) != chosen.end()) continue;
+      if (rng.Bernoulli(w.Relevance(u, i))) chosen.push_back(i);
+    }
+    std::sort(chosen.begin(), chosen.end());
+    for (uint32_t i : chosen) w.test.push_back(Pair{u, i});
+  }
+
+  // Names: adjective + tool + a serial number per (adjective, tool) combination.
+  {
+    Rng rng(mix_seed(o.seed, kNameStream));
+    constexpr size_t kA = std::size(kAdjectives), kT = std::size(kTools);
+    std::vector<uint32_t> serial(kA * kT, 0);
+    w.item_names.reserve(I);
+    for (uint32_t i = 0; i < I; ++i) {
+      const size_t a = rng.Uniform(kA), t = rng.Uniform(kT);
+      w.item_names.push_back(std::string(kAdjectives[a]) + " " + kTools[t] + " #" +
+                             std::to_string(++serial[a * kT + t]));
+    }
+  }
+  *out = std::move(w);
+  return Status::Ok();
+}
+
+Status WriteSynthCsv(const SynthWorld& world, const std::string& dir) {
+  std::error_code ec;
+  std::filesystem::create_directories(dir, ec);
+  if (ec) return Status::IoError("cannot create directory " + dir + ": " + ec.message());
+  auto write = [&](const std::string& name, auto&& body) -> Status {
+    const std::string path = (std::filesystem::path(dir) / name).string();
+    std::ofstream f(path, std::ios::out | std::ios::trunc);
+    if (!f) return Status::IoError("cannot open " + path + " for writing");
+    body(f);
+    f.flush();
+    if (!f) return Status::IoError("error writing " + path);
+    return Status::Ok();
+  };
+  PLUMB_RETURN_IF_ERROR(write("events.csv", [&](std::ofstream& f) {
+    f << "user,item,ts\n";
+    for (const SynthEvent& e : world.events) {
+      f << 'm' << e.user << ",t" << e.item << ',' << e.ts_ms << '\n';
+    }
+  }));
+  PLUMB_RETURN_IF_ERROR(write("test.csv", [&](std::ofstream& f) {
+    f << "user,item\n";
+    for (const Pair& p : world.test) f << 'm' << p.user << ",t" << p.item << '\n';
+  }));
+  return write("items.csv", [&](std::ofstream& f) {
+    f << "item,name\n";
+    for (size_t i = 0; i < world.item_names.size(); ++i) {
+      f << 't' << i << ',' << world.item_names[i] << '\n';
+    }
+  });
+}
+
+}  // namespace plumb::trainer

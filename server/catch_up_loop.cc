@@ -1,0 +1,88 @@
+#include "server/catch_up_loop.h"
+
+#include <spdlog/spdlog.h>
+
+#include "store/store.h"
+
+namespace plumb::server {
+
+CatchUpLoop::CatchUpLoop(store::Store* store, SnapshotHolder* holder, CatchUpOptions options)
+    : store_(store), holder_(holder), options_(std::move(options)) {}
+
+CatchUpLoop::~CatchUpLoop() { Stop(); }
+
+Status CatchUpLoop::RunOnce() {
+  Status s = store_->CatchUp();
+  if (!s.ok()) {
+    // A secondary that cannot catch up keeps serving what it has; log once per new error
+    // rather than every interval.
+    if (s.message() != last_catch_up_error_) {
+      spdlog::warn("catch-up with the primary failed: {}", s.ToString());
+      last_catch_up_error_ = s.message();
+    }
+    return s;
+  }
+  if (!last_catch_up_error_.empty()) {
+    spdlog::info("catch-up with the primary works again");
+    last_catch_up_error_.clear();
+  }
+
+  uint64_t active = 0;
+  PLUMB_RETURN_IF_ERROR(store_->GetActiveVersion(&active));
+  if (active == 0) return Status::Ok();  // nothing published yet
+  std::shared_ptr<const Snapshot> current = holder_->Get();
+  if (current != nullptr && current->version() == active) return Status::Ok();
+  if (active == failed_version_) return Status::Ok();  // already reported; wait for another
+
+  const auto start = std::chrono::steady_clock::now();
+  loads_.fetch_add(1, std::memory_order_relaxed);
+  std::shared_ptr<const Snapshot> next;
+  s = LoadSnapshot(*store_, active, &next);
+  const double seconds =
+      std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+  if (!s.ok()) {
+    failed_version_ = active;
+    failed_loads_.fetch_add(1, std::memory_order_relaxed);
+    spdlog::error("version {} failed to load and is skipped ({}); still serving {}", active,
+                  s.ToString(),
+                  current ? "version " + std::to_string(current->version()) : "nothing");
+    if (options_.on_load_failure) options_.on_load_failure(active, s);
+    return s;
+  }
+  failed_version_ = 0;
+  // Release our reference to the old snapshot before swapping, so that its memory goes as
+  // soon as the last request holding it ends.
+  current.reset();
+  std::shared_ptr<const Snapshot> previous = holder_->Swap(next);
+  swaps_.fetch_add(1, std::memory_order_relaxed);
+  spdlog::info("serving version {} ({} items, {} users, dim {}, {:.1f} MB) after {:.3f} s{}",
+               next->version(), next->num_items(), next->num_users(), next->dim(),
+               next->memory_bytes() / 1e6, seconds,
+               previous ? "; replaced version " + std::to_string(previous->version()) : "");
+  previous.reset();
+  if (options_.on_swap) options_.on_swap(*next, seconds);
+  return Status::Ok();
+}
+
+void CatchUpLoop::Start() { thread_ = std::thread([this] { Run(); }); }
+
+void CatchUpLoop::Stop() {
+  {
+    std::lock_guard<std::mutex> lock(mu_);
+    stopping_ = true;
+  }
+  wake_.notify_all();
+  if (thread_.joinable()) thread_.join();
+}
+
+void CatchUpLoop::Run() {
+  std::unique_lock<std::mutex> lock(mu_);
+  while (!stopping_) {
+    lock.unlock();
+    (void)RunOnce();  // errors are logged and counted inside
+    lock.lock();
+    wake_.wait_for(lock, options_.interval, [this] { return stopping_; });
+  }
+}
+
+}  // namespace plumb::server

@@ -1,0 +1,84 @@
+// CatchUpLoop: keeps the serving snapshot in step with the store's active version.
+//
+// Every interval it asks the store (a RocksDB secondary) to catch up with the primary,
+// reads the active version and, when that differs from the serving one, builds the new
+// snapshot on this thread (off the request path) and swaps it into the holder. A version
+// that fails to load is logged, counted and not retried until the active version changes
+// again; the old snapshot keeps serving.
+#pragma once
+
+#include <atomic>
+#include <chrono>
+#include <condition_variable>
+#include <cstdint>
+#include <functional>
+#include <mutex>
+#include <string>
+#include <thread>
+
+#include "core/status.h"
+#include "server/snapshot_holder.h"
+
+namespace plumb::store {
+class Store;
+}
+
+namespace plumb::server {
+
+struct CatchUpOptions {
+  // Time between rounds.
+  std::chrono::milliseconds interval{500};
+  // Called on the loop's thread after a new snapshot became current, with the seconds
+  // spent loading it. May be empty.
+  std::function<void(const Snapshot& current, double load_seconds)> on_swap;
+  // Called on the loop's thread when a version failed to load. May be empty.
+  std::function<void(uint64_t version, const Status& why)> on_load_failure;
+};
+
+class CatchUpLoop {
+ public:
+  // `store` and `holder` are borrowed and must outlive the loop.
+  CatchUpLoop(store::Store* store, SnapshotHolder* holder, CatchUpOptions options);
+  CatchUpLoop(const CatchUpLoop&) = delete;
+  CatchUpLoop& operator=(const CatchUpLoop&) = delete;
+  // Stops the thread if it runs.
+  ~CatchUpLoop();
+
+  // One round: catch up, read the active version, load and swap if it changed. Returns
+  // the first error of the round (catch-up, version read or load), OK otherwise, including
+  // when there was nothing to do. Not to be called concurrently with itself; main calls it
+  // once before Start() so that a server with a version on disk is ready when it listens.
+  Status RunOnce();
+
+  // Starts the background thread, which calls RunOnce every interval. Call at most once.
+  void Start();
+  // Asks the thread to finish its round and joins it. Idempotent; call from one thread
+  // (the owner), like the destructor.
+  void Stop();
+
+  // Counters, readable from any thread.
+  uint64_t loads() const { return loads_.load(std::memory_order_relaxed); }
+  uint64_t swaps() const { return swaps_.load(std::memory_order_relaxed); }
+  uint64_t failed_loads() const { return failed_loads_.load(std::memory_order_relaxed); }
+
+ private:
+  void Run();
+
+  store::Store* const store_;
+  SnapshotHolder* const holder_;
+  const CatchUpOptions options_;
+
+  uint64_t failed_version_ = 0;  // last version that failed to load (loop thread only)
+  std::string last_catch_up_error_;
+
+  std::atomic<uint64_t> loads_{0};
+  std::atomic<uint64_t> swaps_{0};
+  std::atomic<uint64_t> failed_loads_{0};
+
+  std::mutex mu_;
+  std::condition_variable wake_;
+  bool stopping_ = false;
+  std::thread thread_;
+};
+
+}  // namespace plumb::server

@@ -1,0 +1,156 @@
+// plumb-serve: the ranking endpoint. Follows the trainer's store as a RocksDB secondary,
+// serves plumb.v1.Ranker from the active version, hot-swaps new versions, exports
+// Prometheus metrics. See serve_config.h for the settings.
+#include <signal.h>
+#include <stdlib.h>
+
+#include <atomic>
+#include <cstdio>
+#include <filesystem>
+#include <iostream>
+#include <memory>
+
+#include <prometheus/exposer.h>
+#include <spdlog/sinks/stdout_color_sinks.h>
+#include <spdlog/spdlog.h>
+
+#include "server/catch_up_loop.h"
+#include "server/exposure_sink.h"
+#include "server/ranker_service.h"
+#include "server/ranking_server.h"
+#include "server/scorer.h"
+#include "server/serve_config.h"
+#include "server/serving_metrics.h"
+#include "server/snapshot_holder.h"
+#include "store/store.h"
+
+namespace {
+
+using namespace plumb::server;
+
+// A directory of our own for the secondary's info log, removed at exit if we made it.
+class ScratchDir {
+ public:
+  plumb::Status Init(const std::string& wanted) {
+    if (!wanted.empty()) {
+      path_ = wanted;
+      return plumb::Status::Ok();
+    }
+    std::error_code ec;
+    std::filesystem::path base = std::filesystem::temp_directory_path(ec);
+    if (ec) base = "/tmp";
+    std::string templ = (base / "plumb-serve-XXXXXX").string();
+    if (::mkdtemp(templ.data()) == nullptr) {
+      return plumb::Status::IoError("cannot create a scratch directory under " + base.string());
+    }
+    path_ = templ;
+    owned_ = true;
+    return plumb::Status::Ok();
+  }
+  ~ScratchDir() {
+    if (!owned_) return;
+    std::error_code ec;
+    std::filesystem::remove_all(path_, ec);
+  }
+  const std::string& path() const { return path_; }
+
+ private:
+  std::string path_;
+  bool owned_ = false;
+};
+
+int Serve(const ServeConfig& config, const sigset_t& signals) {
+  ScratchDir scratch;
+  plumb::Status s = scratch.Init(config.scratch_dir);
+  if (!s.ok()) {
+    spdlog::critical("{}", s.ToString());
+    return 1;
+  }
+  std::unique_ptr<plumb::store::Store> store;
+  s = plumb::store::Store::OpenSecondary(config.db, scratch.path(), &store);
+  if (!s.ok()) {
+    spdlog::critical("cannot open store '{}' as a secondary: {}", config.db, s.ToString());
+    return 1;
+  }
+
+  SnapshotHolder holder;
+  Scorer scorer(config.fold_in);
+  ExposureCounter exposure;
+  std::atomic<RankingServer*> endpoint{nullptr};
+  CatchUpOptions follow;
+  follow.interval = std::chrono::milliseconds(config.catchup_interval_ms);
+  follow.on_swap = [&endpoint](const Snapshot&, double) {
+    if (RankingServer* server = endpoint.load()) server->SetServing(true);
+  };
+  CatchUpLoop loop(store.get(), &holder, follow);
+  // Load what is on disk before listening, so that a restarted server is ready at once
+  // even if no trainer runs.
+  s = loop.RunOnce();
+  if (holder.Get() == nullptr) {
+    spdlog::warn("no loadable active version in '{}' yet{}; answering UNAVAILABLE until one "
+                 "appears",
+                 config.db, s.ok() ? "" : " (" + s.ToString() + ")");
+  }
+
+  auto metrics = std::make_shared<ServingMetrics>(&holder, &loop, &exposure);
+  RankerService service(&holder, &scorer, config.limits, &exposure, metrics.get());
+
+  std::unique_ptr<prometheus::Exposer> exposer;
+  if (!config.metrics.empty()) {
+    try {
+      exposer = std::make_unique<prometheus::Exposer>(config.metrics);
+    } catch (const std::exception& e) {
+      spdlog::critical("cannot serve metrics on '{}': {}", config.metrics, e.what());
+      return 1;
+    }
+    exposer->RegisterCollectable(metrics);
+    for (int port : exposer->GetListeningPorts()) spdlog::info("metrics on port {}", port);
+  }
+
+  std::unique_ptr<RankingServer> server;
+  s = RankingServer::Start(config.endpoint, &service, &server);
+  if (!s.ok()) {
+    spdlog::critical("{}", s.ToString());
+    return 1;
+  }
+  endpoint.store(server.get());
+  server->SetServing(holder.Get() != nullptr);
+  loop.Start();
+  spdlog::info("plumb-serve listening on port {} ({}{}), metrics on {}", server->port(),
+               config.endpoint.listen,
+               config.endpoint.tls_cert_file.empty() ? "" : ", TLS",
+               config.metrics.empty() ? "none" : config.metrics);
+
+  int signal_number = 0;
+  sigwait(&signals, &signal_number);
+  spdlog::info("received {}; finishing in-flight calls (up to {} ms) and stopping",
+               signal_number == SIGTERM ? "SIGTERM" : "SIGINT", config.shutdown_grace_ms);
+  server->Shutdown(std::chrono::milliseconds(config.shutdown_grace_ms));
+  loop.Stop();
+  endpoint.store(nullptr);
+  exposer.reset();
+  server.reset();
+  spdlog::info("stopped after serving {} lists", exposure.lists());
+  return 0;
+}
+
+}  // namespace
+
+int main(int argc, char** argv) {
+  // Block the shutdown signals before any thread exists, so that every thread (gRPC's,
+  // RocksDB's, the exposer's, the catch-up loop) inherits the mask and only sigwait sees them.
+  sigset_t signals;
+  sigemptyset(&signals);
+  sigaddset(&signals, SIGTERM);
+  sigaddset(&signals, SIGINT);
+  pthread_sigmask(SIG_BLOCK, &signals, nullptr);
+
+  ServeConfig config;
+  const int exit_code = ParseServeConfig(argc, argv, &config, std::cout, std::cerr);
+  if (exit_code >= 0) return exit_code;
+
+  auto logger = spdlog::stderr_color_mt("plumb-serve");
+  spdlog::set_default_logger(logger);
+  spdlog::set_level(spdlog::level::from_str(config.log_level));
+  return Serve(config, signals);
+}

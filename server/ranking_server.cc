@@ -1,0 +1,106 @@
+#include "server/ranking_server.h"
+
+#include <algorithm>
+#include <fstream>
+#include <sstream>
+#include <thread>
+
+#include <grpcpp/ext/proto_server_reflection_plugin.h>
+#include <grpcpp/health_check_service_interface.h>
+
+namespace plumb::server {
+
+namespace {
+
+constexpr const char* kRankerServiceName = "plumb.v1.Ranker";
+
+Status ReadFile(const std::string& path, const char* what, std::string* out) {
+  std::ifstream in(path, std::ios::binary);
+  if (!in) return Status::IoError("cannot read " + std::string(what) + " file '" + path + "'");
+  std::ostringstream content;
+  content << in.rdbuf();
+  *out = content.str();
+  return Status::Ok();
+}
+
+Status Credentials(const EndpointOptions& options,
+                   std::shared_ptr<grpc::ServerCredentials>* out) {
+  const bool cert = !options.tls_cert_file.empty(), key = !options.tls_key_file.empty();
+  if (cert != key) {
+    return Status::InvalidArgument("TLS needs both tls_cert and tls_key (only one was given)");
+  }
+  if (!cert) {
+    if (!options.tls_client_ca_file.empty()) {
+      return Status::InvalidArgument("tls_client_ca needs tls_cert and tls_key");
+    }
+    *out = grpc::InsecureServerCredentials();
+    return Status::Ok();
+  }
+  grpc::SslServerCredentialsOptions ssl;
+  grpc::SslServerCredentialsOptions::PemKeyCertPair pair;
+  PLUMB_RETURN_IF_ERROR(ReadFile(options.tls_key_file, "TLS key", &pair.private_key));
+  PLUMB_RETURN_IF_ERROR(ReadFile(options.tls_cert_file, "TLS certificate", &pair.cert_chain));
+  ssl.pem_key_cert_pairs.push_back(std::move(pair));
+  if (!options.tls_client_ca_file.empty()) {
+    PLUMB_RETURN_IF_ERROR(
+        ReadFile(options.tls_client_ca_file, "TLS client CA", &ssl.pem_root_certs));
+    ssl.client_certificate_request =
+        GRPC_SSL_REQUEST_AND_REQUIRE_CLIENT_CERTIFICATE_AND_VERIFY;
+  }
+  *out = grpc::SslServerCredentials(ssl);
+  return Status::Ok();
+}
+
+}  // namespace
+
+Status RankingServer::Start(const EndpointOptions& options, grpc::Service* ranker,
+                            std::unique_ptr<RankingServer>* out) {
+  std::shared_ptr<grpc::ServerCredentials> credentials;
+  PLUMB_RETURN_IF_ERROR(Credentials(options, &credentials));
+
+  // Both are process-wide switches that take effect for servers built afterwards.
+  grpc::EnableDefaultHealthCheckService(true);
+  if (options.reflection) grpc::reflection::InitProtoReflectionServerBuilderPlugin();
+
+  const int cores = static_cast<int>(std::max(1u, std::thread::hardware_concurrency()));
+  const int max_threads = options.max_threads > 0 ? options.max_threads : std::max(16, 8 * cores);
+
+  std::unique_ptr<RankingServer> server(new RankingServer());
+  grpc::ServerBuilder builder;
+  builder.AddListeningPort(options.listen, credentials, &server->port_);
+  builder.RegisterService(ranker);
+  builder.SetSyncServerOption(grpc::ServerBuilder::SyncServerOption::NUM_CQS, cores);
+  builder.SetSyncServerOption(grpc::ServerBuilder::SyncServerOption::MIN_POLLERS, 1);
+  builder.SetSyncServerOption(grpc::ServerBuilder::SyncServerOption::MAX_POLLERS, cores);
+  grpc::ResourceQuota quota("plumb-serve");
+  quota.SetMaxThreads(max_threads);
+  builder.SetResourceQuota(quota);
+  server->server_ = builder.BuildAndStart();
+  if (server->server_ == nullptr || server->port_ == 0) {
+    return Status::IoError("cannot listen on '" + options.listen + "'");
+  }
+  server->SetServing(false);
+  *out = std::move(server);
+  return Status::Ok();
+}
+
+RankingServer::~RankingServer() { Shutdown(std::chrono::milliseconds(0)); }
+
+void RankingServer::SetServing(bool serving) {
+  grpc::HealthCheckServiceInterface* health = server_->GetHealthCheckService();
+  if (health == nullptr) return;
+  health->SetServingStatus("", serving);
+  health->SetServingStatus(kRankerServiceName, serving);
+}
+
+void RankingServer::Shutdown(std::chrono::milliseconds grace) {
+  if (shut_down_ || server_ == nullptr) return;
+  shut_down_ = true;
+  if (grpc::HealthCheckServiceInterface* health = server_->GetHealthCheckService()) {
+    health->Shutdown();  // every service NOT_SERVING from now on
+  }
+  server_->Shutdown(std::chrono::system_clock::now() + grace);
+  server_->Wait();
+}
+
+}  // namespace plumb::server

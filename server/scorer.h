@@ -1,0 +1,101 @@
+// Scorer: the ranking domain of plumb-serve. Answers Recommend, RankCandidates and
+// SimilarItems for one snapshot, in external ids in and item indexes out; the gRPC service
+// translates wire messages to these queries and the results back.
+//
+// Exact scoring: one blocked scan of the whole item matrix (core/scan.h) into a bounded
+// top-K selector, skipping excluded rows; no approximation, no full sort. Per-request
+// scratch (selector, score block, exclusion lists, fold-in vector) is thread-local and
+// reused, so a request on a warm thread allocates nothing on the scoring path.
+#pragma once
+
+#include <chrono>
+#include <cstdint>
+#include <span>
+#include <string_view>
+#include <vector>
+
+#include "core/status.h"
+#include "core/topk.h"
+#include "server/fold_in.h"
+#include "server/snapshot.h"
+
+namespace plumb::server {
+
+// What Recommend does for a user the snapshot does not know who brings no usable recent
+// items (mirrors plumb.v1.UnknownUserPolicy).
+enum class UnknownUserPolicy {
+  kFail,            // NotFound naming the user id
+  kMostInteracted,  // the items of highest training degree, marked as a fallback
+};
+
+using Deadline = std::chrono::system_clock::time_point;
+inline constexpr Deadline kNoDeadline = Deadline::max();
+
+struct RecommendQuery {
+  std::string_view user_id;
+  uint32_t count = 0;
+  bool exclude_seen = false;
+  std::span<const std::string_view> exclude_item_ids;  // unknown ids are ignored
+  std::span<const std::string_view> recent_item_ids;   // used only for unknown users
+  UnknownUserPolicy unknown_user = UnknownUserPolicy::kFail;
+  Deadline deadline = kNoDeadline;
+};
+
+struct CandidatesQuery {
+  std::string_view user_id;
+  std::span<const std::string_view> candidate_item_ids;
+  std::span<const std::string_view> recent_item_ids;
+  Deadline deadline = kNoDeadline;
+};
+
+struct SimilarQuery {
+  std::string_view item_id;
+  uint32_t count = 0;
+  std::span<const std::string_view> exclude_item_ids;
+  Deadline deadline = kNoDeadline;
+};
+
+// A ranked answer. Reuse one per thread: the vectors keep their capacity between requests.
+struct RankedList {
+  // Best first (ranks_before: higher score, then smaller index). For the most-interacted
+  // fallback the score is the item's training degree.
+  std::vector<ScoredIndex> items;
+  // RankCandidates: indexes into candidate_item_ids of the candidates the snapshot does not
+  // know, first occurrence of each distinct id, in request order.
+  std::vector<uint32_t> unknown_candidates;
+  uint64_t version = 0;
+  bool folded_in = false;
+  bool fallback = false;
+};
+
+class Scorer {
+ public:
+  explicit Scorer(FoldInOptions fold_in = {}) : fold_in_(fold_in) {}
+
+  // All three methods: thread-safe (scratch is per thread), allocate nothing in steady
+  // state apart from growing *out the first time a thread sees a larger answer. The query's
+  // spans are only read during the call. They expect validated queries (sizes within the
+  // service's limits, non-empty ids). Errors common to all:
+  //   Aborted      the deadline passed before scoring finished (nothing in *out is valid);
+  //   NotFound     the user / item is not known to the snapshot (message names the id).
+
+  // Top `count` items for a user by dot product. A known user uses the stored vector and,
+  // with exclude_seen, skips their seen items; recent_item_ids are then ignored. An
+  // unknown user with known recent items is folded in, and those items are skipped. Request
+  // exclusions are always skipped.
+  Status Recommend(const Snapshot& snap, const RecommendQuery& query, RankedList* out) const;
+
+  // Scores the known candidates (each distinct one once) for a known or folded-in user, best
+  // first; unknown candidates are reported in out->unknown_candidates.
+  Status RankCandidates(const Snapshot& snap, const CandidatesQuery& query,
+                        RankedList* out) const;
+
+  // Top `count` items by cosine similarity to a known item, never the item itself.
+  // FailedPrecondition if the item's vector is zero (cosine undefined).
+  Status SimilarItems(const Snapshot& snap, const SimilarQuery& query, RankedList* out) const;
+
+ private:
+  const FoldInOptions fold_in_;
+};
+
+}  // namespace plumb::server

@@ -1,0 +1,138 @@
+#include "server/serve_config.h"
+
+#include <algorithm>
+#include <limits>
+#include <ostream>
+#include <sstream>
+
+#include <CLI/CLI.hpp>
+#include <toml++/toml.h>
+
+namespace plumb::server {
+
+namespace {
+
+void DefineOptions(CLI::App& app, ServeConfig* c) {
+  app.option_defaults()->always_capture_default();
+  app.add_option("--db", c->db, "Store directory written by plumb-train (required)");
+  app.add_option("--config", c->config_file,
+                 "TOML file whose top-level keys are any of these flags' names");
+  app.add_option("--listen", c->endpoint.listen, "HOST:PORT for gRPC (port 0: any free port)");
+  app.add_option("--metrics", c->metrics,
+                 "HOST:PORT for Prometheus /metrics (empty string: no metrics endpoint)");
+  app.add_option("--scratch-dir", c->scratch_dir,
+                 "Directory for the RocksDB secondary's own files (default: a temporary "
+                 "directory unique to this process)");
+  app.add_option("--catchup-interval-ms", c->catchup_interval_ms,
+                 "How often to catch up with the trainer and look for a new active version")
+      ->check(CLI::Range(10, 3'600'000));
+  app.add_option("--max-count", c->limits.max_count, "Largest count a request may ask for")
+      ->check(CLI::Range(1, 1'000'000));
+  app.add_option("--max-candidates", c->limits.max_candidates,
+                 "Most candidate_item_ids in one RankCandidates request")
+      ->check(CLI::Range(1, 1'000'000));
+  app.add_option("--max-exclusions", c->limits.max_exclusions,
+                 "Most exclude_item_ids in one request")
+      ->check(CLI::Range(0, 1'000'000));
+  app.add_option("--max-recent", c->limits.max_recent, "Most recent_item_ids in one request")
+      ->check(CLI::Range(0, 100'000));
+  app.add_option("--fold-in-confidence", c->fold_in.confidence,
+                 "Fold-in: confidence weight of an unknown user's recent items")
+      ->check(CLI::Range(0.0, 1e6));
+  app.add_option("--fold-in-l2", c->fold_in.l2,
+                 "Fold-in: ridge term as a fraction of the item Gram matrix's mean eigenvalue")
+      ->check(CLI::Range(0.0, 1e3));
+  app.add_option("--threads", c->endpoint.max_threads,
+                 "Most gRPC server threads (0: 8 per core, at least 16); calls beyond them "
+                 "get RESOURCE_EXHAUSTED")
+      ->check(CLI::Range(0, 10'000));
+  app.add_option("--reflection", c->endpoint.reflection,
+                 "Offer gRPC server reflection (true/false)");
+  app.add_option("--tls-cert", c->endpoint.tls_cert_file,
+                 "PEM certificate chain; with --tls-key, serve over TLS");
+  app.add_option("--tls-key", c->endpoint.tls_key_file, "PEM private key for --tls-cert");
+  app.add_option("--tls-client-ca", c->endpoint.tls_client_ca_file,
+                 "PEM CA bundle; when set, clients must present a certificate it signed");
+  app.add_option("--shutdown-grace-ms", c->shutdown_grace_ms,
+                 "On SIGTERM/SIGINT, how long in-flight calls may take to finish")
+      ->check(CLI::Range(0, 600'000));
+  app.add_option("--log-level", c->log_level, "trace, debug, info, warn, error, critical, off")
+      ->check(CLI::IsMember({"trace", "debug", "info", "warn", "error", "critical", "off"}));
+}
+
+// A TOML value as the text a flag would carry, or empty with *error set.
+std::string ValueText(const toml::node& node, std::string* error) {
+  if (const auto* s = node.as_string()) return s->get();
+  if (const auto* i = node.as_integer()) return std::to_string(i->get());
+  if (const auto* b = node.as_boolean()) return b->get() ? "true" : "false";
+  if (const auto* f = node.as_floating_point()) {
+    std::ostringstream text;
+    text.precision(std::numeric_limits<double>::max_digits10);
+    text << f->get();
+    return text.str();
+  }
+  *error = "must be a string, integer, float or boolean";
+  return {};
+}
+
+// Applies every key of the file to the option of the same name, unless the command line
+// already set it.
+bool ApplyConfigFile(CLI::App& app, const std::string& path, std::ostream& err) {
+  toml::table table;
+  try {
+    table = toml::parse_file(path);
+  } catch (const toml::parse_error& e) {
+    err << "config file '" << path << "': " << e.description() << " (line "
+        << e.source().begin.line << ")\n";
+    return false;
+  }
+  for (const auto& [raw_key, node] : table) {
+    std::string key(raw_key.str());
+    std::replace(key.begin(), key.end(), '_', '-');
+    CLI::Option* option = key == "config" ? nullptr : app.get_option_no_throw("--" + key);
+    if (option == nullptr) {
+      err << "config file '" << path << "': unknown key '" << raw_key.str() << "'\n";
+      return false;
+    }
+    if (option->count() > 0) continue;  // the command line wins
+    std::string error;
+    std::string text = ValueText(node, &error);
+    if (!error.empty()) {
+      err << "config file '" << path << "': key '" << raw_key.str() << "' " << error << "\n";
+      return false;
+    }
+    try {
+      option->add_result(text);
+      option->run_callback();
+    } catch (const CLI::Error& e) {
+      err << "config file '" << path << "': key '" << raw_key.str() << "': " << e.what()
+          << "\n";
+      return false;
+    }
+  }
+  return true;
+}
+
+}  // namespace
+
+int ParseServeConfig(int argc, const char* const* argv, ServeConfig* config, std::ostream& out,
+                     std::ostream& err) {
+  CLI::App app(
+      "plumb-serve: answers plumb.v1.Ranker calls from the active embedding version in a "
+      "plumb store, following the trainer as a RocksDB secondary.",
+      "plumb-serve");
+  DefineOptions(app, config);
+  try {
+    app.parse(argc, argv);
+  } catch (const CLI::ParseError& e) {
+    return app.exit(e, out, err);
+  }
+  if (!config->config_file.empty() && !ApplyConfigFile(app, config->config_file, err)) return 2;
+  if (config->db.empty()) {
+    err << "--db is required (as a flag or as 'db' in the config file)\n";
+    return 2;
+  }
+  return -1;
+}
+
+}  // namespace plumb::server

@@ -1,0 +1,42 @@
+// ServeConfig: plumb-serve's settings, from command-line flags and an optional TOML file.
+//
+// Every setting is a flag (`--max-count 500`) and, under the same name, a top-level key of
+// the file given with --config (`max-count = 500`; `max_count` is accepted too). A flag on
+// the command line wins over the file; the file wins over the built-in default.
+#pragma once
+
+#include <cstdint>
+#include <iosfwd>
+#include <string>
+
+#include "server/fold_in.h"
+#include "server/ranker_service.h"
+#include "server/ranking_server.h"
+
+namespace plumb::server {
+
+struct ServeConfig {
+  std::string db;            // store directory (required)
+  std::string config_file;   // the TOML file read, if any
+  std::string metrics = "127.0.0.1:7401";  // HOST:PORT of /metrics; empty = no metrics
+  // The RocksDB secondary's own directory; empty = a fresh temporary directory per process,
+  // removed at exit.
+  std::string scratch_dir;
+  int catchup_interval_ms = 500;
+  int shutdown_grace_ms = 5000;
+  std::string log_level = "info";  // trace, debug, info, warn, error, critical, off
+  EndpointOptions endpoint;        // listen, TLS, threads, reflection
+  RankerLimits limits;
+  FoldInOptions fold_in;
+};
+
+// Parses argv (and the --config file it names) into *config.
+// Returns -1 when the program should go on, or the exit code when it should stop now: 0
+// after --help (usage printed to `out`), non-zero after an error (message printed to
+// `err`). Errors: unknown flags or file keys, values of the wrong type, an unreadable or
+// malformed file, a missing --db. Not thread-safe (CLI11 parsing state is local, but the
+// streams are shared).
+int ParseServeConfig(int argc, const char* const* argv, ServeConfig* config, std::ostream& out,
+                     std::ostream& err);
+
+}  // namespace plumb::server

@@ -1,0 +1,121 @@
+#include "server/serving_metrics.h"
+
+#include <chrono>
+#include <string>
+
+namespace plumb::server {
+
+namespace {
+
+const char* const kMethodNames[] = {"Recommend", "RankCandidates", "SimilarItems"};
+
+// The canonical gRPC code names, as gRPC's own documentation spells them.
+const char* const kCodeNames[] = {
+    "OK",        "CANCELLED",         "UNKNOWN",           "INVALID_ARGUMENT",
+    "DEADLINE_EXCEEDED", "NOT_FOUND", "ALREADY_EXISTS",    "PERMISSION_DENIED",
+    "RESOURCE_EXHAUSTED", "FAILED_PRECONDITION", "ABORTED", "OUT_OF_RANGE",
+    "UNIMPLEMENTED", "INTERNAL",      "UNAVAILABLE",       "DATA_LOSS",
+    "UNAUTHENTICATED"};
+
+prometheus::MetricFamily Single(const char* name, const char* help, prometheus::MetricType type,
+                                double value) {
+  prometheus::MetricFamily family;
+  family.name = name;
+  family.help = help;
+  family.type = type;
+  prometheus::ClientMetric metric;
+  if (type == prometheus::MetricType::Counter) {
+    metric.counter.value = value;
+  } else {
+    metric.gauge.value = value;
+  }
+  family.metric.push_back(std::move(metric));
+  return family;
+}
+
+}  // namespace
+
+ServingMetrics::ServingMetrics(const SnapshotHolder* holder, const CatchUpLoop* loop,
+                               const ExposureCounter* exposure)
+    : holder_(holder),
+      loop_(loop),
+      exposure_(exposure),
+      registry_(std::make_shared<prometheus::Registry>()) {
+  requests_ = &prometheus::BuildCounter()
+                   .Name("plumb_requests_total")
+                   .Help("Finished Ranker calls by method and gRPC status code")
+                   .Register(*registry_);
+  auto& durations = prometheus::BuildHistogram()
+                        .Name("plumb_request_duration_seconds")
+                        .Help("Server-side time of a Ranker call, from receipt to response")
+                        .Register(*registry_);
+  const prometheus::Histogram::BucketBoundaries buckets = {
+      0.0001, 0.0002, 0.0005, 0.001, 0.002, 0.005, 0.01, 0.02, 0.05, 0.1};
+  for (int m = 0; m < kMethods; ++m) {
+    durations_[m] = &durations.Add({{"method", kMethodNames[m]}}, buckets);
+  }
+  for (auto& c : counters_) c.store(nullptr, std::memory_order_relaxed);
+}
+
+prometheus::Counter& ServingMetrics::RequestCounter(RankerMethod method, grpc::StatusCode code) {
+  const int c = static_cast<int>(code) >= 0 && static_cast<int>(code) < kCodes
+                    ? static_cast<int>(code)
+                    : static_cast<int>(grpc::StatusCode::UNKNOWN);
+  std::atomic<prometheus::Counter*>& slot = counters_[static_cast<int>(method) * kCodes + c];
+  prometheus::Counter* counter = slot.load(std::memory_order_acquire);
+  if (counter == nullptr) {
+    // Family::Add is idempotent for equal labels, so two threads racing here get the same
+    // counter.
+    counter = &requests_->Add(
+        {{"method", kMethodNames[static_cast<int>(method)]}, {"code", kCodeNames[c]}});
+    slot.store(counter, std::memory_order_release);
+  }
+  return *counter;
+}
+
+void ServingMetrics::ObserveRequest(RankerMethod method, grpc::StatusCode code, double seconds) {
+  RequestCounter(method, code).Increment();
+  durations_[static_cast<int>(method)]->Observe(seconds);
+}
+
+std::vector<prometheus::MetricFamily> ServingMetrics::Collect() const {
+  std::vector<prometheus::MetricFamily> families = registry_->Collect();
+  using prometheus::MetricType;
+  if (holder_ != nullptr) {
+    std::shared_ptr<const Snapshot> snap = holder_->Get();
+    double version = 0, age = 0;
+    if (snap != nullptr) {
+      version = static_cast<double>(snap->version());
+      const double now_ms = static_cast<double>(
+          std::chrono::duration_cast<std::chrono::milliseconds>(
+              std::chrono::system_clock::now().time_since_epoch())
+              .count());
+      age = (now_ms - static_cast<double>(snap->created_ms())) / 1000.0;
+    }
+    families.push_back(Single("plumb_model_version",
+                              "Embedding version serving requests (0 before the first load)",
+                              MetricType::Gauge, version));
+    if (snap != nullptr) {
+      families.push_back(Single("plumb_model_age_seconds",
+                                "Seconds since the serving version was created by the trainer",
+                                MetricType::Gauge, age));
+    }
+  }
+  if (loop_ != nullptr) {
+    families.push_back(Single("plumb_snapshot_swaps_total",
+                              "Snapshots built and swapped in", MetricType::Counter,
+                              static_cast<double>(loop_->swaps())));
+    families.push_back(Single("plumb_snapshot_load_failures_total",
+                              "Active versions that failed to load and were skipped",
+                              MetricType::Counter, static_cast<double>(loop_->failed_loads())));
+  }
+  if (exposure_ != nullptr) {
+    families.push_back(Single("plumb_served_lists_total", "Ranked lists served (all methods)",
+                              MetricType::Counter, static_cast<double>(exposure_->lists())));
+    families.push_back(Single("plumb_served_slots_total", "Items in the ranked lists served",
+                              MetricType::Counter, static_cast<double>(exposure_->slots())));
+  }
+  return families;
+}
+
+}  // namespace plumb::server

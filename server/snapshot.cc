@@ -1,0 +1,210 @@
+#include "server/snapshot.h"
+
+#include <algorithm>
+#include <bit>
+#include <chrono>
+#include <cstring>
+
+#include "core/scan.h"
+#include "server/fold_in.h"
+#include "store/store.h"
+
+namespace plumb::server {
+
+namespace {
+
+// Index of the first non-finite value, or size when all are finite. Tests the exponent
+// bits rather than calling std::isfinite so that the compiler can vectorise the common
+// all-finite case; this runs over every value of a version (256 MB for a million items).
+size_t FirstNonFinite(const float* values, size_t size) {
+  constexpr uint32_t kExponent = 0x7f800000u;
+  constexpr size_t kChunk = 4096;
+  for (size_t start = 0; start < size; start += kChunk) {
+    const size_t end = std::min(size, start + kChunk);
+    uint32_t bad = 0;
+    for (size_t i = start; i < end; ++i) {
+      uint32_t bits;
+      std::memcpy(&bits, &values[i], sizeof(bits));
+      bad |= static_cast<uint32_t>((bits & kExponent) == kExponent);
+    }
+    if (bad != 0) {
+      for (size_t i = start; i < end; ++i) {
+        uint32_t bits;
+        std::memcpy(&bits, &values[i], sizeof(bits));
+        if ((bits & kExponent) == kExponent) return i;
+      }
+    }
+  }
+  return size;
+}
+
+Status CheckMatrix(const ItemMatrix& m, const char* name) {
+  const size_t bad = FirstNonFinite(m.data(), m.rows() * m.dim());
+  if (bad != m.rows() * m.dim()) {
+    return Status::Corruption(std::string(name) + " matrix has a non-finite value at row " +
+                              std::to_string(bad / m.dim()) + ", column " +
+                              std::to_string(bad % m.dim()));
+  }
+  return Status::Ok();
+}
+
+int64_t NowMs() {
+  return std::chrono::duration_cast<std::chrono::milliseconds>(
+             std::chrono::system_clock::now().time_since_epoch())
+      .count();
+}
+
+}  // namespace
+
+Status Snapshot::Build(SnapshotParts parts, std::shared_ptr<const Snapshot>* out) {
+  const std::string where = "version " + std::to_string(parts.version) + ": ";
+  const size_t dim = parts.items.dim();
+  if (dim == 0) return Status::Corruption(where + "dim is 0");
+  if (parts.users.rows() > 0 && parts.users.dim() != dim) {
+    return Status::Corruption(where + "user matrix has dim " + std::to_string(parts.users.dim()) +
+                              ", item matrix " + std::to_string(dim));
+  }
+  if (parts.items.rows() != parts.item_ids.size()) {
+    return Status::Corruption(where + std::to_string(parts.items.rows()) + " item rows but " +
+                              std::to_string(parts.item_ids.size()) + " item ids");
+  }
+  if (parts.users.rows() != parts.user_ids.size()) {
+    return Status::Corruption(where + std::to_string(parts.users.rows()) + " user rows but " +
+                              std::to_string(parts.user_ids.size()) + " user ids");
+  }
+  const size_t num_items = parts.items.rows();
+  const size_t num_users = parts.users.rows();
+  if (num_items >= UINT32_MAX || num_users >= UINT32_MAX) {
+    return Status::Corruption(where + "too many rows for 32-bit indexes");
+  }
+  PLUMB_RETURN_IF_ERROR(CheckMatrix(parts.items, "item"));
+  if (num_users > 0) PLUMB_RETURN_IF_ERROR(CheckMatrix(parts.users, "user"));
+
+  if (parts.item_degrees.empty()) parts.item_degrees.assign(num_items, 0);
+  if (parts.item_degrees.size() != num_items) {
+    return Status::Corruption(where + std::to_string(parts.item_degrees.size()) +
+                              " item degrees for " + std::to_string(num_items) + " items");
+  }
+  if (!parts.seen_offsets.empty()) {
+    if (parts.seen_offsets.size() != num_users + 1 || parts.seen_offsets[0] != 0 ||
+        parts.seen_offsets.back() != parts.seen_items.size()) {
+      return Status::Corruption(where + "seen-item offsets do not match the user count");
+    }
+    for (size_t u = 0; u < num_users; ++u) {
+      const uint64_t begin = parts.seen_offsets[u], end = parts.seen_offsets[u + 1];
+      if (end < begin) return Status::Corruption(where + "seen-item offsets decrease");
+      for (uint64_t j = begin; j < end; ++j) {
+        if (parts.seen_items[j] >= num_items || (j > begin && parts.seen_items[j] <= parts.seen_items[j - 1])) {
+          return Status::Corruption(where + "seen items of user index " + std::to_string(u) +
+                                    " are not ascending item indexes");
+        }
+      }
+    }
+  } else if (!parts.seen_items.empty()) {
+    return Status::Corruption(where + "seen items without offsets");
+  }
+
+  std::shared_ptr<Snapshot> snap(new Snapshot());
+  Status s = IdMap::Build(parts.item_ids, &snap->item_index_);
+  if (!s.ok()) return Status::Corruption(where + "item ids: " + s.message());
+  s = IdMap::Build(parts.user_ids, &snap->user_index_);
+  if (!s.ok()) return Status::Corruption(where + "user ids: " + s.message());
+  // The id lists are copied into the maps; free them now rather than at the end, so that
+  // the peak memory of a swap stays low.
+  std::vector<std::string>().swap(parts.item_ids);
+  std::vector<std::string>().swap(parts.user_ids);
+
+  snap->item_norms_.resize(num_items);
+  PLUMB_RETURN_IF_ERROR(row_norms(parts.items.view(), snap->item_norms_));
+  snap->item_gram_.resize(dim * dim);
+  PLUMB_RETURN_IF_ERROR(plumb::server::item_gram(parts.items.view(), snap->item_gram_));
+
+  snap->items_by_degree_.resize(num_items);
+  for (uint32_t i = 0; i < num_items; ++i) snap->items_by_degree_[i] = i;
+  const std::vector<uint64_t>& degrees = parts.item_degrees;
+  std::sort(snap->items_by_degree_.begin(), snap->items_by_degree_.end(),
+            [&degrees](uint32_t a, uint32_t b) {
+              return degrees[a] > degrees[b] || (degrees[a] == degrees[b] && a < b);
+            });
+
+  snap->version_ = parts.version;
+  snap->created_ms_ = parts.created_ms;
+  snap->items_ = std::move(parts.items);
+  snap->users_ = std::move(parts.users);
+  snap->item_degrees_ = std::move(parts.item_degrees);
+  snap->seen_offsets_ = std::move(parts.seen_offsets);
+  snap->seen_items_ = std::move(parts.seen_items);
+  snap->loaded_ms_ = NowMs();
+  *out = std::move(snap);
+  return Status::Ok();
+}
+
+size_t Snapshot::memory_bytes() const {
+  return (items_.rows() + users_.rows()) * items_.dim() * sizeof(float) +
+         item_norms_.capacity() * sizeof(float) + item_gram_.capacity() * sizeof(double) + item_index_.memory_bytes() +
+         user_index_.memory_bytes() + item_degrees_.capacity() * sizeof(uint64_t) +
+         items_by_degree_.capacity() * sizeof(uint32_t) +
+         seen_offsets_.capacity() * sizeof(uint64_t) + seen_items_.capacity() * sizeof(uint32_t);
+}
+
+Status LoadSnapshot(const store::Store& store, uint64_t version,
+                    std::shared_ptr<const Snapshot>* out) {
+  store::VersionManifest manifest;
+  PLUMB_RETURN_IF_ERROR(store.ReadManifest(version, &manifest));
+  const std::string where = "version " + std::to_string(version) + ": ";
+  if (manifest.version != version) {
+    return Status::Corruption(where + "manifest names version " + std::to_string(manifest.version));
+  }
+  if (manifest.dim == 0) return Status::Corruption(where + "manifest says dim 0");
+
+  SnapshotParts parts;
+  parts.version = version;
+  parts.created_ms = manifest.created_ms;
+  PLUMB_RETURN_IF_ERROR(ItemMatrix::Create(manifest.num_items, manifest.dim, &parts.items));
+  PLUMB_RETURN_IF_ERROR(ItemMatrix::Create(manifest.num_users, manifest.dim, &parts.users));
+  // ReadMatrix checks every block against the manifest's rows and dim (Corruption when a
+  // block is missing or wrongly sized), so the matrices below have the manifest's shape.
+  PLUMB_RETURN_IF_ERROR(store.ReadMatrix(
+      version, store::MatrixKind::kItems,
+      std::span<float>(parts.items.data(), parts.items.rows() * parts.items.dim())));
+  PLUMB_RETURN_IF_ERROR(store.ReadMatrix(
+      version, store::MatrixKind::kUsers,
+      std::span<float>(parts.users.data(), parts.users.rows() * parts.users.dim())));
+
+  std::vector<uint32_t> degrees;
+  PLUMB_RETURN_IF_ERROR(store.ReadVersionDegrees(version, &degrees));
+  if (degrees.size() != manifest.num_items) {
+    return Status::Corruption(where + std::to_string(degrees.size()) + " stored degrees for " +
+                              std::to_string(manifest.num_items) + " items");
+  }
+  parts.item_degrees.assign(degrees.begin(), degrees.end());
+
+  // The dictionaries are append-only, so the version's rows are indexes [0, num_users) and
+  // [0, num_items) even if the trainer has added ids since.
+  PLUMB_RETURN_IF_ERROR(store.LoadIds(store::IdSpace::kItem, manifest.num_items, &parts.item_ids));
+  PLUMB_RETURN_IF_ERROR(store.LoadIds(store::IdSpace::kUser, manifest.num_users, &parts.user_ids));
+
+  // ForEachInteraction yields pairs ordered by user then item, so appending builds the
+  // compressed rows directly; Snapshot::Build re-checks the order.
+  const uint32_t num_users = manifest.num_users, num_items = manifest.num_items;
+  parts.seen_offsets.assign(static_cast<size_t>(num_users) + 1, 0);
+  parts.seen_items.reserve(manifest.num_interactions);
+  uint64_t last_pair = 0;
+  bool ordered = true;
+  PLUMB_RETURN_IF_ERROR(store.ForEachInteraction([&](uint32_t user, uint32_t item) {
+    const uint64_t pair = (static_cast<uint64_t>(user) << 32 | item) + 1;
+    ordered = ordered && pair > last_pair;
+    last_pair = pair;
+    if (user < num_users && item < num_items) {
+      parts.seen_items.push_back(item);
+      ++parts.seen_offsets[user + 1];
+    }
+  }));
+  if (!ordered) return Status::Corruption(where + "interactions not ordered by user then item");
+  for (size_t u = 0; u < num_users; ++u) parts.seen_offsets[u + 1] += parts.seen_offsets[u];
+  parts.seen_items.shrink_to_fit();
+
+  return Snapshot::Build(std::move(parts), out);
+}
+
+}  // namespace plumb::server

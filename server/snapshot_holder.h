@@ -1,0 +1,37 @@
+// SnapshotHolder: the one place where the serving snapshot changes.
+//
+// The catch-up thread Swap()s in a freshly built snapshot; every request Get()s the current
+// one once and keeps its shared_ptr to the end, so in-flight requests finish on the version
+// they started with and the old snapshot is freed by whichever request releases it last.
+// Built on std::atomic<std::shared_ptr<const Snapshot>> (C++20; libstdc++ 12 implements it
+// with a lock bit inside the control-block pointer, held only for the pointer copy).
+#pragma once
+
+#include <atomic>
+#include <memory>
+
+#include "server/snapshot.h"
+
+namespace plumb::server {
+
+class SnapshotHolder {
+ public:
+  SnapshotHolder() = default;
+  SnapshotHolder(const SnapshotHolder&) = delete;
+  SnapshotHolder& operator=(const SnapshotHolder&) = delete;
+
+  // The current snapshot, or null before the first Swap. Thread-safe.
+  std::shared_ptr<const Snapshot> Get() const { return current_.load(std::memory_order_acquire); }
+
+  // Makes `next` current and returns the previous one (null at first). The caller should
+  // drop the returned pointer promptly; the memory goes when the last request using it ends.
+  // Thread-safe.
+  std::shared_ptr<const Snapshot> Swap(std::shared_ptr<const Snapshot> next) {
+    return current_.exchange(std::move(next), std::memory_order_acq_rel);
+  }
+
+ private:
+  std::atomic<std::shared_ptr<const Snapshot>> current_;
+};
+
+}  // namespace plumb::server

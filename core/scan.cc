@@ -162,6 +162,10 @@ Status CheckScanArgs(MatrixView items, std::span<const float> query, std::span<f
     return Status::InvalidArgument("query has " + std::to_string(query.size()) +
                                    " dimensions, items have " + std::to_string(items.dim));
   }
+  if (items.rows > std::size_t{std::numeric_limits<uint32_t>::max()} + 1) {
+    return Status::InvalidArgument("scan indexes rows with 32 bits; " +
+                                   std::to_string(items.rows) + " rows are too many");
+  }
   if (scratch.empty() && items.rows > 0) {
     return Status::InvalidArgument("scan needs a non-empty scratch buffer");
   }

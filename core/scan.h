@@ -93,7 +93,8 @@ Status row_norms(MatrixView items, std::span<float> norms);
 // an already-expired deadline still gets the result of one block.
 // Allocates nothing. Thread-safe given distinct selectors and scratch buffers.
 // Errors: InvalidArgument if query.size() != items.dim, scratch is empty while items.rows
-// > 0, or selector/outcome is null; the selector is untouched then.
+// > 0, items.rows > 2^32 (indices are 32-bit), or selector/outcome is null; the selector is
+// untouched then.
 Status top_k_by_dot(MatrixView items, std::span<const float> query, const Exclusions& excluded,
                     std::span<float> scratch, TopKSelector* selector, ScanOutcome* outcome,
                     StopCheck should_stop = {});

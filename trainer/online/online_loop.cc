@@ -32,6 +32,9 @@ int64_t NowMs() {
 }
 
 constexpr char kAutoActivateKey[] = "auto_activate";
+// The hold-out share is a property of the store (the `plumb` command line uses the same key):
+// replaying the log with another share would disagree with the interaction sets written.
+constexpr char kHoldoutKey[] = "holdout_fraction";
 constexpr size_t kReadChunk = 4096;
 // Validation users scored per gate check: bounds the cost of a publish on a large catalogue.
 constexpr size_t kGateMaxUsers = 2000;
@@ -195,8 +198,20 @@ Status OnlineLoop::Create(store::Store* store, const OnlineOptions& options,
   }
   if (options.gate_k == 0) return Status::InvalidArgument("gate_k must be at least 1");
 
+  std::string stored_holdout;
+  Status hs = store->GetMeta(kHoldoutKey, &stored_holdout);
+  if (hs.ok()) {
+    const double stored = std::stod(stored_holdout);
+    if (stored != options.holdout_fraction) {
+      spdlog::warn("this store holds out {} of pairs; using that, not the configured {}", stored,
+                   options.holdout_fraction);
+    }
+    impl.options.holdout_fraction = stored;
+  } else if (!hs.IsNotFound()) {
+    return hs;
+  }
   PLUMB_RETURN_IF_ERROR(
-      TrainingState::Load(*store, options.holdout_fraction, &impl.state, &impl.cursor));
+      TrainingState::Load(*store, impl.options.holdout_fraction, &impl.state, &impl.cursor));
 
   // Warm start from the newest kept version that did not fail its gate.
   std::vector<store::VersionManifest> versions;
@@ -496,6 +511,7 @@ Status OnlineLoop::Impl::Publish() {
   change.cursor = cursor;
   change.version = &write;
   change.activate_published = activate;
+  change.meta.emplace_back(kHoldoutKey, std::to_string(options.holdout_fraction));
   uint64_t version = 0;
   PLUMB_RETURN_IF_ERROR(store->Commit(change, &version));
   state.MarkPersisted();

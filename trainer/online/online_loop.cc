@@ -17,6 +17,7 @@
 #include "core/topk.h"
 #include "store/store.h"
 #include "trainer/embeddings.h"
+#include "trainer/online/gate.h"
 #include "trainer/online/training_state.h"
 #include "trainer/trainer.h"
 
@@ -38,82 +39,6 @@ constexpr char kHoldoutKey[] = "holdout_fraction";
 constexpr size_t kReadChunk = 4096;
 // Validation users scored per gate check: bounds the cost of a publish on a large catalogue.
 constexpr size_t kGateMaxUsers = 2000;
-constexpr uint64_t kGateSplitSeed = 20221;
-
-// Builds the debiased validation sample the gate scores: the held-out pairs re-sampled with
-// keep probability ∝ 1/pop^1 (DESIGN.md §2), grouped by user, users capped.
-struct GateSample {
-  std::vector<uint32_t> users;
-  ItemLists relevant;  // per entry of users, sorted
-};
-
-GateSample BuildGateSample(const TrainingState& state) {
-  GateSample sample;
-  const auto& val = state.validation();
-  if (val.empty()) return sample;
-  std::vector<uint64_t> degrees(state.train().num_items(), 0);
-  for (uint32_t i = 0; i < degrees.size(); ++i) degrees[i] = state.train().item_degree(i);
-  std::vector<Interaction> held;
-  held.reserve(val.size());
-  for (const trainer::Pair& p : val) {
-    if (p.item < degrees.size()) held.push_back({p.user, p.item});
-  }
-  SplitOptions opt;
-  opt.gamma = 1.0;
-  opt.validation_fraction = 1.0;
-  opt.seed = kGateSplitSeed;
-  DebiasedSplit split;
-  if (!debiased_split(held, degrees, opt, &split).ok()) return sample;
-  std::sort(split.validation.begin(), split.validation.end(),
-            [](const Interaction& a, const Interaction& b) {
-              return a.user != b.user ? a.user < b.user : a.item < b.item;
-            });
-  std::vector<uint32_t> items;
-  for (size_t n = 0; n < split.validation.size();) {
-    const uint32_t u = split.validation[n].user;
-    items.clear();
-    while (n < split.validation.size() && split.validation[n].user == u) {
-      if (items.empty() || items.back() != split.validation[n].item) {
-        items.push_back(split.validation[n].item);
-      }
-      ++n;
-    }
-    // A user with no training interactions has an untrained row: skip, as is common practice.
-    if (state.train().user_degree(u) == 0) continue;
-    sample.users.push_back(u);
-    sample.relevant.Append(items);
-    if (sample.users.size() >= kGateMaxUsers) break;
-  }
-  return sample;
-}
-
-// Mean Recall@k over the sample's users, scoring with (users, items); pairs outside the
-// matrices count as misses. NaN when the sample is empty.
-double GateRecall(const GateSample& sample, const trainer::Embeddings& model,
-                  const trainer::Interactions& train, uint32_t k) {
-  if (sample.users.empty()) return std::nan("");
-  TopKSelector selector(k);
-  std::vector<float> scratch(kDefaultScanBlockRows);
-  std::vector<uint32_t> ranked;
-  double total = 0.0;
-  const MatrixView items = model.item_view();
-  for (size_t n = 0; n < sample.users.size(); ++n) {
-    const uint32_t u = sample.users[n];
-    ranked.clear();
-    if (u < model.num_users()) {
-      selector.Reset(k);
-      Exclusions ex;
-      ex.sorted_rows = train.items_of(u);
-      ScanOutcome outcome;
-      std::span<const float> query(model.user_row(u), model.dim());
-      if (top_k_by_dot(items, query, ex, scratch, &selector, &outcome).ok()) {
-        for (const ScoredIndex& s : selector.SortedResult()) ranked.push_back(s.index);
-      }
-    }
-    total += recall_at_k(ranked, sample.relevant[n], k);
-  }
-  return total / static_cast<double>(sample.users.size());
-}
 
 }  // namespace
 
@@ -454,37 +379,17 @@ Status OnlineLoop::Impl::Publish() {
     auto_activate = status.auto_activate;
   }
 
-  // The gate: finite values, bounded norms, validation recall not far below the active one.
-  store::GateOutcome gate = store::GateOutcome::kPassed;
-  std::string reason;
-  double candidate_recall = std::nan("");
-  double active_recall = std::nan("");
-  const float max_norm = model.MaxRowNorm();
-  if (!model.AllFinite()) {
-    gate = store::GateOutcome::kFailed;
-    reason = "non-finite values in the embeddings";
-  } else if (max_norm > options.gate_max_row_norm) {
-    gate = store::GateOutcome::kFailed;
-    reason = "a row norm of " + std::to_string(max_norm) + " exceeds the bound " +
-             std::to_string(options.gate_max_row_norm);
-  } else {
-    GateSample sample = BuildGateSample(state);
-    candidate_recall = GateRecall(sample, model, state.train(), options.gate_k);
-    if (active) active_recall = GateRecall(sample, *active, state.train(), options.gate_k);
-    if (std::isnan(candidate_recall)) {
-      gate = store::GateOutcome::kSkipped;
-      reason = "no validation data yet";
-    } else if (!active) {
-      gate = store::GateOutcome::kSkipped;
-      reason = "no active version to compare with";
-    } else if (candidate_recall < active_recall - options.gate_tolerance) {
-      gate = store::GateOutcome::kFailed;
-      reason = "validation recall@" + std::to_string(options.gate_k) + " " +
-               std::to_string(candidate_recall) + " is below the active version's " +
-               std::to_string(active_recall) + " by more than " +
-               std::to_string(options.gate_tolerance);
-    }
-  }
+  GateOptions gopt;
+  gopt.k = options.gate_k;
+  gopt.tolerance = options.gate_tolerance;
+  gopt.max_row_norm = options.gate_max_row_norm;
+  const GateVerdict verdict = JudgeCandidate(model, active.get(),
+                                             BuildGateSample(state, kGateMaxUsers),
+                                             state.train(), gopt);
+  const store::GateOutcome gate = verdict.outcome;
+  const std::string& reason = verdict.reason;
+  const double candidate_recall = verdict.candidate_recall;
+  const double active_recall = verdict.active_recall;
   const bool activate = gate != store::GateOutcome::kFailed && auto_activate;
 
   store::VersionWrite write;

@@ -35,8 +35,7 @@ Status AlignedFloats::Allocate(std::size_t n, AlignedFloats* out) {
   }
   float* p = AllocateZeroed(n);
   if (p == nullptr) {
-    return Status::ResourceExhausted("cannot allocate " + std::to_string(n) +
-                                     " aligned floats");
+    return Status::ResourceExhausted("cannot allocate " + std::to_string(n) + " aligned floats");
   }
   out->data_.reset(p);
   out->size_ = n;

@@ -17,13 +17,13 @@ Status summarize_exposure(std::span<const uint64_t> exposure_counts,
       group_of_item.size() != item_degrees.size()) {
     return Status::InvalidArgument(
         "exposure counts, degrees and groups must cover the same items (" +
-        std::to_string(exposure_counts.size()) + ", " + std::to_string(item_degrees.size()) +
-        ", " + std::to_string(group_of_item.size()) + ")");
+        std::to_string(exposure_counts.size()) + ", " + std::to_string(item_degrees.size()) + ", " +
+        std::to_string(group_of_item.size()) + ")");
   }
   for (uint32_t g : group_of_item) {
     if (g >= num_groups) {
-      return Status::InvalidArgument("group id " + std::to_string(g) + " >= " +
-                                     std::to_string(num_groups) + " groups");
+      return Status::InvalidArgument("group id " + std::to_string(g) +
+                                     " >= " + std::to_string(num_groups) + " groups");
     }
   }
   ExposureSummary s;

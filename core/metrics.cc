@@ -57,7 +57,8 @@ double ndcg_at_k(std::span<const uint32_t> ranked, std::span<const uint32_t> rel
   }
   double ideal = 0.0;
   const std::size_t ideal_hits = std::min(k, relevant.size());
-  for (std::size_t r = 0; r < ideal_hits; ++r) ideal += 1.0 / std::log2(static_cast<double>(r) + 2.0);
+  for (std::size_t r = 0; r < ideal_hits; ++r)
+    ideal += 1.0 / std::log2(static_cast<double>(r) + 2.0);
   return dcg / ideal;
 }
 
@@ -96,8 +97,7 @@ double weighted_mean_popularity(std::span<const uint64_t> counts,
   return total == 0.0 ? 0.0 : weighted / total;
 }
 
-std::vector<uint64_t> exposure_counts(const ItemLists& lists, std::size_t n_items,
-                                      std::size_t k) {
+std::vector<uint64_t> exposure_counts(const ItemLists& lists, std::size_t n_items, std::size_t k) {
   std::vector<uint64_t> counts(n_items, 0);
   for (std::size_t u = 0; u < lists.size(); ++u) {
     const auto list = lists[u];
@@ -129,7 +129,8 @@ double gini(std::span<const uint64_t> counts) {
 
 double coverage(std::span<const uint64_t> counts) {
   if (counts.empty()) return 0.0;
-  const auto covered = std::count_if(counts.begin(), counts.end(), [](uint64_t c) { return c > 0; });
+  const auto covered =
+      std::count_if(counts.begin(), counts.end(), [](uint64_t c) { return c > 0; });
   return static_cast<double>(covered) / static_cast<double>(counts.size());
 }
 
@@ -162,8 +163,7 @@ Status popularity_groups(std::span<const uint64_t> degrees, std::size_t num_grou
 }
 
 std::vector<double> group_shares(std::span<const uint64_t> counts,
-                                 std::span<const uint32_t> group_of_item,
-                                 std::size_t num_groups) {
+                                 std::span<const uint32_t> group_of_item, std::size_t num_groups) {
   std::vector<double> shares(num_groups, 0.0);
   const std::size_t n = std::min(counts.size(), group_of_item.size());
   double total = 0.0;

@@ -122,12 +122,12 @@ double js_divergence(std::span<const double> p, std::span<const double> q);
 // Aggregate figures at cut-off k over the evaluated users.
 struct RankingReport {
   std::size_t k = 0;
-  std::size_t users_evaluated = 0;  // users with at least one relevant test item
-  double recall = 0.0;              // mean recall_at_k over evaluated users
-  double ndcg = 0.0;                // mean ndcg_at_k over evaluated users
-  double arp = 0.0;                 // ARP@k over the evaluated users' lists
-  double gini = 0.0;                // Gini of item exposure counts in those top-k lists
-  double coverage = 0.0;            // fraction of the catalogue in at least one of them
+  std::size_t users_evaluated = 0;        // users with at least one relevant test item
+  double recall = 0.0;                    // mean recall_at_k over evaluated users
+  double ndcg = 0.0;                      // mean ndcg_at_k over evaluated users
+  double arp = 0.0;                       // ARP@k over the evaluated users' lists
+  double gini = 0.0;                      // Gini of item exposure counts in those top-k lists
+  double coverage = 0.0;                  // fraction of the catalogue in at least one of them
   std::vector<double> rec_group_shares;   // share of recommended slots per popularity group
   std::vector<double> test_group_shares;  // share of test interactions per popularity group
   double group_share_js = 0.0;  // js_divergence(rec_group_shares, test_group_shares); NaN if

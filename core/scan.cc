@@ -163,8 +163,8 @@ Status CheckScanArgs(MatrixView items, std::span<const float> query, std::span<f
                                    " dimensions, items have " + std::to_string(items.dim));
   }
   if (items.rows > std::size_t{std::numeric_limits<uint32_t>::max()} + 1) {
-    return Status::InvalidArgument("scan indexes rows with 32 bits; " +
-                                   std::to_string(items.rows) + " rows are too many");
+    return Status::InvalidArgument("scan indexes rows with 32 bits; " + std::to_string(items.rows) +
+                                   " rows are too many");
   }
   if (scratch.empty() && items.rows > 0) {
     return Status::InvalidArgument("scan needs a non-empty scratch buffer");
@@ -258,15 +258,13 @@ Status top_k_by_dot(MatrixView items, std::span<const float> query, const Exclus
   return Status::Ok();
 }
 
-Status top_k_by_cosine(MatrixView items, std::span<const float> norms,
-                       std::span<const float> query, const Exclusions& excluded,
-                       std::span<float> scratch, TopKSelector* selector, ScanOutcome* outcome,
-                       StopCheck should_stop) {
+Status top_k_by_cosine(MatrixView items, std::span<const float> norms, std::span<const float> query,
+                       const Exclusions& excluded, std::span<float> scratch, TopKSelector* selector,
+                       ScanOutcome* outcome, StopCheck should_stop) {
   PLUMB_RETURN_IF_ERROR(CheckScanArgs(items, query, scratch, selector, outcome));
   if (norms.size() < items.rows) {
     return Status::InvalidArgument("norms hold " + std::to_string(norms.size()) +
-                                   " values, items have " + std::to_string(items.rows) +
-                                   " rows");
+                                   " values, items have " + std::to_string(items.rows) + " rows");
   }
   double qq = 0.0;
   for (float v : query) qq += double{v} * double{v};

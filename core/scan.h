@@ -38,9 +38,10 @@ class StopCheck {
  public:
   StopCheck() = default;
 
-  template <typename F>
-    requires(!std::is_same_v<std::remove_cvref_t<F>, StopCheck> &&
-             std::is_invocable_r_v<bool, F&>)
+  // Wraps any callable that returns something convertible to bool (not another StopCheck).
+  template <typename F,
+            typename = std::enable_if_t<!std::is_same_v<std::remove_cvref_t<F>, StopCheck> &&
+                                        std::is_invocable_r_v<bool, std::remove_reference_t<F>&>>>
   StopCheck(F&& f)  // NOLINT(google-explicit-constructor): meant to wrap lambdas implicitly
       : callable_(const_cast<void*>(static_cast<const void*>(std::addressof(f)))),
         call_([](void* c) -> bool {
@@ -104,9 +105,8 @@ Status top_k_by_dot(MatrixView items, std::span<const float> query, const Exclus
 // undefined there; treated as orthogonal, so it ranks below any positively similar row).
 // Errors: as top_k_by_dot, plus InvalidArgument if norms.size() < items.rows or the query
 // has zero norm or is not finite.
-Status top_k_by_cosine(MatrixView items, std::span<const float> norms,
-                       std::span<const float> query, const Exclusions& excluded,
-                       std::span<float> scratch, TopKSelector* selector, ScanOutcome* outcome,
-                       StopCheck should_stop = {});
+Status top_k_by_cosine(MatrixView items, std::span<const float> norms, std::span<const float> query,
+                       const Exclusions& excluded, std::span<float> scratch, TopKSelector* selector,
+                       ScanOutcome* outcome, StopCheck should_stop = {});
 
 }  // namespace plumb

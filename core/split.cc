@@ -46,8 +46,7 @@ Status debiased_split(std::span<const Interaction> held_out, std::span<const uin
   for (const Interaction& x : held_out) {
     if (x.item >= degrees.size()) {
       return Status::InvalidArgument("held-out item " + std::to_string(x.item) +
-                                     " outside the catalogue of " +
-                                     std::to_string(degrees.size()));
+                                     " outside the catalogue of " + std::to_string(degrees.size()));
     }
     min_pop = std::min(min_pop, std::max<uint64_t>(degrees[x.item], 1));
   }

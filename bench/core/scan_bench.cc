@@ -143,8 +143,7 @@ void BM_TopKByCosine(benchmark::State& state) {
   ScanOutcome outcome;
   for (auto _ : state) {
     sel.Reset(kTopK);
-    if (!top_k_by_cosine(w.copies[0].view(), w.norms, w.query, {}, scratch, &sel, &outcome)
-             .ok())
+    if (!top_k_by_cosine(w.copies[0].view(), w.norms, w.query, {}, scratch, &sel, &outcome).ok())
       state.SkipWithError("top_k_by_cosine");
     auto result = sel.SortedResult();
     benchmark::DoNotOptimize(result.data());
@@ -175,8 +174,13 @@ void Common(benchmark::internal::Benchmark* b) {
 
 BENCHMARK(BM_FloorSum)->ArgName("cold")->Arg(0)->Arg(1)->Apply(Common);
 BENCHMARK(BM_DotScores)->ArgName("cold")->Arg(0)->Arg(1)->Apply(Common);
-BENCHMARK(BM_TopKByDot)->ArgNames({"cold", "excl200"})->Args({0, 0})->Args({0, 1})
-    ->Args({1, 0})->Args({1, 1})->Apply(Common);
+BENCHMARK(BM_TopKByDot)
+    ->ArgNames({"cold", "excl200"})
+    ->Args({0, 0})
+    ->Args({0, 1})
+    ->Args({1, 0})
+    ->Args({1, 1})
+    ->Apply(Common);
 BENCHMARK(BM_TopKByCosine)->Apply(Common);
 BENCHMARK(BM_PartialSortBaseline)->ArgName("cold")->Arg(0)->Arg(1)->Apply(Common);
 
@@ -207,8 +211,8 @@ class RatioReporter : public benchmark::ConsoleReporter {
     };
     const double warm_floor = find("BM_FloorSum/cold:0");
     const double cold_floor = find("BM_FloorSum/cold:1");
-    std::printf("\n%zu x %zu float32 items (%.1f MB), top-%zu; median CPU time of %d runs\n",
-                kRows, kDim, static_cast<double>(kMatrixBytes) / 1e6, kTopK, kRepetitions);
+    std::printf("\n%zu x %zu float32 items (%.1f MB), top-%zu; median CPU time of %d runs\n", kRows,
+                kDim, static_cast<double>(kMatrixBytes) / 1e6, kTopK, kRepetitions);
     std::printf("%-44s %10s %8s %15s\n", "benchmark", "us", "GB/s", "ratio_to_floor");
     for (const std::string& name : order_) {
       const double s = median_seconds_.at(name);
@@ -231,7 +235,7 @@ class RatioReporter : public benchmark::ConsoleReporter {
 int main(int argc, char** argv) {
   benchmark::Initialize(&argc, argv);
   if (benchmark::ReportUnrecognizedArguments(argc, argv)) return 1;
-  plumb::world();  // build the data before any timing
+  plumb::world();                 // build the data before any timing
   plumb::RatioReporter reporter;  // plain tabular console output, no colour codes
   benchmark::RunSpecifiedBenchmarks(&reporter);
   reporter.PrintRatios();

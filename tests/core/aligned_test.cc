@@ -1,11 +1,11 @@
 #include "core/aligned.h"
 
+#include <gtest/gtest.h>
+
 #include <cstdint>
 #include <limits>
 #include <type_traits>
 #include <utility>
-
-#include <gtest/gtest.h>
 
 namespace plumb {
 namespace {

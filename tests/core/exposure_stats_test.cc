@@ -1,9 +1,9 @@
 #include "core/exposure_stats.h"
 
+#include <gtest/gtest.h>
+
 #include <cmath>
 #include <vector>
-
-#include <gtest/gtest.h>
 
 #include "core/metrics.h"
 

@@ -1,11 +1,11 @@
 #include "core/metrics.h"
 
+#include <gtest/gtest.h>
+
 #include <cmath>
 #include <limits>
 #include <random>
 #include <vector>
-
-#include <gtest/gtest.h>
 
 namespace plumb {
 namespace {
@@ -112,8 +112,8 @@ TEST(JsDivergenceTest, HandWorkedValues) {
   // P = (1, 0), Q = (½, ½): M = (¾, ¼).
   // KL(P‖M) = log2(4/3) = 0.415037; KL(Q‖M) = ½ log2(2/3) + ½ log2(2) = 0.207519.
   // JS = ½ (0.415037 + 0.207519) = 0.311278.
-  EXPECT_NEAR(js_divergence(std::vector<double>{1, 0}, std::vector<double>{0.5, 0.5}),
-              0.3112781245, 1e-9);
+  EXPECT_NEAR(js_divergence(std::vector<double>{1, 0}, std::vector<double>{0.5, 0.5}), 0.3112781245,
+              1e-9);
   // Symmetric.
   const std::vector<double> a = {0.1, 0.6, 0.3}, b = {0.5, 0.25, 0.25};
   EXPECT_DOUBLE_EQ(js_divergence(a, b), js_divergence(b, a));

@@ -1,13 +1,13 @@
 // The request path must allocate nothing in steady state (STYLE.md: "Hot paths allocate
 // nothing per request"). This binary replaces the global operator new to count allocations,
 // which is why it is separate from core_tests.
+#include <gtest/gtest.h>
+
 #include <atomic>
 #include <cstdlib>
 #include <new>
 #include <random>
 #include <vector>
-
-#include <gtest/gtest.h>
 
 #include "core/scan.h"
 #include "core/topk.h"
@@ -62,9 +62,9 @@ TEST(NoAllocationTest, RepeatedTopKScansAllocateNothing) {
             .ok());
     ASSERT_EQ(sel.SortedResult().size(), 10 + i * 10);
     sel.Reset(20);
-    ASSERT_TRUE(top_k_by_cosine(m.view(), norms, queries[i], Exclusions{{}, seen}, scratch, &sel,
-                                &outcome)
-                    .ok());
+    ASSERT_TRUE(
+        top_k_by_cosine(m.view(), norms, queries[i], Exclusions{{}, seen}, scratch, &sel, &outcome)
+            .ok());
     ASSERT_EQ(sel.SortedResult().size(), 20u);
   }
   EXPECT_EQ(g_allocations.load() - before, 0);

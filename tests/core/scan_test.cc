@@ -1,11 +1,11 @@
 #include "core/scan.h"
 
+#include <gtest/gtest.h>
+
 #include <algorithm>
 #include <cmath>
 #include <random>
 #include <vector>
-
-#include <gtest/gtest.h>
 
 namespace plumb {
 namespace {
@@ -17,7 +17,8 @@ namespace {
 ItemMatrix QuantisedMatrix(std::size_t rows, std::size_t dim, std::mt19937_64& rng) {
   ItemMatrix m(rows, dim);
   for (std::size_t r = 0; r < rows; ++r)
-    for (auto& v : m.mutable_row(r)) v = static_cast<float>(static_cast<int>(rng() % 5) - 2) * 0.25f;
+    for (auto& v : m.mutable_row(r))
+      v = static_cast<float>(static_cast<int>(rng() % 5) - 2) * 0.25f;
   return m;
 }
 
@@ -141,9 +142,9 @@ TEST(TopKByDotTest, StopsEarlyBetweenBlocksWhenAsked) {
   ScanOutcome outcome;
   int calls = 0;
   auto stop_after_three_blocks = [&] { return ++calls >= 3; };
-  ASSERT_TRUE(top_k_by_dot(m.view(), q, Exclusions{}, scratch, &sel, &outcome,
-                           stop_after_three_blocks)
-                  .ok());
+  ASSERT_TRUE(
+      top_k_by_dot(m.view(), q, Exclusions{}, scratch, &sel, &outcome, stop_after_three_blocks)
+          .ok());
   // The check runs before blocks 2, 3, ...: the third check (before block 4) stops the scan.
   EXPECT_TRUE(outcome.stopped_early);
   EXPECT_EQ(calls, 3);
@@ -165,9 +166,9 @@ TEST(TopKByDotTest, StopsEarlyBetweenBlocksWhenAsked) {
   ItemMatrix small = QuantisedMatrix(100, dim, rng);
   calls = 0;
   sel.Reset(10);
-  ASSERT_TRUE(top_k_by_dot(small.view(), q, Exclusions{}, scratch, &sel, &outcome,
-                           stop_after_three_blocks)
-                  .ok());
+  ASSERT_TRUE(
+      top_k_by_dot(small.view(), q, Exclusions{}, scratch, &sel, &outcome, stop_after_three_blocks)
+          .ok());
   EXPECT_EQ(calls, 0);
   EXPECT_FALSE(outcome.stopped_early);
 }
@@ -209,9 +210,9 @@ TEST(TopKByCosineTest, MatchesBruteForceCosine) {
   std::vector<float> scratch(kDefaultScanBlockRows);
   TopKSelector sel(30);
   ScanOutcome outcome;
-  ASSERT_TRUE(top_k_by_cosine(m.view(), norms, q, Exclusions{{}, excluded_rows}, scratch, &sel,
-                              &outcome)
-                  .ok());
+  ASSERT_TRUE(
+      top_k_by_cosine(m.view(), norms, q, Exclusions{{}, excluded_rows}, scratch, &sel, &outcome)
+          .ok());
   auto got = sel.SortedResult();
 
   // Reference in double precision.

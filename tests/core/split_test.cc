@@ -1,11 +1,11 @@
 #include "core/split.h"
 
+#include <gtest/gtest.h>
+
 #include <algorithm>
 #include <cmath>
 #include <set>
 #include <vector>
-
-#include <gtest/gtest.h>
 
 namespace plumb {
 namespace {

@@ -1,12 +1,12 @@
 #include "core/topk.h"
 
+#include <gtest/gtest.h>
+
 #include <algorithm>
 #include <cmath>
 #include <limits>
 #include <random>
 #include <vector>
-
-#include <gtest/gtest.h>
 
 namespace plumb {
 namespace {

@@ -53,11 +53,13 @@ void AdagradOptimizer::Apply(Side side, uint32_t r, float* row, const float* gra
     for (uint32_t j = 0; j < dim; ++j) row[j] -= step * grad[j];
     return;
   }
-  float* a = acc.data() + static_cast<size_t>(r) * dim;
-  for (uint32_t j = 0; j < dim; ++j) {
-    a[j] += grad[j] * grad[j];
-    row[j] -= lr_ * grad[j] / std::sqrt(a[j]);
-  }
+  // Eigen array expressions: a scalar loop calling std::sqrt does not vectorise (errno
+  // handling), Eigen's packet sqrt does; this is the hot loop of Adagrad training.
+  Eigen::Map<Eigen::ArrayXf> a(acc.data() + static_cast<size_t>(r) * dim, dim);
+  Eigen::Map<Eigen::ArrayXf> x(row, dim);
+  Eigen::Map<const Eigen::ArrayXf> g(grad, dim);
+  a += g.square();
+  x -= lr_ * g / a.sqrt();
 }
 
 float AdagradOptimizer::accumulator(Side side, uint32_t r, uint32_t j) const {

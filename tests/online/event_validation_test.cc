@@ -1,0 +1,141 @@
+#include "trainer/online/event_validation.h"
+
+#include <cmath>
+#include <limits>
+
+#include <gtest/gtest.h>
+
+namespace plumb::online {
+namespace {
+
+// Limits and defaults from the wire contract, proto/plumb/v1/ingest.proto
+// (InteractionEvent field comments).
+
+store::EventInput Good() {
+  store::EventInput e;
+  e.user_id = "member-0017";
+  e.item_id = "tool/hedge-trimmer-3";
+  e.timestamp_ms = 1'700'000'000'000;
+  e.event_id = "loan-88121";
+  e.weight = 2.5f;
+  return e;
+}
+
+RejectReason Reject(store::EventInput e, std::string* detail = nullptr) {
+  EventRejection why;
+  EXPECT_FALSE(ValidateEvent(&e, 5, &why));
+  if (detail) *detail = why.detail;
+  return why.reason;
+}
+
+TEST(EventValidation, AcceptsAGoodEventUnchanged) {
+  store::EventInput e = Good();
+  EventRejection why;
+  ASSERT_TRUE(ValidateEvent(&e, 123, &why));
+  EXPECT_EQ(e.user_id, "member-0017");
+  EXPECT_EQ(e.timestamp_ms, 1'700'000'000'000);
+  EXPECT_EQ(e.weight, 2.5f);
+}
+
+TEST(EventValidation, ZeroWeightMeansOneAndZeroTimeMeansReceived) {
+  store::EventInput e = Good();
+  e.weight = 0.0f;
+  e.timestamp_ms = 0;
+  EventRejection why;
+  ASSERT_TRUE(ValidateEvent(&e, 4242, &why));
+  EXPECT_EQ(e.weight, 1.0f);
+  EXPECT_EQ(e.timestamp_ms, 4242);
+}
+
+TEST(EventValidation, BoundariesAreInclusiveWhereTheContractSaysSo) {
+  store::EventInput e = Good();
+  e.user_id.assign(kMaxIdBytes, 'u');  // exactly 256 bytes: allowed
+  e.item_id.assign(kMaxIdBytes, 'i');
+  e.event_id.assign(kMaxEventIdBytes, 'e');  // exactly 128 bytes: allowed
+  e.weight = 1000.0f;                        // (0, 1000]: 1000 is in
+  EventRejection why;
+  EXPECT_TRUE(ValidateEvent(&e, 1, &why)) << why.detail;
+  e = Good();
+  e.weight = std::numeric_limits<float>::denorm_min();  // smallest positive: in
+  EXPECT_TRUE(ValidateEvent(&e, 1, &why)) << why.detail;
+  e = Good();
+  e.user_id = "Zoë’s ladder";  // multi-byte UTF-8 is fine
+  EXPECT_TRUE(ValidateEvent(&e, 1, &why)) << why.detail;
+}
+
+TEST(EventValidation, RejectsEmptyIds) {
+  store::EventInput e = Good();
+  e.user_id.clear();
+  EXPECT_EQ(Reject(e), RejectReason::kEmptyUserId);
+  e = Good();
+  e.item_id.clear();
+  EXPECT_EQ(Reject(e), RejectReason::kEmptyItemId);
+}
+
+TEST(EventValidation, RejectsOverlongIdsWithTheSizeInTheDetail) {
+  store::EventInput e = Good();
+  e.user_id.assign(300, 'u');
+  std::string detail;
+  EXPECT_EQ(Reject(e, &detail), RejectReason::kIdTooLong);
+  EXPECT_EQ(detail, "user_id is 300 bytes; the limit is 256");
+  e = Good();
+  e.item_id.assign(kMaxIdBytes + 1, 'i');
+  EXPECT_EQ(Reject(e), RejectReason::kIdTooLong);
+}
+
+TEST(EventValidation, RejectsControlCharactersInIds) {
+  store::EventInput e = Good();
+  e.user_id = "member\n17";
+  std::string detail;
+  EXPECT_EQ(Reject(e, &detail), RejectReason::kBadId);
+  EXPECT_EQ(detail, "user_id holds control character 0x0a at byte 6");
+  e = Good();
+  e.item_id = std::string("drill\0bit", 9);
+  EXPECT_EQ(Reject(e), RejectReason::kBadId);
+  e = Good();
+  e.item_id = "saw\x7f";
+  EXPECT_EQ(Reject(e), RejectReason::kBadId);
+}
+
+TEST(EventValidation, RejectsBadWeights) {
+  for (float w : {-1.0f, -0.001f, 1000.5f, 1e30f, std::numeric_limits<float>::infinity(),
+                  -std::numeric_limits<float>::infinity(),
+                  std::numeric_limits<float>::quiet_NaN()}) {
+    store::EventInput e = Good();
+    e.weight = w;
+    EXPECT_EQ(Reject(e), RejectReason::kBadWeight) << w;
+  }
+}
+
+TEST(EventValidation, RejectsNegativeTimestamps) {
+  store::EventInput e = Good();
+  e.timestamp_ms = -1;
+  EXPECT_EQ(Reject(e), RejectReason::kBadTimestamp);
+}
+
+TEST(EventValidation, RejectsBadEventIds) {
+  store::EventInput e = Good();
+  e.event_id.assign(kMaxEventIdBytes + 1, 'e');
+  EXPECT_EQ(Reject(e), RejectReason::kBadEventId);
+  e = Good();
+  e.event_id = "loan\t1";
+  EXPECT_EQ(Reject(e), RejectReason::kBadEventId);
+  e = Good();
+  e.event_id.clear();  // no event_id: allowed, no de-duplication
+  EventRejection why;
+  EXPECT_TRUE(ValidateEvent(&e, 1, &why));
+}
+
+TEST(EventValidation, ReasonLabelsAreTheAgreedMetricLabels) {
+  // Labels of plumb_events_rejected_total as agreed in the project's metric list.
+  EXPECT_EQ(RejectReasonLabel(RejectReason::kEmptyUserId), "empty_user_id");
+  EXPECT_EQ(RejectReasonLabel(RejectReason::kEmptyItemId), "empty_item_id");
+  EXPECT_EQ(RejectReasonLabel(RejectReason::kIdTooLong), "id_too_long");
+  EXPECT_EQ(RejectReasonLabel(RejectReason::kBadWeight), "bad_weight");
+  EXPECT_EQ(RejectReasonLabel(RejectReason::kBadTimestamp), "bad_timestamp");
+  EXPECT_EQ(RejectReasonLabel(RejectReason::kBadEventId), "bad_event_id");
+  EXPECT_EQ(RejectReasonLabel(RejectReason::kBadId), "bad_id");
+}
+
+}  // namespace
+}  // namespace plumb::online

@@ -1,0 +1,56 @@
+// Who may call plumb-train's gRPC endpoint: an optional bearer token (every call then
+// carries `authorization: Bearer <token>` metadata), optional TLS, and the rule that an
+// endpoint without a token listens only on loopback unless the operator says otherwise.
+#pragma once
+
+#include <memory>
+#include <string>
+#include <string_view>
+
+#include <grpcpp/security/server_credentials.h>
+#include <grpcpp/server_context.h>
+#include <grpcpp/support/status.h>
+
+#include "core/status.h"
+
+namespace plumb::online {
+
+// Checks the bearer token of incoming calls. Immutable after construction; Check() may be
+// called from any thread.
+class BearerAuth {
+ public:
+  // `token`: printable ASCII without spaces, not empty.
+  explicit BearerAuth(std::string token) : token_(std::move(token)) {}
+
+  // Reads the token from a file: its content with surrounding whitespace trimmed.
+  // InvalidArgument for an empty token or one with spaces or control characters inside,
+  // IoError when the file cannot be read. When the file is readable by group or others,
+  // `warning` (optional) receives a sentence saying so.
+  static Status FromFile(const std::string& path, std::unique_ptr<BearerAuth>* out,
+                         std::string* warning = nullptr);
+
+  // OK when the call carries the right token; UNAUTHENTICATED with a message saying what
+  // is missing or wrong otherwise. The comparison takes the same time wherever the tokens
+  // differ.
+  grpc::Status Check(const grpc::ServerContext& context) const;
+
+ private:
+  std::string token_;
+};
+
+// Services call this first: OK when `auth` is null (no token configured).
+inline grpc::Status CheckCaller(const BearerAuth* auth, const grpc::ServerContext* context) {
+  return auth == nullptr ? grpc::Status::OK : auth->Check(*context);
+}
+
+// True for listen addresses only reachable from this machine: 127.0.0.0/8, ::1,
+// "localhost", and unix-domain sockets ("unix:..."). False for wildcards (0.0.0.0, [::]),
+// other addresses and other host names.
+bool IsLoopbackAddress(std::string_view listen_address);
+
+// Insecure credentials when both paths are empty; TLS from PEM files otherwise.
+// InvalidArgument when only one path is given, IoError when a file cannot be read.
+Status MakeServerCredentials(const std::string& tls_cert_path, const std::string& tls_key_path,
+                             std::shared_ptr<grpc::ServerCredentials>* out);
+
+}  // namespace plumb::online

@@ -1,0 +1,125 @@
+#include "trainer/online/control_service.h"
+
+#include <algorithm>
+#include <string>
+#include <vector>
+
+#include "store/store.h"
+#include "trainer/online/online_loop.h"
+
+namespace plumb::online {
+namespace {
+
+plumb::v1::GateOutcome WireGate(store::GateOutcome gate) {
+  switch (gate) {
+    case store::GateOutcome::kPassed: return plumb::v1::GATE_PASSED;
+    case store::GateOutcome::kFailed: return plumb::v1::GATE_FAILED;
+    case store::GateOutcome::kSkipped: return plumb::v1::GATE_SKIPPED;
+    case store::GateOutcome::kUnspecified: return plumb::v1::GATE_OUTCOME_UNSPECIFIED;
+  }
+  return plumb::v1::GATE_OUTCOME_UNSPECIFIED;
+}
+
+}  // namespace
+
+grpc::Status ToGrpcStatus(const Status& status, const std::string& what) {
+  const std::string message = what + ": " + status.message();
+  switch (status.code()) {
+    case Status::Code::kOk: return grpc::Status::OK;
+    case Status::Code::kNotFound: return grpc::Status(grpc::StatusCode::NOT_FOUND, message);
+    case Status::Code::kFailedPrecondition:
+      return grpc::Status(grpc::StatusCode::FAILED_PRECONDITION, message);
+    case Status::Code::kInvalidArgument:
+      return grpc::Status(grpc::StatusCode::INVALID_ARGUMENT, message);
+    case Status::Code::kUnavailable:
+    case Status::Code::kIoError: return grpc::Status(grpc::StatusCode::UNAVAILABLE, message);
+    case Status::Code::kResourceExhausted:
+      return grpc::Status(grpc::StatusCode::RESOURCE_EXHAUSTED, message);
+    case Status::Code::kAborted: return grpc::Status(grpc::StatusCode::ABORTED, message);
+    case Status::Code::kCorruption: return grpc::Status(grpc::StatusCode::INTERNAL, message);
+  }
+  return grpc::Status(grpc::StatusCode::INTERNAL, message);
+}
+
+ControlService::ControlService(store::Store* store, OnlineLoop* loop, const BearerAuth* auth)
+    : store_(store), loop_(loop), auth_(auth) {}
+
+grpc::Status ControlService::ListVersions(grpc::ServerContext* context,
+                                          const plumb::v1::ListVersionsRequest*,
+                                          plumb::v1::ListVersionsResponse* response) {
+  if (grpc::Status s = CheckCaller(auth_, context); !s.ok()) return s;
+  std::vector<store::VersionManifest> manifests;
+  if (Status s = store_->ListVersions(&manifests); !s.ok()) {
+    return ToGrpcStatus(s, "cannot list versions");
+  }
+  uint64_t active = 0;
+  if (Status s = store_->GetActiveVersion(&active); !s.ok()) {
+    return ToGrpcStatus(s, "cannot read the active version");
+  }
+  for (const store::VersionManifest& m : manifests) {
+    plumb::v1::VersionInfo* v = response->add_versions();
+    v->set_version(m.version);
+    v->set_created_ms(m.created_ms);
+    v->set_objective(m.objective);
+    v->set_events_seen(m.events_seen);
+    v->set_num_users(m.num_users);
+    v->set_num_items(m.num_items);
+    v->set_dim(m.dim);
+    v->set_validation_recall(m.validation_recall);
+    v->set_validation_k(m.validation_k);
+    v->set_gate(WireGate(m.gate));
+    v->set_gate_reason(m.gate_reason);
+    v->set_active(m.version == active);
+  }
+  return grpc::Status::OK;
+}
+
+void ControlService::FillStatus(plumb::v1::TrainerStatus* out) const {
+  const OnlineStatus s = loop_->status();
+  out->set_active_version(s.active_version);
+  // The log may have grown since the loop last looked.
+  out->set_last_sequence(std::max(s.last_sequence, store_->LastSequence()));
+  out->set_trained_sequence(s.trained_sequence);
+  out->set_auto_activate(s.auto_activate);
+  out->set_objective(s.objective);
+  out->set_num_users(s.num_users);
+  out->set_num_items(s.num_items);
+}
+
+grpc::Status ControlService::GetStatus(grpc::ServerContext* context,
+                                       const plumb::v1::GetStatusRequest*,
+                                       plumb::v1::TrainerStatus* response) {
+  if (grpc::Status s = CheckCaller(auth_, context); !s.ok()) return s;
+  FillStatus(response);
+  return grpc::Status::OK;
+}
+
+grpc::Status ControlService::Activate(grpc::ServerContext* context,
+                                      const plumb::v1::ActivateRequest* request,
+                                      plumb::v1::ActivateResponse* response) {
+  if (grpc::Status s = CheckCaller(auth_, context); !s.ok()) return s;
+  if (request->version() == 0) {
+    return grpc::Status(grpc::StatusCode::INVALID_ARGUMENT,
+                        "version is 0; name a kept version (see ListVersions)");
+  }
+  uint64_t previous = 0;
+  if (Status s = loop_->Activate(request->version(), &previous); !s.ok()) {
+    return ToGrpcStatus(s, "cannot activate version " + std::to_string(request->version()));
+  }
+  response->set_active_version(request->version());
+  response->set_previous_version(previous);
+  return grpc::Status::OK;
+}
+
+grpc::Status ControlService::SetAutoActivate(grpc::ServerContext* context,
+                                             const plumb::v1::SetAutoActivateRequest* request,
+                                             plumb::v1::TrainerStatus* response) {
+  if (grpc::Status s = CheckCaller(auth_, context); !s.ok()) return s;
+  if (Status s = loop_->SetAutoActivate(request->enabled()); !s.ok()) {
+    return ToGrpcStatus(s, "cannot change automatic activation");
+  }
+  FillStatus(response);
+  return grpc::Status::OK;
+}
+
+}  // namespace plumb::online

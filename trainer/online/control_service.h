@@ -1,0 +1,51 @@
+// ControlService: plumb.v1.ModelControl. Translates between the wire messages and the
+// store (kept versions) and the online loop (status, activation); nothing else.
+//
+// Thread safety: the gRPC server calls the handlers from many threads at once; the store
+// and the loop are thread-safe.
+#pragma once
+
+#include "plumb/v1/control.grpc.pb.h"
+#include "trainer/online/auth.h"
+
+namespace plumb::store {
+class Store;
+}
+
+namespace plumb::online {
+
+class OnlineLoop;
+
+class ControlService final : public plumb::v1::ModelControl::Service {
+ public:
+  // `store` and `loop` must outlive the service; `auth` may be null (no token).
+  ControlService(store::Store* store, OnlineLoop* loop, const BearerAuth* auth);
+
+  grpc::Status ListVersions(grpc::ServerContext* context,
+                            const plumb::v1::ListVersionsRequest* request,
+                            plumb::v1::ListVersionsResponse* response) override;
+  grpc::Status GetStatus(grpc::ServerContext* context, const plumb::v1::GetStatusRequest* request,
+                         plumb::v1::TrainerStatus* response) override;
+  // NOT_FOUND for a version that is not kept, FAILED_PRECONDITION for an incomplete one,
+  // INVALID_ARGUMENT for version 0.
+  grpc::Status Activate(grpc::ServerContext* context, const plumb::v1::ActivateRequest* request,
+                        plumb::v1::ActivateResponse* response) override;
+  grpc::Status SetAutoActivate(grpc::ServerContext* context,
+                               const plumb::v1::SetAutoActivateRequest* request,
+                               plumb::v1::TrainerStatus* response) override;
+
+ private:
+  void FillStatus(plumb::v1::TrainerStatus* out) const;
+
+  store::Store* const store_;
+  OnlineLoop* const loop_;
+  const BearerAuth* const auth_;
+};
+
+// The gRPC status for a failed store or loop call: NotFound -> NOT_FOUND,
+// FailedPrecondition -> FAILED_PRECONDITION, InvalidArgument -> INVALID_ARGUMENT,
+// Unavailable / IoError -> UNAVAILABLE, anything else -> INTERNAL. `what` prefixes the
+// message.
+grpc::Status ToGrpcStatus(const Status& status, const std::string& what);
+
+}  // namespace plumb::online

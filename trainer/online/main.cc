@@ -1,0 +1,225 @@
+// plumb-train: the sidecar trainer. Owns the store as its primary, ingests events over gRPC
+// (plumb.v1.EventIngest), trains online (OnlineLoop), serves version control
+// (plumb.v1.ModelControl) and Prometheus metrics. SIGTERM/SIGINT: stop accepting, let calls
+// in flight finish (up to shutdown_grace_seconds), write what is queued, stop the loop
+// (it publishes nothing half-done), close the store, exit 0.
+#include <pthread.h>
+#include <signal.h>
+
+#include <chrono>
+#include <cmath>
+#include <condition_variable>
+#include <cstdio>
+#include <cstring>
+#include <memory>
+#include <mutex>
+#include <thread>
+
+#include <grpcpp/ext/proto_server_reflection_plugin.h>
+#include <grpcpp/health_check_service_interface.h>
+#include <grpcpp/server.h>
+#include <grpcpp/server_builder.h>
+#include <prometheus/exposer.h>
+#include <spdlog/sinks/stdout_color_sinks.h>
+#include <spdlog/spdlog.h>
+
+#include "store/store.h"
+#include "trainer/online/auth.h"
+#include "trainer/online/control_service.h"
+#include "trainer/online/group_commit.h"
+#include "trainer/online/ingest_service.h"
+#include "trainer/online/online_loop.h"
+#include "trainer/online/train_config.h"
+#include "trainer/online/train_metrics.h"
+
+namespace {
+
+using plumb::Status;
+using namespace plumb::online;
+
+int64_t NowMs() {
+  return std::chrono::duration_cast<std::chrono::milliseconds>(
+             std::chrono::system_clock::now().time_since_epoch())
+      .count();
+}
+
+// Copies the committer's totals and the loop's status into the metrics once a second.
+class MetricsPoller {
+ public:
+  MetricsPoller(TrainMetrics* metrics, GroupCommitter* committer, OnlineLoop* loop)
+      : thread_([=, this] {
+          std::unique_lock<std::mutex> lock(mu_);
+          do {
+            lock.unlock();
+            const OnlineStatus status = loop->status();
+            metrics->Refresh(committer->stats(), &status, NowMs());
+            lock.lock();
+          } while (!cv_.wait_for(lock, std::chrono::seconds(1), [this] { return stop_; }));
+        }) {}
+  ~MetricsPoller() {
+    {
+      std::lock_guard<std::mutex> lock(mu_);
+      stop_ = true;
+    }
+    cv_.notify_all();
+    thread_.join();
+  }
+
+ private:
+  std::mutex mu_;
+  std::condition_variable cv_;
+  bool stop_ = false;
+  std::thread thread_;  // last: starts after the members it uses exist
+};
+
+int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
+  // ---- who may call, decided before anything is opened --------------------------------
+  std::unique_ptr<BearerAuth> auth;
+  if (!config.token_file.empty()) {
+    std::string warning;
+    if (Status s = BearerAuth::FromFile(config.token_file, &auth, &warning); !s.ok()) {
+      spdlog::critical("cannot load the bearer token: {}", s.message());
+      return 2;
+    }
+    if (!warning.empty()) spdlog::warn("{}", warning);
+  }
+  const bool loopback = IsLoopbackAddress(config.listen);
+  if (auth == nullptr && !loopback) {
+    if (!config.allow_insecure_remote) {
+      spdlog::critical(
+          "refusing to serve {} without a bearer token: anyone who can reach it could write "
+          "events and change the active model. Set token_file, listen on a loopback address "
+          "(127.0.0.1), or pass --allow-insecure-remote if the network is trusted.",
+          config.listen);
+      return 2;
+    }
+    spdlog::warn("serving {} without a token (--allow-insecure-remote)", config.listen);
+  }
+  if (auth != nullptr && config.tls_cert.empty() && !loopback) {
+    spdlog::warn("the bearer token travels in clear text to {}: configure tls_cert/tls_key",
+                 config.listen);
+  }
+  std::shared_ptr<grpc::ServerCredentials> credentials;
+  if (Status s = MakeServerCredentials(config.tls_cert, config.tls_key, &credentials); !s.ok()) {
+    spdlog::critical("cannot set up TLS: {}", s.message());
+    return 2;
+  }
+
+  // ---- metrics endpoint: fails early and cheaply when its port is taken ---------------
+  TrainMetrics metrics;
+  std::unique_ptr<prometheus::Exposer> exposer;
+  if (!config.metrics.empty()) {
+    try {
+      exposer = std::make_unique<prometheus::Exposer>(config.metrics);
+    } catch (const std::exception& e) {
+      spdlog::critical("cannot serve metrics on {}: {}", config.metrics, e.what());
+      return 1;
+    }
+    exposer->RegisterCollectable(metrics.registry());
+  }
+
+  // ---- store and training loop ------------------------------------------------------
+  plumb::store::StoreOptions store_options;
+  store_options.create_if_missing = true;
+  store_options.sync = config.sync;
+  store_options.keep_versions = config.keep_versions;
+  if (Status s = ParseDuration(config.dedup_window, &store_options.dedup_window_ms); !s.ok()) {
+    spdlog::critical("{}", s.message());
+    return 2;
+  }
+  std::unique_ptr<plumb::store::Store> store;
+  if (Status s = plumb::store::Store::OpenPrimary(config.db, store_options, &store); !s.ok()) {
+    spdlog::critical(
+        "cannot open the store at {} as the primary: {} (only one plumb-train or plumb "
+        "command may write a store at a time)",
+        config.db, s.ToString());
+    return 1;
+  }
+  std::unique_ptr<OnlineLoop> loop;
+  if (Status s = OnlineLoop::Create(store.get(), config.online, &loop); !s.ok()) {
+    spdlog::critical("cannot start the training loop: {}", s.ToString());
+    return 1;
+  }
+  loop->Start();
+
+  // ---- ingest and control -----------------------------------------------------------
+  StoreEventLog event_log(store.get());
+  GroupCommitOptions commit_options;
+  commit_options.window =
+      std::chrono::microseconds(std::llround(config.commit_window_ms * 1000.0));
+  commit_options.max_group_events = config.max_group_events;
+  GroupCommitter committer(&event_log, [&loop] { loop->NotifyAppended(); }, commit_options);
+  IngestLimits limits;
+  limits.max_batch_events = config.max_batch_events;
+  IngestService ingest(&committer, &metrics, auth.get(), limits);
+  ControlService control(store.get(), loop.get(), auth.get());
+
+  grpc::EnableDefaultHealthCheckService(true);
+  grpc::reflection::InitProtoReflectionServerBuilderPlugin();
+  grpc::ServerBuilder builder;
+  int port = 0;
+  builder.AddListeningPort(config.listen, credentials, &port);
+  builder.RegisterService(&ingest);
+  builder.RegisterService(&control);
+  // A full PublishBatch of events with ids at their limits is about 0.7 KB per event.
+  builder.SetMaxReceiveMessageSize(
+      static_cast<int>(std::max<uint64_t>(16u << 20, uint64_t{config.max_batch_events} << 10)));
+  std::unique_ptr<grpc::Server> server = builder.BuildAndStart();
+  if (server == nullptr || port == 0) {
+    spdlog::critical("cannot listen on {} (address in use, or bad TLS files?)", config.listen);
+    committer.Close();
+    loop->Stop();
+    return 1;
+  }
+
+  std::unique_ptr<MetricsPoller> poller =
+      std::make_unique<MetricsPoller>(&metrics, &committer, loop.get());
+  const OnlineStatus initial = loop->status();
+  spdlog::info(
+      "plumb-train serving {} (port {}{}{}), metrics {}; store {}: log at {}, active version "
+      "{}, objective {}",
+      config.listen, port, auth ? ", token required" : "", config.tls_cert.empty() ? "" : ", TLS",
+      config.metrics.empty() ? "off" : config.metrics, config.db, store->LastSequence(),
+      initial.active_version, config.online.objective);
+
+  int signal_number = 0;
+  sigwait(&shutdown_signals, &signal_number);
+  spdlog::info("{} received: shutting down", strsignal(signal_number));
+
+  // Stop accepting; calls in flight get the grace period, then are cancelled. Handlers
+  // waiting for the committer still get their answer: it keeps writing until Close().
+  server->GetHealthCheckService()->SetServingStatus(false);
+  server->Shutdown(std::chrono::system_clock::now() +
+                   std::chrono::milliseconds(
+                       std::llround(config.shutdown_grace_seconds * 1000.0)));
+  server->Wait();
+  committer.Close();
+  loop->Stop();
+  poller.reset();
+  const plumb::online::CommitterStats stats = committer.stats();
+  spdlog::info("stopped cleanly: {} events appended, {} duplicates this run; log at {}",
+               stats.appended, stats.duplicates, store->LastSequence());
+  loop.reset();
+  store.reset();
+  return 0;
+}
+
+}  // namespace
+
+int main(int argc, char** argv) {
+  // The shutdown signals are blocked in every thread (threads inherit the mask) and taken
+  // synchronously by sigwait in Run: no async-signal-safety concerns.
+  sigset_t shutdown_signals;
+  sigemptyset(&shutdown_signals);
+  sigaddset(&shutdown_signals, SIGTERM);
+  sigaddset(&shutdown_signals, SIGINT);
+  pthread_sigmask(SIG_BLOCK, &shutdown_signals, nullptr);
+
+  TrainConfig config;
+  if (std::optional<int> exit_code = ParseTrainConfig(argc, argv, &config)) return *exit_code;
+
+  auto logger = spdlog::stderr_color_mt("plumb-train");
+  spdlog::set_default_logger(logger);
+  spdlog::set_level(spdlog::level::from_str(config.log_level));
+  return Run(config, shutdown_signals);
+}

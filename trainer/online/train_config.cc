@@ -1,0 +1,275 @@
+#include "trainer/online/train_config.h"
+
+#include <charconv>
+#include <cstdio>
+#include <functional>
+#include <limits>
+#include <type_traits>
+#include <vector>
+
+#include <CLI/CLI.hpp>
+#include <toml++/toml.h>
+
+namespace plumb::online {
+namespace {
+
+// One configuration key: its TOML name, the flag that sets it, and how to set it from a
+// TOML value (returns an error text, empty when fine).
+struct Key {
+  std::string name;
+  CLI::Option* option = nullptr;
+  std::function<std::string(const toml::node&)> assign;
+};
+
+std::string FlagName(std::string_view key) {
+  std::string flag = "--";
+  for (char c : key) flag += c == '_' ? '-' : c;
+  return flag;
+}
+
+template <typename T>
+std::string AssignFromToml(const toml::node& node, T* field) {
+  if constexpr (std::is_same_v<T, bool>) {
+    if (auto v = node.value_exact<bool>()) {
+      *field = *v;
+      return {};
+    }
+    return "expects true or false";
+  } else if constexpr (std::is_same_v<T, std::string>) {
+    if (auto v = node.value_exact<std::string>()) {
+      *field = *v;
+      return {};
+    }
+    return "expects a string";
+  } else if constexpr (std::is_integral_v<T>) {
+    auto v = node.value_exact<int64_t>();
+    if (!v) return "expects an integer";
+    if (*v < 0 && std::is_unsigned_v<T>) return "must not be negative";
+    if (static_cast<uint64_t>(*v) > static_cast<uint64_t>(std::numeric_limits<T>::max())) {
+      return "is too large";
+    }
+    *field = static_cast<T>(*v);
+    return {};
+  } else {
+    auto v = node.value<double>();  // integers are accepted for floating-point keys
+    if (!v) return "expects a number";
+    *field = static_cast<T>(*v);
+    return {};
+  }
+}
+
+template <typename T>
+void Bind(CLI::App& app, std::vector<Key>* keys, const std::string& group,
+          const std::string& name, T* field, const std::string& help) {
+  CLI::Option* option;
+  if constexpr (std::is_same_v<T, bool>) {
+    const std::string flag = FlagName(name);
+    option = app.add_flag(flag + ",!--no-" + flag.substr(2), *field,
+                          help + " [default: " + (*field ? "on" : "off") + "]");
+  } else {
+    option = app.add_option(FlagName(name), *field, help)->capture_default_str();
+  }
+  option->group(group);
+  keys->push_back({name, option, [field](const toml::node& node) {
+                     return AssignFromToml(node, field);
+                   }});
+}
+
+bool OneOf(const std::string& value, std::initializer_list<const char*> allowed) {
+  for (const char* a : allowed) {
+    if (value == a) return true;
+  }
+  return false;
+}
+
+}  // namespace
+
+Status ParseDuration(std::string_view text, int64_t* ms) {
+  if (text == "0") {
+    *ms = 0;
+    return Status::Ok();
+  }
+  double number = 0;
+  const char* begin = text.data();
+  const char* end = text.data() + text.size();
+  auto [rest, ec] = std::from_chars(begin, end, number);
+  if (ec != std::errc() || rest == begin || number < 0) {
+    return Status::InvalidArgument("duration '" + std::string(text) +
+                                   "' is not of the form 250ms, 90s, 30m, 24h, 7d or 0");
+  }
+  const std::string_view unit(rest, static_cast<size_t>(end - rest));
+  double scale;
+  if (unit == "ms") {
+    scale = 1;
+  } else if (unit == "s") {
+    scale = 1e3;
+  } else if (unit == "m") {
+    scale = 60e3;
+  } else if (unit == "h") {
+    scale = 3600e3;
+  } else if (unit == "d") {
+    scale = 86400e3;
+  } else {
+    return Status::InvalidArgument("duration '" + std::string(text) +
+                                   "' needs a unit: ms, s, m, h or d");
+  }
+  *ms = static_cast<int64_t>(number * scale + 0.5);
+  return Status::Ok();
+}
+
+Status CheckTrainConfig(const TrainConfig& c) {
+  auto bad = [](const std::string& what) { return Status::InvalidArgument(what); };
+  if (c.db.empty()) return bad("no database directory: give --db DIR or db = \"DIR\"");
+  if (c.listen.empty()) return bad("listen is empty");
+  if (!(c.commit_window_ms >= 0 && c.commit_window_ms <= 1000)) {
+    return bad("commit_window_ms must be within [0, 1000]");
+  }
+  if (c.max_group_events < 1) return bad("max_group_events must be at least 1");
+  if (c.max_batch_events < 1 || c.max_batch_events > 100000) {
+    return bad("max_batch_events must be within [1, 100000]");
+  }
+  if (c.keep_versions < 1) return bad("keep_versions must be at least 1");
+  int64_t ms;
+  PLUMB_RETURN_IF_ERROR(ParseDuration(c.dedup_window, &ms));
+  if (c.tls_cert.empty() != c.tls_key.empty()) {
+    return bad("TLS needs both tls_cert and tls_key (or neither)");
+  }
+  if (!(c.shutdown_grace_seconds >= 0)) return bad("shutdown_grace_seconds must be >= 0");
+  if (!OneOf(c.log_level, {"trace", "debug", "info", "warn", "error", "critical", "off"})) {
+    return bad("log_level must be trace, debug, info, warn, error, critical or off");
+  }
+  const OnlineOptions& o = c.online;
+  if (!OneOf(o.objective, {"cpr", "bpr", "bce"})) return bad("objective must be cpr, bpr or bce");
+  if (!OneOf(o.optimizer, {"sgd", "adagrad"})) return bad("optimizer must be sgd or adagrad");
+  if (o.dim < 1 || o.dim > 4096) return bad("dim must be within [1, 4096]");
+  if (o.cpr_k < 2) return bad("cpr_k must be at least 2");
+  if (!(o.cpr_k3_share >= 0 && o.cpr_k3_share <= 1)) return bad("cpr_k3_share must be in [0, 1]");
+  if (!(o.beta >= 1)) return bad("beta must be at least 1");
+  if (!(o.learning_rate > 0)) return bad("learning_rate must be positive");
+  if (!(o.l2 >= 0)) return bad("l2 must not be negative");
+  if (o.batch_size < 1) return bad("batch_size must be at least 1");
+  if (!(o.replay_ratio >= 0)) return bad("replay_ratio must not be negative");
+  if (o.threads < 1) return bad("threads must be at least 1");
+  if (!(o.holdout_fraction >= 0 && o.holdout_fraction <= 0.5)) {
+    return bad("holdout_fraction must be within [0, 0.5]");
+  }
+  if (o.publish_every_events < 1) return bad("publish_every_events must be at least 1");
+  if (!(o.publish_every_seconds > 0)) return bad("publish_every_seconds must be positive");
+  if (o.gate_k < 1) return bad("gate_k must be at least 1");
+  if (!(o.gate_tolerance >= 0)) return bad("gate_tolerance must not be negative");
+  if (!(o.gate_max_row_norm > 0)) return bad("gate_max_row_norm must be positive");
+  return Status::Ok();
+}
+
+std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConfig* config) {
+  CLI::App app(
+      "plumb-train: the sidecar trainer. Ingests interaction events over gRPC into the "
+      "store's event log, trains the embeddings online, and publishes gated versions.\n"
+      "Every option is also a key of the --config TOML file (without the dashes, '-' -> "
+      "'_'); flags win over the file.",
+      "plumb-train");
+  app.get_formatter()->column_width(44);
+  std::vector<Key> keys;
+  TrainConfig& c = *config;
+  OnlineOptions& o = c.online;
+
+  app.add_option("--config", c.config, "TOML configuration file")->check(CLI::ExistingFile);
+
+  const std::string s = "Store and transport";
+  Bind(app, &keys, s, "db", &c.db, "Database directory (opened as the primary; required)");
+  Bind(app, &keys, s, "listen", &c.listen, "gRPC address HOST:PORT (or unix:PATH)");
+  Bind(app, &keys, s, "metrics", &c.metrics, "Prometheus /metrics address HOST:PORT; empty = off");
+  Bind(app, &keys, s, "sync", &c.sync, "fsync the event log before acknowledging");
+  Bind(app, &keys, s, "commit_window_ms", &c.commit_window_ms,
+       "Group commit: wait this long for more events before a log write");
+  Bind(app, &keys, s, "max_group_events", &c.max_group_events, "Events per log write, at most");
+  Bind(app, &keys, s, "max_batch_events", &c.max_batch_events, "PublishBatch size limit");
+  Bind(app, &keys, s, "keep_versions", &c.keep_versions, "Embedding versions kept for rollback");
+  Bind(app, &keys, s, "dedup_window", &c.dedup_window,
+       "event_id de-duplication window (250ms, 90s, 30m, 24h, 7d; 0 = forever)");
+  Bind(app, &keys, s, "token_file", &c.token_file,
+       "File holding the bearer token every call must carry; empty = no token");
+  Bind(app, &keys, s, "tls_cert", &c.tls_cert, "PEM certificate chain for TLS; empty = no TLS");
+  Bind(app, &keys, s, "tls_key", &c.tls_key, "PEM private key for TLS");
+  Bind(app, &keys, s, "allow_insecure_remote", &c.allow_insecure_remote,
+       "Serve a non-loopback address without a token");
+  Bind(app, &keys, s, "shutdown_grace_seconds", &c.shutdown_grace_seconds,
+       "At SIGTERM/SIGINT, how long in-flight calls may finish");
+  Bind(app, &keys, s, "log_level", &c.log_level,
+       "trace, debug, info, warn, error, critical or off");
+
+  const std::string t = "Training";
+  Bind(app, &keys, t, "objective", &o.objective, "cpr, bpr or bce");
+  Bind(app, &keys, t, "dim", &o.dim, "Embedding dimension");
+  Bind(app, &keys, t, "cpr_k", &o.cpr_k, "CPR sample size (pairs crossed per sample)");
+  Bind(app, &keys, t, "cpr_k3_share", &o.cpr_k3_share, "Share of k=3 samples in CPR batches");
+  Bind(app, &keys, t, "beta", &o.beta, "Dynamic sampling: candidates drawn per kept sample");
+  Bind(app, &keys, t, "learning_rate", &o.learning_rate, "Learning rate");
+  Bind(app, &keys, t, "l2", &o.l2, "L2 regularisation");
+  Bind(app, &keys, t, "optimizer", &o.optimizer, "sgd or adagrad");
+  Bind(app, &keys, t, "batch_size", &o.batch_size, "Samples per mini-batch");
+  Bind(app, &keys, t, "replay_ratio", &o.replay_ratio,
+       "Replayed history interactions per new interaction");
+  Bind(app, &keys, t, "threads", &o.threads, "Training threads");
+  Bind(app, &keys, t, "seed", &o.seed, "Random seed");
+  Bind(app, &keys, t, "holdout_fraction", &o.holdout_fraction,
+       "Share of (user, item) pairs held out for validation");
+  Bind(app, &keys, t, "publish_every_events", &o.publish_every_events,
+       "Publish a candidate after this many new events...");
+  Bind(app, &keys, t, "publish_every_seconds", &o.publish_every_seconds,
+       "...or after this many seconds, whichever comes first");
+  Bind(app, &keys, t, "min_train_pairs", &o.min_train_pairs,
+       "No version before this many training pairs");
+  Bind(app, &keys, t, "gate_k", &o.gate_k, "Gate: K of validation Recall@K");
+  Bind(app, &keys, t, "gate_tolerance", &o.gate_tolerance,
+       "Gate: allowed absolute drop of validation Recall@K");
+  Bind(app, &keys, t, "gate_max_row_norm", &o.gate_max_row_norm, "Gate: largest row norm allowed");
+  Bind(app, &keys, t, "auto_activate", &o.auto_activate,
+       "Activate gate-passing candidates (initial value; kept in the store)");
+
+  try {
+    app.parse(argc, argv);
+  } catch (const CLI::ParseError& e) {
+    // --help and --version exit 0; every other parse error is a usage error.
+    return app.exit(e) == 0 ? 0 : 2;
+  }
+
+  if (!c.config.empty()) {
+    toml::table table;
+    try {
+      table = toml::parse_file(c.config);
+    } catch (const toml::parse_error& e) {
+      std::fprintf(stderr, "plumb-train: %s line %u: %.*s\n", c.config.c_str(),
+                   e.source().begin.line, static_cast<int>(e.description().size()),
+                   e.description().data());
+      return 2;
+    }
+    for (auto&& [name, node] : table) {
+      const std::string key(name.str());
+      const Key* found = nullptr;
+      for (const Key& k : keys) {
+        if (k.name == key) found = &k;
+      }
+      if (found == nullptr) {
+        std::fprintf(stderr, "plumb-train: %s line %u: unknown key '%s' (see --help)\n",
+                     c.config.c_str(), node.source().begin.line, key.c_str());
+        return 2;
+      }
+      if (found->option->count() > 0) continue;  // the command line wins
+      const std::string error = found->assign(node);
+      if (!error.empty()) {
+        std::fprintf(stderr, "plumb-train: %s line %u: %s %s\n", c.config.c_str(),
+                     node.source().begin.line, key.c_str(), error.c_str());
+        return 2;
+      }
+    }
+  }
+
+  if (Status s = CheckTrainConfig(c); !s.ok()) {
+    std::fprintf(stderr, "plumb-train: %s\n", s.message().c_str());
+    return 2;
+  }
+  return std::nullopt;
+}
+
+}  // namespace plumb::online

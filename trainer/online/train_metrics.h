@@ -1,0 +1,78 @@
+// plumb-train's Prometheus metrics (names agreed in the project's metric list; all start
+// with plumb_). Rejections are counted by the ingest service as they happen; everything
+// else is copied from running totals (the group committer's counters and the training
+// loop's status) by Refresh(), which plumb-train calls about once a second.
+//
+// Thread safety: all methods may be called from any thread.
+#pragma once
+
+#include <array>
+#include <cstdint>
+#include <memory>
+#include <mutex>
+#include <string>
+
+#include "trainer/online/event_validation.h"
+#include "trainer/online/group_commit.h"
+#include "trainer/online/online_loop.h"
+
+namespace prometheus {
+class Counter;
+class Gauge;
+class Registry;
+template <typename T>
+class Family;
+}  // namespace prometheus
+
+namespace plumb::online {
+
+class TrainMetrics {
+ public:
+  TrainMetrics();
+  TrainMetrics(const TrainMetrics&) = delete;
+  TrainMetrics& operator=(const TrainMetrics&) = delete;
+  ~TrainMetrics();
+
+  // The registry to expose (prometheus::Exposer::RegisterCollectable). Shared ownership.
+  std::shared_ptr<prometheus::Registry> registry() const { return registry_; }
+
+  // plumb_events_rejected_total{reason} += n.
+  void CountRejected(RejectReason reason, uint64_t n = 1);
+
+  // Brings the totals-fed counters and the gauges up to date. `loop` may be null (ingest
+  // without a training loop, in tests). Counters only ever increase: a total lower than
+  // the last one seen (cannot happen within one process) is ignored.
+  void Refresh(const CommitterStats& committer, const OnlineStatus* loop, int64_t now_ms);
+
+  // Current values, for tests and logs.
+  double rejected(RejectReason reason) const;
+  double accepted() const;
+  double duplicates() const;
+
+ private:
+  // Adds the increase of a running total to a counter.
+  struct TotalFeed {
+    prometheus::Counter* counter = nullptr;
+    uint64_t seen = 0;
+    void Update(uint64_t total);
+  };
+
+  std::shared_ptr<prometheus::Registry> registry_;
+  std::array<prometheus::Counter*, kNumRejectReasons> rejected_{};
+
+  std::mutex mu_;  // guards the feeds and the labelled families below
+  TotalFeed accepted_, duplicates_, trained_, passed_, failed_;
+  TotalFeed samples_;  // labelled by objective, attached on the first Refresh with a loop
+  prometheus::Family<prometheus::Counter>* samples_family_ = nullptr;
+  prometheus::Family<prometheus::Gauge>* loss_family_ = nullptr;
+  prometheus::Gauge* loss_ = nullptr;
+  std::string objective_;
+  prometheus::Gauge* lag_events_ = nullptr;
+  prometheus::Gauge* lag_seconds_ = nullptr;
+  prometheus::Gauge* recall_active_ = nullptr;
+  prometheus::Gauge* recall_candidate_ = nullptr;
+  prometheus::Gauge* active_version_ = nullptr;
+  prometheus::Gauge* last_publish_ = nullptr;
+};
+
+}  // namespace plumb::online

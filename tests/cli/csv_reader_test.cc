@@ -1,0 +1,88 @@
+#include "cli/csv_reader.h"
+
+#include <filesystem>
+#include <fstream>
+
+#include <gtest/gtest.h>
+
+namespace plumb::cli {
+namespace {
+
+std::string WriteTemp(const std::string& name, const std::string& text) {
+  auto path = std::filesystem::temp_directory_path() / ("plumb_csv_" + name);
+  std::ofstream(path) << text;
+  return path.string();
+}
+
+TEST(SplitCsvLine, PlainQuotedAndEscapedFields) {
+  std::vector<std::string> f;
+  ASSERT_TRUE(SplitCsvLine("a,b,,c", &f).ok());
+  EXPECT_EQ(f, (std::vector<std::string>{"a", "b", "", "c"}));
+  ASSERT_TRUE(SplitCsvLine("\"x,y\",\"say \"\"hi\"\"\",z\r", &f).ok());
+  EXPECT_EQ(f, (std::vector<std::string>{"x,y", "say \"hi\"", "z"}));
+  EXPECT_FALSE(SplitCsvLine("\"open,b", &f).ok());
+  EXPECT_FALSE(SplitCsvLine("\"a\"b,c", &f).ok());
+}
+
+TEST(ReadEventCsv, ColumnsInAnyOrderWithOptionalFields) {
+  const std::string path =
+      WriteTemp("ok.csv", "ts,item,user,weight,event_id\n5,t1,m1,2.5,e1\n,t2,m2,,\n");
+  std::vector<CsvEvent> ev;
+  CsvReadReport rep;
+  ASSERT_TRUE(ReadEventCsv(path, {}, &ev, &rep).ok());
+  ASSERT_EQ(ev.size(), 2u);
+  EXPECT_EQ(ev[0].user, "m1");
+  EXPECT_EQ(ev[0].item, "t1");
+  EXPECT_EQ(ev[0].timestamp_ms, 5);
+  EXPECT_FLOAT_EQ(ev[0].weight, 2.5f);
+  EXPECT_EQ(ev[0].event_id, "e1");
+  EXPECT_EQ(ev[1].timestamp_ms, 0);
+  EXPECT_FLOAT_EQ(ev[1].weight, 1.0f);
+}
+
+TEST(ReadEventCsv, BadLineStopsWithFileLineAndReasonAndKeepsNothing) {
+  const std::string path = WriteTemp("bad.csv", "user,item,ts\nm1,t1,10\nm2,t2,yesterday\nm3,t3,5\n");
+  std::vector<CsvEvent> ev;
+  CsvReadReport rep;
+  Status s = ReadEventCsv(path, {}, &ev, &rep);
+  ASSERT_FALSE(s.ok());
+  EXPECT_NE(s.message().find(path + ":3:"), std::string::npos) << s.message();
+  EXPECT_NE(s.message().find("ts 'yesterday'"), std::string::npos) << s.message();
+  EXPECT_TRUE(ev.empty());
+}
+
+TEST(ReadEventCsv, SkipBadCountsAndReportsTheFirst) {
+  const std::string long_id(300, 'x');
+  const std::string path = WriteTemp(
+      "skip.csv", "user,item\nm1,t1\n," + std::string("t2") + "\nm3," + long_id + "\nm4,t4\n");
+  std::vector<CsvEvent> ev;
+  CsvReadReport rep;
+  CsvReadOptions opt;
+  opt.skip_bad = true;
+  ASSERT_TRUE(ReadEventCsv(path, opt, &ev, &rep).ok());
+  EXPECT_EQ(ev.size(), 2u);
+  EXPECT_EQ(rep.skipped, 2u);
+  EXPECT_NE(rep.first_skip_reason.find(":3: user is empty"), std::string::npos)
+      << rep.first_skip_reason;
+}
+
+TEST(ReadEventCsv, HeaderMustNameUserAndItem) {
+  const std::string path = WriteTemp("hdr.csv", "member,tool\nm1,t1\n");
+  std::vector<CsvEvent> ev;
+  CsvReadReport rep;
+  Status s = ReadEventCsv(path, {}, &ev, &rep);
+  ASSERT_FALSE(s.ok());
+  EXPECT_NE(s.message().find("'user' and 'item'"), std::string::npos);
+}
+
+TEST(ReadEventCsv, WeightOutOfRangeIsRejected) {
+  const std::string path = WriteTemp("w.csv", "user,item,weight\nm1,t1,-1\n");
+  std::vector<CsvEvent> ev;
+  CsvReadReport rep;
+  Status s = ReadEventCsv(path, {}, &ev, &rep);
+  ASSERT_FALSE(s.ok());
+  EXPECT_NE(s.message().find("weight '-1'"), std::string::npos);
+}
+
+}  // namespace
+}  // namespace plumb::cli

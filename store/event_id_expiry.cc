@@ -20,7 +20,7 @@ bool EventIdExpiry::Filter(int /*level*/, const rocksdb::Slice& /*key*/,
   const int64_t now_ms = std::chrono::duration_cast<std::chrono::milliseconds>(
                              std::chrono::system_clock::now().time_since_epoch())
                              .count();
-  return now_ms - received_ms > window_ms_;
+  return !keys::WithinDedupWindow(received_ms, now_ms, window_ms_);
 }
 
 }  // namespace plumb::store

@@ -78,6 +78,10 @@ bool ParseEventIdRecord(std::string_view value, uint64_t* seq, int64_t* received
   return true;
 }
 
+bool WithinDedupWindow(int64_t received_ms, int64_t now_ms, int64_t window_ms) {
+  return window_ms == 0 || now_ms - received_ms <= window_ms;
+}
+
 std::string IdByExternalKey(IdSpace space, std::string_view external) {
   std::string key;
   key.reserve(2 + external.size());

@@ -35,6 +35,9 @@ std::optional<uint64_t> ParseEventKey(std::string_view key);
 // and its receive time.
 std::string EventIdRecord(uint64_t seq, int64_t received_ms);
 bool ParseEventIdRecord(std::string_view value, uint64_t* seq, int64_t* received_ms);
+// Whether a copy received at received_ms still makes a new copy a duplicate at now_ms.
+// window_ms 0 means forever. AppendEvents and the expiry compaction filter share it.
+bool WithinDedupWindow(int64_t received_ms, int64_t now_ms, int64_t window_ms);
 
 // ids: space + 'x' + external id -> Fixed32 index; space + 'n' + big-endian index -> external.
 std::string IdByExternalKey(IdSpace space, std::string_view external);

@@ -508,7 +508,7 @@ Status Store::AppendEvents(std::span<const EventInput> events, AppendResult* res
             return Status::Corruption("event_ids: unreadable record for event id '" + e.event_id +
                                       "'");
           }
-          dup = window == 0 || now_ms - received <= window;
+          dup = keys::WithinDedupWindow(received, now_ms, window);
         } else if (!s.IsNotFound()) {
           return s;
         }
@@ -597,8 +597,10 @@ uint32_t Store::IdCount(IdSpace space) const { return impl_->Count(space).load()
 
 Status Store::LoadIds(IdSpace space, uint32_t count, std::vector<std::string>* out) const {
   out->clear();
-  Impl::ReadView view(*impl_);
+  // The count first: the view taken after it holds at least that many entries (the count
+  // grows only after the write that adds them).
   const uint32_t stored = IdCount(space);
+  Impl::ReadView view(*impl_);
   const std::string name(keys::SpaceName(space));
   if (count > stored) {
     return Status::InvalidArgument("asked for " + std::to_string(count) + " " + name +

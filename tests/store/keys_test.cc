@@ -35,6 +35,19 @@ TEST(KeysTest, LayoutMatchesTheDocumentedBytes) {
   EXPECT_EQ(keys::ParseEventKey(keys::EventKey(12345)), 12345u);
 }
 
+TEST(KeysTest, DedupWindowBoundaries) {
+  uint64_t seq = 0;
+  int64_t received = 0;
+  ASSERT_TRUE(keys::ParseEventIdRecord(keys::EventIdRecord(17, 1000), &seq, &received));
+  EXPECT_EQ(seq, 17u);
+  EXPECT_EQ(received, 1000);
+  EXPECT_FALSE(keys::ParseEventIdRecord("short", &seq, &received));
+  // The window is closed at its end: a copy exactly window_ms later is still a duplicate.
+  EXPECT_TRUE(keys::WithinDedupWindow(1000, 1500, 500));
+  EXPECT_FALSE(keys::WithinDedupWindow(1000, 1501, 500));
+  EXPECT_TRUE(keys::WithinDedupWindow(1000, 1000 + 1'000'000'000, 0));  // 0: forever
+}
+
 TEST(KeysTest, BytewiseOrderIsNumericOrder) {
   std::mt19937_64 rng(7);
   std::vector<uint64_t> numbers = {0, 1, 255, 256, 65535, 65536, UINT32_MAX, UINT64_MAX};

@@ -5,6 +5,7 @@
 
 #include <cstdint>
 #include <string>
+#include <vector>
 
 #include "core/status.h"
 #include "trainer/synth.h"
@@ -59,6 +60,14 @@ struct CompareArgs {
   bool json = false;
 };
 
+struct TopArgs {
+  std::string db;
+  std::vector<std::string> users;
+  uint32_t count = 10;
+  uint64_t version = 0;       // 0: the active one
+  std::string names;          // optional `item,name` CSV
+};
+
 struct AdminArgs {
   std::string db;
   uint64_t version = 0;
@@ -75,6 +84,7 @@ Status RunVersions(const AdminArgs& args);
 Status RunActivate(const AdminArgs& args);
 Status RunInspect(const AdminArgs& args);
 Status RunExport(const AdminArgs& args);
+Status RunTop(const TopArgs& args);
 
 // Fills trainer options from the fit arguments (shared by fit and compare).
 Status MakeTrainOptions(const FitArgs& args, trainer::TrainOptions* out);

@@ -119,6 +119,15 @@ int main(int argc, char** argv) {
   export_cmd->add_option("--out", admin.out, "output directory")->required();
   export_cmd->add_option("--version", admin.version, "version (default: the active one)");
 
+  TopArgs top;
+  auto* top_cmd = app.add_subcommand("top", "a user's top-N list from a stored version, offline");
+  top_cmd->add_option("--db", top.db, "store directory")->required();
+  top_cmd->add_option("--user", top.users, "external user id (repeatable)")->required();
+  top_cmd->add_option("--count", top.count, "list length")->capture_default_str();
+  top_cmd->add_option("--version", top.version, "version (default: the active one)");
+  top_cmd->add_option("--names", top.names, "CSV `item,name` to show item names")
+      ->check(CLI::ExistingFile);
+
   CLI11_PARSE(app, argc, argv);
 
   Status s;
@@ -133,6 +142,7 @@ int main(int argc, char** argv) {
   else if (*activate_cmd) s = RunActivate(admin);
   else if (*inspect_cmd) s = RunInspect(admin);
   else if (*export_cmd) s = RunExport(admin);
+  else if (*top_cmd) s = RunTop(top);
   if (!s.ok()) {
     std::fprintf(stderr, "plumb: %s\n", s.ToString().c_str());
     return 1;

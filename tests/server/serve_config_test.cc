@@ -1,0 +1,103 @@
+// plumb-serve's settings: flags, the TOML file, and which one wins.
+#include <gtest/gtest.h>
+
+#include <fstream>
+#include <sstream>
+
+#include "server/serve_config.h"
+#include "tests/server/test_model.h"
+
+namespace plumb::server {
+namespace {
+
+int Parse(std::vector<std::string> args, ServeConfig* config, std::string* out = nullptr,
+          std::string* err = nullptr) {
+  args.insert(args.begin(), "plumb-serve");
+  std::vector<const char*> argv;
+  for (const auto& a : args) argv.push_back(a.c_str());
+  std::ostringstream o, e;
+  const int code = ParseServeConfig(static_cast<int>(argv.size()), argv.data(), config, o, e);
+  if (out) *out = o.str();
+  if (err) *err = e.str();
+  return code;
+}
+
+TEST(ServeConfigTest, DefaultsMatchTheDocumentedLimits) {
+  ServeConfig c;
+  ASSERT_EQ(Parse({"--db", "/srv/plumb"}, &c), -1);
+  EXPECT_EQ(c.db, "/srv/plumb");
+  EXPECT_EQ(c.catchup_interval_ms, 500);
+  // ranker.proto documents these defaults.
+  EXPECT_EQ(c.limits.max_count, 1000u);
+  EXPECT_EQ(c.limits.max_candidates, 10000u);
+  EXPECT_EQ(c.limits.max_exclusions, 10000u);
+  EXPECT_EQ(c.limits.max_recent, 1000u);
+  EXPECT_EQ(c.limits.max_id_bytes, 256u);
+  EXPECT_TRUE(c.endpoint.reflection);
+}
+
+TEST(ServeConfigTest, FileKeysSetOptionsAndFlagsWinOverTheFile) {
+  testing::TempDir dir;
+  const std::string path = dir.Sub("serve.toml");
+  std::ofstream(path) << "db = '/var/lib/plumb'\n"
+                         "listen = '0.0.0.0:9000'\n"
+                         "max-count = 200\n"
+                         "max_recent = 50\n"
+                         "fold-in-l2 = 0.25\n"
+                         "reflection = false\n"
+                         "catchup-interval-ms = 250\n";
+  ServeConfig c;
+  ASSERT_EQ(Parse({"--config", path, "--max-count", "300"}, &c), -1);
+  EXPECT_EQ(c.db, "/var/lib/plumb");
+  EXPECT_EQ(c.endpoint.listen, "0.0.0.0:9000");
+  EXPECT_EQ(c.limits.max_count, 300u);  // the flag wins
+  EXPECT_EQ(c.limits.max_recent, 50u);  // underscore spelling accepted
+  EXPECT_FLOAT_EQ(c.fold_in.l2, 0.25f);
+  EXPECT_FALSE(c.endpoint.reflection);
+  EXPECT_EQ(c.catchup_interval_ms, 250);
+}
+
+TEST(ServeConfigTest, BadFilesAndFlagsAreRefusedWithAMessage) {
+  testing::TempDir dir;
+  std::string err;
+  ServeConfig c;
+  std::ofstream(dir.Sub("unknown.toml")) << "db = 'x'\nmax-cout = 3\n";
+  EXPECT_GT(Parse({"--config", dir.Sub("unknown.toml")}, &c, nullptr, &err), 0);
+  EXPECT_NE(err.find("unknown key 'max-cout'"), std::string::npos) << err;
+
+  std::ofstream(dir.Sub("type.toml")) << "db = 'x'\nmax-count = 'many'\n";
+  EXPECT_GT(Parse({"--config", dir.Sub("type.toml")}, &c, nullptr, &err), 0);
+  EXPECT_NE(err.find("max-count"), std::string::npos) << err;
+
+  std::ofstream(dir.Sub("range.toml")) << "db = 'x'\nmax-count = 0\n";
+  EXPECT_GT(Parse({"--config", dir.Sub("range.toml")}, &c, nullptr, &err), 0);
+
+  std::ofstream(dir.Sub("broken.toml")) << "db = \n";
+  EXPECT_GT(Parse({"--config", dir.Sub("broken.toml")}, &c, nullptr, &err), 0);
+  EXPECT_NE(err.find("line 1"), std::string::npos) << err;
+
+  EXPECT_GT(Parse({"--config", dir.Sub("absent.toml")}, &c, nullptr, &err), 0);
+  c = ServeConfig{};
+  EXPECT_GT(Parse({}, &c, nullptr, &err), 0);
+  EXPECT_NE(err.find("--db is required"), std::string::npos) << err;
+  EXPECT_GT(Parse({"--db", "x", "--no-such-flag"}, &c, nullptr, &err), 0);
+  EXPECT_GT(Parse({"--db", "x", "--log-level", "chatty"}, &c, nullptr, &err), 0);
+}
+
+TEST(ServeConfigTest, HelpListsEveryKeyWithItsDefault) {
+  ServeConfig c;
+  std::string out;
+  EXPECT_EQ(Parse({"--help"}, &c, &out), 0);
+  for (const char* key :
+       {"--db", "--config", "--listen", "--metrics", "--scratch-dir", "--catchup-interval-ms",
+        "--max-count", "--max-candidates", "--max-exclusions", "--max-recent",
+        "--fold-in-confidence", "--fold-in-l2", "--threads", "--reflection", "--tls-cert",
+        "--tls-key", "--tls-client-ca", "--shutdown-grace-ms", "--log-level"}) {
+    EXPECT_NE(out.find(key), std::string::npos) << key;
+  }
+  EXPECT_NE(out.find("=500"), std::string::npos) << out;   // catch-up interval
+  EXPECT_NE(out.find("=1000"), std::string::npos) << out;  // max count
+}
+
+}  // namespace
+}  // namespace plumb::server

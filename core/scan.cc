@@ -195,8 +195,13 @@ void ScanBlocks(MatrixView items, std::span<const float> query, const Exclusions
     ScoreRows(items.data + begin * items.dim, n, items.dim, query.data(), scores);
     adjust(begin, n, scores);
     cursor.MarkBlock(begin, begin + n, scores);
+    // The threshold is held in a local: through the pointer the compiler would reload it
+    // for every row, since scores and the selector's float could alias.
+    float threshold = selector->threshold();
     for (std::size_t i = 0; i < n; ++i) {
+      if (scores[i] < threshold) continue;  // NaN falls through and Push rejects it
       selector->Push(static_cast<uint32_t>(begin + i), scores[i]);
+      threshold = selector->threshold();
     }
     outcome->rows_scanned = begin + n;
   }

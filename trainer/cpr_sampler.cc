@@ -21,11 +21,12 @@ Status CprSampler::Create(const Interactions* data, const CprSamplerOptions& opt
 
 Status CprSampler::CheckData(uint32_t k) const {
   if (data_->num_active_users() < k || data_->num_active_items() < k) {
-    return Status::FailedPrecondition(
-        "a CPR sample of k=" + std::to_string(k) + " needs at least " + std::to_string(k) +
-        " distinct users and " + std::to_string(k) + " distinct items with interactions; the data has " +
-        std::to_string(data_->num_active_users()) + " users and " +
-        std::to_string(data_->num_active_items()) + " items");
+    return Status::FailedPrecondition("a CPR sample of k=" + std::to_string(k) +
+                                      " needs at least " + std::to_string(k) +
+                                      " distinct users and " + std::to_string(k) +
+                                      " distinct items with interactions; the data has " +
+                                      std::to_string(data_->num_active_users()) + " users and " +
+                                      std::to_string(data_->num_active_items()) + " items");
   }
   return Status::Ok();
 }
@@ -45,8 +46,7 @@ uint32_t CprSampler::PickK(Rng* rng) const {
 bool CprSampler::TryDraw(uint32_t k, int64_t anchor, Rng* rng, Sample* out) const {
   const uint64_t n = data_->size();
   for (uint32_t t = 0; t < k; ++t) {
-    const uint64_t idx =
-        (t == 0 && anchor >= 0) ? static_cast<uint64_t>(anchor) : rng->Uniform(n);
+    const uint64_t idx = (t == 0 && anchor >= 0) ? static_cast<uint64_t>(anchor) : rng->Uniform(n);
     const Pair& p = data_->pair(idx);
     for (uint32_t s = 0; s < t; ++s) {
       if (out->users[s] == p.user || out->items[s] == p.item) return false;
@@ -77,9 +77,7 @@ Status CprSampler::DrawImpl(int64_t anchor, Rng* rng, Sample* out) const {
       ": the interactions are too dense (almost every cross pair is observed) for CPR");
 }
 
-Status CprSampler::Draw(Rng* rng, Sample* out) const {
-  return DrawImpl(-1, rng, out);
-}
+Status CprSampler::Draw(Rng* rng, Sample* out) const { return DrawImpl(-1, rng, out); }
 
 Status CprSampler::DrawAnchored(uint64_t anchor, Rng* rng, Sample* out) const {
   if (anchor >= data_->size()) {

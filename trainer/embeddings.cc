@@ -13,8 +13,8 @@ namespace {
 
 Status CheckDim(Eigen::Index dim) {
   if (dim <= 0 || dim > static_cast<Eigen::Index>(kMaxDim)) {
-    return Status::InvalidArgument("embedding dimension must be in 1.." +
-                                   std::to_string(kMaxDim) + ", got " + std::to_string(dim));
+    return Status::InvalidArgument("embedding dimension must be in 1.." + std::to_string(kMaxDim) +
+                                   ", got " + std::to_string(dim));
   }
   return Status::Ok();
 }
@@ -77,7 +77,8 @@ void Embeddings::InitRows(Side side, RowMatrix* m, uint32_t first_row) {
 }
 
 Status Embeddings::Grow(uint32_t num_users, uint32_t num_items) {
-  if (dim_ == 0) return Status::FailedPrecondition("Grow on an embedding model without a dimension");
+  if (dim_ == 0)
+    return Status::FailedPrecondition("Grow on an embedding model without a dimension");
   const uint32_t old_users = this->num_users();
   const uint32_t old_items = this->num_items();
   try {

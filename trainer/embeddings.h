@@ -9,10 +9,9 @@
 // so growing in several steps gives the same values as creating the full size at once.
 #pragma once
 
+#include <Eigen/Core>
 #include <cstdint>
 #include <span>
-
-#include <Eigen/Core>
 
 #include "core/aligned.h"
 #include "core/status.h"

@@ -96,9 +96,8 @@ Status Report(const TestSets& sets, const ItemLists& top, const Interactions& tr
 
 }  // namespace
 
-Status EvaluateModel(const Embeddings& model, const Interactions& train,
-                     std::span<const Pair> test, const EvalOptions& options,
-                     RankingReport* out) {
+Status EvaluateModel(const Embeddings& model, const Interactions& train, std::span<const Pair> test,
+                     const EvalOptions& options, RankingReport* out) {
   PLUMB_RETURN_IF_ERROR(CheckOptions(options));
   if (model.num_items() < train.num_items()) {
     return Status::InvalidArgument("the model has fewer items (" +
@@ -116,23 +115,22 @@ Status EvaluateModel(const Embeddings& model, const Interactions& train,
     Exclusions excluded;
     excluded.sorted_rows = train.items_of(user);
     ScanOutcome outcome;
-    return top_k_by_dot(items, std::span<const float>(model.user_row(user), model.dim()),
-                        excluded, buf, selector, &outcome);
+    return top_k_by_dot(items, std::span<const float>(model.user_row(user), model.dim()), excluded,
+                        buf, selector, &outcome);
   };
   PLUMB_RETURN_IF_ERROR(RankAll(sets, options.k, threads, rank, &top));
   return Report(sets, top, train, model.num_items(), options, out);
 }
 
 Status EvaluateScorer(const UserScorer& scorer, uint32_t num_items, const Interactions& train,
-                      std::span<const Pair> test, const EvalOptions& options,
-                      RankingReport* out) {
+                      std::span<const Pair> test, const EvalOptions& options, RankingReport* out) {
   PLUMB_RETURN_IF_ERROR(CheckOptions(options));
   if (num_items < train.num_items()) {
     return Status::InvalidArgument("the scorer covers fewer items than the data");
   }
   TestSets sets;
-  PLUMB_RETURN_IF_ERROR(GroupTest(test, train, std::numeric_limits<uint32_t>::max(), num_items,
-                                  &sets));
+  PLUMB_RETURN_IF_ERROR(
+      GroupTest(test, train, std::numeric_limits<uint32_t>::max(), num_items, &sets));
   const uint32_t threads = options.threads;
   std::vector<std::vector<float>> scores(threads, std::vector<float>(num_items));
   auto rank = [&](uint32_t t, uint32_t user, TopKSelector* selector) {

@@ -32,14 +32,12 @@ using UserScorer = std::function<void(uint32_t user, std::span<float> scores)>;
 // unchanging inputs; uses options.threads worker threads.
 // Errors: InvalidArgument if k or num_groups or threads is 0, a test user or item is outside
 // the model, or the model has fewer items than train declares.
-Status EvaluateModel(const Embeddings& model, const Interactions& train,
-                     std::span<const Pair> test, const EvalOptions& options,
-                     RankingReport* out);
+Status EvaluateModel(const Embeddings& model, const Interactions& train, std::span<const Pair> test,
+                     const EvalOptions& options, RankingReport* out);
 
 // As EvaluateModel for any scorer over num_items items (e.g. the synthetic world's true
 // relevance, the reference ranking beside which group shares are read).
 Status EvaluateScorer(const UserScorer& scorer, uint32_t num_items, const Interactions& train,
-                      std::span<const Pair> test, const EvalOptions& options,
-                      RankingReport* out);
+                      std::span<const Pair> test, const EvalOptions& options, RankingReport* out);
 
 }  // namespace plumb::trainer

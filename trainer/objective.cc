@@ -21,9 +21,12 @@ Status ParseObjectiveKind(std::string_view name, ObjectiveKind* out) {
 
 std::string_view ObjectiveName(ObjectiveKind kind) {
   switch (kind) {
-    case ObjectiveKind::kCpr: return "cpr";
-    case ObjectiveKind::kBpr: return "bpr";
-    case ObjectiveKind::kBce: return "bce";
+    case ObjectiveKind::kCpr:
+      return "cpr";
+    case ObjectiveKind::kBpr:
+      return "bpr";
+    case ObjectiveKind::kBce:
+      return "bce";
   }
   return "unknown";
 }
@@ -58,9 +61,12 @@ float Objective::Step(Embeddings* model, Optimizer* optimizer, const Sample& sam
 
 std::unique_ptr<Objective> MakeObjective(ObjectiveKind kind) {
   switch (kind) {
-    case ObjectiveKind::kCpr: return std::make_unique<CprObjective>();
-    case ObjectiveKind::kBpr: return std::make_unique<BprObjective>();
-    case ObjectiveKind::kBce: return std::make_unique<BceObjective>();
+    case ObjectiveKind::kCpr:
+      return std::make_unique<CprObjective>();
+    case ObjectiveKind::kBpr:
+      return std::make_unique<BprObjective>();
+    case ObjectiveKind::kBce:
+      return std::make_unique<BceObjective>();
   }
   return nullptr;
 }

@@ -28,16 +28,20 @@ enum Stream : uint64_t {
   kNameStream,
 };
 
-constexpr const char* kAdjectives[] = {
-    "cordless", "heavy-duty", "folding", "compact", "telescopic", "electric", "manual",
-    "adjustable", "extra-long", "lightweight", "petrol", "rechargeable", "two-speed",
-    "industrial", "mini", "wide", "quick-release", "ergonomic", "steel", "weatherproof"};
+constexpr const char* kAdjectives[] = {"cordless",      "heavy-duty",  "folding", "compact",
+                                       "telescopic",    "electric",    "manual",  "adjustable",
+                                       "extra-long",    "lightweight", "petrol",  "rechargeable",
+                                       "two-speed",     "industrial",  "mini",    "wide",
+                                       "quick-release", "ergonomic",   "steel",   "weatherproof"};
 constexpr const char* kTools[] = {
-    "hedge trimmer", "drill", "ladder", "circular saw", "jigsaw", "lawn mower", "leaf blower",
-    "pressure washer", "wheelbarrow", "sander", "tile cutter", "wallpaper steamer",
-    "socket set", "stud finder", "chainsaw", "post hole digger", "paint sprayer", "router",
-    "angle grinder", "workbench", "spirit level", "pipe wrench", "soldering iron", "glue gun",
-    "carpet cleaner", "log splitter", "rotavator", "scaffold tower", "nail gun", "jack stand"};
+    "hedge trimmer",  "drill",        "ladder",         "circular saw",
+    "jigsaw",         "lawn mower",   "leaf blower",    "pressure washer",
+    "wheelbarrow",    "sander",       "tile cutter",    "wallpaper steamer",
+    "socket set",     "stud finder",  "chainsaw",       "post hole digger",
+    "paint sprayer",  "router",       "angle grinder",  "workbench",
+    "spirit level",   "pipe wrench",  "soldering iron", "glue gun",
+    "carpet cleaner", "log splitter", "rotavator",      "scaffold tower",
+    "nail gun",       "jack stand"};
 
 double Logistic(double x) { return 1.0 / (1.0 + std::exp(-x)); }
 
@@ -68,9 +72,8 @@ Status ValidateSynthOptions(const SynthOptions& o) {
 }
 
 double SynthWorld::Relevance(uint32_t user, uint32_t item) const {
-  const double dot =
-      static_cast<double>(user_taste.row(user).dot(item_traits.row(item))) /
-      std::sqrt(static_cast<double>(options.truth_dim));
+  const double dot = static_cast<double>(user_taste.row(user).dot(item_traits.row(item))) /
+                     std::sqrt(static_cast<double>(options.truth_dim));
   return Logistic(options.relevance_scale * dot + item_appeal[item] + options.relevance_offset);
 }
 
@@ -187,8 +190,8 @@ Status GenerateSynthWorld(const SynthOptions& o, SynthWorld* out) {
       const double p = r * std::min(1.0, a_u * vis_at_rank[rank] * std::pow(r, o.alpha));
       if (rng.UniformDouble() * bound < p) {
         seen[u].push_back(item);
-        w.events.push_back(SynthEvent{u, item, o.start_ms + static_cast<int64_t>(
-                                                               rng.Uniform(window_ms))});
+        w.events.push_back(
+            SynthEvent{u, item, o.start_ms + static_cast<int64_t>(rng.Uniform(window_ms))});
       }
     };
     // Blocks of ranks [s, 2s + 1): within a block the candidate probability
@@ -231,8 +234,7 @@ Status GenerateSynthWorld(const SynthOptions& o, SynthWorld* out) {
     Rng rng(mix_seed(o.seed, kTestStream, u));
     std::vector<uint32_t> chosen;
     const uint64_t max_probes = std::max<uint64_t>(4ull * I, 200ull * o.test_items_per_user);
-    for (uint64_t probe = 0; probe < max_probes && chosen.size() < o.test_items_per_user;
-         ++probe) {
+    for (uint64_t probe = 0; probe < max_probes && chosen.size() < o.test_items_per_user; ++probe) {
       const uint32_t i = static_cast<uint32_t>(rng.Uniform(I));
       if (std::binary_search(seen[u].begin(), seen[u].end(), i)) continue;
       if (std::find(chosen.begin(), chosen.end(), i) != chosen.end()) continue;

@@ -80,9 +80,9 @@ struct SynthWorld {
   std::vector<std::string> item_names;
 
   // Ground truth, for analysis and oracle rankings.
-  RowMatrix user_taste;              // users x truth_dim
-  RowMatrix item_traits;             // items x truth_dim
-  std::vector<double> item_appeal;   // a_i
+  RowMatrix user_taste;                 // users x truth_dim
+  RowMatrix item_traits;                // items x truth_dim
+  std::vector<double> item_appeal;      // a_i
   std::vector<double> item_visibility;  // e_i, max 1
   std::vector<double> user_activity;    // e_u
   double exposure_scale = 0.0;          // c

@@ -41,6 +41,10 @@ Status ValidateTrainOptions(const TrainOptions& o) {
   if (!(std::isfinite(o.l2) && o.l2 >= 0.0f)) return bad("l2 must be finite and >= 0");
   if (o.batch_size == 0 || o.batch_size > (1u << 24)) return bad("batch_size must be in 1..2^24");
   if (o.threads == 0 || o.threads > 256) return bad("threads must be in 1..256");
+  // Candidate buffers hold beta * batch_size samples per thread.
+  if (o.beta * o.batch_size > static_cast<double>(1u << 24)) {
+    return bad("beta x batch_size must be at most 16777216 candidate samples");
+  }
   return Status::Ok();
 }
 
@@ -197,7 +201,8 @@ Status FitLoop::RunEpochs(uint32_t epochs, const ProgressCallback& progress) {
     Totals totals;
     PLUMB_RETURN_IF_ERROR(RunParallel(data_->size(), 0, &totals));
     if (progress) {
-      FitProgress p = MakeProgress(totals.samples, totals.positives, totals.loss_sum, totals.seconds);
+      FitProgress p =
+          MakeProgress(totals.samples, totals.positives, totals.loss_sum, totals.seconds);
       p.epoch = e;
       p.epochs = epochs;
       if (!progress(p)) break;

@@ -58,13 +58,13 @@ Status ValidateTrainOptions(const TrainOptions& options);
 
 // What the progress callback is told after each epoch (or each RunBatches call).
 struct FitProgress {
-  uint32_t epoch = 0;          // 1-based epoch within the current RunEpochs call; 0 for RunBatches
-  uint32_t epochs = 0;         // epochs requested (0 for RunBatches)
-  uint64_t samples = 0;        // samples trained in this epoch
-  uint64_t positives = 0;      // observed interactions used in this epoch
-  double mean_loss = 0.0;      // mean sample loss over the epoch (before each update)
+  uint32_t epoch = 0;      // 1-based epoch within the current RunEpochs call; 0 for RunBatches
+  uint32_t epochs = 0;     // epochs requested (0 for RunBatches)
+  uint64_t samples = 0;    // samples trained in this epoch
+  uint64_t positives = 0;  // observed interactions used in this epoch
+  double mean_loss = 0.0;  // mean sample loss over the epoch (before each update)
   double positives_per_second = 0.0;
-  double seconds = 0.0;        // wall time of this epoch
+  double seconds = 0.0;  // wall time of this epoch
 };
 
 // Called on the thread that called RunEpochs/RunBatches, between epochs (never during

@@ -38,7 +38,8 @@ const World& SharedWorld() {
     o.target_interactions = 500000;
     o.test_items_per_user = 0;
     o.seed = 3;
-    if (!GenerateSynthWorld(o, &out->world).ok() || !out->world.TrainInteractions(&out->train).ok()) {
+    if (!GenerateSynthWorld(o, &out->world).ok() ||
+        !out->world.TrainInteractions(&out->train).ok()) {
       std::fprintf(stderr, "world generation failed\n");
       std::abort();
     }
@@ -57,7 +58,8 @@ struct Setup {
 
 std::unique_ptr<FitLoop> MakeLoop(const Setup& s, Embeddings* model) {
   const World& w = SharedWorld();
-  if (!Embeddings::Create(64, w.train.num_users(), w.train.num_items(), 1, model).ok()) std::abort();
+  if (!Embeddings::Create(64, w.train.num_users(), w.train.num_items(), 1, model).ok())
+    std::abort();
   TrainOptions o;
   o.objective = s.kind;
   o.cpr_k = s.k;
@@ -77,10 +79,12 @@ void BM_Train(benchmark::State& state, Setup setup) {
   uint64_t positives = 0, samples = 0;
   for (auto _ : state) {
     FitProgress p;
-    if (!loop->RunBatches(50, [&](const FitProgress& x) {
-          p = x;
-          return true;
-        }).ok()) {
+    if (!loop->RunBatches(50,
+                          [&](const FitProgress& x) {
+                            p = x;
+                            return true;
+                          })
+             .ok()) {
       state.SkipWithError("training failed");
       break;
     }
@@ -93,22 +97,36 @@ void BM_Train(benchmark::State& state, Setup setup) {
       benchmark::Counter(static_cast<double>(samples), benchmark::Counter::kIsRate);
 }
 
-BENCHMARK_CAPTURE(BM_Train, cpr_k2_beta1, Setup{ObjectiveKind::kCpr, 2, 0.0, 1.0, OptimizerKind::kAdagrad})
-    ->Unit(benchmark::kMillisecond)->MinTime(2.0);
-BENCHMARK_CAPTURE(BM_Train, cpr_k2_beta3, Setup{ObjectiveKind::kCpr, 2, 0.0, 3.0, OptimizerKind::kAdagrad})
-    ->Unit(benchmark::kMillisecond)->MinTime(2.0);
-BENCHMARK_CAPTURE(BM_Train, cpr_k3_beta1, Setup{ObjectiveKind::kCpr, 3, 0.0, 1.0, OptimizerKind::kAdagrad})
-    ->Unit(benchmark::kMillisecond)->MinTime(2.0);
-BENCHMARK_CAPTURE(BM_Train, cpr_k2mix3_beta3, Setup{ObjectiveKind::kCpr, 2, 0.3, 3.0, OptimizerKind::kAdagrad})
-    ->Unit(benchmark::kMillisecond)->MinTime(2.0);
-BENCHMARK_CAPTURE(BM_Train, cpr_k2_beta1_sgd, Setup{ObjectiveKind::kCpr, 2, 0.0, 1.0, OptimizerKind::kSgd})
-    ->Unit(benchmark::kMillisecond)->MinTime(2.0);
+BENCHMARK_CAPTURE(BM_Train, cpr_k2_beta1,
+                  Setup{ObjectiveKind::kCpr, 2, 0.0, 1.0, OptimizerKind::kAdagrad})
+    ->Unit(benchmark::kMillisecond)
+    ->MinTime(2.0);
+BENCHMARK_CAPTURE(BM_Train, cpr_k2_beta3,
+                  Setup{ObjectiveKind::kCpr, 2, 0.0, 3.0, OptimizerKind::kAdagrad})
+    ->Unit(benchmark::kMillisecond)
+    ->MinTime(2.0);
+BENCHMARK_CAPTURE(BM_Train, cpr_k3_beta1,
+                  Setup{ObjectiveKind::kCpr, 3, 0.0, 1.0, OptimizerKind::kAdagrad})
+    ->Unit(benchmark::kMillisecond)
+    ->MinTime(2.0);
+BENCHMARK_CAPTURE(BM_Train, cpr_k2mix3_beta3,
+                  Setup{ObjectiveKind::kCpr, 2, 0.3, 3.0, OptimizerKind::kAdagrad})
+    ->Unit(benchmark::kMillisecond)
+    ->MinTime(2.0);
+BENCHMARK_CAPTURE(BM_Train, cpr_k2_beta1_sgd,
+                  Setup{ObjectiveKind::kCpr, 2, 0.0, 1.0, OptimizerKind::kSgd})
+    ->Unit(benchmark::kMillisecond)
+    ->MinTime(2.0);
 BENCHMARK_CAPTURE(BM_Train, bpr, Setup{ObjectiveKind::kBpr, 2, 0.0, 1.0, OptimizerKind::kAdagrad})
-    ->Unit(benchmark::kMillisecond)->MinTime(2.0);
+    ->Unit(benchmark::kMillisecond)
+    ->MinTime(2.0);
 BENCHMARK_CAPTURE(BM_Train, bpr_sgd, Setup{ObjectiveKind::kBpr, 2, 0.0, 1.0, OptimizerKind::kSgd})
-    ->Unit(benchmark::kMillisecond)->MinTime(2.0);
-BENCHMARK_CAPTURE(BM_Train, bce_4neg, Setup{ObjectiveKind::kBce, 2, 0.0, 1.0, OptimizerKind::kAdagrad})
-    ->Unit(benchmark::kMillisecond)->MinTime(2.0);
+    ->Unit(benchmark::kMillisecond)
+    ->MinTime(2.0);
+BENCHMARK_CAPTURE(BM_Train, bce_4neg,
+                  Setup{ObjectiveKind::kBce, 2, 0.0, 1.0, OptimizerKind::kAdagrad})
+    ->Unit(benchmark::kMillisecond)
+    ->MinTime(2.0);
 
 // CPR and BPR alternately, so that both see the same machine load.
 void BM_CprVsBprCost(benchmark::State& state) {
@@ -120,10 +138,12 @@ void BM_CprVsBprCost(benchmark::State& state) {
   for (auto _ : state) {
     for (FitLoop* loop : {cpr.get(), bpr.get()}) {
       FitProgress p;
-      if (!loop->RunBatches(20, [&](const FitProgress& x) {
-            p = x;
-            return true;
-          }).ok()) {
+      if (!loop->RunBatches(20,
+                            [&](const FitProgress& x) {
+                              p = x;
+                              return true;
+                            })
+               .ok()) {
         state.SkipWithError("training failed");
         return;
       }

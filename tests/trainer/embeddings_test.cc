@@ -1,8 +1,8 @@
+#include "trainer/embeddings.h"
+
 #include <gtest/gtest.h>
 
 #include <cmath>
-
-#include "trainer/embeddings.h"
 
 namespace plumb::trainer {
 namespace {

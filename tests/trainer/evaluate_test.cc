@@ -1,3 +1,5 @@
+#include "trainer/evaluate.h"
+
 #include <gtest/gtest.h>
 
 #include <algorithm>
@@ -6,7 +8,6 @@
 
 #include "core/metrics.h"
 #include "tests/trainer/test_models.h"
-#include "trainer/evaluate.h"
 
 namespace plumb::trainer {
 namespace {
@@ -37,7 +38,7 @@ TEST(Evaluate, HandWorkedExample) {
   EXPECT_DOUBLE_EQ(r.recall, 0.5);
   const double d2 = 1.0 / std::log2(3.0);
   EXPECT_NEAR(r.ndcg, d2 / (1.0 + d2), 1e-12);
-  EXPECT_DOUBLE_EQ(r.arp, 0.0);          // items 4 and 3 have no training interactions
+  EXPECT_DOUBLE_EQ(r.arp, 0.0);  // items 4 and 3 have no training interactions
   EXPECT_DOUBLE_EQ(r.coverage, 2.0 / 6.0);
 }
 

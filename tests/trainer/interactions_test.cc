@@ -1,3 +1,5 @@
+#include "trainer/interactions.h"
+
 #include <gtest/gtest.h>
 
 #include <algorithm>
@@ -5,7 +7,6 @@
 #include <vector>
 
 #include "tests/trainer/test_models.h"
-#include "trainer/interactions.h"
 
 namespace plumb::trainer {
 namespace {

@@ -1,13 +1,14 @@
 // Objectives: the CPR cancellation property, analytic gradients against central finite
 // differences, loss values against a double-precision transcription of the published
 // formulas, numerically stable log-sigmoid, and the optimiser updates.
+#include "trainer/objective.h"
+
 #include <gtest/gtest.h>
 
 #include <cmath>
 #include <vector>
 
 #include "tests/trainer/test_models.h"
-#include "trainer/objective.h"
 #include "trainer/optimizer.h"
 
 namespace plumb::trainer {
@@ -189,13 +190,15 @@ TEST(BceObjective, GradientMatchesFiniteDifferences) {
 }
 
 // The CPR gradients of DESIGN.md written out for k = 2:
-// dL/dp_{u1} = -(1 - sigma(m)) (q_{i1} - q_{i2}) / 2, dL/dq_{i1} = -(1 - sigma(m)) (p_{u1} - p_{u2}) / 2.
+// dL/dp_{u1} = -(1 - sigma(m)) (q_{i1} - q_{i2}) / 2, dL/dq_{i1} = -(1 - sigma(m)) (p_{u1} -
+// p_{u2}) / 2.
 TEST(CprObjective, GradientMatchesDesignFormulaK2) {
   const Embeddings model = RandomModel(5, 3, 3, 8);
   const Sample s = CprSample({0, 2}, {1, 2});
   RowGradients g;
   CprObjective().LossAndGradient(model, s, &g);
-  const double m = (DotD(model, 0, 1) + DotD(model, 2, 2) - DotD(model, 0, 2) - DotD(model, 2, 1)) / 2;
+  const double m =
+      (DotD(model, 0, 1) + DotD(model, 2, 2) - DotD(model, 0, 2) - DotD(model, 2, 1)) / 2;
   const double dm = -(1.0 - 1.0 / (1.0 + std::exp(-m)));
   ASSERT_EQ(g.count(), 4u);
   for (uint32_t j = 0; j < 5; ++j) {

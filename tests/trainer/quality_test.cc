@@ -32,14 +32,15 @@ std::string Shares(const std::vector<double>& v) {
 }
 
 void Print(const char* name, const RankingReport& r) {
-  std::printf("%-14s Recall@20 %.4f  NDCG@20 %.4f  ARP@20 %6.1f  Gini %.3f  coverage %.3f  "
-              "groups [%s]  JS %.3f\n",
-              name, r.recall, r.ndcg, r.arp, r.gini, r.coverage,
-              Shares(r.rec_group_shares).c_str(), r.group_share_js);
+  std::printf(
+      "%-14s Recall@20 %.4f  NDCG@20 %.4f  ARP@20 %6.1f  Gini %.3f  coverage %.3f  "
+      "groups [%s]  JS %.3f\n",
+      name, r.recall, r.ndcg, r.arp, r.gini, r.coverage, Shares(r.rec_group_shares).c_str(),
+      r.group_share_js);
 }
 
-RankingReport Fit(const SynthWorld& w, const Interactions& train, ObjectiveKind kind,
-                  double beta, float lr, uint32_t epochs) {
+RankingReport Fit(const SynthWorld& w, const Interactions& train, ObjectiveKind kind, double beta,
+                  float lr, uint32_t epochs) {
   Embeddings m;
   EXPECT_TRUE(Embeddings::Create(32, w.options.users, w.options.items, 3, &m).ok());
   TrainOptions o;
@@ -75,8 +76,8 @@ TEST(Quality, CprBeatsBprOnDebiasedTestWithLessPopularityBias) {
   eo.k = 20;
   eo.threads = 2;
   RankingReport truth;
-  ASSERT_TRUE(EvaluateScorer([&](uint32_t u, std::span<float> s) { w.TrueScores(u, s); },
-                             so.items, train, w.test, eo, &truth)
+  ASSERT_TRUE(EvaluateScorer([&](uint32_t u, std::span<float> s) { w.TrueScores(u, s); }, so.items,
+                             train, w.test, eo, &truth)
                   .ok());
   const RankingReport bpr = Fit(w, train, ObjectiveKind::kBpr, 1.0, 0.1f, 60);
   const RankingReport cpr = Fit(w, train, ObjectiveKind::kCpr, 3.0, 0.05f, 30);

@@ -1,3 +1,5 @@
+#include "trainer/sampler.h"
+
 #include <gtest/gtest.h>
 
 #include <algorithm>
@@ -8,7 +10,6 @@
 #include "tests/trainer/test_models.h"
 #include "trainer/dynamic_sampler.h"
 #include "trainer/objective.h"
-#include "trainer/sampler.h"
 
 namespace plumb::trainer {
 namespace {
@@ -173,7 +174,8 @@ TEST(NegativeSampler, NegativesAreUnobservedAndUniform) {
   // 0.999 quantile is about 85.4 (chi-square tables).
   double chi2 = 0.0;
   const double expect = draws / 50.0;
-  for (uint32_t i = 1; i < 100; i += 2) chi2 += (counts[i] - expect) * (counts[i] - expect) / expect;
+  for (uint32_t i = 1; i < 100; i += 2)
+    chi2 += (counts[i] - expect) * (counts[i] - expect) / expect;
   EXPECT_LT(chi2, 85.4);
   Sample s;
   for (int n = 0; n < 1000; ++n) {

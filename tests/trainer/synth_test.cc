@@ -1,17 +1,16 @@
+#include "trainer/synth.h"
+
 #include <gtest/gtest.h>
+#include <unistd.h>
 
 #include <algorithm>
 #include <cmath>
 #include <filesystem>
-#include <functional>
 #include <fstream>
+#include <functional>
 #include <set>
 #include <string>
 #include <vector>
-
-#include <unistd.h>
-
-#include "trainer/synth.h"
 
 namespace plumb::trainer {
 namespace {
@@ -94,9 +93,8 @@ TEST(Synth, ObservedCountsMatchTheExposureModelExactly) {
   ASSERT_TRUE(GenerateSynthWorld(o, &w).ok());
   std::vector<uint32_t> order(o.items);
   for (uint32_t i = 0; i < o.items; ++i) order[i] = i;
-  std::sort(order.begin(), order.end(), [&](uint32_t a, uint32_t b) {
-    return w.item_visibility[a] > w.item_visibility[b];
-  });
+  std::sort(order.begin(), order.end(),
+            [&](uint32_t a, uint32_t b) { return w.item_visibility[a] > w.item_visibility[b]; });
   std::vector<int> decile(o.items);
   for (uint32_t r = 0; r < o.items; ++r) decile[order[r]] = static_cast<int>(r * 10 / o.items);
   std::vector<double> mean(10, 0.0), var(10, 0.0), seen(10, 0.0);
@@ -143,8 +141,9 @@ TEST(Synth, WritesCsvFiles) {
   o.target_interactions = 40;
   SynthWorld w;
   ASSERT_TRUE(GenerateSynthWorld(o, &w).ok());
-  const std::string dir = (std::filesystem::temp_directory_path() /
-                           ("plumb_synth_test_" + std::to_string(::getpid()))).string();
+  const std::string dir =
+      (std::filesystem::temp_directory_path() / ("plumb_synth_test_" + std::to_string(::getpid())))
+          .string();
   ASSERT_TRUE(WriteSynthCsv(w, dir).ok());
   auto lines = [](const std::string& path) {
     std::ifstream f(path);

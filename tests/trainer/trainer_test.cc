@@ -1,9 +1,10 @@
+#include "trainer/trainer.h"
+
 #include <gtest/gtest.h>
 
 #include <vector>
 
 #include "tests/trainer/test_models.h"
-#include "trainer/trainer.h"
 
 namespace plumb::trainer {
 namespace {
@@ -53,10 +54,12 @@ TEST(FitLoop, EpochsUseAllPairsAndLossFalls) {
     std::unique_ptr<FitLoop> loop;
     ASSERT_TRUE(FitLoop::Create(o, &m, &data, &loop).ok());
     std::vector<FitProgress> seen;
-    ASSERT_TRUE(loop->RunEpochs(8, [&](const FitProgress& p) {
-      seen.push_back(p);
-      return true;
-    }).ok());
+    ASSERT_TRUE(loop->RunEpochs(8,
+                                [&](const FitProgress& p) {
+                                  seen.push_back(p);
+                                  return true;
+                                })
+                    .ok());
     ASSERT_EQ(seen.size(), 8u);
     for (uint32_t e = 0; e < 8; ++e) {
       EXPECT_EQ(seen[e].epoch, e + 1);
@@ -91,17 +94,21 @@ TEST(FitLoop, TwoThreadsTrainAndRunBatchesCountsSamples) {
   std::unique_ptr<FitLoop> loop;
   ASSERT_TRUE(FitLoop::Create(o, &m, &data, &loop).ok());
   std::vector<double> losses;
-  ASSERT_TRUE(loop->RunEpochs(4, [&](const FitProgress& p) {
-    losses.push_back(p.mean_loss);
-    EXPECT_GE(p.positives, data.size());
-    return true;
-  }).ok());
+  ASSERT_TRUE(loop->RunEpochs(4,
+                              [&](const FitProgress& p) {
+                                losses.push_back(p.mean_loss);
+                                EXPECT_GE(p.positives, data.size());
+                                return true;
+                              })
+                  .ok());
   EXPECT_TRUE(m.AllFinite());
   FitProgress last;
-  ASSERT_TRUE(loop->RunBatches(7, [&](const FitProgress& p) {
-    last = p;
-    return true;
-  }).ok());
+  ASSERT_TRUE(loop->RunBatches(7,
+                               [&](const FitProgress& p) {
+                                 last = p;
+                                 return true;
+                               })
+                  .ok());
   EXPECT_EQ(last.samples, 7u * 64u);
   EXPECT_EQ(last.positives, 7u * 64u * 2u);
 }
@@ -164,8 +171,7 @@ TEST(FitLoop, DataThatCannotFormSamplesFailsFastWithoutUpdates) {
   std::unique_ptr<FitLoop> cpr;
   ASSERT_TRUE(FitLoop::Create(Options(ObjectiveKind::kCpr), &m, &one_user, &cpr).ok());
   EXPECT_EQ(cpr->RunEpochs(1).code(), Status::Code::kFailedPrecondition);
-  EXPECT_EQ(cpr->StepBatch(std::vector<uint64_t>{0}, 0).code(),
-            Status::Code::kFailedPrecondition);
+  EXPECT_EQ(cpr->StepBatch(std::vector<uint64_t>{0}, 0).code(), Status::Code::kFailedPrecondition);
 }
 
 TEST(FitLoop, RejectsBadOptions) {

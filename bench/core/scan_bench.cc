@@ -115,13 +115,13 @@ void BM_DotScores(benchmark::State& state) {
 }
 
 // The serving path: blocked scan + bounded heap + stop check per block; range(1) = 1 adds
-// 200 exclusions.
+// 200 exclusions; range(2) is the block size in rows.
 void BM_TopKByDot(benchmark::State& state) {
   MatrixCycle cycle(state);
   const World& w = world();
   Exclusions ex;
   if (state.range(1) != 0) ex.sorted_rows = w.seen;
-  std::vector<float> scratch(kDefaultScanBlockRows);
+  std::vector<float> scratch(static_cast<std::size_t>(state.range(2)));
   TopKSelector sel(kTopK);
   ScanOutcome outcome;
   auto never = [] { return false; };
@@ -182,11 +182,15 @@ void Common(benchmark::internal::Benchmark* b) {
 BENCHMARK(BM_FloorSum)->ArgName("cold")->Arg(0)->Arg(1)->Apply(Common);
 BENCHMARK(BM_DotScores)->ArgName("cold")->Arg(0)->Arg(1)->Apply(Common);
 BENCHMARK(BM_TopKByDot)
-    ->ArgNames({"cold", "excl200"})
-    ->Args({0, 0})
-    ->Args({0, 1})
-    ->Args({1, 0})
-    ->Args({1, 1})
+    ->ArgNames({"cold", "excl200", "block"})
+    ->Args({0, 0, kDefaultScanBlockRows})
+    ->Args({0, 1, kDefaultScanBlockRows})
+    ->Args({1, 0, kDefaultScanBlockRows})
+    ->Args({1, 1, kDefaultScanBlockRows})
+    ->Args({0, 0, 256})
+    ->Args({0, 0, 8192})
+    ->Args({1, 0, 256})
+    ->Args({1, 0, 8192})
     ->Apply(Common);
 BENCHMARK(BM_TopKByCosine)->Apply(Common);
 BENCHMARK(BM_PartialSortBaseline)->ArgName("cold")->Arg(0)->Arg(1)->Apply(Common);
@@ -224,13 +228,13 @@ class RatioReporter : public benchmark::ConsoleReporter {
     const std::string warm = "BM_FloorSum/cold:0" + reps, cold = "BM_FloorSum/cold:1" + reps;
     std::printf("\n%zu x %zu float32 items (%.1f MB), top-%zu; CPU time over %d runs\n", kRows,
                 kDim, static_cast<double>(kMatrixBytes) / 1e6, kTopK, kRepetitions);
-    std::printf("%-34s %10s %10s %8s %14s %14s\n", "benchmark", "median_us", "min_us", "GB/s",
+    std::printf("%-44s %10s %10s %8s %14s %14s\n", "benchmark", "median_us", "min_us", "GB/s",
                 "ratio_median", "ratio_min");
     for (const std::string& name : order_) {
       const bool is_cold = name.find("cold:1") != std::string::npos;
       const std::string& floor = is_cold ? cold : warm;
       const double med = at(median_, name), lo = at(min_, name);
-      std::printf("%-34s %10.1f %10.1f %8.2f %14.2f %14.2f\n",
+      std::printf("%-44s %10.1f %10.1f %8.2f %14.2f %14.2f\n",
                   name.substr(0, name.size() - reps.size()).c_str(), med * 1e6, lo * 1e6,
                   static_cast<double>(kMatrixBytes) / med / 1e9, ratio(med, at(median_, floor)),
                   ratio(lo, at(min_, floor)));

@@ -13,7 +13,7 @@ PACKAGES=(
   libgtest-dev libgmock-dev libbenchmark-dev
   # tests and demo: a real Prometheus (promtool), Python reference checks and clients
   prometheus python3 python3-numpy python3-sklearn python3-grpcio python3-protobuf
-  curl procps
+  curl procps systemd
 )
 
 missing=()

@@ -18,7 +18,7 @@ class CorruptionTest : public StoreFixture {
  protected:
   void SetUp() override {
     StoreFixture::SetUp();
-    StoreOptions options;
+    StoreOptions options = testing::TestOptions();
     options.rows_per_block = 4;
     Open(options);
     AddIds(6, 10);  // items: 3 blocks of 4, 4, 2 rows

@@ -112,7 +112,7 @@ TEST_F(EventLogTest, DuplicatesAcrossAndWithinBatchesTakeNoSequence) {
 }
 
 TEST_F(EventLogTest, DuplicateOutsideTheWindowIsAppendedAgain) {
-  StoreOptions options;
+  StoreOptions options = testing::TestOptions();
   options.dedup_window_ms = 20;
   Open(options);
   AppendResult r;
@@ -128,7 +128,7 @@ TEST_F(EventLogTest, DuplicateOutsideTheWindowIsAppendedAgain) {
 }
 
 TEST_F(EventLogTest, WindowZeroRemembersForever) {
-  StoreOptions options;
+  StoreOptions options = testing::TestOptions();
   options.dedup_window_ms = 0;
   Open(options);
   AppendResult r;
@@ -139,6 +139,8 @@ TEST_F(EventLogTest, WindowZeroRemembersForever) {
 }
 
 TEST_F(EventLogTest, SequenceContinuesAfterReopen) {
+  Open(StoreOptions());  // the production default: fsync per append
+  ASSERT_TRUE(options_.sync);
   AppendResult r;
   ASSERT_TRUE(store_->AppendEvents(Loans(5, 0), &r).ok());
   Reopen();
@@ -198,7 +200,7 @@ TEST_F(EventLogTest, SecondPrimaryOnTheSameDirectoryIsRefused) {
 }
 
 TEST_F(EventLogTest, MissingStoreWithoutCreateFails) {
-  StoreOptions options;
+  StoreOptions options = testing::TestOptions();
   options.create_if_missing = false;
   std::unique_ptr<Store> other;
   EXPECT_FALSE(Store::OpenPrimary(scratch_.Sub("absent"), options, &other).ok());

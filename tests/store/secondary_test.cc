@@ -94,7 +94,7 @@ TEST_F(SecondaryTest, NoStoreNoSecondary) {
 // that mixed two states would show a foreign value. Pruning (keep 2) makes reads of old
 // versions fail with NotFound; anything else is a failure.
 TEST_F(SecondaryTest, ReadsNeverSeeHalfACatchUp) {
-  StoreOptions options;
+  StoreOptions options = testing::TestOptions();
   options.keep_versions = 2;
   options.rows_per_block = 8;
   Open(options);

@@ -45,6 +45,15 @@ inline std::unique_ptr<OwnedVersion> MakeVersion(uint32_t users, uint32_t items,
   return v;
 }
 
+// Options for the suites: no fsync per write. These suites test the store's logic, and the
+// machine they run on is shared; what sync=false gives up (surviving a machine crash) no
+// in-process test could observe anyway. crash_test.cc runs its writer with sync on.
+inline StoreOptions TestOptions() {
+  StoreOptions options;
+  options.sync = false;
+  return options;
+}
+
 class StoreFixture : public ::testing::Test {
  protected:
   void SetUp() override {
@@ -52,7 +61,7 @@ class StoreFixture : public ::testing::Test {
     Open();
   }
 
-  void Open(const StoreOptions& options = StoreOptions()) {
+  void Open(const StoreOptions& options = TestOptions()) {
     options_ = options;
     store_.reset();
     Status s = Store::OpenPrimary(dir_, options_, &store_);

@@ -16,7 +16,7 @@ class VersionsTest : public StoreFixture {
  protected:
   void SetUp() override {
     StoreFixture::SetUp();
-    StoreOptions options;
+    StoreOptions options = testing::TestOptions();
     options.rows_per_block = 4;  // small blocks: every matrix below spans several
     options.keep_versions = 3;
     Open(options);

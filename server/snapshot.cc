@@ -4,6 +4,8 @@
 #include <bit>
 #include <chrono>
 #include <cstring>
+#include <future>
+#include <system_error>
 
 #include "core/scan.h"
 #include "server/fold_in.h"
@@ -48,6 +50,45 @@ Status CheckMatrix(const ItemMatrix& m, const char* name) {
   return Status::Ok();
 }
 
+Status CheckSeen(const SnapshotParts& parts, size_t num_users, size_t num_items,
+                 const std::string& where) {
+  if (parts.seen_offsets.empty()) return Status::Ok();
+  if (parts.seen_offsets.size() != num_users + 1 || parts.seen_offsets[0] != 0 ||
+      parts.seen_offsets.back() != parts.seen_items.size()) {
+    return Status::Corruption(where + "seen-item offsets do not match the user count");
+  }
+  for (size_t u = 0; u < num_users; ++u) {
+    const uint64_t begin = parts.seen_offsets[u], end = parts.seen_offsets[u + 1];
+    if (end < begin) return Status::Corruption(where + "seen-item offsets decrease");
+    for (uint64_t j = begin; j < end; ++j) {
+      if (parts.seen_items[j] >= num_items ||
+          (j > begin && parts.seen_items[j] <= parts.seen_items[j - 1])) {
+        return Status::Corruption(where + "seen items of user index " + std::to_string(u) +
+                                  " are not ascending item indexes");
+      }
+    }
+  }
+  return Status::Ok();
+}
+
+// Runs `side` on a helper thread while `main` runs on this one, and returns side's error if
+// any, else main's. Snapshots are built on the catch-up thread, so the helper takes at most
+// one more core for the length of a load. Runs both here if no thread can be started.
+template <typename F, typename G>
+Status RunBoth(F&& side, G&& main) {
+  std::future<Status> helper;
+  try {
+    helper = std::async(std::launch::async, [&side] { return side(); });
+  } catch (const std::system_error&) {
+    Status a = side();
+    Status b = main();
+    return a.ok() ? b : a;
+  }
+  Status b = main();
+  Status a = helper.get();
+  return a.ok() ? b : a;
+}
+
 int64_t NowMs() {
   return std::chrono::duration_cast<std::chrono::milliseconds>(
              std::chrono::system_clock::now().time_since_epoch())
@@ -77,55 +118,46 @@ Status Snapshot::Build(SnapshotParts parts, std::shared_ptr<const Snapshot>* out
   if (num_items >= UINT32_MAX || num_users >= UINT32_MAX) {
     return Status::Corruption(where + "too many rows for 32-bit indexes");
   }
-  PLUMB_RETURN_IF_ERROR(CheckMatrix(parts.items, "item"));
-  if (num_users > 0) PLUMB_RETURN_IF_ERROR(CheckMatrix(parts.users, "user"));
-
   if (parts.item_degrees.empty()) parts.item_degrees.assign(num_items, 0);
   if (parts.item_degrees.size() != num_items) {
     return Status::Corruption(where + std::to_string(parts.item_degrees.size()) +
                               " item degrees for " + std::to_string(num_items) + " items");
   }
-  if (!parts.seen_offsets.empty()) {
-    if (parts.seen_offsets.size() != num_users + 1 || parts.seen_offsets[0] != 0 ||
-        parts.seen_offsets.back() != parts.seen_items.size()) {
-      return Status::Corruption(where + "seen-item offsets do not match the user count");
-    }
-    for (size_t u = 0; u < num_users; ++u) {
-      const uint64_t begin = parts.seen_offsets[u], end = parts.seen_offsets[u + 1];
-      if (end < begin) return Status::Corruption(where + "seen-item offsets decrease");
-      for (uint64_t j = begin; j < end; ++j) {
-        if (parts.seen_items[j] >= num_items || (j > begin && parts.seen_items[j] <= parts.seen_items[j - 1])) {
-          return Status::Corruption(where + "seen items of user index " + std::to_string(u) +
-                                    " are not ascending item indexes");
-        }
-      }
-    }
-  } else if (!parts.seen_items.empty()) {
+  if (parts.seen_offsets.empty() && !parts.seen_items.empty()) {
     return Status::Corruption(where + "seen items without offsets");
   }
 
+  // Item side and user side are independent; on a million items each is a few hundred ms.
   std::shared_ptr<Snapshot> snap(new Snapshot());
-  Status s = IdMap::Build(parts.item_ids, &snap->item_index_);
-  if (!s.ok()) return Status::Corruption(where + "item ids: " + s.message());
-  s = IdMap::Build(parts.user_ids, &snap->user_index_);
-  if (!s.ok()) return Status::Corruption(where + "user ids: " + s.message());
-  // The id lists are copied into the maps; free them now rather than at the end, so that
-  // the peak memory of a swap stays low.
-  std::vector<std::string>().swap(parts.item_ids);
-  std::vector<std::string>().swap(parts.user_ids);
-
-  snap->item_norms_.resize(num_items);
-  PLUMB_RETURN_IF_ERROR(row_norms(parts.items.view(), snap->item_norms_));
-  snap->item_gram_.resize(dim * dim);
-  PLUMB_RETURN_IF_ERROR(plumb::server::item_gram(parts.items.view(), snap->item_gram_));
-
-  snap->items_by_degree_.resize(num_items);
-  for (uint32_t i = 0; i < num_items; ++i) snap->items_by_degree_[i] = i;
-  const std::vector<uint64_t>& degrees = parts.item_degrees;
-  std::sort(snap->items_by_degree_.begin(), snap->items_by_degree_.end(),
-            [&degrees](uint32_t a, uint32_t b) {
-              return degrees[a] > degrees[b] || (degrees[a] == degrees[b] && a < b);
-            });
+  Status s = RunBoth(
+      [&]() -> Status {
+        PLUMB_RETURN_IF_ERROR(CheckMatrix(parts.items, "item"));
+        Status ids = IdMap::Build(parts.item_ids, &snap->item_index_);
+        if (!ids.ok()) return Status::Corruption(where + "item ids: " + ids.message());
+        // The id list is copied into the map; free it now to keep the swap's peak low.
+        std::vector<std::string>().swap(parts.item_ids);
+        snap->item_norms_.resize(num_items);
+        PLUMB_RETURN_IF_ERROR(row_norms(parts.items.view(), snap->item_norms_));
+        snap->item_gram_.resize(dim * dim);
+        PLUMB_RETURN_IF_ERROR(plumb::server::item_gram(parts.items.view(), snap->item_gram_));
+        snap->items_by_degree_.resize(num_items);
+        for (uint32_t i = 0; i < num_items; ++i) snap->items_by_degree_[i] = i;
+        const std::vector<uint64_t>& degrees = parts.item_degrees;
+        std::sort(snap->items_by_degree_.begin(), snap->items_by_degree_.end(),
+                  [&degrees](uint32_t a, uint32_t b) {
+                    return degrees[a] > degrees[b] || (degrees[a] == degrees[b] && a < b);
+                  });
+        return Status::Ok();
+      },
+      [&]() -> Status {
+        if (num_users > 0) PLUMB_RETURN_IF_ERROR(CheckMatrix(parts.users, "user"));
+        PLUMB_RETURN_IF_ERROR(CheckSeen(parts, num_users, num_items, where));
+        Status ids = IdMap::Build(parts.user_ids, &snap->user_index_);
+        if (!ids.ok()) return Status::Corruption(where + "user ids: " + ids.message());
+        std::vector<std::string>().swap(parts.user_ids);
+        return Status::Ok();
+      });
+  PLUMB_RETURN_IF_ERROR(s);
 
   snap->version_ = parts.version;
   snap->created_ms_ = parts.created_ms;
@@ -164,45 +196,55 @@ Status LoadSnapshot(const store::Store& store, uint64_t version,
   PLUMB_RETURN_IF_ERROR(ItemMatrix::Create(manifest.num_users, manifest.dim, &parts.users));
   // ReadMatrix checks every block against the manifest's rows and dim (Corruption when a
   // block is missing or wrongly sized), so the matrices below have the manifest's shape.
-  PLUMB_RETURN_IF_ERROR(store.ReadMatrix(
-      version, store::MatrixKind::kItems,
-      std::span<float>(parts.items.data(), parts.items.rows() * parts.items.dim())));
-  PLUMB_RETURN_IF_ERROR(store.ReadMatrix(
-      version, store::MatrixKind::kUsers,
-      std::span<float>(parts.users.data(), parts.users.rows() * parts.users.dim())));
-
-  std::vector<uint32_t> degrees;
-  PLUMB_RETURN_IF_ERROR(store.ReadVersionDegrees(version, &degrees));
-  if (degrees.size() != manifest.num_items) {
-    return Status::Corruption(where + std::to_string(degrees.size()) + " stored degrees for " +
-                              std::to_string(manifest.num_items) + " items");
-  }
-  parts.item_degrees.assign(degrees.begin(), degrees.end());
-
-  // The dictionaries are append-only, so the version's rows are indexes [0, num_users) and
-  // [0, num_items) even if the trainer has added ids since.
-  PLUMB_RETURN_IF_ERROR(store.LoadIds(store::IdSpace::kItem, manifest.num_items, &parts.item_ids));
-  PLUMB_RETURN_IF_ERROR(store.LoadIds(store::IdSpace::kUser, manifest.num_users, &parts.user_ids));
-
-  // ForEachInteraction yields pairs ordered by user then item, so appending builds the
-  // compressed rows directly; Snapshot::Build re-checks the order.
+  // The item matrix, the largest read, overlaps with everything else.
   const uint32_t num_users = manifest.num_users, num_items = manifest.num_items;
-  parts.seen_offsets.assign(static_cast<size_t>(num_users) + 1, 0);
-  parts.seen_items.reserve(manifest.num_interactions);
-  uint64_t last_pair = 0;
-  bool ordered = true;
-  PLUMB_RETURN_IF_ERROR(store.ForEachInteraction([&](uint32_t user, uint32_t item) {
-    const uint64_t pair = (static_cast<uint64_t>(user) << 32 | item) + 1;
-    ordered = ordered && pair > last_pair;
-    last_pair = pair;
-    if (user < num_users && item < num_items) {
-      parts.seen_items.push_back(item);
-      ++parts.seen_offsets[user + 1];
-    }
-  }));
-  if (!ordered) return Status::Corruption(where + "interactions not ordered by user then item");
-  for (size_t u = 0; u < num_users; ++u) parts.seen_offsets[u + 1] += parts.seen_offsets[u];
-  parts.seen_items.shrink_to_fit();
+  Status s = RunBoth(
+      [&]() -> Status {
+        return store.ReadMatrix(
+            version, store::MatrixKind::kItems,
+            std::span<float>(parts.items.data(), parts.items.rows() * parts.items.dim()));
+      },
+      [&]() -> Status {
+        PLUMB_RETURN_IF_ERROR(store.ReadMatrix(
+            version, store::MatrixKind::kUsers,
+            std::span<float>(parts.users.data(), parts.users.rows() * parts.users.dim())));
+        std::vector<uint32_t> degrees;
+        PLUMB_RETURN_IF_ERROR(store.ReadVersionDegrees(version, &degrees));
+        if (degrees.size() != num_items) {
+          return Status::Corruption(where + std::to_string(degrees.size()) +
+                                    " stored degrees for " + std::to_string(num_items) +
+                                    " items");
+        }
+        parts.item_degrees.assign(degrees.begin(), degrees.end());
+
+        // The dictionaries are append-only, so the version's rows are indexes [0, num_users)
+        // and [0, num_items) even if the trainer has added ids since.
+        PLUMB_RETURN_IF_ERROR(store.LoadIds(store::IdSpace::kItem, num_items, &parts.item_ids));
+        PLUMB_RETURN_IF_ERROR(store.LoadIds(store::IdSpace::kUser, num_users, &parts.user_ids));
+
+        // ForEachInteraction yields pairs ordered by user then item, so appending builds the
+        // compressed rows directly; the order is checked as it goes.
+        parts.seen_offsets.assign(static_cast<size_t>(num_users) + 1, 0);
+        parts.seen_items.reserve(manifest.num_interactions);
+        uint64_t last_pair = 0;
+        bool ordered = true;
+        PLUMB_RETURN_IF_ERROR(store.ForEachInteraction([&](uint32_t user, uint32_t item) {
+          const uint64_t pair = (static_cast<uint64_t>(user) << 32 | item) + 1;
+          ordered = ordered && pair > last_pair;
+          last_pair = pair;
+          if (user < num_users && item < num_items) {
+            parts.seen_items.push_back(item);
+            ++parts.seen_offsets[user + 1];
+          }
+        }));
+        if (!ordered) {
+          return Status::Corruption(where + "interactions not ordered by user then item");
+        }
+        for (size_t u = 0; u < num_users; ++u) parts.seen_offsets[u + 1] += parts.seen_offsets[u];
+        parts.seen_items.shrink_to_fit();
+        return Status::Ok();
+      });
+  PLUMB_RETURN_IF_ERROR(s);
 
   return Snapshot::Build(std::move(parts), out);
 }

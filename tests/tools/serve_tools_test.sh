@@ -1,0 +1,136 @@
+#!/usr/bin/env bash
+# plumb-load and plumb-query against a real plumb-serve on loopback, serving a small store
+# fitted by the plumb command line. Everything started here is stopped on exit.
+set -u
+PLUMB=$1 SERVE=$2 LOAD=$3 QUERY=$4
+tmp=$(mktemp -d)
+serve_pid=""
+cleanup() {
+  if [ -n "$serve_pid" ]; then kill "$serve_pid" 2>/dev/null; wait "$serve_pid" 2>/dev/null; fi
+  rm -rf "$tmp"
+}
+trap cleanup EXIT
+fail=0
+check() { if eval "$2"; then echo "ok: $1"; else echo "FAIL: $1"; fail=1; fi; }
+json() { "${PYTHON3:-python3}" -c "import json,sys; d=json.load(open(sys.argv[1])); print($2)" "$1"; }
+
+# ---- a small store: 300 members, 150 tools --------------------------------------------------
+"$PLUMB" synth --users 300 --items 150 --interactions 5000 --out "$tmp/world" >/dev/null || exit 1
+"$PLUMB" fit --events "$tmp/world/events.csv" --db "$tmp/db" --epochs 2 --dim 16 >/dev/null || exit 1
+
+"$SERVE" --db "$tmp/db" --listen 127.0.0.1:0 --metrics "" 2>"$tmp/serve.log" &
+serve_pid=$!
+port=""
+for _ in $(seq 300); do  # up to 30 s
+  port=$(sed -n 's/.*listening on port \([0-9]*\).*/\1/p' "$tmp/serve.log" | head -1)
+  [ -n "$port" ] && break
+  kill -0 "$serve_pid" 2>/dev/null || break
+  sleep 0.1
+done
+if [ -z "$port" ]; then echo "FAIL: plumb-serve did not start"; cat "$tmp/serve.log"; exit 1; fi
+target=127.0.0.1:$port
+echo "plumb-serve on $target"
+
+# ---- plumb-load: closed loop over the store's users -------------------------------------------
+"$LOAD" --target "$target" --db "$tmp/db" --duration 2 --warmup 0.5 --concurrency 4 \
+  --json "$tmp/recommend.json" >"$tmp/recommend.txt" 2>&1
+rc=$?
+cat "$tmp/recommend.txt"
+check "load run exits 0" '[ $rc -eq 0 ]'
+check "load: requests > 0" '[ "$(json "$tmp/recommend.json" "d[\"requests\"] > 0")" = True ]'
+check "load: zero errors" '[ "$(json "$tmp/recommend.json" "d[\"errors\"]")" = 0 ]'
+check "load: every request OK" \
+  '[ "$(json "$tmp/recommend.json" "d[\"ok\"] == d[\"requests\"] == d[\"latency_us\"][\"count\"]")" = True ]'
+check "load: p50 <= p90 <= p99 <= p99.9 <= max" \
+  '[ "$(json "$tmp/recommend.json" "(lambda l: 0 < l[\"p50_us\"] <= l[\"p90_us\"] <= l[\"p99_us\"] <= l[\"p999_us\"] <= l[\"max_us\"])(d[\"latency_us\"])")" = True ]'
+check "load: requests/s = requests / seconds" \
+  '[ "$(json "$tmp/recommend.json" "abs(d[\"requests_per_second\"] - d[\"requests\"] / d[\"duration_seconds\"]) < 0.01")" = True ]'
+check "load: text report labels the latency unit" 'grep -q "latency of OK calls, microseconds: .*p99.9" "$tmp/recommend.txt"'
+
+# ---- the empty-RPC floor -----------------------------------------------------------------------
+"$LOAD" --target "$target" --rpc health --duration 1 --warmup 0.2 --concurrency 4 \
+  --json "$tmp/health.json" >"$tmp/health.txt" 2>&1
+rc=$?
+cat "$tmp/health.txt"
+check "health load exits 0" '[ $rc -eq 0 ]'
+check "health: requests > 0, zero errors" \
+  '[ "$(json "$tmp/health.json" "d[\"requests\"] > 0 and d[\"errors\"] == 0")" = True ]'
+
+# ---- open loop, SimilarItems: the schedule fixes the number of calls ----------------------------
+"$LOAD" --target "$target" --rpc similar --db "$tmp/db" --rate 200 --duration 1 --warmup 0.2 \
+  --json "$tmp/similar.json" >/dev/null 2>&1
+check "open loop at 200/s for 1 s makes exactly 200 SimilarItems calls, all OK" \
+  '[ "$(json "$tmp/similar.json" "d[\"requests\"] == d[\"ok\"] == 200 and d[\"mode\"] == \"open\"")" = True ]'
+
+# ---- errors are counted by status code -----------------------------------------------------------
+printf 'nobody-1\nnobody-2\n' >"$tmp/strangers.txt"
+"$LOAD" --target "$target" --users-file "$tmp/strangers.txt" --duration 0.5 --warmup 0 \
+  --concurrency 2 --json "$tmp/strangers.json" >/dev/null 2>&1
+check "unknown users: every call is NOT_FOUND" \
+  '[ "$(json "$tmp/strangers.json" "d[\"ok\"] == 0 and d[\"errors\"] > 0 and d[\"errors_by_code\"] == {\"NOT_FOUND\": d[\"errors\"]}")" = True ]'
+out=$("$LOAD" --target "$target" --duration 1 2>&1); rc=$?
+check "recommend load without ids: exit 1 with a reason" \
+  '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "give --users-file or --db"'
+
+# ---- plumb-query recommend, checked against the offline ranking of `plumb top` ------------------
+user=$(sed -n 2p "$tmp/world/events.csv" | cut -d, -f1)
+"$QUERY" recommend --target "$target" --user "$user" --count 5 --exclude-seen \
+  --names "$tmp/world/items.csv" >"$tmp/rec.txt" 2>&1
+rc=$?
+cat "$tmp/rec.txt"
+check "recommend exits 0" '[ $rc -eq 0 ]'
+check "recommend names the model version" 'head -1 "$tmp/rec.txt" | grep -q "^model version [1-9][0-9]*, user $user, 5 items"'
+check "recommend prints 5 ranked lines" '[ "$(grep -cE "^ +[1-5] +t[0-9]+ +-?[0-9]+\.[0-9]{6}  " "$tmp/rec.txt")" = 5 ]'
+# Every printed name is the one items.csv gives that item.
+names_ok=1
+while read -r rank item score name; do
+  expected=$(grep "^$item," "$tmp/world/items.csv" | cut -d, -f2-)
+  [ "$name" = "$expected" ] || names_ok=0
+done < <(grep -E "^ +[0-9]+ +t" "$tmp/rec.txt")
+check "recommend shows each item's name from items.csv" '[ $names_ok -eq 1 ]'
+"$PLUMB" top --db "$tmp/db" --user "$user" --count 5 >"$tmp/top.txt" 2>&1
+served=$(awk '/^ +[0-9]+ +t/ {print $2}' "$tmp/rec.txt" | tr '\n' ' ')
+offline=$(awk '/^ +[0-9]+\. / {print $2}' "$tmp/top.txt" | tr '\n' ' ')
+check "served list (exclude-seen) = offline 'plumb top' list [$served]" '[ -n "$served" ] && [ "$served" = "$offline" ]'
+
+"$QUERY" similar --target "$target" --item t0 --count 3 >"$tmp/sim.txt" 2>&1; rc=$?
+check "similar prints 3 items, never the query item" \
+  '[ $rc -eq 0 ] && [ "$(grep -cE "^ +[1-3] +t" "$tmp/sim.txt")" = 3 ] && ! grep -qE "^ +[0-9]+ +t0 " "$tmp/sim.txt"'
+"$QUERY" rank --target "$target" --user "$user" --candidates t1,t2,zzz >"$tmp/rank.txt" 2>&1; rc=$?
+check "rank orders the known candidates and lists the unknown one" \
+  '[ $rc -eq 0 ] && [ "$(grep -cE "^ +[1-2] +t[12] " "$tmp/rank.txt")" = 2 ] && grep -q "not known to this version: zzz" "$tmp/rank.txt"'
+
+# ---- errors: status code name + message, one line, non-zero exit ----------------------------------
+out=$("$QUERY" recommend --target "$target" --user no-such-member 2>&1); rc=$?
+check "unknown user: exit 1" '[ $rc -eq 1 ]'
+check "unknown user: one line naming NOT_FOUND [$out]" \
+  '[ "$(printf "%s\n" "$out" | wc -l)" -eq 1 ] && printf "%s" "$out" | grep -q "^plumb-query: NOT_FOUND: .*no-such-member"'
+out=$("$QUERY" recommend --target "$target" --user no-such-member --fallback 2>&1); rc=$?
+check "unknown user with --fallback: the most-interacted list, marked" \
+  '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "fallback"'
+out=$("$QUERY" recommend --target "$target" 2>&1); rc=$?
+check "missing --user: usage error exit 2, one line" '[ $rc -eq 2 ] && [ "$(printf "%s\n" "$out" | wc -l)" -eq 1 ]'
+out=$("$QUERY" recommend --target "$target" --user "$user" --count 0 2>&1); rc=$?
+check "count 0: usage error exit 2" '[ $rc -eq 2 ]'
+
+# ---- health ----------------------------------------------------------------------------------------
+out=$("$QUERY" health --target "$target" 2>&1); rc=$?
+check "health: SERVING, exit 0" '[ $rc -eq 0 ] && [ "$out" = SERVING ]'
+out=$("$QUERY" health --target "$target" --service plumb.v1.Ranker 2>&1); rc=$?
+check "health of plumb.v1.Ranker: SERVING" '[ $rc -eq 0 ] && [ "$out" = SERVING ]'
+out=$("$QUERY" health --target "$target" --service no.such.Service 2>&1); rc=$?
+check "health of an unknown service: NOT_FOUND, exit 1" '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "NOT_FOUND"'
+
+for cmd in recommend similar rank health versions status activate auto-activate; do
+  check "plumb-query $cmd --help" '"$QUERY" $cmd --help >/dev/null'
+done
+check "plumb-load --help" '"$LOAD" --help | grep -q -- "--publish-rate"'
+check "plumb-load replay --help" '"$LOAD" replay --help | grep -q -- "--stream"'
+
+# ---- after the server stops: UNAVAILABLE ------------------------------------------------------------
+kill "$serve_pid"; wait "$serve_pid" 2>/dev/null; serve_pid=""
+out=$("$QUERY" health --target "$target" --timeout-ms 2000 2>&1); rc=$?
+check "stopped server: UNAVAILABLE, exit 1 [$out]" '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "^plumb-query: UNAVAILABLE"'
+out=$("$LOAD" --target "$target" --rpc health --duration 1 --connect-timeout 1 2>&1); rc=$?
+check "plumb-load against nothing: exit 1, says it cannot reach" '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "cannot reach plumb-serve"'
+exit $fail

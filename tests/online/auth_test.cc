@@ -1,10 +1,10 @@
 #include "trainer/online/auth.h"
 
+#include <gtest/gtest.h>
 #include <sys/stat.h>
 
 #include <fstream>
-
-#include <gtest/gtest.h>
+#include <thread>
 
 #include "tests/online/ingest_server.h"
 #include "tests/online/memory_event_log.h"
@@ -40,8 +40,7 @@ TEST(BearerAuth, TokenFileIsTrimmedAndChecked) {
   WriteFile(dir.Sub("empty"), "\n\n");
   EXPECT_EQ(BearerAuth::FromFile(dir.Sub("empty"), &auth).code(), Status::Code::kInvalidArgument);
   WriteFile(dir.Sub("spaced"), "two words");
-  EXPECT_EQ(BearerAuth::FromFile(dir.Sub("spaced"), &auth).code(),
-            Status::Code::kInvalidArgument);
+  EXPECT_EQ(BearerAuth::FromFile(dir.Sub("spaced"), &auth).code(), Status::Code::kInvalidArgument);
   EXPECT_EQ(BearerAuth::FromFile(dir.Sub("missing"), &auth).code(), Status::Code::kIoError);
 }
 
@@ -89,9 +88,9 @@ TEST(BearerAuth, CallsNeedTheRightToken) {
 }
 
 TEST(ListenPolicy, LoopbackAddresses) {
-  for (const char* a : {"127.0.0.1:7601", "127.3.2.1:1", "localhost:7601", "[::1]:7601",
-                        "ipv4:127.0.0.1:9", "[::ffff:127.0.0.1]:7601", "unix:/run/plumb.sock",
-                        "unix-abstract:plumb"}) {
+  for (const char* a :
+       {"127.0.0.1:7601", "127.3.2.1:1", "localhost:7601", "[::1]:7601", "ipv4:127.0.0.1:9",
+        "[::ffff:127.0.0.1]:7601", "unix:/run/plumb.sock", "unix-abstract:plumb"}) {
     EXPECT_TRUE(IsLoopbackAddress(a)) << a;
   }
   for (const char* a : {"0.0.0.0:7601", "[::]:7601", "10.1.2.3:7601", "192.168.0.9:1",
@@ -107,6 +106,42 @@ TEST(ServerCredentials, TlsNeedsBothFiles) {
   EXPECT_EQ(MakeServerCredentials("cert.pem", "", &creds).code(), Status::Code::kInvalidArgument);
   EXPECT_EQ(MakeServerCredentials("/nonexistent/cert.pem", "/nonexistent/key.pem", &creds).code(),
             Status::Code::kIoError);
+}
+
+TEST(CallAdmission, ShutdownRefusesNewCallsAndWaitsForRunningOnes) {
+  InflightCalls calls;
+  InflightCalls::Scope running = calls.Enter();
+  ASSERT_TRUE(running.admitted());
+  EXPECT_EQ(calls.running(), 1);
+  std::thread finisher([&] {
+    std::this_thread::sleep_for(std::chrono::milliseconds(50));
+    running = InflightCalls::Scope();  // the handler returns
+  });
+  const auto start = std::chrono::steady_clock::now();
+  EXPECT_TRUE(calls.CloseAndWait(start + std::chrono::seconds(10)));
+  EXPECT_LT(std::chrono::steady_clock::now() - start, std::chrono::seconds(5));
+  finisher.join();
+  EXPECT_EQ(calls.running(), 0);
+  EXPECT_FALSE(calls.Enter().admitted());
+
+  // A handler that never returns: CloseAndWait gives up at the deadline.
+  InflightCalls stuck;
+  InflightCalls::Scope forever = stuck.Enter();
+  EXPECT_FALSE(
+      stuck.CloseAndWait(std::chrono::steady_clock::now() + std::chrono::milliseconds(20)));
+}
+
+TEST(CallAdmission, CallsDuringShutdownAreUnavailableAndStoreNothing) {
+  MemoryEventLog log;
+  IngestServer server(&log);
+  auto stub = server.Stub();
+  server.inflight().CloseAndWait(std::chrono::steady_clock::now());
+  plumb::v1::PublishSummary summary;
+  EXPECT_EQ(
+      Stream(stub.get(), std::vector<plumb::v1::InteractionEvent>{WireEvent("m", "axe")}, &summary)
+          .error_code(),
+      grpc::StatusCode::UNAVAILABLE);
+  EXPECT_TRUE(log.events().empty());
 }
 
 }  // namespace

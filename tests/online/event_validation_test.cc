@@ -1,9 +1,9 @@
 #include "trainer/online/event_validation.h"
 
+#include <gtest/gtest.h>
+
 #include <cmath>
 #include <limits>
-
-#include <gtest/gtest.h>
 
 namespace plumb::online {
 namespace {
@@ -98,9 +98,9 @@ TEST(EventValidation, RejectsControlCharactersInIds) {
 }
 
 TEST(EventValidation, RejectsBadWeights) {
-  for (float w : {-1.0f, -0.001f, 1000.5f, 1e30f, std::numeric_limits<float>::infinity(),
-                  -std::numeric_limits<float>::infinity(),
-                  std::numeric_limits<float>::quiet_NaN()}) {
+  for (float w :
+       {-1.0f, -0.001f, 1000.5f, 1e30f, std::numeric_limits<float>::infinity(),
+        -std::numeric_limits<float>::infinity(), std::numeric_limits<float>::quiet_NaN()}) {
     store::EventInput e = Good();
     e.weight = w;
     EXPECT_EQ(Reject(e), RejectReason::kBadWeight) << w;

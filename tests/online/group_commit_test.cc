@@ -1,12 +1,12 @@
 #include "trainer/online/group_commit.h"
 
+#include <gtest/gtest.h>
+
 #include <atomic>
 #include <set>
 #include <string>
 #include <thread>
 #include <vector>
-
-#include <gtest/gtest.h>
 
 #include "tests/online/memory_event_log.h"
 #include "tests/online/names.h"
@@ -34,7 +34,8 @@ TEST(GroupCommit, ConcurrentSubmittersAreAllStoredOnceAndShareWrites) {
   std::atomic<int> notified{0};
   GroupCommitOptions options;
   options.window = std::chrono::microseconds(2000);
-  GroupCommitter committer(&log, [&] { ++notified; }, options);
+  GroupCommitter committer(
+      &log, [&] { ++notified; }, options);
 
   constexpr int kThreads = 8, kRequests = 25, kPerRequest = 40;
   std::atomic<uint64_t> acked{0};
@@ -42,8 +43,7 @@ TEST(GroupCommit, ConcurrentSubmittersAreAllStoredOnceAndShareWrites) {
   for (int t = 0; t < kThreads; ++t) {
     threads.emplace_back([&, t] {
       for (int r = 0; r < kRequests; ++r) {
-        auto f = committer.Submit(
-            Events(Name("t", t) + Name("r", r) + "e", kPerRequest));
+        auto f = committer.Submit(Events(Name("t", t) + Name("r", r) + "e", kPerRequest));
         CommitOutcome o = f.get();
         ASSERT_TRUE(o.status.ok()) << o.status.ToString();
         EXPECT_EQ(o.appended, uint64_t{kPerRequest});
@@ -107,7 +107,8 @@ TEST(GroupCommit, AFailedWriteFailsEveryWaitingSubmitterAndStoresNothing) {
   std::atomic<int> notified{0};
   GroupCommitOptions options;
   options.window = std::chrono::milliseconds(20);
-  GroupCommitter committer(&log, [&] { ++notified; }, options);
+  GroupCommitter committer(
+      &log, [&] { ++notified; }, options);
   std::vector<std::future<CommitOutcome>> futures;
   for (int i = 0; i < 5; ++i) futures.push_back(committer.Submit(Events(Name("x", i), 4)));
   for (auto& f : futures) {

@@ -2,11 +2,11 @@
 // system) over a given EventLog, for tests.
 #pragma once
 
-#include <memory>
-#include <string>
-
 #include <grpcpp/grpcpp.h>
 #include <gtest/gtest.h>
+
+#include <memory>
+#include <string>
 
 #include "plumb/v1/ingest.grpc.pb.h"
 #include "tests/online/names.h"
@@ -21,7 +21,8 @@ class IngestServer {
   explicit IngestServer(EventLog* log, const BearerAuth* auth = nullptr,
                         GroupCommitOptions options = GroupCommitOptions(),
                         IngestLimits limits = IngestLimits())
-      : committer_(log, nullptr, options), service_(&committer_, &metrics_, auth, limits) {
+      : committer_(log, nullptr, options),
+        service_(&committer_, &metrics_, CallAdmission{auth, &inflight_}, limits) {
     grpc::ServerBuilder builder;
     builder.AddListeningPort("127.0.0.1:0", grpc::InsecureServerCredentials(), &port_);
     builder.RegisterService(&service_);
@@ -43,10 +44,12 @@ class IngestServer {
   }
 
   TrainMetrics& metrics() { return metrics_; }
+  InflightCalls& inflight() { return inflight_; }
   GroupCommitter& committer() { return committer_; }
 
  private:
   TrainMetrics metrics_;
+  InflightCalls inflight_;
   GroupCommitter committer_;
   IngestService service_;
   std::unique_ptr<grpc::Server> server_;
@@ -54,8 +57,8 @@ class IngestServer {
 };
 
 inline plumb::v1::InteractionEvent WireEvent(const std::string& user, const std::string& item,
-                                             const std::string& event_id = "",
-                                             float weight = 1.0f, int64_t ts = 1'000) {
+                                             const std::string& event_id = "", float weight = 1.0f,
+                                             int64_t ts = 1'000) {
   plumb::v1::InteractionEvent e;
   e.set_user_id(user);
   e.set_item_id(item);

@@ -1,11 +1,11 @@
 #include "trainer/online/ingest_service.h"
 
+#include <gtest/gtest.h>
+
 #include <limits>
 #include <set>
 #include <string>
 #include <vector>
-
-#include <gtest/gtest.h>
 
 #include "store/store.h"
 #include "tests/online/ingest_server.h"
@@ -16,14 +16,14 @@
 namespace plumb::online {
 namespace {
 
+using plumb::v1::InteractionEvent;
+using plumb::v1::PublishSummary;
 using testing::IngestServer;
 using testing::MemoryEventLog;
 using testing::Name;
 using testing::ScratchDir;
 using testing::Stream;
 using testing::WireEvent;
-using plumb::v1::InteractionEvent;
-using plumb::v1::PublishSummary;
 
 TEST(IngestService, BadEventsAreRejectedWithReasonsAndTheRestAccepted) {
   MemoryEventLog log;
@@ -53,8 +53,8 @@ TEST(IngestService, BadEventsAreRejectedWithReasonsAndTheRestAccepted) {
   };
   std::vector<uint64_t> bad_index;
   for (size_t i = 0; i < bad.size(); ++i) {
-    events.push_back(WireEvent(Name("member-", i), "ladder", Name("g", i),
-                               0.0f, 0));  // weight and time defaulted
+    events.push_back(WireEvent(Name("member-", i), "ladder", Name("g", i), 0.0f,
+                               0));  // weight and time defaulted
     bad_index.push_back(events.size());
     events.push_back(bad[i].event);
   }
@@ -115,8 +115,7 @@ TEST(IngestService, LongStreamIsStoredCompleteAndInOrder) {
   constexpr int kEvents = 25'500;  // 25 full chunks and a partial one
   std::vector<InteractionEvent> events;
   for (int i = 0; i < kEvents; ++i) {
-    events.push_back(WireEvent(Name("member-", i % 97), Name("tool-", i),
-                               Name("e", i)));
+    events.push_back(WireEvent(Name("member-", i % 97), Name("tool-", i), Name("e", i)));
   }
   PublishSummary summary;
   ASSERT_TRUE(Stream(stub.get(), events, &summary).ok());
@@ -170,7 +169,8 @@ TEST(IngestService, PublishBatchOverTheLimitIsRefusedWhole) {
 
 TEST(IngestService, StoreFailureAcknowledgesNothing) {
   MemoryEventLog log;
-  log.set_failure(Status::IoError("While appending to file: events/000012.log: Input/output error"));
+  log.set_failure(
+      Status::IoError("While appending to file: events/000012.log: Input/output error"));
   IngestServer server(&log);
   auto stub = server.Stub();
   std::vector<InteractionEvent> events;
@@ -256,10 +256,9 @@ TEST(IngestServiceOnStore, DuplicatesAreReportedAndNotAppendedTwice) {
 
   std::vector<InteractionEvent> first, second;
   for (int i = 0; i < 1'500; ++i) {
-    first.push_back(WireEvent(Name("member-", i % 13), Name("tool-", i % 40),
-                              Name("loan-", i)));
+    first.push_back(WireEvent(Name("member-", i % 13), Name("tool-", i % 40), Name("loan-", i)));
   }
-  second = first;  // a client resending everything...
+  second = first;                        // a client resending everything...
   for (int i = 1'500; i < 1'600; ++i) {  // ...plus 100 new events, 20 of them twice
     second.push_back(WireEvent("member-1", Name("tool-", i), Name("loan-", i)));
     if (i % 5 == 0) second.push_back(second.back());

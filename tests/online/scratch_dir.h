@@ -10,8 +10,7 @@ namespace plumb::online::testing {
 class ScratchDir {
  public:
   ScratchDir() {
-    std::string pattern =
-        (std::filesystem::temp_directory_path() / "plumb-online-XXXXXX").string();
+    std::string pattern = (std::filesystem::temp_directory_path() / "plumb-online-XXXXXX").string();
     if (::mkdtemp(pattern.data()) == nullptr) std::abort();
     path_ = pattern;
   }

@@ -1,10 +1,12 @@
 #include "trainer/online/train_config.h"
 
+#include <gtest/gtest.h>
+
+#include <cctype>
 #include <fstream>
+#include <sstream>
 #include <string>
 #include <vector>
-
-#include <gtest/gtest.h>
 
 #include "tests/online/scratch_dir.h"
 
@@ -52,7 +54,7 @@ auto_activate = false
   ASSERT_EQ(Parse({"--config", path, "--dim", "48", "--sync"}, &c), std::nullopt);
   EXPECT_EQ(c.db, "/var/lib/plumb");
   EXPECT_EQ(c.listen, "127.0.0.1:7700");
-  EXPECT_TRUE(c.sync);  // flag wins
+  EXPECT_TRUE(c.sync);                  // flag wins
   EXPECT_EQ(c.commit_window_ms, 10.0);  // an integer is fine for a float key
   EXPECT_EQ(c.dedup_window, "7d");
   EXPECT_EQ(c.online.objective, "bpr");
@@ -81,7 +83,7 @@ TEST(TrainConfig, BadFilesAndValuesAreRefused) {
   EXPECT_EQ(parse_file("db = \"/x\"\nobjective = \"wals\"\n"), 2);
   EXPECT_EQ(parse_file("db = \"/x\"\ndedup_window = \"3 weeks\"\n"), 2);
   EXPECT_EQ(parse_file("db = \"/x\"\ntls_cert = \"c.pem\"\n"), 2);  // key missing
-  EXPECT_EQ(parse_file("db = [\n"), 2);                                // not TOML
+  EXPECT_EQ(parse_file("db = [\n"), 2);                             // not TOML
   EXPECT_EQ(parse_file("db = \"/x\"\ncommit_window_ms = 2.5\n"), std::nullopt);
   TrainConfig c;
   EXPECT_EQ(Parse({"--db", "/x", "--no-such-flag"}, &c), 2);
@@ -94,10 +96,10 @@ TEST(TrainConfig, HelpExitsZero) {
   EXPECT_EQ(Parse({"--help"}, &c), 0);
   const std::string help = ::testing::internal::GetCapturedStdout();
   // Every key is listed, with its default.
-  for (const char* flag : {"--db", "--listen", "--metrics", "--sync", "--commit-window-ms",
-                           "--keep-versions", "--dedup-window", "--token-file", "--tls-cert",
-                           "--tls-key", "--allow-insecure-remote", "--objective", "--dim",
-                           "--publish-every-events", "--gate-tolerance", "--auto-activate"}) {
+  for (const char* flag :
+       {"--db", "--listen", "--metrics", "--sync", "--commit-window-ms", "--keep-versions",
+        "--dedup-window", "--token-file", "--tls-cert", "--tls-key", "--allow-insecure-remote",
+        "--objective", "--dim", "--publish-every-events", "--gate-tolerance", "--auto-activate"}) {
     EXPECT_NE(help.find(flag), std::string::npos) << flag;
   }
   EXPECT_NE(help.find("127.0.0.1:7601"), std::string::npos);
@@ -119,6 +121,66 @@ TEST(Duration, Units) {
   EXPECT_FALSE(ParseDuration("24", &ms).ok());
   EXPECT_FALSE(ParseDuration("-1h", &ms).ok());
   EXPECT_FALSE(ParseDuration("h", &ms).ok());
+}
+
+// deploy/plumb-train.toml documents every key with its default: it must parse, name every
+// flag that --help lists, and (db aside) hold exactly the built-in defaults.
+TEST(TrainConfig, ExampleFileCoversEveryKeyWithItsDefault) {
+  const std::string example = std::string(PLUMB_SOURCE_DIR) + "/deploy/plumb-train.toml";
+  TrainConfig c;
+  ASSERT_EQ(Parse({"--config", example}, &c), std::nullopt);
+  TrainConfig d;
+  ASSERT_EQ(Parse({"--db", c.db}, &d), std::nullopt);
+  EXPECT_EQ(c.listen, d.listen);
+  EXPECT_EQ(c.metrics, d.metrics);
+  EXPECT_EQ(c.sync, d.sync);
+  EXPECT_EQ(c.commit_window_ms, d.commit_window_ms);
+  EXPECT_EQ(c.max_group_events, d.max_group_events);
+  EXPECT_EQ(c.max_batch_events, d.max_batch_events);
+  EXPECT_EQ(c.keep_versions, d.keep_versions);
+  EXPECT_EQ(c.dedup_window, d.dedup_window);
+  EXPECT_EQ(c.shutdown_grace_seconds, d.shutdown_grace_seconds);
+  EXPECT_EQ(c.online.objective, d.online.objective);
+  EXPECT_EQ(c.online.dim, d.online.dim);
+  EXPECT_EQ(c.online.cpr_k, d.online.cpr_k);
+  EXPECT_EQ(c.online.beta, d.online.beta);
+  EXPECT_EQ(c.online.learning_rate, d.online.learning_rate);
+  EXPECT_EQ(c.online.l2, d.online.l2);
+  EXPECT_EQ(c.online.batch_size, d.online.batch_size);
+  EXPECT_EQ(c.online.replay_ratio, d.online.replay_ratio);
+  EXPECT_EQ(c.online.holdout_fraction, d.online.holdout_fraction);
+  EXPECT_EQ(c.online.publish_every_events, d.online.publish_every_events);
+  EXPECT_EQ(c.online.publish_every_seconds, d.online.publish_every_seconds);
+  EXPECT_EQ(c.online.gate_k, d.online.gate_k);
+  EXPECT_EQ(c.online.gate_tolerance, d.online.gate_tolerance);
+  EXPECT_EQ(c.online.gate_max_row_norm, d.online.gate_max_row_norm);
+  EXPECT_EQ(c.online.auto_activate, d.online.auto_activate);
+
+  std::ifstream in(example);
+  std::stringstream text;
+  text << in.rdbuf();
+  TrainConfig h;
+  ::testing::internal::CaptureStdout();
+  ASSERT_EQ(Parse({"--help"}, &h), 0);
+  std::stringstream help(::testing::internal::GetCapturedStdout());
+  int keys = 0;
+  for (std::string line; std::getline(help, line);) {
+    const size_t at = line.find("  --");
+    if (at == std::string::npos || line.find("--help") != std::string::npos ||
+        line.find("--config") != std::string::npos) {
+      continue;
+    }
+    std::string key;
+    for (size_t i = at + 4;
+         i < line.size() && (std::isalnum(static_cast<unsigned char>(line[i])) || line[i] == '-');
+         ++i) {
+      key += line[i] == '-' ? '_' : line[i];
+    }
+    ++keys;
+    EXPECT_NE(text.str().find("\n" + key + " = "), std::string::npos)
+        << key << " is not in " << example;
+  }
+  EXPECT_GE(keys, 35);
 }
 
 }  // namespace

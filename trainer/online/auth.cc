@@ -1,6 +1,7 @@
 #include "trainer/online/auth.h"
 
 #include <arpa/inet.h>
+#include <grpcpp/security/server_credentials.h>
 #include <sys/stat.h>
 
 #include <cctype>
@@ -8,8 +9,6 @@
 #include <cstring>
 #include <fstream>
 #include <sstream>
-
-#include <grpcpp/security/server_credentials.h>
 
 namespace plumb::online {
 namespace {
@@ -94,6 +93,16 @@ grpc::Status BearerAuth::Check(const grpc::ServerContext& context) const {
     return grpc::Status(grpc::StatusCode::UNAUTHENTICATED, "bearer token is not valid");
   }
   return grpc::Status::OK;
+}
+
+grpc::Status Admit(const CallAdmission& admission, const grpc::ServerContext& context,
+                   InflightCalls::Scope* scope) {
+  *scope = EnterCall(admission.inflight);
+  if (!scope->admitted()) {
+    return grpc::Status(grpc::StatusCode::UNAVAILABLE,
+                        "plumb-train is shutting down; nothing of this call was stored");
+  }
+  return admission.auth == nullptr ? grpc::Status::OK : admission.auth->Check(context);
 }
 
 bool IsLoopbackAddress(std::string_view address) {

@@ -3,15 +3,16 @@
 // endpoint without a token listens only on loopback unless the operator says otherwise.
 #pragma once
 
-#include <memory>
-#include <string>
-#include <string_view>
-
 #include <grpcpp/security/server_credentials.h>
 #include <grpcpp/server_context.h>
 #include <grpcpp/support/status.h>
 
+#include <memory>
+#include <string>
+#include <string_view>
+
 #include "core/status.h"
+#include "trainer/online/inflight_calls.h"
 
 namespace plumb::online {
 
@@ -38,10 +39,19 @@ class BearerAuth {
   std::string token_;
 };
 
-// Services call this first: OK when `auth` is null (no token configured).
-inline grpc::Status CheckCaller(const BearerAuth* auth, const grpc::ServerContext* context) {
-  return auth == nullptr ? grpc::Status::OK : auth->Check(*context);
-}
+// What every handler checks first: is plumb-train still taking calls, and does the
+// caller carry the token. Both pointers may be null (no token; calls not tracked) and must
+// otherwise outlive the services.
+struct CallAdmission {
+  const BearerAuth* auth = nullptr;
+  InflightCalls* inflight = nullptr;
+};
+
+// OK with `scope` holding the call's place among the running ones; otherwise the status
+// the handler returns at once: UNAVAILABLE while shutting down, UNAUTHENTICATED without
+// the right token.
+grpc::Status Admit(const CallAdmission& admission, const grpc::ServerContext& context,
+                   InflightCalls::Scope* scope);
 
 // True for listen addresses only reachable from this machine: 127.0.0.0/8, ::1,
 // "localhost", and unix-domain sockets ("unix:..."). False for wildcards (0.0.0.0, [::]),

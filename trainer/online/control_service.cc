@@ -12,10 +12,14 @@ namespace {
 
 plumb::v1::GateOutcome WireGate(store::GateOutcome gate) {
   switch (gate) {
-    case store::GateOutcome::kPassed: return plumb::v1::GATE_PASSED;
-    case store::GateOutcome::kFailed: return plumb::v1::GATE_FAILED;
-    case store::GateOutcome::kSkipped: return plumb::v1::GATE_SKIPPED;
-    case store::GateOutcome::kUnspecified: return plumb::v1::GATE_OUTCOME_UNSPECIFIED;
+    case store::GateOutcome::kPassed:
+      return plumb::v1::GATE_PASSED;
+    case store::GateOutcome::kFailed:
+      return plumb::v1::GATE_FAILED;
+    case store::GateOutcome::kSkipped:
+      return plumb::v1::GATE_SKIPPED;
+    case store::GateOutcome::kUnspecified:
+      return plumb::v1::GATE_OUTCOME_UNSPECIFIED;
   }
   return plumb::v1::GATE_OUTCOME_UNSPECIFIED;
 }
@@ -25,29 +29,36 @@ plumb::v1::GateOutcome WireGate(store::GateOutcome gate) {
 grpc::Status ToGrpcStatus(const Status& status, const std::string& what) {
   const std::string message = what + ": " + status.message();
   switch (status.code()) {
-    case Status::Code::kOk: return grpc::Status::OK;
-    case Status::Code::kNotFound: return grpc::Status(grpc::StatusCode::NOT_FOUND, message);
+    case Status::Code::kOk:
+      return grpc::Status::OK;
+    case Status::Code::kNotFound:
+      return grpc::Status(grpc::StatusCode::NOT_FOUND, message);
     case Status::Code::kFailedPrecondition:
       return grpc::Status(grpc::StatusCode::FAILED_PRECONDITION, message);
     case Status::Code::kInvalidArgument:
       return grpc::Status(grpc::StatusCode::INVALID_ARGUMENT, message);
     case Status::Code::kUnavailable:
-    case Status::Code::kIoError: return grpc::Status(grpc::StatusCode::UNAVAILABLE, message);
+    case Status::Code::kIoError:
+      return grpc::Status(grpc::StatusCode::UNAVAILABLE, message);
     case Status::Code::kResourceExhausted:
       return grpc::Status(grpc::StatusCode::RESOURCE_EXHAUSTED, message);
-    case Status::Code::kAborted: return grpc::Status(grpc::StatusCode::ABORTED, message);
-    case Status::Code::kCorruption: return grpc::Status(grpc::StatusCode::INTERNAL, message);
+    case Status::Code::kAborted:
+      return grpc::Status(grpc::StatusCode::ABORTED, message);
+    case Status::Code::kCorruption:
+      return grpc::Status(grpc::StatusCode::INTERNAL, message);
   }
   return grpc::Status(grpc::StatusCode::INTERNAL, message);
 }
 
-ControlService::ControlService(store::Store* store, OnlineLoop* loop, const BearerAuth* auth)
-    : store_(store), loop_(loop), auth_(auth) {}
+ControlService::ControlService(store::Store* store, OnlineLoop* loop,
+                               const CallAdmission& admission)
+    : store_(store), loop_(loop), admission_(admission) {}
 
 grpc::Status ControlService::ListVersions(grpc::ServerContext* context,
                                           const plumb::v1::ListVersionsRequest*,
                                           plumb::v1::ListVersionsResponse* response) {
-  if (grpc::Status s = CheckCaller(auth_, context); !s.ok()) return s;
+  InflightCalls::Scope scope;
+  if (grpc::Status s = Admit(admission_, *context, &scope); !s.ok()) return s;
   std::vector<store::VersionManifest> manifests;
   if (Status s = store_->ListVersions(&manifests); !s.ok()) {
     return ToGrpcStatus(s, "cannot list versions");
@@ -89,7 +100,8 @@ void ControlService::FillStatus(plumb::v1::TrainerStatus* out) const {
 grpc::Status ControlService::GetStatus(grpc::ServerContext* context,
                                        const plumb::v1::GetStatusRequest*,
                                        plumb::v1::TrainerStatus* response) {
-  if (grpc::Status s = CheckCaller(auth_, context); !s.ok()) return s;
+  InflightCalls::Scope scope;
+  if (grpc::Status s = Admit(admission_, *context, &scope); !s.ok()) return s;
   FillStatus(response);
   return grpc::Status::OK;
 }
@@ -97,7 +109,8 @@ grpc::Status ControlService::GetStatus(grpc::ServerContext* context,
 grpc::Status ControlService::Activate(grpc::ServerContext* context,
                                       const plumb::v1::ActivateRequest* request,
                                       plumb::v1::ActivateResponse* response) {
-  if (grpc::Status s = CheckCaller(auth_, context); !s.ok()) return s;
+  InflightCalls::Scope scope;
+  if (grpc::Status s = Admit(admission_, *context, &scope); !s.ok()) return s;
   if (request->version() == 0) {
     return grpc::Status(grpc::StatusCode::INVALID_ARGUMENT,
                         "version is 0; name a kept version (see ListVersions)");
@@ -114,7 +127,8 @@ grpc::Status ControlService::Activate(grpc::ServerContext* context,
 grpc::Status ControlService::SetAutoActivate(grpc::ServerContext* context,
                                              const plumb::v1::SetAutoActivateRequest* request,
                                              plumb::v1::TrainerStatus* response) {
-  if (grpc::Status s = CheckCaller(auth_, context); !s.ok()) return s;
+  InflightCalls::Scope scope;
+  if (grpc::Status s = Admit(admission_, *context, &scope); !s.ok()) return s;
   if (Status s = loop_->SetAutoActivate(request->enabled()); !s.ok()) {
     return ToGrpcStatus(s, "cannot change automatic activation");
   }

@@ -18,8 +18,8 @@ class OnlineLoop;
 
 class ControlService final : public plumb::v1::ModelControl::Service {
  public:
-  // `store` and `loop` must outlive the service; `auth` may be null (no token).
-  ControlService(store::Store* store, OnlineLoop* loop, const BearerAuth* auth);
+  // `store` and `loop` (and what `admission` points to) must outlive the service.
+  ControlService(store::Store* store, OnlineLoop* loop, const CallAdmission& admission);
 
   grpc::Status ListVersions(grpc::ServerContext* context,
                             const plumb::v1::ListVersionsRequest* request,
@@ -39,7 +39,7 @@ class ControlService final : public plumb::v1::ModelControl::Service {
 
   store::Store* const store_;
   OnlineLoop* const loop_;
-  const BearerAuth* const auth_;
+  const CallAdmission admission_;
 };
 
 // The gRPC status for a failed store or loop call: NotFound -> NOT_FOUND,

@@ -51,13 +51,20 @@ bool CheckId(std::string_view field, std::string_view value, RejectReason empty_
 
 std::string_view RejectReasonLabel(RejectReason reason) {
   switch (reason) {
-    case RejectReason::kEmptyUserId: return "empty_user_id";
-    case RejectReason::kEmptyItemId: return "empty_item_id";
-    case RejectReason::kIdTooLong: return "id_too_long";
-    case RejectReason::kBadId: return "bad_id";
-    case RejectReason::kBadWeight: return "bad_weight";
-    case RejectReason::kBadTimestamp: return "bad_timestamp";
-    case RejectReason::kBadEventId: return "bad_event_id";
+    case RejectReason::kEmptyUserId:
+      return "empty_user_id";
+    case RejectReason::kEmptyItemId:
+      return "empty_item_id";
+    case RejectReason::kIdTooLong:
+      return "id_too_long";
+    case RejectReason::kBadId:
+      return "bad_id";
+    case RejectReason::kBadWeight:
+      return "bad_weight";
+    case RejectReason::kBadTimestamp:
+      return "bad_timestamp";
+    case RejectReason::kBadEventId:
+      return "bad_event_id";
   }
   return "unknown";
 }

@@ -79,9 +79,8 @@ void GroupCommitter::Run() {
         });
       }
       size_t events = 0;
-      while (!queue_.empty() &&
-             (group.empty() ||
-              events + queue_.front().events.size() <= options_.max_group_events)) {
+      while (!queue_.empty() && (group.empty() || events + queue_.front().events.size() <=
+                                                      options_.max_group_events)) {
         events += queue_.front().events.size();
         group.push_back(std::move(queue_.front()));
         queue_.pop_front();
@@ -131,9 +130,9 @@ void GroupCommitter::CommitGroup(std::vector<Request>* group) {
       status = Status::Aborted(std::string("event log append threw: ") + e.what());
     }
     if (status.ok() && result.duplicate.size() != batch.size()) {
-      status = Status::Aborted("event log append reported " +
-                               std::to_string(result.duplicate.size()) + " outcomes for " +
-                               std::to_string(batch.size()) + " events");
+      status =
+          Status::Aborted("event log append reported " + std::to_string(result.duplicate.size()) +
+                          " outcomes for " + std::to_string(batch.size()) + " events");
     }
   } else {
     result.last_seq = log_->LastSequence();

@@ -33,8 +33,7 @@ class EventLog {
   // Same contract as store::Store::AppendEvents: one atomic, durable append of `events`
   // with de-duplication by event_id; on error nothing was appended. `result` gets one
   // duplicate flag per input.
-  virtual Status Append(std::span<const store::EventInput> events,
-                        store::AppendResult* result) = 0;
+  virtual Status Append(std::span<const store::EventInput> events, store::AppendResult* result) = 0;
   // Highest sequence number in the log, 0 when empty.
   virtual uint64_t LastSequence() const = 0;
 };

@@ -21,12 +21,18 @@ int64_t NowMs() {
 
 plumb::v1::RejectReason WireRejectReason(RejectReason reason) {
   switch (reason) {
-    case RejectReason::kEmptyUserId: return plumb::v1::REJECT_EMPTY_USER_ID;
-    case RejectReason::kEmptyItemId: return plumb::v1::REJECT_EMPTY_ITEM_ID;
-    case RejectReason::kIdTooLong: return plumb::v1::REJECT_ID_TOO_LONG;
-    case RejectReason::kBadWeight: return plumb::v1::REJECT_BAD_WEIGHT;
-    case RejectReason::kBadTimestamp: return plumb::v1::REJECT_BAD_TIMESTAMP;
-    case RejectReason::kBadEventId: return plumb::v1::REJECT_BAD_EVENT_ID;
+    case RejectReason::kEmptyUserId:
+      return plumb::v1::REJECT_EMPTY_USER_ID;
+    case RejectReason::kEmptyItemId:
+      return plumb::v1::REJECT_EMPTY_ITEM_ID;
+    case RejectReason::kIdTooLong:
+      return plumb::v1::REJECT_ID_TOO_LONG;
+    case RejectReason::kBadWeight:
+      return plumb::v1::REJECT_BAD_WEIGHT;
+    case RejectReason::kBadTimestamp:
+      return plumb::v1::REJECT_BAD_TIMESTAMP;
+    case RejectReason::kBadEventId:
+      return plumb::v1::REJECT_BAD_EVENT_ID;
     case RejectReason::kBadId:
       // ingest.proto has no value for an id with control characters; the detail says
       // what is wrong.
@@ -102,16 +108,14 @@ class IngestService::Call {
     if (!error_.ok()) return AppendErrorToGrpc(error_);
     summary_->set_accepted(accepted_);
     summary_->set_duplicates(duplicates_);
-    summary_->set_last_sequence(any_committed_ ? last_seq_
-                                               : service_.committer_->LastSequence());
+    summary_->set_last_sequence(any_committed_ ? last_seq_ : service_.committer_->LastSequence());
     return grpc::Status::OK;
   }
 
  private:
   void Reject(uint64_t index, const EventRejection& why, std::string event_id) {
     summary_->set_rejected(summary_->rejected() + 1);
-    if (static_cast<size_t>(summary_->rejections_size()) <
-        service_.limits_.max_listed_rejections) {
+    if (static_cast<size_t>(summary_->rejections_size()) < service_.limits_.max_listed_rejections) {
       plumb::v1::Rejection* r = summary_->add_rejections();
       r->set_index(index);
       r->set_reason(WireRejectReason(why.reason));
@@ -155,13 +159,14 @@ class IngestService::Call {
 };
 
 IngestService::IngestService(GroupCommitter* committer, TrainMetrics* metrics,
-                             const BearerAuth* auth, const IngestLimits& limits)
-    : committer_(committer), metrics_(metrics), auth_(auth), limits_(limits) {}
+                             const CallAdmission& admission, const IngestLimits& limits)
+    : committer_(committer), metrics_(metrics), admission_(admission), limits_(limits) {}
 
 grpc::Status IngestService::Publish(grpc::ServerContext* context,
                                     grpc::ServerReader<plumb::v1::InteractionEvent>* reader,
                                     plumb::v1::PublishSummary* summary) {
-  if (grpc::Status s = CheckCaller(auth_, context); !s.ok()) return s;
+  InflightCalls::Scope scope;
+  if (grpc::Status s = Admit(admission_, *context, &scope); !s.ok()) return s;
   Call call(*this, summary);
   plumb::v1::InteractionEvent wire;
   uint64_t index = 0;
@@ -182,7 +187,8 @@ grpc::Status IngestService::Publish(grpc::ServerContext* context,
 grpc::Status IngestService::PublishBatch(grpc::ServerContext* context,
                                          const plumb::v1::PublishBatchRequest* request,
                                          plumb::v1::PublishSummary* summary) {
-  if (grpc::Status s = CheckCaller(auth_, context); !s.ok()) return s;
+  InflightCalls::Scope scope;
+  if (grpc::Status s = Admit(admission_, *context, &scope); !s.ok()) return s;
   const size_t n = static_cast<size_t>(request->events_size());
   if (n > limits_.max_batch_events) {
     return grpc::Status(grpc::StatusCode::INVALID_ARGUMENT,

@@ -38,9 +38,9 @@ grpc::Status AppendErrorToGrpc(const Status& status);
 
 class IngestService final : public plumb::v1::EventIngest::Service {
  public:
-  // `committer` and `metrics` must outlive the service; `auth` may be null (no token) and
-  // must outlive it otherwise.
-  IngestService(GroupCommitter* committer, TrainMetrics* metrics, const BearerAuth* auth,
+  // `committer` and `metrics` must outlive the service (and so must what `admission`
+  // points to).
+  IngestService(GroupCommitter* committer, TrainMetrics* metrics, const CallAdmission& admission,
                 const IngestLimits& limits = IngestLimits());
 
   grpc::Status Publish(grpc::ServerContext* context,
@@ -56,7 +56,7 @@ class IngestService final : public plumb::v1::EventIngest::Service {
 
   GroupCommitter* const committer_;
   TrainMetrics* const metrics_;
-  const BearerAuth* const auth_;
+  const CallAdmission admission_;
   const IngestLimits limits_;
 };
 

@@ -3,30 +3,33 @@
 // (plumb.v1.ModelControl) and Prometheus metrics. SIGTERM/SIGINT: stop accepting, let calls
 // in flight finish (up to shutdown_grace_seconds), write what is queued, stop the loop
 // (it publishes nothing half-done), close the store, exit 0.
+#include <grpc/grpc.h>
+#include <grpcpp/ext/proto_server_reflection_plugin.h>
+#include <grpcpp/health_check_service_interface.h>
+#include <grpcpp/server.h>
+#include <grpcpp/server_builder.h>
+#include <prometheus/exposer.h>
+#include <prometheus/registry.h>
 #include <pthread.h>
 #include <signal.h>
+#include <spdlog/sinks/stdout_color_sinks.h>
+#include <spdlog/spdlog.h>
 
 #include <chrono>
 #include <cmath>
 #include <condition_variable>
 #include <cstdio>
 #include <cstring>
+#include <filesystem>
 #include <memory>
 #include <mutex>
 #include <thread>
-
-#include <grpcpp/ext/proto_server_reflection_plugin.h>
-#include <grpcpp/health_check_service_interface.h>
-#include <grpcpp/server.h>
-#include <grpcpp/server_builder.h>
-#include <prometheus/exposer.h>
-#include <spdlog/sinks/stdout_color_sinks.h>
-#include <spdlog/spdlog.h>
 
 #include "store/store.h"
 #include "trainer/online/auth.h"
 #include "trainer/online/control_service.h"
 #include "trainer/online/group_commit.h"
+#include "trainer/online/inflight_calls.h"
 #include "trainer/online/ingest_service.h"
 #include "trainer/online/online_loop.h"
 #include "trainer/online/train_config.h"
@@ -127,12 +130,18 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
     spdlog::critical("{}", s.message());
     return 2;
   }
+  std::error_code mkdir_error;
+  std::filesystem::create_directories(std::filesystem::path(config.db).parent_path(),
+                                      mkdir_error);  // the store creates the last level
   std::unique_ptr<plumb::store::Store> store;
   if (Status s = plumb::store::Store::OpenPrimary(config.db, store_options, &store); !s.ok()) {
-    spdlog::critical(
-        "cannot open the store at {} as the primary: {} (only one plumb-train or plumb "
-        "command may write a store at a time)",
-        config.db, s.ToString());
+    // RocksDB words a held directory as "While lock file: .../LOCK: Resource temporarily
+    // unavailable".
+    const bool held = s.message().find("lock") != std::string::npos;
+    spdlog::critical("cannot open the store at {} as the primary: {}{}", config.db, s.ToString(),
+                     held ? " (another plumb-train or plumb command is writing it; only one "
+                            "process may)"
+                          : "");
     return 1;
   }
   std::unique_ptr<OnlineLoop> loop;
@@ -145,14 +154,16 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
   // ---- ingest and control -----------------------------------------------------------
   StoreEventLog event_log(store.get());
   GroupCommitOptions commit_options;
-  commit_options.window =
-      std::chrono::microseconds(std::llround(config.commit_window_ms * 1000.0));
+  commit_options.window = std::chrono::microseconds(std::llround(config.commit_window_ms * 1000.0));
   commit_options.max_group_events = config.max_group_events;
-  GroupCommitter committer(&event_log, [&loop] { loop->NotifyAppended(); }, commit_options);
+  GroupCommitter committer(
+      &event_log, [&loop] { loop->NotifyAppended(); }, commit_options);
   IngestLimits limits;
   limits.max_batch_events = config.max_batch_events;
-  IngestService ingest(&committer, &metrics, auth.get(), limits);
-  ControlService control(store.get(), loop.get(), auth.get());
+  InflightCalls inflight;
+  const CallAdmission admission{auth.get(), &inflight};
+  IngestService ingest(&committer, &metrics, admission, limits);
+  ControlService control(store.get(), loop.get(), admission);
 
   grpc::EnableDefaultHealthCheckService(true);
   grpc::reflection::InitProtoReflectionServerBuilderPlugin();
@@ -189,9 +200,17 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
   // Stop accepting; calls in flight get the grace period, then are cancelled. Handlers
   // waiting for the committer still get their answer: it keeps writing until Close().
   server->GetHealthCheckService()->SetServingStatus(false);
-  server->Shutdown(std::chrono::system_clock::now() +
-                   std::chrono::milliseconds(
-                       std::llround(config.shutdown_grace_seconds * 1000.0)));
+  const auto grace = std::chrono::milliseconds(std::llround(config.shutdown_grace_seconds * 1e3));
+  std::thread stopper([&] { server->Shutdown(std::chrono::system_clock::now() + grace); });
+  // Shutdown() returns only once every client connection is gone; idle clients keep theirs
+  // until the deadline. So as soon as no handler of ours runs (and new ones are refused),
+  // close the connections, as Shutdown() itself would at the deadline.
+  if (!inflight.CloseAndWait(std::chrono::steady_clock::now() + grace)) {
+    spdlog::warn("{} calls still running after the grace period; cancelling them",
+                 inflight.running());
+  }
+  grpc_server_cancel_all_calls(server->c_server());
+  stopper.join();
   server->Wait();
   committer.Close();
   loop->Stop();

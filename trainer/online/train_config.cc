@@ -1,14 +1,14 @@
 #include "trainer/online/train_config.h"
 
+#include <toml++/toml.h>
+
+#include <CLI/CLI.hpp>
 #include <charconv>
 #include <cstdio>
 #include <functional>
 #include <limits>
 #include <type_traits>
 #include <vector>
-
-#include <CLI/CLI.hpp>
-#include <toml++/toml.h>
 
 namespace plumb::online {
 namespace {
@@ -59,8 +59,8 @@ std::string AssignFromToml(const toml::node& node, T* field) {
 }
 
 template <typename T>
-void Bind(CLI::App& app, std::vector<Key>* keys, const std::string& group,
-          const std::string& name, T* field, const std::string& help) {
+void Bind(CLI::App& app, std::vector<Key>* keys, const std::string& group, const std::string& name,
+          T* field, const std::string& help) {
   CLI::Option* option;
   if constexpr (std::is_same_v<T, bool>) {
     const std::string flag = FlagName(name);
@@ -70,9 +70,8 @@ void Bind(CLI::App& app, std::vector<Key>* keys, const std::string& group,
     option = app.add_option(FlagName(name), *field, help)->capture_default_str();
   }
   option->group(group);
-  keys->push_back({name, option, [field](const toml::node& node) {
-                     return AssignFromToml(node, field);
-                   }});
+  keys->push_back(
+      {name, option, [field](const toml::node& node) { return AssignFromToml(node, field); }});
 }
 
 bool OneOf(const std::string& value, std::initializer_list<const char*> allowed) {

@@ -1,11 +1,11 @@
 #include "trainer/online/train_metrics.h"
 
-#include <algorithm>
-
 #include <prometheus/counter.h>
 #include <prometheus/family.h>
 #include <prometheus/gauge.h>
 #include <prometheus/registry.h>
+
+#include <algorithm>
 
 namespace plumb::online {
 
@@ -28,8 +28,9 @@ TrainMetrics::TrainMetrics() : registry_(std::make_shared<prometheus::Registry>(
                            .Add({});
   duplicates_.counter = &BuildCounter()
                              .Name("plumb_events_duplicate_total")
-                             .Help("Events not appended because their event_id was already "
-                                   "accepted (acknowledged as duplicates)")
+                             .Help(
+                                 "Events not appended because their event_id was already "
+                                 "accepted (acknowledged as duplicates)")
                              .Register(r)
                              .Add({});
   auto& rejected = BuildCounter()
@@ -121,9 +122,8 @@ void TrainMetrics::Refresh(const CommitterStats& committer, const OnlineStatus* 
   loss_->Set(loop->last_loss);
 
   const uint64_t last = std::max(loop->last_sequence, committer.last_seq);
-  lag_events_->Set(last > loop->trained_sequence
-                       ? static_cast<double>(last - loop->trained_sequence)
-                       : 0.0);
+  lag_events_->Set(
+      last > loop->trained_sequence ? static_cast<double>(last - loop->trained_sequence) : 0.0);
   lag_seconds_->Set(loop->oldest_untrained_received_ms > 0 &&
                             now_ms > loop->oldest_untrained_received_ms
                         ? (now_ms - loop->oldest_untrained_received_ms) / 1000.0

@@ -1,0 +1,236 @@
+// ModelControl over a real store and a running OnlineLoop, in process.
+#include "trainer/online/control_service.h"
+
+#include <grpcpp/grpcpp.h>
+#include <gtest/gtest.h>
+
+#include <chrono>
+#include <thread>
+
+#include "store/store.h"
+#include "tests/online/names.h"
+#include "tests/online/scratch_dir.h"
+#include "trainer/online/group_commit.h"
+#include "trainer/online/ingest_service.h"
+#include "trainer/online/online_loop.h"
+
+namespace plumb::online {
+namespace {
+
+using testing::Name;
+using testing::ScratchDir;
+
+// The tool-lending scenario: members in four neighbourhoods, each borrowing mostly the
+// tools its own tool shed holds.
+plumb::v1::PublishBatchRequest Loans(uint64_t first, uint64_t count) {
+  plumb::v1::PublishBatchRequest request;
+  for (uint64_t i = first; i < first + count; ++i) {
+    const uint64_t h = (i * 2654435761u) & 0xffffffffu;  // Knuth's multiplicative hash
+    const uint64_t member = i % 240, shed = member % 4;
+    const uint64_t tool = shed * 20 + (h >> 12) % 20;
+    plumb::v1::InteractionEvent* e = request.add_events();
+    e->set_user_id(Name("member-", member));
+    e->set_item_id(Name("tool-", tool));
+    e->set_event_id(Name("loan-", i));
+  }
+  return request;
+}
+
+class ControlServiceTest : public ::testing::Test {
+ protected:
+  void SetUp() override {
+    ASSERT_TRUE(store::Store::OpenPrimary(dir_.Sub("db"), store::StoreOptions(), &store_).ok());
+    OnlineOptions options;
+    options.dim = 8;
+    options.min_train_pairs = 50;
+    options.publish_every_events = 1'000'000'000;  // publish only when asked
+    options.publish_every_seconds = 1e6;
+    ASSERT_TRUE(OnlineLoop::Create(store_.get(), options, &loop_).ok());
+    loop_->Start();
+    log_ = std::make_unique<StoreEventLog>(store_.get());
+    committer_ = std::make_unique<GroupCommitter>(
+        log_.get(), [this] { loop_->NotifyAppended(); }, GroupCommitOptions());
+    admission_ = CallAdmission{auth_.get(), &inflight_};
+    ingest_ = std::make_unique<IngestService>(committer_.get(), &metrics_, admission_);
+    control_ = std::make_unique<ControlService>(store_.get(), loop_.get(), admission_);
+    grpc::ServerBuilder builder;
+    int port = 0;
+    builder.AddListeningPort("127.0.0.1:0", grpc::InsecureServerCredentials(), &port);
+    builder.RegisterService(ingest_.get());
+    builder.RegisterService(control_.get());
+    server_ = builder.BuildAndStart();
+    ASSERT_NE(server_, nullptr);
+    auto channel =
+        grpc::CreateChannel(Name("127.0.0.1:", port), grpc::InsecureChannelCredentials());
+    ingest_stub_ = plumb::v1::EventIngest::NewStub(channel);
+    control_stub_ = plumb::v1::ModelControl::NewStub(channel);
+  }
+  void TearDown() override {
+    if (server_) server_->Shutdown();
+    if (committer_) committer_->Close();
+    if (loop_) loop_->Stop();
+  }
+
+  void Publish(uint64_t first, uint64_t count) {
+    grpc::ClientContext context;
+    plumb::v1::PublishSummary summary;
+    ASSERT_TRUE(ingest_stub_->PublishBatch(&context, Loans(first, count), &summary).ok());
+    ASSERT_EQ(summary.accepted(), count);
+  }
+
+  plumb::v1::TrainerStatus Status() {
+    grpc::ClientContext context;
+    plumb::v1::TrainerStatus status;
+    EXPECT_TRUE(control_stub_->GetStatus(&context, plumb::v1::GetStatusRequest(), &status).ok());
+    return status;
+  }
+
+  plumb::v1::ListVersionsResponse Versions() {
+    grpc::ClientContext context;
+    plumb::v1::ListVersionsResponse response;
+    EXPECT_TRUE(
+        control_stub_->ListVersions(&context, plumb::v1::ListVersionsRequest(), &response).ok());
+    return response;
+  }
+
+  // Asks the loop for a version and waits until `count` versions are kept.
+  bool WaitForVersions(int count) {
+    loop_->RequestPublish();
+    const auto until = std::chrono::steady_clock::now() + std::chrono::seconds(30);
+    while (std::chrono::steady_clock::now() < until) {
+      if (Versions().versions_size() >= count) return true;
+      std::this_thread::sleep_for(std::chrono::milliseconds(20));
+    }
+    return false;
+  }
+
+  grpc::Status Activate(uint64_t version, plumb::v1::ActivateResponse* response) {
+    grpc::ClientContext context;
+    plumb::v1::ActivateRequest request;
+    request.set_version(version);
+    return control_stub_->Activate(&context, request, response);
+  }
+
+  ScratchDir dir_;
+  std::unique_ptr<BearerAuth> auth_;
+  std::unique_ptr<store::Store> store_;
+  std::unique_ptr<OnlineLoop> loop_;
+  std::unique_ptr<StoreEventLog> log_;
+  std::unique_ptr<GroupCommitter> committer_;
+  TrainMetrics metrics_;
+  InflightCalls inflight_;
+  CallAdmission admission_;
+  std::unique_ptr<IngestService> ingest_;
+  std::unique_ptr<ControlService> control_;
+  std::unique_ptr<grpc::Server> server_;
+  std::unique_ptr<plumb::v1::EventIngest::Stub> ingest_stub_;
+  std::unique_ptr<plumb::v1::ModelControl::Stub> control_stub_;
+};
+
+TEST_F(ControlServiceTest, StatusVersionsPromotionAndRollback) {
+  plumb::v1::TrainerStatus status = Status();
+  EXPECT_EQ(status.active_version(), 0u);
+  EXPECT_EQ(status.last_sequence(), 0u);
+  EXPECT_EQ(status.objective(), "cpr");
+  EXPECT_TRUE(status.auto_activate());
+  EXPECT_EQ(Versions().versions_size(), 0);
+
+  plumb::v1::ActivateResponse activated;
+  EXPECT_EQ(Activate(0, &activated).error_code(), grpc::StatusCode::INVALID_ARGUMENT);
+  EXPECT_EQ(Activate(99, &activated).error_code(), grpc::StatusCode::NOT_FOUND);
+
+  // First version: activated automatically.
+  Publish(0, 3'000);
+  ASSERT_TRUE(WaitForVersions(1));
+  status = Status();
+  EXPECT_EQ(status.last_sequence(), 3'000u);
+  const uint64_t v1 = Versions().versions(0).version();
+  EXPECT_EQ(status.active_version(), v1);
+  EXPECT_EQ(status.num_users(), 240u);
+  EXPECT_EQ(status.num_items(), 80u);
+
+  // Automatic activation off: the next version is kept but not activated.
+  {
+    grpc::ClientContext context;
+    plumb::v1::SetAutoActivateRequest request;
+    request.set_enabled(false);
+    plumb::v1::TrainerStatus after;
+    ASSERT_TRUE(control_stub_->SetAutoActivate(&context, request, &after).ok());
+    EXPECT_FALSE(after.auto_activate());
+  }
+  Publish(3'000, 2'000);
+  ASSERT_TRUE(WaitForVersions(2));
+  plumb::v1::ListVersionsResponse versions = Versions();
+  ASSERT_EQ(versions.versions_size(), 2);
+  const plumb::v1::VersionInfo& newest = versions.versions(0);  // newest first
+  const plumb::v1::VersionInfo& oldest = versions.versions(1);
+  EXPECT_GT(newest.version(), oldest.version());
+  EXPECT_EQ(oldest.version(), v1);
+  EXPECT_FALSE(newest.active());
+  EXPECT_TRUE(oldest.active());
+  EXPECT_EQ(newest.objective(), "cpr");
+  EXPECT_EQ(newest.dim(), 8u);
+  EXPECT_EQ(newest.num_items(), 80u);
+  EXPECT_GT(newest.events_seen(), oldest.events_seen());
+  EXPECT_GT(newest.created_ms(), 0);
+  EXPECT_NE(newest.gate(), plumb::v1::GATE_OUTCOME_UNSPECIFIED);
+  EXPECT_EQ(Status().active_version(), v1);
+
+  // A human promotes it, then rolls back.
+  ASSERT_TRUE(Activate(newest.version(), &activated).ok());
+  EXPECT_EQ(activated.active_version(), newest.version());
+  EXPECT_EQ(activated.previous_version(), v1);
+  EXPECT_EQ(Status().active_version(), newest.version());
+  EXPECT_TRUE(Versions().versions(0).active());
+  ASSERT_TRUE(Activate(v1, &activated).ok());
+  EXPECT_EQ(activated.previous_version(), newest.version());
+  EXPECT_EQ(Status().active_version(), v1);
+  EXPECT_FALSE(Status().auto_activate());
+}
+
+class ControlServiceWithTokenTest : public ControlServiceTest {
+ protected:
+  void SetUp() override {
+    auth_ = std::make_unique<BearerAuth>("shed-key-42");
+    ControlServiceTest::SetUp();
+  }
+};
+
+TEST_F(ControlServiceWithTokenTest, EveryControlCallNeedsTheToken) {
+  plumb::v1::TrainerStatus status;
+  plumb::v1::ListVersionsResponse versions;
+  plumb::v1::ActivateResponse activated;
+  plumb::v1::ActivateRequest activate;
+  activate.set_version(1);
+  plumb::v1::SetAutoActivateRequest set_auto;
+  {
+    grpc::ClientContext c;
+    EXPECT_EQ(control_stub_->GetStatus(&c, {}, &status).error_code(),
+              grpc::StatusCode::UNAUTHENTICATED);
+  }
+  {
+    grpc::ClientContext c;
+    EXPECT_EQ(control_stub_->ListVersions(&c, {}, &versions).error_code(),
+              grpc::StatusCode::UNAUTHENTICATED);
+  }
+  {
+    grpc::ClientContext c;
+    c.AddMetadata("authorization", "Bearer wrong");
+    EXPECT_EQ(control_stub_->Activate(&c, activate, &activated).error_code(),
+              grpc::StatusCode::UNAUTHENTICATED);
+  }
+  {
+    grpc::ClientContext c;
+    EXPECT_EQ(control_stub_->SetAutoActivate(&c, set_auto, &status).error_code(),
+              grpc::StatusCode::UNAUTHENTICATED);
+    EXPECT_TRUE(loop_->status().auto_activate);  // unchanged
+  }
+  {
+    grpc::ClientContext c;
+    c.AddMetadata("authorization", "Bearer shed-key-42");
+    EXPECT_TRUE(control_stub_->GetStatus(&c, {}, &status).ok());
+  }
+}
+
+}  // namespace
+}  // namespace plumb::online

@@ -3,7 +3,9 @@
 #include <gtest/gtest.h>
 #include <sys/stat.h>
 
+#include <cstdlib>
 #include <fstream>
+#include <sstream>
 #include <thread>
 
 #include "tests/online/ingest_server.h"
@@ -142,6 +144,58 @@ TEST(CallAdmission, CallsDuringShutdownAreUnavailableAndStoreNothing) {
           .error_code(),
       grpc::StatusCode::UNAVAILABLE);
   EXPECT_TRUE(log.events().empty());
+}
+
+// TLS end to end: a self-signed certificate made with the openssl command line tool.
+TEST(ServerCredentials, TlsWithTokenEndToEnd) {
+  ScratchDir dir;
+  const std::string cert = dir.Sub("cert.pem"), key = dir.Sub("key.pem");
+  const std::string make_cert =
+      "openssl req -x509 -newkey rsa:2048 -nodes -days 1 -subj /CN=localhost "
+      "-addext subjectAltName=DNS:localhost -keyout " +
+      key + " -out " + cert + " >/dev/null 2>&1";
+  if (std::system(make_cert.c_str()) != 0) GTEST_SKIP() << "openssl could not make a certificate";
+
+  std::shared_ptr<grpc::ServerCredentials> server_creds;
+  ASSERT_TRUE(MakeServerCredentials(cert, key, &server_creds).ok());
+  MemoryEventLog log;
+  TrainMetrics metrics;
+  GroupCommitter committer(&log, nullptr, GroupCommitOptions());
+  BearerAuth auth("tls-and-token");
+  IngestService service(&committer, &metrics, CallAdmission{&auth, nullptr});
+  grpc::ServerBuilder builder;
+  int port = 0;
+  builder.AddListeningPort("127.0.0.1:0", server_creds, &port);
+  builder.RegisterService(&service);
+  std::unique_ptr<grpc::Server> server = builder.BuildAndStart();
+  ASSERT_NE(server, nullptr);
+
+  std::ifstream in(cert);
+  std::stringstream pem;
+  pem << in.rdbuf();
+  grpc::SslCredentialsOptions ssl;
+  ssl.pem_root_certs = pem.str();
+  grpc::ChannelArguments args;
+  args.SetSslTargetNameOverride("localhost");
+  const std::string target = testing::Name("127.0.0.1:", port);
+  auto tls_stub = plumb::v1::EventIngest::NewStub(
+      grpc::CreateCustomChannel(target, grpc::SslCredentials(ssl), args));
+  auto plain_stub = plumb::v1::EventIngest::NewStub(
+      grpc::CreateChannel(target, grpc::InsecureChannelCredentials()));
+
+  const std::vector<plumb::v1::InteractionEvent> events = {WireEvent("m", "tile-cutter")};
+  plumb::v1::PublishSummary summary;
+  grpc::Status status = Stream(tls_stub.get(), events, &summary, "tls-and-token");
+  ASSERT_TRUE(status.ok()) << status.error_message();
+  EXPECT_EQ(summary.accepted(), 1u);
+  EXPECT_EQ(Stream(tls_stub.get(), events, &summary).error_code(),
+            grpc::StatusCode::UNAUTHENTICATED);
+  // A plain-text client cannot talk to the TLS endpoint at all.
+  EXPECT_NE(Stream(plain_stub.get(), events, &summary, "tls-and-token").error_code(),
+            grpc::StatusCode::OK);
+  EXPECT_EQ(log.size(), 1u);
+  server->Shutdown();
+  committer.Close();
 }
 
 }  // namespace

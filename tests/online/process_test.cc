@@ -1,5 +1,6 @@
 // plumb-train as a real process: SIGKILL at random moments while a client streams events,
 // restart, resend what was not acknowledged; clean SIGTERM shutdown; refusals at start.
+#include <grpcpp/generic/generic_stub.h>
 #include <grpcpp/grpcpp.h>
 #include <gtest/gtest.h>
 
@@ -7,6 +8,7 @@
 #include <chrono>
 #include <cstdlib>
 #include <filesystem>
+#include <future>
 #include <map>
 #include <random>
 #include <string>
@@ -71,6 +73,30 @@ grpc::Status PublishLoans(plumb::v1::EventIngest::Stub* stub, uint64_t first, ui
   }
   writer->WritesDone();
   return writer->Finish();
+}
+
+// The standard health check (grpc.health.v1.Health/Check for the whole server), spoken as
+// raw bytes: an empty HealthCheckRequest, and a response whose field 1 is the status
+// (SERVING = 1, so the bytes 08 01), per grpc/health/v1/health.proto.
+std::string HealthCheck(const std::shared_ptr<grpc::Channel>& channel) {
+  grpc::GenericStub stub(channel);
+  grpc::ClientContext context;
+  context.set_deadline(std::chrono::system_clock::now() + std::chrono::seconds(5));
+  grpc::ByteBuffer request, response;
+  grpc::Slice empty("", 0);
+  request = grpc::ByteBuffer(&empty, 1);
+  std::promise<grpc::Status> done;
+  stub.UnaryCall(&context, "/grpc.health.v1.Health/Check", grpc::StubOptions(), &request, &response,
+                 [&](grpc::Status s) { done.set_value(s); });
+  grpc::Status status = done.get_future().get();
+  if (!status.ok()) return "error: " + status.error_message();
+  std::vector<grpc::Slice> slices;
+  (void)response.Dump(&slices);
+  std::string bytes;
+  for (const grpc::Slice& slice : slices) {
+    bytes.append(reinterpret_cast<const char*>(slice.begin()), slice.size());
+  }
+  return bytes;
 }
 
 Status ReadWholeLog(const std::string& db, std::vector<store::Event>* out, uint64_t* active_version,
@@ -256,6 +282,8 @@ TEST(PlumbTrainProcess, SigtermShutsDownCleanlyAndASecondWriterIsRefused) {
   ASSERT_TRUE(control->GetStatus(&context, plumb::v1::GetStatusRequest(), &trainer).ok());
   EXPECT_EQ(trainer.last_sequence(), 2'000u);
   EXPECT_EQ(trainer.objective(), "cpr");
+
+  EXPECT_EQ(HealthCheck(channel), std::string("\x08\x01", 2));  // SERVING
 
   // A second plumb-train on the same store is refused with a clear message.
   const std::string log2 = dir.Sub("second.log");

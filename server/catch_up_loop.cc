@@ -64,7 +64,9 @@ Status CatchUpLoop::RunOnce() {
   return Status::Ok();
 }
 
-void CatchUpLoop::Start() { thread_ = std::thread([this] { Run(); }); }
+void CatchUpLoop::Start() {
+  thread_ = std::thread([this] { Run(); });
+}
 
 void CatchUpLoop::Stop() {
   {

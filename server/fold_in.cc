@@ -35,9 +35,8 @@ Status item_gram(MatrixView items, std::span<double> gram) {
   return Status::Ok();
 }
 
-Status fold_in_user(MatrixView items, std::span<const double> gram,
-                    std::span<const uint32_t> rows, const FoldInOptions& options,
-                    std::span<float> user) {
+Status fold_in_user(MatrixView items, std::span<const double> gram, std::span<const uint32_t> rows,
+                    const FoldInOptions& options, std::span<float> user) {
   const size_t d = items.dim;
   if (rows.empty()) return Status::InvalidArgument("fold-in needs at least one item");
   if (gram.size() != d * d || user.size() != d) {
@@ -69,7 +68,8 @@ Status fold_in_user(MatrixView items, std::span<const double> gram,
   b = llt.solve(b);
   for (size_t k = 0; k < d; ++k) {
     user[k] = static_cast<float>(b[k]);
-    if (!std::isfinite(user[k])) return Status::FailedPrecondition("fold-in gave a non-finite vector");
+    if (!std::isfinite(user[k]))
+      return Status::FailedPrecondition("fold-in gave a non-finite vector");
   }
   return Status::Ok();
 }

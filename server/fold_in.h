@@ -43,8 +43,7 @@ Status item_gram(MatrixView items, std::span<double> gram);
 // Errors: InvalidArgument for empty rows, a row out of range or mismatched sizes;
 // FailedPrecondition if the system is not positive definite (cannot happen with l2 > 0
 // and finite items).
-Status fold_in_user(MatrixView items, std::span<const double> gram,
-                    std::span<const uint32_t> rows, const FoldInOptions& options,
-                    std::span<float> user);
+Status fold_in_user(MatrixView items, std::span<const double> gram, std::span<const uint32_t> rows,
+                    const FoldInOptions& options, std::span<float> user);
 
 }  // namespace plumb::server

@@ -30,7 +30,9 @@ class IdMap {
   static Status Build(const std::vector<std::string>& ids, IdMap* out);
 
   // Number of ids.
-  uint32_t size() const { return static_cast<uint32_t>(offsets_.empty() ? 0 : offsets_.size() - 1); }
+  uint32_t size() const {
+    return static_cast<uint32_t>(offsets_.empty() ? 0 : offsets_.size() - 1);
+  }
 
   // The index of `id`, or nullopt when the map does not hold it. Thread-safe.
   std::optional<uint32_t> Find(std::string_view id) const;
@@ -48,7 +50,7 @@ class IdMap {
   }
 
  private:
-  std::vector<char> chars_;       // all ids, concatenated
+  std::vector<char> chars_;        // all ids, concatenated
   std::vector<uint64_t> offsets_;  // id i is chars_[offsets_[i], offsets_[i+1])
   std::vector<uint32_t> slots_;    // index + 1, or 0 for an empty slot; size is a power of 2
 };

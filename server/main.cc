@@ -1,7 +1,10 @@
 // plumb-serve: the ranking endpoint. Follows the trainer's store as a RocksDB secondary,
 // serves plumb.v1.Ranker from the active version, hot-swaps new versions, exports
 // Prometheus metrics. See serve_config.h for the settings.
+#include <prometheus/exposer.h>
 #include <signal.h>
+#include <spdlog/sinks/stdout_color_sinks.h>
+#include <spdlog/spdlog.h>
 #include <stdlib.h>
 
 #include <atomic>
@@ -9,10 +12,6 @@
 #include <filesystem>
 #include <iostream>
 #include <memory>
-
-#include <prometheus/exposer.h>
-#include <spdlog/sinks/stdout_color_sinks.h>
-#include <spdlog/spdlog.h>
 
 #include "server/catch_up_loop.h"
 #include "server/exposure_sink.h"
@@ -87,9 +86,10 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   // even if no trainer runs.
   s = loop.RunOnce();
   if (holder.Get() == nullptr) {
-    spdlog::warn("no loadable active version in '{}' yet{}; answering UNAVAILABLE until one "
-                 "appears",
-                 config.db, s.ok() ? "" : " (" + s.ToString() + ")");
+    spdlog::warn(
+        "no loadable active version in '{}' yet{}; answering UNAVAILABLE until one "
+        "appears",
+        config.db, s.ok() ? "" : " (" + s.ToString() + ")");
   }
 
   auto metrics = std::make_shared<ServingMetrics>(&holder, &loop, &exposure);
@@ -117,8 +117,7 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   server->SetServing(holder.Get() != nullptr);
   loop.Start();
   spdlog::info("plumb-serve listening on port {} ({}{}), metrics on {}", server->port(),
-               config.endpoint.listen,
-               config.endpoint.tls_cert_file.empty() ? "" : ", TLS",
+               config.endpoint.listen, config.endpoint.tls_cert_file.empty() ? "" : ", TLS",
                config.metrics.empty() ? "none" : config.metrics);
 
   int signal_number = 0;

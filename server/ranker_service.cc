@@ -29,8 +29,8 @@ std::string CheckId(std::string_view field, const std::string& id, uint32_t max_
 std::string CheckIdList(std::string_view field, const RepeatedPtrField<std::string>& ids,
                         uint32_t max_entries, uint32_t max_bytes) {
   if (static_cast<size_t>(ids.size()) > max_entries) {
-    return std::string(field) + " has " + std::to_string(ids.size()) +
-           " entries; the limit is " + std::to_string(max_entries);
+    return std::string(field) + " has " + std::to_string(ids.size()) + " entries; the limit is " +
+           std::to_string(max_entries);
   }
   for (int j = 0; j < ids.size(); ++j) {
     std::string error =
@@ -73,14 +73,28 @@ grpc::Status ToGrpc(const Status& s) {
   using C = Status::Code;
   grpc::StatusCode code = grpc::StatusCode::INTERNAL;
   switch (s.code()) {
-    case C::kOk: return grpc::Status::OK;
-    case C::kNotFound: code = grpc::StatusCode::NOT_FOUND; break;
-    case C::kInvalidArgument: code = grpc::StatusCode::INVALID_ARGUMENT; break;
-    case C::kAborted: code = grpc::StatusCode::DEADLINE_EXCEEDED; break;
-    case C::kFailedPrecondition: code = grpc::StatusCode::FAILED_PRECONDITION; break;
-    case C::kUnavailable: code = grpc::StatusCode::UNAVAILABLE; break;
-    case C::kResourceExhausted: code = grpc::StatusCode::RESOURCE_EXHAUSTED; break;
-    default: break;
+    case C::kOk:
+      return grpc::Status::OK;
+    case C::kNotFound:
+      code = grpc::StatusCode::NOT_FOUND;
+      break;
+    case C::kInvalidArgument:
+      code = grpc::StatusCode::INVALID_ARGUMENT;
+      break;
+    case C::kAborted:
+      code = grpc::StatusCode::DEADLINE_EXCEEDED;
+      break;
+    case C::kFailedPrecondition:
+      code = grpc::StatusCode::FAILED_PRECONDITION;
+      break;
+    case C::kUnavailable:
+      code = grpc::StatusCode::UNAVAILABLE;
+      break;
+    case C::kResourceExhausted:
+      code = grpc::StatusCode::RESOURCE_EXHAUSTED;
+      break;
+    default:
+      break;
   }
   return grpc::Status(code, s.message());
 }
@@ -98,8 +112,7 @@ void AddItems(const Snapshot& snap, std::span<const ScoredIndex> items, Response
 }  // namespace
 
 RankerService::RankerService(const SnapshotHolder* holder, const Scorer* scorer,
-                             RankerLimits limits, ExposureSink* exposure,
-                             ServingMetrics* metrics)
+                             RankerLimits limits, ExposureSink* exposure, ServingMetrics* metrics)
     : holder_(holder), scorer_(scorer), limits_(limits), exposure_(exposure), metrics_(metrics) {}
 
 void RankerService::Finish(RankerMethod method, const grpc::Status& status,
@@ -110,8 +123,7 @@ void RankerService::Finish(RankerMethod method, const grpc::Status& status,
   metrics_->ObserveRequest(method, status.error_code(), seconds);
 }
 
-void RankerService::RecordExposure(const Snapshot& snap,
-                                   std::span<const ScoredIndex> items) const {
+void RankerService::RecordExposure(const Snapshot& snap, std::span<const ScoredIndex> items) const {
   if (exposure_ == nullptr) return;
   thread_local std::vector<uint32_t> indexes;
   indexes.clear();
@@ -127,8 +139,8 @@ grpc::Status RankerService::Recommend(grpc::ServerContext* context,
     std::string error = CheckId("user_id", request->user_id(), limits_.max_id_bytes);
     if (error.empty()) error = CheckCount(request->count(), limits_.max_count);
     if (error.empty()) {
-      error = CheckIdList("exclude_item_ids", request->exclude_item_ids(),
-                          limits_.max_exclusions, limits_.max_id_bytes);
+      error = CheckIdList("exclude_item_ids", request->exclude_item_ids(), limits_.max_exclusions,
+                          limits_.max_id_bytes);
     }
     if (error.empty()) {
       error = CheckIdList("recent_item_ids", request->recent_item_ids(), limits_.max_recent,
@@ -218,8 +230,8 @@ grpc::Status RankerService::SimilarItems(grpc::ServerContext* context,
     std::string error = CheckId("item_id", request->item_id(), limits_.max_id_bytes);
     if (error.empty()) error = CheckCount(request->count(), limits_.max_count);
     if (error.empty()) {
-      error = CheckIdList("exclude_item_ids", request->exclude_item_ids(),
-                          limits_.max_exclusions, limits_.max_id_bytes);
+      error = CheckIdList("exclude_item_ids", request->exclude_item_ids(), limits_.max_exclusions,
+                          limits_.max_id_bytes);
     }
     if (!error.empty()) return Invalid(std::move(error));
 

@@ -6,9 +6,9 @@
 // It knows protobuf and gRPC; the Scorer knows neither.
 #pragma once
 
-#include <cstdint>
-
 #include <grpcpp/grpcpp.h>
+
+#include <cstdint>
 
 #include "plumb/v1/ranker.grpc.pb.h"
 #include "server/exposure_sink.h"

@@ -1,12 +1,12 @@
 #include "server/ranking_server.h"
 
+#include <grpcpp/ext/proto_server_reflection_plugin.h>
+#include <grpcpp/health_check_service_interface.h>
+
 #include <algorithm>
 #include <fstream>
 #include <sstream>
 #include <thread>
-
-#include <grpcpp/ext/proto_server_reflection_plugin.h>
-#include <grpcpp/health_check_service_interface.h>
 
 namespace plumb::server {
 
@@ -23,8 +23,7 @@ Status ReadFile(const std::string& path, const char* what, std::string* out) {
   return Status::Ok();
 }
 
-Status Credentials(const EndpointOptions& options,
-                   std::shared_ptr<grpc::ServerCredentials>* out) {
+Status Credentials(const EndpointOptions& options, std::shared_ptr<grpc::ServerCredentials>* out) {
   const bool cert = !options.tls_cert_file.empty(), key = !options.tls_key_file.empty();
   if (cert != key) {
     return Status::InvalidArgument("TLS needs both tls_cert and tls_key (only one was given)");
@@ -44,8 +43,7 @@ Status Credentials(const EndpointOptions& options,
   if (!options.tls_client_ca_file.empty()) {
     PLUMB_RETURN_IF_ERROR(
         ReadFile(options.tls_client_ca_file, "TLS client CA", &ssl.pem_root_certs));
-    ssl.client_certificate_request =
-        GRPC_SSL_REQUEST_AND_REQUIRE_CLIENT_CERTIFICATE_AND_VERIFY;
+    ssl.client_certificate_request = GRPC_SSL_REQUEST_AND_REQUIRE_CLIENT_CERTIFICATE_AND_VERIFY;
   }
   *out = grpc::SslServerCredentials(ssl);
   return Status::Ok();

@@ -12,11 +12,11 @@
 // RESOURCE_EXHAUSTED (load shedding) instead of queueing without bound.
 #pragma once
 
+#include <grpcpp/grpcpp.h>
+
 #include <chrono>
 #include <memory>
 #include <string>
-
-#include <grpcpp/grpcpp.h>
 
 #include "core/status.h"
 

@@ -20,7 +20,7 @@ struct Scratch {
   std::vector<uint32_t> merged;        // union of two exclusion lists
   std::vector<uint32_t> candidate_rows;
   std::vector<float> scores;
-  std::vector<float> user;  // a folded-in user vector
+  std::vector<float> user;                                     // a folded-in user vector
   std::vector<std::pair<std::string_view, uint32_t>> unknown;  // (id, request position)
 };
 
@@ -108,8 +108,7 @@ void Clear(const Snapshot& snap, RankedList* out) {
 
 }  // namespace
 
-Status Scorer::Recommend(const Snapshot& snap, const RecommendQuery& query,
-                         RankedList* out) const {
+Status Scorer::Recommend(const Snapshot& snap, const RecommendQuery& query, RankedList* out) const {
   Clear(snap, out);
   if (Passed(query.deadline)) return DeadlinePassed(0, snap.num_items());
   Scratch& s = ThreadScratch();
@@ -134,8 +133,7 @@ Status Scorer::Recommend(const Snapshot& snap, const RecommendQuery& query,
       for (uint32_t item : snap.items_by_degree()) {
         if (out->items.size() >= query.count) break;
         if (std::binary_search(s.request_rows.begin(), s.request_rows.end(), item)) continue;
-        out->items.push_back(
-            ScoredIndex{item, static_cast<float>(snap.item_degrees()[item])});
+        out->items.push_back(ScoredIndex{item, static_cast<float>(snap.item_degrees()[item])});
       }
       out->fallback = true;
       return Status::Ok();
@@ -207,14 +205,13 @@ Status Scorer::SimilarItems(const Snapshot& snap, const SimilarQuery& query,
   if (Passed(query.deadline)) return DeadlinePassed(0, snap.num_items());
   std::optional<uint32_t> item = snap.FindItem(query.item_id);
   if (!item) {
-    return Status::NotFound("item_id " + Quoted(query.item_id) +
-                            " is not known to model version " + std::to_string(snap.version()));
+    return Status::NotFound("item_id " + Quoted(query.item_id) + " is not known to model version " +
+                            std::to_string(snap.version()));
   }
   if (snap.item_norms()[*item] == 0.0f) {
-    return Status::FailedPrecondition("item_id " + Quoted(query.item_id) +
-                                      " has a zero embedding in model version " +
-                                      std::to_string(snap.version()) +
-                                      "; cosine similarity to it is undefined");
+    return Status::FailedPrecondition(
+        "item_id " + Quoted(query.item_id) + " has a zero embedding in model version " +
+        std::to_string(snap.version()) + "; cosine similarity to it is undefined");
   }
   Scratch& s = ThreadScratch();
   ResolveItems(snap, query.exclude_item_ids, &s.request_rows);
@@ -228,9 +225,9 @@ Status Scorer::SimilarItems(const Snapshot& snap, const SimilarQuery& query,
   };
   StopCheck stop;
   if (query.deadline != kNoDeadline) stop = past_deadline;
-  PLUMB_RETURN_IF_ERROR(top_k_by_cosine(snap.items(), snap.item_norms(),
-                                        snap.item_vector(*item), Exclusions{{}, excluded},
-                                        s.block, &s.selector, &outcome, stop));
+  PLUMB_RETURN_IF_ERROR(top_k_by_cosine(snap.items(), snap.item_norms(), snap.item_vector(*item),
+                                        Exclusions{{}, excluded}, s.block, &s.selector, &outcome,
+                                        stop));
   if (outcome.stopped_early) return DeadlinePassed(outcome.rows_scanned, snap.num_items());
   std::span<const ScoredIndex> best = s.selector.SortedResult();
   out->items.assign(best.begin(), best.end());

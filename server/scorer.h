@@ -87,8 +87,7 @@ class Scorer {
 
   // Scores the known candidates (each distinct one once) for a known or folded-in user, best
   // first; unknown candidates are reported in out->unknown_candidates.
-  Status RankCandidates(const Snapshot& snap, const CandidatesQuery& query,
-                        RankedList* out) const;
+  Status RankCandidates(const Snapshot& snap, const CandidatesQuery& query, RankedList* out) const;
 
   // Top `count` items by cosine similarity to a known item, never the item itself.
   // FailedPrecondition if the item's vector is zero (cosine undefined).

@@ -1,12 +1,12 @@
 #include "server/serve_config.h"
 
+#include <toml++/toml.h>
+
+#include <CLI/CLI.hpp>
 #include <algorithm>
 #include <limits>
 #include <ostream>
 #include <sstream>
-
-#include <CLI/CLI.hpp>
-#include <toml++/toml.h>
 
 namespace plumb::server {
 
@@ -82,8 +82,8 @@ bool ApplyConfigFile(CLI::App& app, const std::string& path, std::ostream& err) 
   try {
     table = toml::parse_file(path);
   } catch (const toml::parse_error& e) {
-    err << "config file '" << path << "': " << e.description() << " (line "
-        << e.source().begin.line << ")\n";
+    err << "config file '" << path << "': " << e.description() << " (line " << e.source().begin.line
+        << ")\n";
     return false;
   }
   for (const auto& [raw_key, node] : table) {
@@ -105,8 +105,7 @@ bool ApplyConfigFile(CLI::App& app, const std::string& path, std::ostream& err) 
       option->add_result(text);
       option->run_callback();
     } catch (const CLI::Error& e) {
-      err << "config file '" << path << "': key '" << raw_key.str() << "': " << e.what()
-          << "\n";
+      err << "config file '" << path << "': key '" << raw_key.str() << "': " << e.what() << "\n";
       return false;
     }
   }

@@ -11,11 +11,10 @@ const char* const kMethodNames[] = {"Recommend", "RankCandidates", "SimilarItems
 
 // The canonical gRPC code names, as gRPC's own documentation spells them.
 const char* const kCodeNames[] = {
-    "OK",        "CANCELLED",         "UNKNOWN",           "INVALID_ARGUMENT",
-    "DEADLINE_EXCEEDED", "NOT_FOUND", "ALREADY_EXISTS",    "PERMISSION_DENIED",
-    "RESOURCE_EXHAUSTED", "FAILED_PRECONDITION", "ABORTED", "OUT_OF_RANGE",
-    "UNIMPLEMENTED", "INTERNAL",      "UNAVAILABLE",       "DATA_LOSS",
-    "UNAUTHENTICATED"};
+    "OK",        "CANCELLED",      "UNKNOWN",           "INVALID_ARGUMENT",   "DEADLINE_EXCEEDED",
+    "NOT_FOUND", "ALREADY_EXISTS", "PERMISSION_DENIED", "RESOURCE_EXHAUSTED", "FAILED_PRECONDITION",
+    "ABORTED",   "OUT_OF_RANGE",   "UNIMPLEMENTED",     "INTERNAL",           "UNAVAILABLE",
+    "DATA_LOSS", "UNAUTHENTICATED"};
 
 prometheus::MetricFamily Single(const char* name, const char* help, prometheus::MetricType type,
                                 double value) {
@@ -49,8 +48,8 @@ ServingMetrics::ServingMetrics(const SnapshotHolder* holder, const CatchUpLoop* 
                         .Name("plumb_request_duration_seconds")
                         .Help("Server-side time of a Ranker call, from receipt to response")
                         .Register(*registry_);
-  const prometheus::Histogram::BucketBoundaries buckets = {
-      0.0001, 0.0002, 0.0005, 0.001, 0.002, 0.005, 0.01, 0.02, 0.05, 0.1};
+  const prometheus::Histogram::BucketBoundaries buckets = {0.0001, 0.0002, 0.0005, 0.001, 0.002,
+                                                           0.005,  0.01,   0.02,   0.05,  0.1};
   for (int m = 0; m < kMethods; ++m) {
     durations_[m] = &durations.Add({{"method", kMethodNames[m]}}, buckets);
   }
@@ -86,10 +85,10 @@ std::vector<prometheus::MetricFamily> ServingMetrics::Collect() const {
     double version = 0, age = 0;
     if (snap != nullptr) {
       version = static_cast<double>(snap->version());
-      const double now_ms = static_cast<double>(
-          std::chrono::duration_cast<std::chrono::milliseconds>(
-              std::chrono::system_clock::now().time_since_epoch())
-              .count());
+      const double now_ms =
+          static_cast<double>(std::chrono::duration_cast<std::chrono::milliseconds>(
+                                  std::chrono::system_clock::now().time_since_epoch())
+                                  .count());
       age = (now_ms - static_cast<double>(snap->created_ms())) / 1000.0;
     }
     families.push_back(Single("plumb_model_version",
@@ -102,9 +101,8 @@ std::vector<prometheus::MetricFamily> ServingMetrics::Collect() const {
     }
   }
   if (loop_ != nullptr) {
-    families.push_back(Single("plumb_snapshot_swaps_total",
-                              "Snapshots built and swapped in", MetricType::Counter,
-                              static_cast<double>(loop_->swaps())));
+    families.push_back(Single("plumb_snapshot_swaps_total", "Snapshots built and swapped in",
+                              MetricType::Counter, static_cast<double>(loop_->swaps())));
     families.push_back(Single("plumb_snapshot_load_failures_total",
                               "Active versions that failed to load and were skipped",
                               MetricType::Counter, static_cast<double>(loop_->failed_loads())));

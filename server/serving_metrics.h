@@ -18,17 +18,17 @@
 //   plumb_served_slots_total                     counter  items in those lists
 #pragma once
 
-#include <array>
-#include <atomic>
-#include <memory>
-#include <vector>
-
 #include <grpcpp/support/status.h>
 #include <prometheus/collectable.h>
 #include <prometheus/counter.h>
 #include <prometheus/family.h>
 #include <prometheus/histogram.h>
 #include <prometheus/registry.h>
+
+#include <array>
+#include <atomic>
+#include <memory>
+#include <vector>
 
 #include "server/catch_up_loop.h"
 #include "server/exposure_sink.h"

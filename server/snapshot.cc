@@ -173,8 +173,9 @@ Status Snapshot::Build(SnapshotParts parts, std::shared_ptr<const Snapshot>* out
 
 size_t Snapshot::memory_bytes() const {
   return (items_.rows() + users_.rows()) * items_.dim() * sizeof(float) +
-         item_norms_.capacity() * sizeof(float) + item_gram_.capacity() * sizeof(double) + item_index_.memory_bytes() +
-         user_index_.memory_bytes() + item_degrees_.capacity() * sizeof(uint64_t) +
+         item_norms_.capacity() * sizeof(float) + item_gram_.capacity() * sizeof(double) +
+         item_index_.memory_bytes() + user_index_.memory_bytes() +
+         item_degrees_.capacity() * sizeof(uint64_t) +
          items_by_degree_.capacity() * sizeof(uint32_t) +
          seen_offsets_.capacity() * sizeof(uint64_t) + seen_items_.capacity() * sizeof(uint32_t);
 }
@@ -212,8 +213,7 @@ Status LoadSnapshot(const store::Store& store, uint64_t version,
         PLUMB_RETURN_IF_ERROR(store.ReadVersionDegrees(version, &degrees));
         if (degrees.size() != num_items) {
           return Status::Corruption(where + std::to_string(degrees.size()) +
-                                    " stored degrees for " + std::to_string(num_items) +
-                                    " items");
+                                    " stored degrees for " + std::to_string(num_items) + " items");
         }
         parts.item_degrees.assign(degrees.begin(), degrees.end());
 

@@ -30,9 +30,9 @@ namespace plumb::server {
 // benchmarks fill it directly.
 struct SnapshotParts {
   uint64_t version = 0;
-  int64_t created_ms = 0;  // when the trainer made the version, ms since the Unix epoch
-  ItemMatrix items;        // num_items x dim, row i = item index i
-  ItemMatrix users;        // num_users x dim, row u = user index u
+  int64_t created_ms = 0;             // when the trainer made the version, ms since the Unix epoch
+  ItemMatrix items;                   // num_items x dim, row i = item index i
+  ItemMatrix users;                   // num_users x dim, row u = user index u
   std::vector<std::string> item_ids;  // external id of each item index (num_items entries)
   std::vector<std::string> user_ids;  // external id of each user index (num_users entries)
   // Training degree of each item (num_items entries), or empty for "all zero".
@@ -83,8 +83,8 @@ class Snapshot {
   // The items user `user` interacted with, ascending.
   std::span<const uint32_t> seen_items(uint32_t user) const {
     if (seen_offsets_.empty()) return {};
-    return std::span<const uint32_t>(seen_items_).subspan(
-        seen_offsets_[user], seen_offsets_[user + 1] - seen_offsets_[user]);
+    return std::span<const uint32_t>(seen_items_)
+        .subspan(seen_offsets_[user], seen_offsets_[user + 1] - seen_offsets_[user]);
   }
 
   // Training degree (popularity) of each item.

@@ -17,6 +17,7 @@
 //   build/<dir>/bench/server/bench_server [--sections=scorer,e2e,load,fold-in,swap]
 //                                         [google benchmark flags]
 #include <benchmark/benchmark.h>
+#include <grpcpp/grpcpp.h>
 #include <sys/resource.h>
 #include <sys/wait.h>
 #include <unistd.h>
@@ -34,8 +35,6 @@
 #include <string>
 #include <thread>
 #include <vector>
-
-#include <grpcpp/grpcpp.h>
 
 #include "core/scan.h"
 #include "plumb/v1/ranker.grpc.pb.h"
@@ -140,7 +139,8 @@ void BM_Recommend(benchmark::State& state) {
   Scorer scorer;
   RankedList out;
   std::vector<std::string> ids;
-  for (uint32_t k = 0; k < 4096; ++k) ids.push_back("member-" + std::to_string((k * 7919u) % kUsers));
+  for (uint32_t k = 0; k < 4096; ++k)
+    ids.push_back("member-" + std::to_string((k * 7919u) % kUsers));
   size_t k = 0;
   for (auto _ : state) {
     RecommendQuery q;
@@ -185,10 +185,12 @@ void ScorerSection(int argc, char** argv) {
   World();  // build before timing
   MedianReporter reporter;
   benchmark::RunSpecifiedBenchmarks(&reporter);
-  const double scan = reporter.median_us("BM_PlainScan"), dots = reporter.median_us("BM_DotScoresOnly"),
+  const double scan = reporter.median_us("BM_PlainScan"),
+               dots = reporter.median_us("BM_DotScoresOnly"),
                rec = reporter.median_us("BM_Recommend");
-  std::printf("\n[scorer] %u items x %u dims (%.1f MB), %u users x %u seen, top-%u, CPU time medians\n",
-              kItems, kDim, kItems * kDim * 4 / 1e6, kUsers, kSeen, kTop);
+  std::printf(
+      "\n[scorer] %u items x %u dims (%.1f MB), %u users x %u seen, top-%u, CPU time medians\n",
+      kItems, kDim, kItems * kDim * 4 / 1e6, kUsers, kSeen, kTop);
   std::printf("  plain memory scan  %8.1f us  (%.2f GB/s)\n", scan, kItems * kDim * 4 / scan / 1e3);
   std::printf("  scores only        %8.1f us  (%.2fx scan)\n", dots, dots / scan);
   std::printf("  Recommend          %8.1f us  (%.2fx scan; targets: < 1000 us, <= 1.5x)\n", rec,
@@ -202,7 +204,9 @@ struct Percentiles {
 };
 Percentiles Summarise(std::vector<double> us) {
   std::sort(us.begin(), us.end());
-  auto at = [&](double q) { return us[std::min(us.size() - 1, static_cast<size_t>(q * us.size()))]; };
+  auto at = [&](double q) {
+    return us[std::min(us.size() - 1, static_cast<size_t>(q * us.size()))];
+  };
   return {at(0.5), at(0.99)};
 }
 
@@ -244,7 +248,8 @@ v1::RecommendRequest RealRequest(uint32_t k) {
 
 void E2eSection() {
   LoopbackServer server;
-  auto stub = v1::Ranker::NewStub(grpc::CreateChannel(server.target, grpc::InsecureChannelCredentials()));
+  auto stub =
+      v1::Ranker::NewStub(grpc::CreateChannel(server.target, grpc::InsecureChannelCredentials()));
   v1::RecommendRequest empty;
   empty.set_user_id("member-1");
   empty.set_count(0);  // INVALID_ARGUMENT at validation
@@ -260,15 +265,18 @@ void E2eSection() {
   const Percentiles r = Summarise(real_us), e = Summarise(empty_us);
   std::printf("\n[e2e] loopback, one client, 3000 calls each, interleaved (wall time)\n");
   std::printf("  empty RPC  p50 %7.0f us  p99 %7.0f us\n", e.p50, e.p99);
-  std::printf("  Recommend  p50 %7.0f us  p99 %7.0f us  (p50 - empty p50 = %.0f us; target <= 1500 us)"
-              "  failures %d\n",
-              r.p50, r.p99, r.p50 - e.p50, failures);
+  std::printf(
+      "  Recommend  p50 %7.0f us  p99 %7.0f us  (p50 - empty p50 = %.0f us; target <= 1500 us)"
+      "  failures %d\n",
+      r.p50, r.p99, r.p50 - e.p50, failures);
 }
 
 void LoadSection() {
   LoopbackServer server;
-  std::printf("\n[load] Recommend top-%u exclude-seen, %u items; each client its own channel, 4 s per row\n",
-              kTop, kItems);
+  std::printf(
+      "\n[load] Recommend top-%u exclude-seen, %u items; each client its own channel, 4 s per "
+      "row\n",
+      kTop, kItems);
   std::printf("  %7s %9s %9s %9s %9s\n", "clients", "QPS", "p50_us", "p99_us", "failures");
   for (int clients : {1, 2, 4, 8}) {
     std::atomic<bool> stop{false};
@@ -277,8 +285,8 @@ void LoadSection() {
     std::vector<std::thread> threads;
     for (int c = 0; c < clients; ++c) {
       threads.emplace_back([&, c] {
-        auto stub = v1::Ranker::NewStub(grpc::CreateCustomChannel(
-            server.target, grpc::InsecureChannelCredentials(), [c] {
+        auto stub = v1::Ranker::NewStub(
+            grpc::CreateCustomChannel(server.target, grpc::InsecureChannelCredentials(), [c] {
               grpc::ChannelArguments a;
               a.SetInt("plumb.bench.client", c);  // distinct args: a separate connection
               return a;
@@ -298,7 +306,8 @@ void LoadSection() {
     std::this_thread::sleep_for(std::chrono::seconds(4));
     size_t after = 0;
     for (auto& l : lat) after += l.size();
-    const double seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+    const double seconds =
+        std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
     stop.store(true);
     for (auto& t : threads) t.join();
     std::vector<double> all;
@@ -316,9 +325,12 @@ void LoadSection() {
 // p_u ~ N(0, 4/d), interactions drawn without replacement with probability ∝ exp(8<p_u,q_i>).
 void FoldInSection() {
   const uint32_t n = 20000, d = 64, users = 150;
-  std::printf("\n[fold-in] overlap@20 of a folded-in user's top-20 with their own (both without the\n"
-              "  interacted items); %u items x %u dims, %u users per row; higher is better\n", n, d, users);
-  std::printf("  %6s %4s %10s %12s %12s %10s\n", "pop_w", "M", "served", "ls_pos_best", "bpr_steps", "random");
+  std::printf(
+      "\n[fold-in] overlap@20 of a folded-in user's top-20 with their own (both without the\n"
+      "  interacted items); %u items x %u dims, %u users per row; higher is better\n",
+      n, d, users);
+  std::printf("  %6s %4s %10s %12s %12s %10s\n", "pop_w", "M", "served", "ls_pos_best", "bpr_steps",
+              "random");
   std::mt19937_64 rng(3);
   std::normal_distribution<double> gauss(0, 1);
   std::gamma_distribution<double> gamma(1.0, 1.0);
@@ -373,7 +385,8 @@ void FoldInSection() {
         // 1. served: implicit-feedback least squares with the whole catalogue.
         Eigen::VectorXf served(d);
         if (!fold_in_user(items.view(), gram, rows, FoldInOptions{},
-                          std::span<float>(served.data(), d)).ok())
+                          std::span<float>(served.data(), d))
+                 .ok())
           std::abort();
         sums[0] += overlap(served);
         // 2. least squares on the user's items only, with a ridge of 0.01, 0.1 or 1 times the
@@ -417,7 +430,8 @@ void FoldInSection() {
 double ProcessCpuSeconds() {
   rusage r;
   getrusage(RUSAGE_SELF, &r);  // both loading threads
-  return r.ru_utime.tv_sec + r.ru_utime.tv_usec / 1e6 + r.ru_stime.tv_sec + r.ru_stime.tv_usec / 1e6;
+  return r.ru_utime.tv_sec + r.ru_utime.tv_usec / 1e6 + r.ru_stime.tv_sec +
+         r.ru_stime.tv_usec / 1e6;
 }
 
 std::string LoadAverage() {
@@ -506,7 +520,8 @@ void SwapSection() {
     auto t0 = std::chrono::steady_clock::now();
     if (!LoadSnapshot(*secondary, 1, &first).ok()) return 2;
     holder.Swap(first);
-    const double first_s = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+    const double first_s =
+        std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
     const size_t first_bytes = first->memory_bytes();
     first.reset();
     // A request still holds version 1 during the whole swap, as in-flight requests would.
@@ -520,21 +535,28 @@ void SwapSection() {
     if (!s.ok()) return 3;
     const size_t next_bytes = next->memory_bytes();
     holder.Swap(std::move(next));
-    const double swap_s = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+    const double swap_s =
+        std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
     const double swap_cpu = ProcessCpuSeconds() - cpu0;
     const long peak = StatusKb("VmHWM:");
     in_flight.reset();
     const double mb = 1024.0;
     std::printf("  first load (nothing held)      %.2f s\n", first_s);
-    std::printf("  load + swap of the second      %.2f s wall, %.2f s CPU (target < 3 s; load average %s)\n",
-                swap_s, swap_cpu, LoadAverage().c_str());
-    std::printf("  snapshot sizes                 %.0f MB + %.0f MB\n", first_bytes / 1e6, next_bytes / 1e6);
-    std::printf("  RSS: process %.0f MB, + RocksDB secondary opened %.0f MB, holding one snapshot %.0f MB,\n"
-                "       peak during the swap %.0f MB (%.0f MB above the open secondary)\n",
-                rss_exec / mb, rss_start / mb, rss_before / mb, peak / mb, (peak - rss_start) / mb);
-    std::printf("  peak vs 2 x (both snapshots) + 150 MB = %.0f MB: %s\n",
-                2 * (first_bytes + next_bytes) / 1e6 + 150,
-                peak / mb * 1.048576 < 2 * (first_bytes + next_bytes) / 1e6 + 150 ? "under" : "OVER");
+    std::printf(
+        "  load + swap of the second      %.2f s wall, %.2f s CPU (target < 3 s; load average "
+        "%s)\n",
+        swap_s, swap_cpu, LoadAverage().c_str());
+    std::printf("  snapshot sizes                 %.0f MB + %.0f MB\n", first_bytes / 1e6,
+                next_bytes / 1e6);
+    std::printf(
+        "  RSS: process %.0f MB, + RocksDB secondary opened %.0f MB, holding one snapshot %.0f "
+        "MB,\n"
+        "       peak during the swap %.0f MB (%.0f MB above the open secondary)\n",
+        rss_exec / mb, rss_start / mb, rss_before / mb, peak / mb, (peak - rss_start) / mb);
+    std::printf(
+        "  peak vs 2 x (both snapshots) + 150 MB = %.0f MB: %s\n",
+        2 * (first_bytes + next_bytes) / 1e6 + 150,
+        peak / mb * 1.048576 < 2 * (first_bytes + next_bytes) / 1e6 + 150 ? "under" : "OVER");
     std::printf("  peak vs both snapshots + 150 MB = %.0f MB: %s\n",
                 (first_bytes + next_bytes) / 1e6 + 150,
                 peak / mb * 1.048576 < (first_bytes + next_bytes) / 1e6 + 150 ? "under" : "over");
@@ -560,7 +582,9 @@ int main(int argc, char** argv) {
   }
   int rest_argc = static_cast<int>(rest.size());
   benchmark::Initialize(&rest_argc, rest.data());
-  auto wants = [&](const char* s) { return ("," + sections + ",").find("," + std::string(s) + ",") != std::string::npos; };
+  auto wants = [&](const char* s) {
+    return ("," + sections + ",").find("," + std::string(s) + ",") != std::string::npos;
+  };
   // The swap runs first, in child processes, before this process holds any data.
   if (wants("swap")) plumb::server::SwapSection();
   if (wants("scorer")) plumb::server::ScorerSection(rest_argc, rest.data());

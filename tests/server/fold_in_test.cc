@@ -1,5 +1,7 @@
 // Fold-in of unknown users: the solver against the textbook normal equations, and the
 // served path against a user's own ranking.
+#include "server/fold_in.h"
+
 #include <gtest/gtest.h>
 
 #include <Eigen/Dense>
@@ -7,7 +9,6 @@
 #include <random>
 #include <set>
 
-#include "server/fold_in.h"
 #include "server/scorer.h"
 #include "tests/server/test_model.h"
 

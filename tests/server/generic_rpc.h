@@ -7,9 +7,9 @@
 // they are wrong, since the server side is gRPC's own implementation).
 #pragma once
 
+#include <google/protobuf/unknown_field_set.h>
 #include <grpcpp/generic/generic_stub.h>
 #include <grpcpp/grpcpp.h>
-#include <google/protobuf/unknown_field_set.h>
 
 #include <chrono>
 #include <future>
@@ -27,7 +27,8 @@ inline std::string FromBuffer(const grpc::ByteBuffer& buffer) {
   std::vector<grpc::Slice> slices;
   (void)buffer.Dump(&slices);
   std::string out;
-  for (const grpc::Slice& s : slices) out.append(reinterpret_cast<const char*>(s.begin()), s.size());
+  for (const grpc::Slice& s : slices)
+    out.append(reinterpret_cast<const char*>(s.begin()), s.size());
   return out;
 }
 
@@ -49,8 +50,7 @@ inline grpc::Status GenericUnary(const std::shared_ptr<grpc::Channel>& channel,
 // One bidirectional-streaming exchange: writes every request, half-closes, reads until the
 // server ends the stream.
 inline grpc::Status GenericBidi(const std::shared_ptr<grpc::Channel>& channel,
-                                const std::string& method,
-                                const std::vector<std::string>& requests,
+                                const std::string& method, const std::vector<std::string>& requests,
                                 std::vector<std::string>* responses) {
   grpc::GenericStub stub(channel);
   grpc::ClientContext context;

@@ -1,10 +1,9 @@
 // plumb.v1.Ranker over a real gRPC server on a loopback port, called by a real client: every
 // documented status code and message, the standard health and reflection services, metrics
 // and exposure accounting, deadlines and TLS.
-#include <gtest/gtest.h>
-
 #include <google/protobuf/descriptor.pb.h>
 #include <grpcpp/grpcpp.h>
+#include <gtest/gtest.h>
 
 #include <cstdlib>
 #include <fstream>
@@ -78,8 +77,7 @@ class RankerServerTest : public ::testing::Test {
   grpc::Status Recommend(const v1::RecommendRequest& r, v1::RecommendResponse* out) {
     return Call(&Ranker::Stub::Recommend, r, out);
   }
-  grpc::Status RankCandidates(const v1::RankCandidatesRequest& r,
-                              v1::RankCandidatesResponse* out) {
+  grpc::Status RankCandidates(const v1::RankCandidatesRequest& r, v1::RankCandidatesResponse* out) {
     return Call(&Ranker::Stub::RankCandidates, r, out);
   }
   grpc::Status SimilarItems(const v1::SimilarItemsRequest& r, v1::SimilarItemsResponse* out) {
@@ -194,9 +192,10 @@ TEST_F(RankerServerTest, ResponsesCarryIdsScoresAndVersionAndAreCounted) {
   // Five lists served: 12 + 4 + 6 + 2 + 5 slots.
   EXPECT_EQ(exposure_.lists(), 5u);
   EXPECT_EQ(exposure_.slots(), 29u);
-  EXPECT_EQ(Sample(*metrics_, "plumb_requests_total", {{"method", "Recommend"}, {"code", "OK"}}), 3);
-  EXPECT_EQ(Sample(*metrics_, "plumb_requests_total",
-                   {{"method", "SimilarItems"}, {"code", "OK"}}), 1);
+  EXPECT_EQ(Sample(*metrics_, "plumb_requests_total", {{"method", "Recommend"}, {"code", "OK"}}),
+            3);
+  EXPECT_EQ(Sample(*metrics_, "plumb_requests_total", {{"method", "SimilarItems"}, {"code", "OK"}}),
+            1);
   EXPECT_EQ(Sample(*metrics_, "plumb_model_version"), 3);
   EXPECT_EQ(Sample(*metrics_, "plumb_served_slots_total"), 29);
 }
@@ -244,53 +243,86 @@ TEST_F(RankerServerTest, EveryErrorPathReturnsItsDocumentedCodeAndNamesTheField)
   using C = grpc::StatusCode;
   const std::vector<ErrorCase> cases = {
       {"recommend empty user", rec(RecommendFor("", 5)), C::INVALID_ARGUMENT, "user_id"},
-      {"recommend long user", rec(RecommendFor(long_id, 5)), C::INVALID_ARGUMENT, "user_id is 257 bytes"},
-      {"recommend count 0", rec(RecommendFor("member-1", 0)), C::INVALID_ARGUMENT, "count must be 1..1000, got 0"},
-      {"recommend count 1001", rec(RecommendFor("member-1", 1001)), C::INVALID_ARGUMENT, "count must be 1..1000, got 1001"},
+      {"recommend long user", rec(RecommendFor(long_id, 5)), C::INVALID_ARGUMENT,
+       "user_id is 257 bytes"},
+      {"recommend count 0", rec(RecommendFor("member-1", 0)), C::INVALID_ARGUMENT,
+       "count must be 1..1000, got 0"},
+      {"recommend count 1001", rec(RecommendFor("member-1", 1001)), C::INVALID_ARGUMENT,
+       "count must be 1..1000, got 1001"},
       {"recommend 10001 exclusions",
-       rec(with(ok_rec, [](auto& r) { for (int i = 0; i < 10001; ++i) r.add_exclude_item_ids("t"); })),
+       rec(with(ok_rec,
+                [](auto& r) {
+                  for (int i = 0; i < 10001; ++i) r.add_exclude_item_ids("t");
+                })),
        C::INVALID_ARGUMENT, "exclude_item_ids has 10001 entries; the limit is 10000"},
       {"recommend empty exclusion",
-       rec(with(ok_rec, [](auto& r) { r.add_exclude_item_ids("tool-1"); r.add_exclude_item_ids(""); })),
+       rec(with(ok_rec,
+                [](auto& r) {
+                  r.add_exclude_item_ids("tool-1");
+                  r.add_exclude_item_ids("");
+                })),
        C::INVALID_ARGUMENT, "exclude_item_ids[1]"},
       {"recommend long exclusion",
-       rec(with(ok_rec, [&](auto& r) { r.add_exclude_item_ids(long_id); })),
-       C::INVALID_ARGUMENT, "exclude_item_ids[0] is 257 bytes"},
+       rec(with(ok_rec, [&](auto& r) { r.add_exclude_item_ids(long_id); })), C::INVALID_ARGUMENT,
+       "exclude_item_ids[0] is 257 bytes"},
       {"recommend 1001 recent",
-       rec(with(ok_rec, [](auto& r) { for (int i = 0; i < 1001; ++i) r.add_recent_item_ids("t"); })),
+       rec(with(ok_rec,
+                [](auto& r) {
+                  for (int i = 0; i < 1001; ++i) r.add_recent_item_ids("t");
+                })),
        C::INVALID_ARGUMENT, "recent_item_ids has 1001 entries; the limit is 1000"},
       {"recommend long recent",
-       rec(with(ok_rec, [&](auto& r) { r.add_recent_item_ids("tool-1"); r.add_recent_item_ids(long_id); })),
+       rec(with(ok_rec,
+                [&](auto& r) {
+                  r.add_recent_item_ids("tool-1");
+                  r.add_recent_item_ids(long_id);
+                })),
        C::INVALID_ARGUMENT, "recent_item_ids[1] is 257 bytes"},
       {"recommend bad policy",
-       rec(with(ok_rec, [](auto& r) { r.set_unknown_user(static_cast<v1::UnknownUserPolicy>(9)); })),
+       rec(with(ok_rec,
+                [](auto& r) { r.set_unknown_user(static_cast<v1::UnknownUserPolicy>(9)); })),
        C::INVALID_ARGUMENT, "unknown_user"},
-      {"recommend unknown user", rec(RecommendFor("member-404", 5)), C::NOT_FOUND, "user_id 'member-404'"},
+      {"recommend unknown user", rec(RecommendFor("member-404", 5)), C::NOT_FOUND,
+       "user_id 'member-404'"},
       {"recommend unknown user, unknown recent",
        rec(with(RecommendFor("member-404", 5), [](auto& r) { r.add_recent_item_ids("tool-404"); })),
        C::NOT_FOUND, "none of its 1 recent_item_ids"},
-      {"candidates empty user", cand(with(ok_cand, [](auto& r) { r.set_user_id(""); })), C::INVALID_ARGUMENT, "user_id"},
+      {"candidates empty user", cand(with(ok_cand, [](auto& r) { r.set_user_id(""); })),
+       C::INVALID_ARGUMENT, "user_id"},
       {"candidates none", cand(with(ok_cand, [](auto& r) { r.clear_candidate_item_ids(); })),
        C::INVALID_ARGUMENT, "candidate_item_ids is required"},
       {"candidates 10001",
-       cand(with(ok_cand, [](auto& r) { for (int i = 0; i < 10000; ++i) r.add_candidate_item_ids("t"); })),
+       cand(with(ok_cand,
+                 [](auto& r) {
+                   for (int i = 0; i < 10000; ++i) r.add_candidate_item_ids("t");
+                 })),
        C::INVALID_ARGUMENT, "candidate_item_ids has 10001 entries; the limit is 10000"},
       {"candidates empty id", cand(with(ok_cand, [](auto& r) { r.add_candidate_item_ids(""); })),
        C::INVALID_ARGUMENT, "candidate_item_ids[1]"},
-      {"candidates long id", cand(with(ok_cand, [&](auto& r) { r.add_candidate_item_ids(long_id); })),
+      {"candidates long id",
+       cand(with(ok_cand, [&](auto& r) { r.add_candidate_item_ids(long_id); })),
        C::INVALID_ARGUMENT, "candidate_item_ids[1] is 257 bytes"},
       {"candidates 1001 recent",
-       cand(with(ok_cand, [](auto& r) { for (int i = 0; i < 1001; ++i) r.add_recent_item_ids("t"); })),
+       cand(with(ok_cand,
+                 [](auto& r) {
+                   for (int i = 0; i < 1001; ++i) r.add_recent_item_ids("t");
+                 })),
        C::INVALID_ARGUMENT, "recent_item_ids has 1001 entries"},
       {"candidates unknown user", cand(with(ok_cand, [](auto& r) { r.set_user_id("member-404"); })),
        C::NOT_FOUND, "user_id 'member-404'"},
-      {"similar empty item", sim(with(ok_sim, [](auto& r) { r.set_item_id(""); })), C::INVALID_ARGUMENT, "item_id"},
+      {"similar empty item", sim(with(ok_sim, [](auto& r) { r.set_item_id(""); })),
+       C::INVALID_ARGUMENT, "item_id"},
       {"similar long item", sim(with(ok_sim, [&](auto& r) { r.set_item_id(long_id); })),
        C::INVALID_ARGUMENT, "item_id is 257 bytes"},
-      {"similar count 0", sim(with(ok_sim, [](auto& r) { r.set_count(0); })), C::INVALID_ARGUMENT, "count"},
-      {"similar count 1001", sim(with(ok_sim, [](auto& r) { r.set_count(1001); })), C::INVALID_ARGUMENT, "count"},
+      {"similar count 0", sim(with(ok_sim, [](auto& r) { r.set_count(0); })), C::INVALID_ARGUMENT,
+       "count"},
+      {"similar count 1001", sim(with(ok_sim, [](auto& r) { r.set_count(1001); })),
+       C::INVALID_ARGUMENT, "count"},
       {"similar 10001 exclusions",
-       sim(with(ok_sim, [](auto& r) { for (int i = 0; i < 10001; ++i) r.add_exclude_item_ids("t"); })),
+       sim(with(ok_sim,
+                [](auto& r) {
+                  for (int i = 0; i < 10001; ++i) r.add_exclude_item_ids("t");
+                })),
        C::INVALID_ARGUMENT, "exclude_item_ids has 10001 entries"},
       {"similar unknown item", sim(with(ok_sim, [](auto& r) { r.set_item_id("tool-404"); })),
        C::NOT_FOUND, "item_id 'tool-404'"},
@@ -308,9 +340,11 @@ TEST_F(RankerServerTest, EveryErrorPathReturnsItsDocumentedCodeAndNamesTheField)
   for (int i = 1; i < 10000; ++i) at_limits.add_exclude_item_ids("tool-" + std::to_string(i % 60));
   EXPECT_TRUE(Recommend(at_limits, &out).ok());
   EXPECT_EQ(Sample(*metrics_, "plumb_requests_total",
-                   {{"method", "Recommend"}, {"code", "INVALID_ARGUMENT"}}), 10);
-  EXPECT_EQ(Sample(*metrics_, "plumb_requests_total",
-                   {{"method", "Recommend"}, {"code", "NOT_FOUND"}}), 2);
+                   {{"method", "Recommend"}, {"code", "INVALID_ARGUMENT"}}),
+            10);
+  EXPECT_EQ(
+      Sample(*metrics_, "plumb_requests_total", {{"method", "Recommend"}, {"code", "NOT_FOUND"}}),
+      2);
   EXPECT_EQ(exposure_.lists(), 1u);  // failed calls serve nothing
 }
 
@@ -384,9 +418,10 @@ TEST_F(RankerServerTest, ReflectionDescribesTheRankerToGenericTools) {
 TEST(RankingServerTlsTest, ServesOverTlsAndRefusesPlaintextClients) {
   if (std::system("command -v openssl >/dev/null 2>&1") != 0) GTEST_SKIP() << "no openssl";
   testing::TempDir dir;
-  const std::string cmd = "openssl req -x509 -newkey rsa:2048 -nodes -days 1 -subj /CN=localhost"
-                          " -addext subjectAltName=DNS:localhost -keyout " + dir.Sub("key.pem") +
-                          " -out " + dir.Sub("cert.pem") + " >/dev/null 2>&1";
+  const std::string cmd =
+      "openssl req -x509 -newkey rsa:2048 -nodes -days 1 -subj /CN=localhost"
+      " -addext subjectAltName=DNS:localhost -keyout " +
+      dir.Sub("key.pem") + " -out " + dir.Sub("cert.pem") + " >/dev/null 2>&1";
   ASSERT_EQ(std::system(cmd.c_str()), 0);
 
   SnapshotHolder holder;

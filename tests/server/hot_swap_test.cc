@@ -3,9 +3,8 @@
 // RocksDB secondary. No request may fail, every answer must come from a version that was
 // active at some moment and match that version's model, and no client may see versions go
 // backwards.
-#include <gtest/gtest.h>
-
 #include <grpcpp/grpcpp.h>
+#include <gtest/gtest.h>
 
 #include <atomic>
 #include <map>
@@ -169,8 +168,8 @@ TEST(HotSwapTest, FourClientsSeeOnlyActiveVersionsInOrderWithoutAFailure) {
     }
     EXPECT_EQ(seen[c].back().version, last) << "client " << c;
   }
-  std::printf("%zu requests, %zu distinct versions served, %llu swaps, %llu failed loads\n",
-              total, versions_served.size(), static_cast<unsigned long long>(loop.swaps()),
+  std::printf("%zu requests, %zu distinct versions served, %llu swaps, %llu failed loads\n", total,
+              versions_served.size(), static_cast<unsigned long long>(loop.swaps()),
               static_cast<unsigned long long>(loop.failed_loads()));
   EXPECT_GE(versions_served.size(), 3u);  // swaps really happened under load
 }

@@ -1,9 +1,9 @@
 // The plumb-serve binary as an operator runs it: from a store on disk with no trainer
 // running, it starts, reports healthy, serves, exports metrics, follows a trainer that comes
 // back, and stops cleanly on SIGTERM.
-#include <gtest/gtest.h>
-
 #include <arpa/inet.h>
+#include <grpcpp/grpcpp.h>
+#include <gtest/gtest.h>
 #include <netinet/in.h>
 #include <poll.h>
 #include <signal.h>
@@ -14,8 +14,6 @@
 #include <fstream>
 #include <regex>
 #include <thread>
-
-#include <grpcpp/grpcpp.h>
 
 #include "plumb/v1/ranker.grpc.pb.h"
 #include "tests/server/generic_rpc.h"
@@ -153,8 +151,8 @@ TEST(PlumbServeProcessTest, ServesFromDiskWithoutATrainerAndStopsOnSigterm) {
   TempDir dir;
   const uint64_t v1 = CommitVersion(dir.Sub("db"), 1);
   std::ofstream(dir.Sub("serve.toml")) << "catchup-interval-ms = 50\nlog-level = 'info'\n";
-  ServeProcess serve({"--db", dir.Sub("db"), "--listen", "127.0.0.1:0", "--metrics",
-                      "127.0.0.1:0", "--config", dir.Sub("serve.toml")});
+  ServeProcess serve({"--db", dir.Sub("db"), "--listen", "127.0.0.1:0", "--metrics", "127.0.0.1:0",
+                      "--config", dir.Sub("serve.toml")});
   const std::string metrics_port = serve.WaitForLog("metrics on port (\\d+)");
   const std::string port = serve.WaitForLog("listening on port (\\d+)");
   ASSERT_FALSE(port.empty()) << serve.log();

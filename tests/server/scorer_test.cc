@@ -2,6 +2,8 @@
 // sort of every item's score, with the exclusions applied by hand. The core scan has its own
 // exactness suite (tests/core/scan_test.cc); here the subject is what the server adds:
 // resolving ids, seen-item and request exclusions, unknown users, candidates, similarity.
+#include "server/scorer.h"
+
 #include <gtest/gtest.h>
 
 #include <algorithm>
@@ -10,7 +12,6 @@
 #include <random>
 #include <set>
 
-#include "server/scorer.h"
 #include "tests/server/test_model.h"
 
 namespace plumb::server {
@@ -60,7 +61,7 @@ TEST(ScorerTest, RecommendEqualsFullSortWithSeenAndRequestExclusionsAndTies) {
           exclude_storage.push_back(m.item_ids[i]);
           excluded.insert(i);
         }
-        exclude_storage.push_back("tool-not-in-the-catalogue");  // ignored
+        exclude_storage.push_back("tool-not-in-the-catalogue");    // ignored
         exclude_storage.push_back(m.item_ids[*excluded.begin()]);  // duplicate, harmless
         std::vector<std::string_view> exclude(exclude_storage.begin(), exclude_storage.end());
         if (exclude_seen) excluded.insert(m.seen[u].begin(), m.seen[u].end());
@@ -111,7 +112,8 @@ TEST(ScorerTest, UnknownUserWithoutRecentItemsIsNotFoundNamingTheUser) {
   q.count = 5;
   Status s = scorer.Recommend(*snap, q, &out);
   EXPECT_TRUE(s.IsNotFound());
-  EXPECT_NE(s.message().find("user_id 'member-who-joined-today'"), std::string::npos) << s.message();
+  EXPECT_NE(s.message().find("user_id 'member-who-joined-today'"), std::string::npos)
+      << s.message();
   EXPECT_NE(s.message().find("version 9"), std::string::npos) << s.message();
 
   // Recent ids none of which the model knows: still NotFound, and the message says why.
@@ -197,8 +199,8 @@ TEST(ScorerTest, RankCandidatesScoresKnownOnesOnceAndReportsUnknownOnesInOrder) 
   auto snap = BuildSnapshot(m, 1);
   Scorer scorer;
   RankedList out;
-  std::vector<std::string_view> candidates = {"tool-9",  "tool-x", "tool-40", "tool-9",
-                                              "tool-y",  "tool-x", "tool-0",  "tool-99"};
+  std::vector<std::string_view> candidates = {"tool-9", "tool-x", "tool-40", "tool-9",
+                                              "tool-y", "tool-x", "tool-0",  "tool-99"};
   CandidatesQuery q;
   q.user_id = "member-2";
   q.candidate_item_ids = candidates;

@@ -1,10 +1,11 @@
 // plumb-serve's settings: flags, the TOML file, and which one wins.
+#include "server/serve_config.h"
+
 #include <gtest/gtest.h>
 
 #include <fstream>
 #include <sstream>
 
-#include "server/serve_config.h"
 #include "tests/server/test_model.h"
 
 namespace plumb::server {

@@ -1,5 +1,7 @@
 // Snapshots: id maps, validation on build, loading from a store, and the catch-up loop that
 // skips bad versions while the old one keeps serving.
+#include "server/snapshot.h"
+
 #include <gtest/gtest.h>
 
 #include <cmath>
@@ -8,7 +10,6 @@
 
 #include "server/catch_up_loop.h"
 #include "server/id_map.h"
-#include "server/snapshot.h"
 #include "store/keys.h"
 #include "store/raw_records.h"
 #include "tests/server/test_model.h"
@@ -43,7 +44,8 @@ TEST(IdMapTest, RejectsDuplicatesAndEmptyIds) {
   IdMap map;
   Status s = IdMap::Build({"drill", "saw", "drill"}, &map);
   EXPECT_TRUE(s.IsCorruption());
-  EXPECT_NE(s.message().find("'drill' appears at indexes 0 and 2"), std::string::npos) << s.message();
+  EXPECT_NE(s.message().find("'drill' appears at indexes 0 and 2"), std::string::npos)
+      << s.message();
   EXPECT_TRUE(IdMap::Build({"drill", ""}, &map).IsCorruption());
   EXPECT_EQ(map.size(), 0u);  // unchanged on error
 }
@@ -250,12 +252,10 @@ TEST_F(StoreBackedTest, VersionsWithMissingOrWrongSizedBlocksAreSkipped) {
     // Items span five blocks of 64 rows; the ten users fit in block 0.
     const std::string key =
         store::keys::BlockKey(v, d.kind, d.kind == store::MatrixKind::kItems ? 1 : 0);
-    Status damage = d.remove
-                        ? store::testing::DeleteRawRecord(dir_.Sub("db"),
-                                                          store::keys::kModelsFamily, key)
-                        : store::testing::PutRawRecord(dir_.Sub("db"),
-                                                       store::keys::kModelsFamily, key,
-                                                       std::string(12, '\0'));
+    Status damage =
+        d.remove ? store::testing::DeleteRawRecord(dir_.Sub("db"), store::keys::kModelsFamily, key)
+                 : store::testing::PutRawRecord(dir_.Sub("db"), store::keys::kModelsFamily, key,
+                                                std::string(12, '\0'));
     ASSERT_TRUE(damage.ok()) << damage.ToString();
     OpenSecondary();
     CatchUpLoop loop(secondary_.get(), &holder, CatchUpOptions{});

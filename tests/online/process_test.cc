@@ -197,9 +197,23 @@ TEST(PlumbTrainProcess, AcknowledgedEventsSurviveSigkillAndResendsLeaveNoDuplica
   constexpr int kRounds = 12;
   auto child = std::make_unique<ChildProcess>(TrainArgs(db, port), log);
   ASSERT_TRUE(child->started());
-  std::uniform_int_distribution<int> pause_ms(150, 700);
+  std::uniform_int_distribution<int> from_start_ms(50, 600), from_serving_ms(0, 300);
   for (int round = 0; round < kRounds && client_ok.load(); ++round) {
-    std::this_thread::sleep_for(std::chrono::milliseconds(pause_ms(rng)));
+    if (round % 2 == 0) {
+      // A moment counted from the start: may land while the trainer opens the store and
+      // rebuilds its state, or while it serves.
+      std::this_thread::sleep_for(std::chrono::milliseconds(from_start_ms(rng)));
+    } else {
+      // A moment while it serves the stream: once this instance has acknowledged a chunk
+      // (however slow the start on a loaded machine).
+      const uint64_t acked_before = acked_events.load();
+      const auto limit = std::chrono::steady_clock::now() + std::chrono::seconds(15);
+      while (acked_events.load() == acked_before && client_ok.load() &&
+             std::chrono::steady_clock::now() < limit) {
+        std::this_thread::sleep_for(std::chrono::milliseconds(2));
+      }
+      std::this_thread::sleep_for(std::chrono::milliseconds(from_serving_ms(rng)));
+    }
     child->Signal(SIGKILL);
     const int status = child->Wait();
     EXPECT_TRUE(WIFSIGNALED(status) && WTERMSIG(status) == SIGKILL)

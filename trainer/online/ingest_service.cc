@@ -34,9 +34,7 @@ plumb::v1::RejectReason WireRejectReason(RejectReason reason) {
     case RejectReason::kBadEventId:
       return plumb::v1::REJECT_BAD_EVENT_ID;
     case RejectReason::kBadId:
-      // ingest.proto has no value for an id with control characters; the detail says
-      // what is wrong.
-      return plumb::v1::REJECT_REASON_UNSPECIFIED;
+      return plumb::v1::REJECT_BAD_ID;
   }
   return plumb::v1::REJECT_REASON_UNSPECIFIED;
 }

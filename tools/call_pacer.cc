@@ -1,11 +1,9 @@
 #include "tools/call_pacer.h"
 
-#include <algorithm>
-#include <cmath>
-#include <thread>
+#include <sys/prctl.h>
 
-#include <grpc/support/time.h>
-#include <grpcpp/alarm.h>
+#include <algorithm>
+#include <thread>
 
 namespace plumb::tools {
 
@@ -15,11 +13,20 @@ CallPacer::CallPacer(const PacingOptions& options, Starter start, Completion don
 void CallPacer::Run(LoadClock::time_point begin, LoadClock::time_point end) {
   grpc::CompletionQueue cq;
   if (options_.rate > 0) {
-    RunOpen(&cq, begin, end);
-  } else {
-    std::this_thread::sleep_until(begin);
-    RunClosed(&cq, end);
+    std::thread dispatcher([&] {
+      Dispatch(&cq, begin, end);
+      // No call is started after this; Next() returns the remaining completions, then
+      // false once the queue is empty.
+      cq.Shutdown();
+    });
+    void* tag;
+    bool ok;
+    while (cq.Next(&tag, &ok)) Finish(tag);
+    dispatcher.join();
+    return;
   }
+  std::this_thread::sleep_until(begin);
+  RunClosed(&cq, end);
   cq.Shutdown();
   void* tag;
   bool ok;
@@ -31,7 +38,7 @@ void CallPacer::Finish(void* tag) {
   PendingCall* call = static_cast<PendingCall*>(tag);
   done_(call, LoadClock::now());
   delete call;
-  --in_flight_;
+  in_flight_.fetch_sub(1, std::memory_order_release);
 }
 
 void CallPacer::RunClosed(grpc::CompletionQueue* cq, LoadClock::time_point end) {
@@ -39,77 +46,49 @@ void CallPacer::RunClosed(grpc::CompletionQueue* cq, LoadClock::time_point end) 
   for (uint32_t i = 0; i < slots && LoadClock::now() < end; ++i) {
     start_(cq, LoadClock::now());
     ++started_;
-    ++in_flight_;
+    in_flight_.fetch_add(1, std::memory_order_relaxed);
   }
   void* tag;
   bool ok;
-  while (in_flight_ > 0 && cq->Next(&tag, &ok)) {
+  while (in_flight_.load(std::memory_order_acquire) > 0 && cq->Next(&tag, &ok)) {
     Finish(tag);
     const LoadClock::time_point now = LoadClock::now();
     if (now < end) {
       start_(cq, now);
       ++started_;
-      ++in_flight_;
+      in_flight_.fetch_add(1, std::memory_order_relaxed);
     }
   }
 }
 
-void CallPacer::RunOpen(grpc::CompletionQueue* cq, LoadClock::time_point begin,
-                        LoadClock::time_point end) {
+void CallPacer::Dispatch(grpc::CompletionQueue* cq, LoadClock::time_point begin,
+                         LoadClock::time_point end) {
+  // The kernel may defer a sleeper's wake-up by the thread's timer slack (50 us by
+  // default) to batch wake-ups; the schedule wants it on time.
+  prctl(PR_SET_TIMERSLACK, 1UL, 0UL, 0UL, 0UL);
   const std::chrono::duration<double> interval(1.0 / options_.rate);
-  const uint32_t cap = std::max<uint32_t>(1, options_.max_outstanding);
-  // Slot k starts at begin + (k + phase) * interval; computed from k (not accumulated) so
+  const uint64_t cap = std::max<uint32_t>(1, options_.max_outstanding);
+  // Slot k starts at begin + (k + phase) * interval, computed from k (not accumulated) so
   // that rounding does not drift over a long run.
-  uint64_t next = 0;
-  auto slot_time = [&](uint64_t k) {
-    return begin + std::chrono::duration_cast<LoadClock::duration>(
-                       interval * (static_cast<double>(k) + options_.phase));
-  };
-  grpc::Alarm alarm;
-  void* const alarm_tag = &alarm;
-  bool alarm_set = false;
-  bool held = false;  // due slots are waiting because `cap` calls are in flight
-
-  // Starts every slot that is due, as far as the cap allows; then arms the alarm for the
-  // next slot unless the cap is what holds it back (a completion will resume it then).
-  auto start_due = [&] {
-    const LoadClock::time_point now = LoadClock::now();
-    while (slot_time(next) < end && slot_time(next) <= now) {
-      if (in_flight_ >= cap) {
-        held = true;
-        return;
+  for (uint64_t k = 0;; ++k) {
+    const LoadClock::time_point slot =
+        begin + std::chrono::duration_cast<LoadClock::duration>(
+                    interval * (static_cast<double>(k) + options_.phase));
+    if (slot >= end) break;
+    std::this_thread::sleep_until(slot);
+    if (in_flight_.load(std::memory_order_acquire) >= cap) {
+      ++delayed_;
+      // Completions run on the other thread; a short poll keeps this simple and costs
+      // nothing measurable next to a saturated server.
+      while (in_flight_.load(std::memory_order_acquire) >= cap) {
+        std::this_thread::sleep_for(std::chrono::microseconds(50));
       }
-      if (held) ++delayed_;
-      start_(cq, slot_time(next));
-      ++started_;
-      ++in_flight_;
-      ++next;
     }
-    held = false;
-    if (slot_time(next) < end && !alarm_set) {
-      // gRPC timers take their own clocks; a delay on its monotonic clock keeps the
-      // schedule immune to wall-clock steps.
-      const int64_t delay_ns = std::max<int64_t>(
-          0, std::chrono::duration_cast<std::chrono::nanoseconds>(slot_time(next) - LoadClock::now())
-                 .count());
-      alarm.Set(cq,
-                gpr_time_add(gpr_now(GPR_CLOCK_MONOTONIC),
-                             gpr_time_from_nanos(delay_ns, GPR_TIMESPAN)),
-                alarm_tag);
-      alarm_set = true;
-    }
-  };
-
-  start_due();
-  void* tag;
-  bool ok;
-  while ((alarm_set || in_flight_ > 0) && cq->Next(&tag, &ok)) {
-    if (tag == alarm_tag) {
-      alarm_set = false;
-    } else {
-      Finish(tag);
-    }
-    start_due();
+    start_lag_.Add(
+        std::chrono::duration_cast<std::chrono::nanoseconds>(LoadClock::now() - slot).count());
+    in_flight_.fetch_add(1, std::memory_order_relaxed);
+    start_(cq, slot);
+    ++started_;
   }
 }
 

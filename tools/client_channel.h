@@ -2,13 +2,13 @@
 // the optional bearer token plumb-train asks for, and the names of gRPC status codes.
 #pragma once
 
-#include <memory>
-#include <string>
-#include <string_view>
-
 #include <grpcpp/channel.h>
 #include <grpcpp/client_context.h>
 #include <grpcpp/support/status.h>
+
+#include <memory>
+#include <string>
+#include <string_view>
 
 #include "core/status.h"
 

@@ -22,8 +22,7 @@ struct BatchCall : PendingCall {
 
 EventPublisher::EventPublisher(std::shared_ptr<grpc::Channel> channel,
                                const std::vector<std::string>* users,
-                               const std::vector<std::string>* items,
-                               const PublishOptions& options)
+                               const std::vector<std::string>* items, const PublishOptions& options)
     : channel_(std::move(channel)), users_(users), items_(items), options_(options) {}
 
 Status EventPublisher::Run(LoadClock::time_point begin, LoadClock::time_point end,
@@ -79,7 +78,8 @@ Status EventPublisher::Run(LoadClock::time_point begin, LoadClock::time_point en
         }
         ++r.calls.ok;
         latencies.Add(
-            std::chrono::duration_cast<std::chrono::nanoseconds>(finished - call->scheduled).count());
+            std::chrono::duration_cast<std::chrono::nanoseconds>(finished - call->scheduled)
+                .count());
         r.accepted += call->summary.accepted();
         r.duplicates += call->summary.duplicates();
         r.rejected += call->summary.rejected();
@@ -88,6 +88,7 @@ Status EventPublisher::Run(LoadClock::time_point begin, LoadClock::time_point en
   pacer.Run(begin, end);
   r.seconds = std::chrono::duration<double>(end - begin).count();
   r.delayed = pacer.delayed();
+  r.start_lag = pacer.start_lag();
   r.calls.latency = latencies.Summarize();
   *result = std::move(r);
   return Status::Ok();

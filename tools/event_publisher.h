@@ -4,12 +4,12 @@
 // schedule (open loop) from one completion-queue thread.
 #pragma once
 
+#include <grpcpp/channel.h>
+
 #include <cstdint>
 #include <memory>
 #include <string>
 #include <vector>
-
-#include <grpcpp/channel.h>
 
 #include "core/status.h"
 #include "tools/call_pacer.h"
@@ -21,8 +21,8 @@ struct PublishOptions {
   double events_per_second = 1000;  // > 0
   uint32_t batch = 100;             // events per PublishBatch call
   int deadline_ms = 5000;
-  uint32_t max_outstanding = 64;    // batches in flight at most
-  double zipf_s = 1.0;              // user draw, as in LoadOptions
+  uint32_t max_outstanding = 64;  // batches in flight at most
+  double zipf_s = 1.0;            // user draw, as in LoadOptions
   uint64_t seed = 2;
   // Give every event an event_id (so the trainer's de-duplication does its work, as for a
   // client that may resend). Ids are unique to this run.
@@ -31,15 +31,16 @@ struct PublishOptions {
 };
 
 struct PublishResult {
-  double seconds = 0;            // how long the publisher ran
-  uint64_t batches = 0;          // calls finished
-  uint64_t events_sent = 0;      // events in finished calls
-  uint64_t acknowledged = 0;     // accepted + duplicates, as the summaries say
+  double seconds = 0;         // how long the publisher ran
+  uint64_t batches = 0;       // calls finished
+  uint64_t events_sent = 0;   // events in finished calls
+  uint64_t acknowledged = 0;  // accepted + duplicates, as the summaries say
   uint64_t accepted = 0;
   uint64_t duplicates = 0;
   uint64_t rejected = 0;
-  uint64_t delayed = 0;          // batches held back by max_outstanding
-  CallTally calls;               // per PublishBatch call; latency of OK calls
+  uint64_t delayed = 0;  // batches held back by max_outstanding
+  LatencySummary start_lag;  // how late batches started after their slots
+  CallTally calls;       // per PublishBatch call; latency of OK calls
 };
 
 class EventPublisher {

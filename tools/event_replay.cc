@@ -1,5 +1,7 @@
 #include "tools/event_replay.h"
 
+#include <grpcpp/client_context.h>
+
 #include <algorithm>
 #include <chrono>
 #include <cstdio>
@@ -7,8 +9,6 @@
 #include <ostream>
 #include <sstream>
 #include <thread>
-
-#include <grpcpp/client_context.h>
 
 #include "cli/csv_reader.h"
 #include "plumb/v1/ingest.grpc.pb.h"
@@ -70,7 +70,8 @@ Status ReplayEvents(std::shared_ptr<grpc::Channel> channel, const ReplayOptions&
   *summary = ReplaySummary{};
   const std::string& path = options.events_file;
   if (options.batch == 0) return Status::InvalidArgument("--batch must be at least 1");
-  if (!(options.events_per_second >= 0)) return Status::InvalidArgument("--rate must not be negative");
+  if (!(options.events_per_second >= 0))
+    return Status::InvalidArgument("--rate must not be negative");
 
   // ---- read and check everything before sending anything ------------------------------
   std::string text;
@@ -152,10 +153,11 @@ Status ReplayEvents(std::shared_ptr<grpc::Channel> channel, const ReplayOptions&
       if (status.ok() || !Transient(status.error_code()) || attempt >= options.retries) break;
       ++summary->retried;
       if (progress != nullptr) {
-        *progress << "replay: " << DescribeStatus(status) << " at " << path << ":"
-                  << lines[first] << "; sending the same events again\n";
+        *progress << "replay: " << DescribeStatus(status) << " at " << path << ":" << lines[first]
+                  << "; sending the same events again\n";
       }
-      std::this_thread::sleep_for(std::chrono::milliseconds(std::min(2000, 100 << std::min(attempt, 5u))));
+      std::this_thread::sleep_for(
+          std::chrono::milliseconds(std::min(2000, 100 << std::min(attempt, 5u))));
     }
     if (!status.ok()) {
       summary->seconds = std::chrono::duration<double>(Clock::now() - start).count();
@@ -182,7 +184,8 @@ Status ReplayEvents(std::shared_ptr<grpc::Channel> channel, const ReplayOptions&
     }
     pace(summary->sent);
     const Clock::time_point now = Clock::now();
-    if (progress != nullptr && (now - last_progress >= std::chrono::seconds(1) || last == events.size())) {
+    if (progress != nullptr &&
+        (now - last_progress >= std::chrono::seconds(1) || last == events.size())) {
       last_progress = now;
       const double elapsed = std::chrono::duration<double>(now - start).count();
       char line[256];

@@ -9,13 +9,13 @@
 // recognised as duplicates by the trainer, while a different file never collides with it.
 #pragma once
 
+#include <grpcpp/channel.h>
+
 #include <cstdint>
 #include <iosfwd>
 #include <memory>
 #include <string>
 #include <vector>
-
-#include <grpcpp/channel.h>
 
 #include "core/status.h"
 
@@ -39,16 +39,16 @@ struct ReplayOptions {
 };
 
 struct ReplaySummary {
-  uint64_t events = 0;      // events in the file
-  uint64_t sent = 0;        // events whose call was acknowledged
+  uint64_t events = 0;  // events in the file
+  uint64_t sent = 0;    // events whose call was acknowledged
   uint64_t accepted = 0;
   uint64_t duplicates = 0;
   uint64_t rejected = 0;
   uint64_t calls = 0;
-  uint64_t retried = 0;     // calls sent again after a transient failure
+  uint64_t retried = 0;  // calls sent again after a transient failure
   uint64_t last_sequence = 0;
-  double seconds = 0;       // from the first call to the last acknowledgement
-  std::string id_prefix;    // the prefix used for generated event ids
+  double seconds = 0;     // from the first call to the last acknowledgement
+  std::string id_prefix;  // the prefix used for generated event ids
   // "file:line: REASON: detail" for the first rejected events (at most 20).
   std::vector<std::string> rejections;
 };

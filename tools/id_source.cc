@@ -31,7 +31,8 @@ Status ReadIdFile(const std::string& path, std::vector<std::string>* ids) {
   while (std::getline(in, line)) {
     ++line_no;
     std::string_view id = line;
-    if (const size_t comma = id.find(','); comma != std::string_view::npos) id = id.substr(0, comma);
+    if (const size_t comma = id.find(','); comma != std::string_view::npos)
+      id = id.substr(0, comma);
     id = Trim(id);
     if (id.empty()) continue;
     if (id.size() > kMaxIdBytes) {

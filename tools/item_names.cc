@@ -13,7 +13,8 @@ Status ItemNames::Read(const std::string& path, ItemNames* out) {
   if (!in) return Status::NotFound("cannot open " + path);
   std::string line;
   std::vector<std::string> fields;
-  if (!std::getline(in, line)) return Status::InvalidArgument(path + ": empty file, expected a header line");
+  if (!std::getline(in, line))
+    return Status::InvalidArgument(path + ": empty file, expected a header line");
   if (Status s = cli::SplitCsvLine(line, &fields); !s.ok()) {
     return Status::InvalidArgument(path + ":1: " + s.message());
   }

@@ -13,15 +13,15 @@ namespace plumb::tools {
 // the value at rank ceil(p/100 * n) (1-based), so it is always an observed latency
 // (Hyndman & Fan 1996, definition 1; numpy's method="inverted_cdf").
 struct LatencySummary {
-  uint64_t count = 0;      // calls recorded
-  uint64_t kept = 0;       // samples the percentiles were taken from (== count below the cap)
+  uint64_t count = 0;  // calls recorded
+  uint64_t kept = 0;   // samples the percentiles were taken from (== count below the cap)
   int64_t min_ns = 0;
-  double mean_ns = 0;      // over all recorded calls, exact
+  double mean_ns = 0;  // over all recorded calls, exact
   int64_t p50_ns = 0;
   int64_t p90_ns = 0;
   int64_t p99_ns = 0;
   int64_t p999_ns = 0;
-  int64_t max_ns = 0;      // over all recorded calls, exact
+  int64_t max_ns = 0;  // over all recorded calls, exact
 };
 
 // Not thread-safe: one writer, or a lock around Add (the load engine does the latter).

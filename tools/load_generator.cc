@@ -47,9 +47,12 @@ struct Stubs {
 
 const char* LoadRpcName(LoadRpc rpc) {
   switch (rpc) {
-    case LoadRpc::kRecommend: return "recommend";
-    case LoadRpc::kSimilar: return "similar";
-    case LoadRpc::kHealth: return "health";
+    case LoadRpc::kRecommend:
+      return "recommend";
+    case LoadRpc::kSimilar:
+      return "similar";
+    case LoadRpc::kHealth:
+      return "health";
   }
   return "?";
 }
@@ -78,7 +81,8 @@ Status LoadGenerator::Run(LoadResult* result) {
 
   std::vector<Stubs> stubs;
   for (const auto& channel : channels_) {
-    stubs.push_back({plumb::v1::Ranker::NewStub(channel), grpc::health::v1::Health::NewStub(channel)});
+    stubs.push_back(
+        {plumb::v1::Ranker::NewStub(channel), grpc::health::v1::Health::NewStub(channel)});
   }
   const ZipfDraw draw(o.rpc == LoadRpc::kHealth ? 1 : ids_->size(), o.zipf_s, o.seed);
 
@@ -90,7 +94,8 @@ Status LoadGenerator::Run(LoadResult* result) {
   const LoadClock::time_point measure =
       begin + duration_cast<LoadClock::duration>(std::chrono::duration<double>(o.warmup_seconds));
   const LoadClock::time_point end =
-      measure + duration_cast<LoadClock::duration>(std::chrono::duration<double>(o.duration_seconds));
+      measure +
+      duration_cast<LoadClock::duration>(std::chrono::duration<double>(o.duration_seconds));
 
   std::mutex mu;  // guards tally and latencies
   CallTally tally;
@@ -181,6 +186,10 @@ Status LoadGenerator::Run(LoadResult* result) {
   for (const auto& pacer : pacers) {
     result->started += pacer->started();
     result->delayed += pacer->delayed();
+    const LatencySummary lag = pacer->start_lag();
+    if (lag.count > 0 && (result->start_lag.count == 0 || lag.p99_ns > result->start_lag.p99_ns)) {
+      result->start_lag = lag;
+    }
   }
   result->calls = std::move(tally);
   result->calls.latency = latencies.Summarize();

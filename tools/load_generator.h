@@ -2,13 +2,13 @@
 // one or two completion-queue threads and measures what a client sees.
 #pragma once
 
+#include <grpcpp/channel.h>
+
 #include <cstdint>
 #include <map>
 #include <memory>
 #include <string>
 #include <vector>
-
-#include <grpcpp/channel.h>
 
 #include "core/status.h"
 #include "tools/latency_record.h"
@@ -30,9 +30,9 @@ struct LoadOptions {
   // with `concurrency` calls in flight.
   double rate = 0;
   uint32_t concurrency = 8;
-  double warmup_seconds = 1;    // calls are made but not counted
-  double duration_seconds = 10; // the measured window
-  uint32_t threads = 1;         // completion-queue threads; closed loop uses <= concurrency
+  double warmup_seconds = 1;         // calls are made but not counted
+  double duration_seconds = 10;      // the measured window
+  uint32_t threads = 1;              // completion-queue threads; closed loop uses <= concurrency
   uint32_t max_outstanding = 10000;  // open loop: calls in flight at most
   int deadline_ms = 1000;
   // Recommend / SimilarItems fields.
@@ -48,18 +48,22 @@ struct LoadOptions {
 struct CallTally {
   uint64_t ok = 0;
   uint64_t failed = 0;
-  std::map<std::string, uint64_t> errors_by_code;      // code name -> calls
-  std::map<std::string, std::string> first_error;      // code name -> first message seen
-  LatencySummary latency;                              // OK calls only
+  std::map<std::string, uint64_t> errors_by_code;  // code name -> calls
+  std::map<std::string, std::string> first_error;  // code name -> first message seen
+  LatencySummary latency;                          // OK calls only
 
   void AddError(const std::string& code, const std::string& message);
 };
 
 struct LoadResult {
-  double seconds = 0;      // length of the measured window
-  uint64_t started = 0;    // calls started in the whole run, warm-up included
-  uint64_t delayed = 0;    // open loop: calls held back by max_outstanding
-  CallTally calls;         // calls scheduled inside the measured window
+  double seconds = 0;    // length of the measured window
+  uint64_t started = 0;  // calls started in the whole run, warm-up included
+  uint64_t delayed = 0;  // open loop: calls held back by max_outstanding
+  // Open loop: how late calls started after their slots (of the thread with the worst p99
+  // when there are several). Latencies include this; a start-lag p99 near the latency p99
+  // means the generator, not the server, set the tail.
+  LatencySummary start_lag;
+  CallTally calls;       // calls scheduled inside the measured window
   double calls_per_second() const {
     return seconds > 0 ? static_cast<double>(calls.ok + calls.failed) / seconds : 0;
   }

@@ -9,12 +9,11 @@
 //
 // Exit status: 0 done; 1 the run or replay could not be done (reason on stderr); 2 usage;
 // 3 replay finished but the trainer rejected some events (listed on stderr).
+#include <CLI/CLI.hpp>
 #include <chrono>
 #include <fstream>
 #include <iostream>
 #include <thread>
-
-#include <CLI/CLI.hpp>
 
 #include "tools/client_channel.h"
 #include "tools/event_publisher.h"
@@ -46,24 +45,28 @@ int Fail(const std::string& message) {
   return 1;
 }
 
-Status LoadIds(const LoadArgs& a, bool need_users, bool need_items,
-               std::vector<std::string>* users, std::vector<std::string>* items) {
+Status LoadIds(const LoadArgs& a, bool need_users, bool need_items, std::vector<std::string>* users,
+               std::vector<std::string>* items) {
   const bool users_from_db = need_users && a.users_file.empty();
   const bool items_from_db = need_items && a.items_file.empty();
   if ((users_from_db || items_from_db) && a.db.empty()) {
-    return Status::InvalidArgument(
-        std::string("this run needs ") +
-        (users_from_db && items_from_db ? "user and item ids" : users_from_db ? "user ids" : "item ids") +
-        ": give " + (users_from_db ? "--users-file" : "--items-file") + " or --db");
+    return Status::InvalidArgument(std::string("this run needs ") +
+                                   (users_from_db && items_from_db ? "user and item ids"
+                                    : users_from_db                ? "user ids"
+                                                                   : "item ids") +
+                                   ": give " + (users_from_db ? "--users-file" : "--items-file") +
+                                   " or --db");
   }
   if (users_from_db || items_from_db) {
-    PLUMB_RETURN_IF_ERROR(ReadActiveIds(a.db, users_from_db ? users : nullptr,
-                                        items_from_db ? items : nullptr));
+    PLUMB_RETURN_IF_ERROR(
+        ReadActiveIds(a.db, users_from_db ? users : nullptr, items_from_db ? items : nullptr));
   }
   if (need_users && !a.users_file.empty()) PLUMB_RETURN_IF_ERROR(ReadIdFile(a.users_file, users));
   if (need_items && !a.items_file.empty()) PLUMB_RETURN_IF_ERROR(ReadIdFile(a.items_file, items));
-  if (need_users && users->empty()) return Status::FailedPrecondition("the active version knows no users");
-  if (need_items && items->empty()) return Status::FailedPrecondition("the active version knows no items");
+  if (need_users && users->empty())
+    return Status::FailedPrecondition("the active version knows no users");
+  if (need_items && items->empty())
+    return Status::FailedPrecondition("the active version knows no items");
   return Status::Ok();
 }
 
@@ -74,7 +77,9 @@ bool Reachable(const std::shared_ptr<grpc::Channel>& channel, double seconds) {
 
 int RunLoad(LoadArgs& a) {
   LoadOptions& o = a.load;
-  o.rpc = a.rpc == "similar" ? LoadRpc::kSimilar : a.rpc == "health" ? LoadRpc::kHealth : LoadRpc::kRecommend;
+  o.rpc = a.rpc == "similar"  ? LoadRpc::kSimilar
+          : a.rpc == "health" ? LoadRpc::kHealth
+                              : LoadRpc::kRecommend;
   const bool publish = a.publish_rate > 0;
   std::vector<std::string> users, items;
   if (Status s = LoadIds(a, o.rpc == LoadRpc::kRecommend || publish,
@@ -107,7 +112,8 @@ int RunLoad(LoadArgs& a) {
     po.seed = o.seed + 1;
     po.event_ids = a.event_ids;
     if (!a.token_file.empty()) {
-      if (Status s = ReadBearerToken(a.token_file, &po.bearer_token); !s.ok()) return Fail(s.message());
+      if (Status s = ReadBearerToken(a.token_file, &po.bearer_token); !s.ok())
+        return Fail(s.message());
     }
     std::shared_ptr<grpc::Channel> channel;
     if (Status s = MakeChannel(a.train, &channel); !s.ok()) return Fail(s.message());
@@ -118,8 +124,9 @@ int RunLoad(LoadArgs& a) {
     report.published = true;
     report.ingest_target = a.train.target;
     const auto begin = LoadClock::now();
-    const auto end = begin + std::chrono::duration_cast<LoadClock::duration>(
-                                 std::chrono::duration<double>(o.warmup_seconds + o.duration_seconds));
+    const auto end =
+        begin + std::chrono::duration_cast<LoadClock::duration>(
+                    std::chrono::duration<double>(o.warmup_seconds + o.duration_seconds));
     publisher_thread = std::thread([&, channel, begin, end] {
       EventPublisher publisher(channel, &users, &items, po);
       publish_status = publisher.Run(begin, end, &report.publish);
@@ -154,7 +161,8 @@ int RunReplay(ReplayArgs& a) {
   ReplayOptions& o = a.replay;
   o.connect_timeout_ms = static_cast<int>(a.connect_timeout * 1000);
   if (!a.token_file.empty()) {
-    if (Status s = ReadBearerToken(a.token_file, &o.bearer_token); !s.ok()) return Fail(s.message());
+    if (Status s = ReadBearerToken(a.token_file, &o.bearer_token); !s.ok())
+      return Fail(s.message());
   }
   std::shared_ptr<grpc::Channel> channel;
   if (Status s = MakeChannel(a.train, &channel); !s.ok()) return Fail(s.message());
@@ -207,7 +215,8 @@ int main(int argc, char** argv) {
   LoadOptions& o = a.load;
   const std::string q = "Queries";
   app.add_option("--target", a.serve.target, "plumb-serve address HOST:PORT")->group(q);
-  app.add_option("--rpc", a.rpc, "recommend, similar (SimilarItems) or health (the empty-RPC floor)")
+  app.add_option("--rpc", a.rpc,
+                 "recommend, similar (SimilarItems) or health (the empty-RPC floor)")
       ->check(CLI::IsMember({"recommend", "similar", "health"}))
       ->group(q);
   app.add_option("--concurrency", o.concurrency, "Closed loop: calls kept in flight")
@@ -222,14 +231,17 @@ int main(int argc, char** argv) {
   app.add_option("--warmup", o.warmup_seconds, "Seconds of calls before measuring")
       ->check(CLI::Range(0.0, 3600.0))
       ->group(q);
-  app.add_option("--threads", o.threads, "Completion-queue threads")->check(CLI::Range(1u, 64u))->group(q);
+  app.add_option("--threads", o.threads, "Completion-queue threads")
+      ->check(CLI::Range(1u, 64u))
+      ->group(q);
   app.add_option("--channels", a.channels, "gRPC connections to the server (calls alternate)")
       ->check(CLI::Range(1u, 64u))
       ->group(q);
   app.add_option("--count", o.count, "Items per answer (Recommend, SimilarItems)")
       ->check(CLI::Range(1u, 1000000u))
       ->group(q);
-  app.add_flag("--exclude-seen", o.exclude_seen, "Recommend: leave out items the user already had")->group(q);
+  app.add_flag("--exclude-seen", o.exclude_seen, "Recommend: leave out items the user already had")
+      ->group(q);
   app.add_option("--deadline-ms", o.deadline_ms, "Deadline of each call")
       ->check(CLI::Range(1, 3600000))
       ->group(q);
@@ -238,13 +250,15 @@ int main(int argc, char** argv) {
                  "their scheduled start)")
       ->check(CLI::Range(1u, 10000000u))
       ->group(q);
-  app.add_option("--health-service", o.health_service, "--rpc health: service name to ask about ('' = server)")
+  app.add_option("--health-service", o.health_service,
+                 "--rpc health: service name to ask about ('' = server)")
       ->group(q);
   app.add_option("--max-samples", o.max_samples,
                  "Latencies kept for exact percentiles; beyond, a uniform sample")
       ->check(CLI::Range(size_t{1000}, size_t{1} << 30))
       ->group(q);
-  app.add_option("--connect-timeout", a.connect_timeout, "Seconds to wait for the servers to be reachable")
+  app.add_option("--connect-timeout", a.connect_timeout,
+                 "Seconds to wait for the servers to be reachable")
       ->check(CLI::Range(0.1, 3600.0))
       ->group(q);
   AddTlsOptions(&app, &a.serve, "--target-tls-ca", "plumb-serve");
@@ -254,7 +268,9 @@ int main(int argc, char** argv) {
   app.add_option("--json", a.json_file, "Also write the report as JSON to this file");
 
   const std::string ids = "Who is asked about";
-  app.add_option("--users-file", a.users_file, "User ids, one per line")->check(CLI::ExistingFile)->group(ids);
+  app.add_option("--users-file", a.users_file, "User ids, one per line")
+      ->check(CLI::ExistingFile)
+      ->group(ids);
   app.add_option("--items-file", a.items_file, "Item ids, one per line (first CSV column)")
       ->check(CLI::ExistingFile)
       ->group(ids);
@@ -262,7 +278,8 @@ int main(int argc, char** argv) {
                  "Store directory: take the users and items its active version knows (opened "
                  "read-only as a secondary)")
       ->group(ids);
-  app.add_option("--zipf", o.zipf_s, "Skew s: the r-th most frequent id is drawn with weight 1/r^s (0: uniform)")
+  app.add_option("--zipf", o.zipf_s,
+                 "Skew s: the r-th most frequent id is drawn with weight 1/r^s (0: uniform)")
       ->check(CLI::Range(0.0, 10.0))
       ->group(ids);
   app.add_option("--seed", o.seed, "Seed of the id permutation and the draws")->group(ids);
@@ -290,23 +307,34 @@ int main(int argc, char** argv) {
       "so that replaying the same file again is recognised as duplicates. Progress on stderr, "
       "summary on stdout.");
   replay->option_defaults()->always_capture_default();
-  replay->add_option("--events", r.replay.events_file, "The CSV file")->required()->check(CLI::ExistingFile);
+  replay->add_option("--events", r.replay.events_file, "The CSV file")
+      ->required()
+      ->check(CLI::ExistingFile);
   replay->add_option("--ingest-target,--target", r.train.target, "plumb-train address HOST:PORT");
-  replay->add_option("--rate", r.replay.events_per_second, "Events per second (0: as fast as acknowledged)")
+  replay
+      ->add_option("--rate", r.replay.events_per_second,
+                   "Events per second (0: as fast as acknowledged)")
       ->check(CLI::Range(0.0, 1e8));
-  replay->add_option("--batch", r.replay.batch, "Events per call (PublishBatch) or per stream (--stream)")
+  replay
+      ->add_option("--batch", r.replay.batch,
+                   "Events per call (PublishBatch) or per stream (--stream)")
       ->check(CLI::Range(1u, 100000u));
   replay->add_flag("--stream", r.replay.stream, "Use the client-streaming Publish call");
   replay->add_option("--id-prefix", r.replay.id_prefix,
                      "Prefix of generated event ids (default: 'f' + a hash of the file)");
-  replay->add_option("--retries", r.replay.retries,
-                     "Resends of a call that failed with UNAVAILABLE, RESOURCE_EXHAUSTED, "
-                     "DEADLINE_EXCEEDED or ABORTED")
+  replay
+      ->add_option("--retries", r.replay.retries,
+                   "Resends of a call that failed with UNAVAILABLE, RESOURCE_EXHAUSTED, "
+                   "DEADLINE_EXCEEDED or ABORTED")
       ->check(CLI::Range(0u, 1000u));
-  replay->add_option("--deadline-ms", r.replay.deadline_ms, "Deadline of each call")->check(CLI::Range(1, 3600000));
-  replay->add_option("--connect-timeout", r.connect_timeout, "Seconds to wait for plumb-train to be reachable")
+  replay->add_option("--deadline-ms", r.replay.deadline_ms, "Deadline of each call")
+      ->check(CLI::Range(1, 3600000));
+  replay
+      ->add_option("--connect-timeout", r.connect_timeout,
+                   "Seconds to wait for plumb-train to be reachable")
       ->check(CLI::Range(0.1, 3600.0));
-  replay->add_option("--token-file", r.token_file, "File with plumb-train's bearer token")->check(CLI::ExistingFile);
+  replay->add_option("--token-file", r.token_file, "File with plumb-train's bearer token")
+      ->check(CLI::ExistingFile);
   AddTlsOptions(replay, &r.train, "--tls-ca", "plumb-train");
   replay->add_option("--tls-server-name", r.train.tls_server_name,
                      "Name to expect in the trainer's certificate instead of the host");

@@ -78,11 +78,21 @@ std::string JsonString(const std::string& text) {
   std::string out = "\"";
   for (unsigned char c : text) {
     switch (c) {
-      case '"': out += "\\\""; break;
-      case '\\': out += "\\\\"; break;
-      case '\n': out += "\\n"; break;
-      case '\r': out += "\\r"; break;
-      case '\t': out += "\\t"; break;
+      case '"':
+        out += "\\\"";
+        break;
+      case '\\':
+        out += "\\\\";
+        break;
+      case '\n':
+        out += "\\n";
+        break;
+      case '\r':
+        out += "\\r";
+        break;
+      case '\t':
+        out += "\\t";
+        break;
       default:
         if (c < 0x20) {
           char esc[8];
@@ -116,6 +126,11 @@ void PrintLoadReport(const LoadReport& report, std::ostream& out) {
         << " were in flight (latency counts from their scheduled start)\n";
   }
   out << "  latency of OK calls, microseconds: " << LatencyLine(r.calls.latency) << "\n";
+  if (o.rate > 0) {
+    out << "  start lag (call start after its slot, included above), microseconds: p50 "
+        << Fixed(Us(r.start_lag.p50_ns), 1) << "  p99 " << Fixed(Us(r.start_lag.p99_ns), 1)
+        << "  max " << Fixed(Us(r.start_lag.max_ns), 1) << "\n";
+  }
   if (r.calls.failed > 0) {
     out << "  errors by status:\n";
     ErrorLines(r.calls, "    ", out);
@@ -161,7 +176,8 @@ std::string LoadReportJson(const LoadReport& report) {
       << "  \"delayed\": " << r.delayed << ",\n"
       << "  \"errors_by_code\": " << ErrorsJson(r.calls) << ",\n"
       << "  \"first_error\": " << FirstErrorsJson(r.calls) << ",\n"
-      << "  \"latency_us\": " << LatencyJson(r.calls.latency);
+      << "  \"latency_us\": " << LatencyJson(r.calls.latency) << ",\n"
+      << "  \"start_lag_us\": " << LatencyJson(r.start_lag);
   if (report.published) {
     const PublishResult& p = report.publish;
     const PublishOptions& po = report.publish_options;
@@ -182,7 +198,8 @@ std::string LoadReportJson(const LoadReport& report) {
         << "    \"delayed\": " << p.delayed << ",\n"
         << "    \"errors_by_code\": " << ErrorsJson(p.calls) << ",\n"
         << "    \"first_error\": " << FirstErrorsJson(p.calls) << ",\n"
-        << "    \"batch_latency_us\": " << LatencyJson(p.calls.latency) << "\n  }";
+        << "    \"batch_latency_us\": " << LatencyJson(p.calls.latency) << ",\n"
+        << "    \"start_lag_us\": " << LatencyJson(p.start_lag) << "\n  }";
   }
   out << "\n}\n";
   return out.str();

@@ -5,15 +5,15 @@
 //
 // Exit status: 0 success (health: only when SERVING); 1 the call failed, with one line
 // "plumb-query: <STATUS_CODE>: <message>" on stderr; 2 usage error.
+#include <grpcpp/client_context.h>
+
+#include <CLI/CLI.hpp>
 #include <cmath>
 #include <cstdio>
 #include <ctime>
 #include <iostream>
 #include <memory>
 #include <sstream>
-
-#include <CLI/CLI.hpp>
-#include <grpcpp/client_context.h>
 
 #include "grpc/health/v1/health.grpc.pb.h"
 #include "plumb/v1/control.grpc.pb.h"
@@ -104,7 +104,7 @@ int Recommend(const ListArgs& a) {
   std::printf("model version %llu, user %s, %d items%s\n",
               static_cast<unsigned long long>(response.model_version()), a.id.c_str(),
               response.items_size(),
-              response.fallback()   ? " (unknown user: most-interacted fallback, not personal)"
+              response.fallback()    ? " (unknown user: most-interacted fallback, not personal)"
               : response.folded_in() ? " (unknown user: folded in from the recent items)"
                                      : "");
   return PrintItems(response.items(), a.names_file);
@@ -163,7 +163,8 @@ int Health(const Connection& c, const std::string& service) {
   const grpc::Status status =
       grpc::health::v1::Health::NewStub(channel)->Check(&context, request, &response);
   if (!status.ok()) return Fail(status);
-  const std::string name = grpc::health::v1::HealthCheckResponse::ServingStatus_Name(response.status());
+  const std::string name =
+      grpc::health::v1::HealthCheckResponse::ServingStatus_Name(response.status());
   std::printf("%s\n", name.c_str());
   return response.status() == grpc::health::v1::HealthCheckResponse::SERVING ? 0 : 1;
 }
@@ -181,20 +182,26 @@ std::string FormatTime(int64_t ms) {
 
 const char* GateName(plumb::v1::GateOutcome gate) {
   switch (gate) {
-    case plumb::v1::GATE_PASSED: return "passed";
-    case plumb::v1::GATE_FAILED: return "failed";
-    case plumb::v1::GATE_SKIPPED: return "skipped";
-    default: return "-";
+    case plumb::v1::GATE_PASSED:
+      return "passed";
+    case plumb::v1::GATE_FAILED:
+      return "failed";
+    case plumb::v1::GATE_SKIPPED:
+      return "skipped";
+    default:
+      return "-";
   }
 }
 
 void PrintStatus(const plumb::v1::TrainerStatus& s) {
-  const uint64_t lag = s.last_sequence() > s.trained_sequence() ? s.last_sequence() - s.trained_sequence() : 0;
+  const uint64_t lag =
+      s.last_sequence() > s.trained_sequence() ? s.last_sequence() - s.trained_sequence() : 0;
   std::printf("active version:    %llu%s\n", static_cast<unsigned long long>(s.active_version()),
               s.active_version() == 0 ? " (none)" : "");
   std::printf("last sequence:     %llu\n", static_cast<unsigned long long>(s.last_sequence()));
   std::printf("trained sequence:  %llu (lag %llu events)\n",
-              static_cast<unsigned long long>(s.trained_sequence()), static_cast<unsigned long long>(lag));
+              static_cast<unsigned long long>(s.trained_sequence()),
+              static_cast<unsigned long long>(lag));
   std::printf("auto-activate:     %s\n", s.auto_activate() ? "on" : "off");
   std::printf("objective:         %s\n", s.objective().c_str());
   std::printf("users:             %u\n", s.num_users());
@@ -221,11 +228,11 @@ int Versions(const Connection& c) {
     if (std::isfinite(v.validation_recall()) && v.validation_k() > 0) {
       std::snprintf(recall, sizeof recall, "%.4f @%u", v.validation_recall(), v.validation_k());
     }
-    std::printf("%-2s %8llu  %-20s  %-9s %10llu %8u %8u %5u  %-14s %-8s %s\n", v.active() ? "*" : "",
-                static_cast<unsigned long long>(v.version()), FormatTime(v.created_ms()).c_str(),
-                v.objective().c_str(), static_cast<unsigned long long>(v.events_seen()),
-                v.num_users(), v.num_items(), v.dim(), recall, GateName(v.gate()),
-                v.gate_reason().c_str());
+    std::printf("%-2s %8llu  %-20s  %-9s %10llu %8u %8u %5u  %-14s %-8s %s\n",
+                v.active() ? "*" : "", static_cast<unsigned long long>(v.version()),
+                FormatTime(v.created_ms()).c_str(), v.objective().c_str(),
+                static_cast<unsigned long long>(v.events_seen()), v.num_users(), v.num_items(),
+                v.dim(), recall, GateName(v.gate()), v.gate_reason().c_str());
   }
   return 0;
 }
@@ -277,7 +284,8 @@ int AutoActivate(const Connection& c, const std::string& setting) {
 void AddConnection(CLI::App* cmd, Connection* c, bool control) {
   cmd->add_option("--target", c->spec.target,
                   control ? "plumb-train address HOST:PORT" : "plumb-serve address HOST:PORT");
-  cmd->add_option("--timeout-ms", c->timeout_ms, "Deadline of the call")->check(CLI::Range(1, 3600000));
+  cmd->add_option("--timeout-ms", c->timeout_ms, "Deadline of the call")
+      ->check(CLI::Range(1, 3600000));
   cmd->add_option("--tls-ca", c->spec.tls_ca_file, "PEM CA bundle to trust: connect with TLS")
       ->check(CLI::ExistingFile);
   cmd->add_option("--tls-server-name", c->spec.tls_server_name,
@@ -302,13 +310,15 @@ int main(int argc, char** argv) {
   app.get_formatter()->column_width(34);
 
   ListArgs rec;
-  CLI::App* recommend = app.add_subcommand("recommend", "Top-N items for a user (Ranker/Recommend)");
+  CLI::App* recommend =
+      app.add_subcommand("recommend", "Top-N items for a user (Ranker/Recommend)");
   AddConnection(recommend, &rec.conn, false);
   recommend->add_option("--user", rec.id, "External user id")->required();
   recommend->add_option("--count", rec.count, "How many items")->check(CLI::Range(1u, 1000000u));
   recommend->add_flag("--exclude-seen", rec.exclude_seen, "Leave out items the user already had");
-  recommend->add_option("--recent", rec.recent,
-                        "For a user the model does not know: recent items, most recent first")
+  recommend
+      ->add_option("--recent", rec.recent,
+                   "For a user the model does not know: recent items, most recent first")
       ->delimiter(',');
   recommend->add_option("--exclude", rec.exclude, "Items never to return")->delimiter(',');
   recommend->add_flag("--fallback", rec.fallback,
@@ -318,15 +328,18 @@ int main(int argc, char** argv) {
       ->check(CLI::ExistingFile);
 
   ListArgs sim;
-  CLI::App* similar = app.add_subcommand("similar", "Items most like an item (Ranker/SimilarItems)");
+  CLI::App* similar =
+      app.add_subcommand("similar", "Items most like an item (Ranker/SimilarItems)");
   AddConnection(similar, &sim.conn, false);
   similar->add_option("--item", sim.id, "External item id")->required();
   similar->add_option("--count", sim.count, "How many items")->check(CLI::Range(1u, 1000000u));
   similar->add_option("--exclude", sim.exclude, "Items never to return")->delimiter(',');
-  similar->add_option("--names", sim.names_file, "item,name CSV to show names")->check(CLI::ExistingFile);
+  similar->add_option("--names", sim.names_file, "item,name CSV to show names")
+      ->check(CLI::ExistingFile);
 
   ListArgs rk;
-  CLI::App* rank = app.add_subcommand("rank", "Order candidate items for a user (Ranker/RankCandidates)");
+  CLI::App* rank =
+      app.add_subcommand("rank", "Order candidate items for a user (Ranker/RankCandidates)");
   AddConnection(rank, &rk.conn, false);
   rank->add_option("--user", rk.id, "External user id")->required();
   rank->add_option("--candidates", rk.candidates, "Candidate item ids, comma-separated")
@@ -334,7 +347,8 @@ int main(int argc, char** argv) {
       ->required();
   rank->add_option("--recent", rk.recent, "For a user the model does not know: recent items")
       ->delimiter(',');
-  rank->add_option("--names", rk.names_file, "item,name CSV to show names")->check(CLI::ExistingFile);
+  rank->add_option("--names", rk.names_file, "item,name CSV to show names")
+      ->check(CLI::ExistingFile);
 
   Connection health_conn{"127.0.0.1:7400"};
   std::string health_service;
@@ -344,19 +358,26 @@ int main(int argc, char** argv) {
   health->add_option("--service", health_service, "Service to ask about ('' = the server)");
 
   Connection control{"127.0.0.1:7601"};
-  CLI::App* versions = app.add_subcommand("versions", "Embedding versions the trainer keeps, newest first");
+  CLI::App* versions =
+      app.add_subcommand("versions", "Embedding versions the trainer keeps, newest first");
   AddConnection(versions, &control, true);
-  CLI::App* status = app.add_subcommand("status", "What the trainer is doing: log, lag, active version");
+  CLI::App* status =
+      app.add_subcommand("status", "What the trainer is doing: log, lag, active version");
   AddConnection(status, &control, true);
   uint64_t version = 0;
-  CLI::App* activate = app.add_subcommand("activate", "Make a kept version the active one (promote or roll back)");
+  CLI::App* activate =
+      app.add_subcommand("activate", "Make a kept version the active one (promote or roll back)");
   AddConnection(activate, &control, true);
-  activate->add_option("--version", version, "Version number")->required()->check(CLI::PositiveNumber);
+  activate->add_option("--version", version, "Version number")
+      ->required()
+      ->check(CLI::PositiveNumber);
   std::string setting;
-  CLI::App* auto_activate =
-      app.add_subcommand("auto-activate", "Turn automatic activation of gate-passing versions on or off");
+  CLI::App* auto_activate = app.add_subcommand(
+      "auto-activate", "Turn automatic activation of gate-passing versions on or off");
   AddConnection(auto_activate, &control, true);
-  auto_activate->add_option("setting", setting, "on or off")->required()->check(CLI::IsMember({"on", "off"}));
+  auto_activate->add_option("setting", setting, "on or off")
+      ->required()
+      ->check(CLI::IsMember({"on", "off"}));
 
   try {
     app.parse(argc, argv);

@@ -29,9 +29,9 @@ class ZipfDraw {
   size_t size() const { return order_.size(); }
 
  private:
-  std::vector<double> cdf_;         // cdf_[r] = P(rank <= r), cdf_.back() == 1
-  std::vector<uint32_t> order_;     // rank -> index
-  std::vector<uint32_t> rank_of_;   // index -> rank
+  std::vector<double> cdf_;        // cdf_[r] = P(rank <= r), cdf_.back() == 1
+  std::vector<uint32_t> order_;    // rank -> index
+  std::vector<uint32_t> rank_of_;  // index -> rank
 };
 
 }  // namespace plumb::tools

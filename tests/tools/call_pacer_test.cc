@@ -3,12 +3,12 @@
 // checked without a server.
 #include "tools/call_pacer.h"
 
+#include <grpcpp/alarm.h>
 #include <gtest/gtest.h>
 
 #include <algorithm>
+#include <mutex>
 #include <vector>
-
-#include <grpcpp/alarm.h>
 
 namespace plumb::tools {
 namespace {
@@ -19,7 +19,10 @@ struct TimerCall : PendingCall {
   grpc::Alarm alarm;
 };
 
+// Open loop starts calls on a dispatcher thread while completions run on the caller's
+// thread, hence the lock.
 struct Observed {
+  std::mutex mu;
   uint64_t started = 0, finished = 0;
   int in_flight = 0, max_in_flight = 0;
   std::vector<LoadClock::time_point> scheduled;
@@ -27,12 +30,15 @@ struct Observed {
 
 CallPacer::Starter TimerStarter(Observed* seen, milliseconds call_time) {
   return [seen, call_time](grpc::CompletionQueue* cq, LoadClock::time_point scheduled) {
+    {
+      std::lock_guard<std::mutex> lock(seen->mu);
+      ++seen->started;
+      seen->max_in_flight = std::max(seen->max_in_flight, ++seen->in_flight);
+      seen->scheduled.push_back(scheduled);
+    }
     auto* call = new TimerCall;
     call->scheduled = scheduled;
     call->alarm.Set(cq, std::chrono::system_clock::now() + call_time, call);
-    ++seen->started;
-    seen->max_in_flight = std::max(seen->max_in_flight, ++seen->in_flight);
-    seen->scheduled.push_back(scheduled);
     return call;
   };
 }
@@ -40,6 +46,7 @@ CallPacer::Starter TimerStarter(Observed* seen, milliseconds call_time) {
 CallPacer::Completion Count(Observed* seen) {
   return [seen](PendingCall* call, LoadClock::time_point finished) {
     EXPECT_GE(finished, call->scheduled);
+    std::lock_guard<std::mutex> lock(seen->mu);
     ++seen->finished;
     --seen->in_flight;
   };
@@ -77,10 +84,12 @@ TEST(CallPacerTest, OpenLoopStartsEverySlotAtItsScheduledTime) {
   ASSERT_EQ(seen.started, 150u);
   EXPECT_EQ(seen.finished, 150u);
   for (size_t k = 0; k < seen.scheduled.size(); ++k) {
-    const auto offset = std::chrono::duration_cast<std::chrono::microseconds>(seen.scheduled[k] - begin);
+    const auto offset =
+        std::chrono::duration_cast<std::chrono::microseconds>(seen.scheduled[k] - begin);
     EXPECT_NEAR(static_cast<double>(offset.count()), 2000.0 * k + 1000.0, 1.0) << "slot " << k;
   }
   EXPECT_EQ(pacer.delayed(), 0u);
+  EXPECT_EQ(pacer.start_lag().count, 150u);  // one lag per started call
 }
 
 // With calls longer than max_outstanding slots, later slots wait for a free place and are
@@ -104,6 +113,8 @@ TEST(CallPacerTest, OpenLoopCapDelaysSlotsButKeepsTheirSchedule) {
   EXPECT_EQ(seen.max_in_flight, 2);
   EXPECT_EQ(seen.started, 100u);  // every slot before `end` is started eventually
   EXPECT_GT(pacer.delayed(), 50u);
+  // The lag of a held-back slot includes its wait.
+  EXPECT_GT(pacer.start_lag().max_ns, 200'000'000);
   // The 50th slot was scheduled at 50 ms but could not start before about 24 * 20 ms.
   EXPECT_LT(seen.scheduled[49] - begin, milliseconds(51));
   EXPECT_GT(started_at[49] - begin, milliseconds(200));

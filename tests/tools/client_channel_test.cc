@@ -2,7 +2,6 @@
 #include "tools/client_channel.h"
 
 #include <gtest/gtest.h>
-
 #include <sys/stat.h>
 
 #include <fstream>
@@ -27,18 +26,33 @@ TEST(BearerTokenTest, TrimsSurroundingWhitespace) {
 
 TEST(BearerTokenTest, RefusesEmptyOrSpacedTokens) {
   std::string token = "unchanged";
-  EXPECT_EQ(ReadBearerToken(WriteFile("empty", " \n"), &token).code(), Status::Code::kInvalidArgument);
-  EXPECT_EQ(ReadBearerToken(WriteFile("spaced", "ab cd\n"), &token).code(), Status::Code::kInvalidArgument);
+  EXPECT_EQ(ReadBearerToken(WriteFile("empty", " \n"), &token).code(),
+            Status::Code::kInvalidArgument);
+  EXPECT_EQ(ReadBearerToken(WriteFile("spaced", "ab cd\n"), &token).code(),
+            Status::Code::kInvalidArgument);
   EXPECT_EQ(ReadBearerToken(::testing::TempDir() + "/none", &token).code(), Status::Code::kIoError);
   EXPECT_EQ(token, "unchanged");
 }
 
 // Names as the gRPC protocol documents them (doc/statuscodes.md).
 TEST(StatusNameTest, EveryCodeHasItsProtocolName) {
-  const char* names[] = {"OK", "CANCELLED", "UNKNOWN", "INVALID_ARGUMENT", "DEADLINE_EXCEEDED",
-                         "NOT_FOUND", "ALREADY_EXISTS", "PERMISSION_DENIED", "RESOURCE_EXHAUSTED",
-                         "FAILED_PRECONDITION", "ABORTED", "OUT_OF_RANGE", "UNIMPLEMENTED",
-                         "INTERNAL", "UNAVAILABLE", "DATA_LOSS", "UNAUTHENTICATED"};
+  const char* names[] = {"OK",
+                         "CANCELLED",
+                         "UNKNOWN",
+                         "INVALID_ARGUMENT",
+                         "DEADLINE_EXCEEDED",
+                         "NOT_FOUND",
+                         "ALREADY_EXISTS",
+                         "PERMISSION_DENIED",
+                         "RESOURCE_EXHAUSTED",
+                         "FAILED_PRECONDITION",
+                         "ABORTED",
+                         "OUT_OF_RANGE",
+                         "UNIMPLEMENTED",
+                         "INTERNAL",
+                         "UNAVAILABLE",
+                         "DATA_LOSS",
+                         "UNAUTHENTICATED"};
   for (int code = 0; code <= 16; ++code) {
     EXPECT_EQ(StatusCodeName(static_cast<grpc::StatusCode>(code)), names[code]) << code;
   }
@@ -67,7 +81,8 @@ TEST(IdFileTest, RefusesOverlongIdsAndEmptyFiles) {
   const Status s = ReadIdFile(WriteFile("long.txt", "ok\n" + std::string(257, 'x') + "\n"), &ids);
   EXPECT_EQ(s.code(), Status::Code::kInvalidArgument);
   EXPECT_NE(s.message().find("long.txt:2"), std::string::npos) << s.message();
-  EXPECT_EQ(ReadIdFile(WriteFile("blank.txt", "\n\n"), &ids).code(), Status::Code::kInvalidArgument);
+  EXPECT_EQ(ReadIdFile(WriteFile("blank.txt", "\n\n"), &ids).code(),
+            Status::Code::kInvalidArgument);
   EXPECT_EQ(ReadIdFile(::testing::TempDir() + "/absent.txt", &ids).code(), Status::Code::kNotFound);
 }
 

@@ -1,14 +1,13 @@
 // ReplayEvents against an in-process EventIngest that records what it receives.
 #include "tools/event_replay.h"
 
+#include <grpcpp/grpcpp.h>
 #include <gtest/gtest.h>
 
 #include <fstream>
 #include <mutex>
 #include <set>
 #include <sstream>
-
-#include <grpcpp/grpcpp.h>
 
 #include "plumb/v1/ingest.grpc.pb.h"
 #include "tools/client_channel.h"
@@ -20,9 +19,11 @@ namespace {
 // UNAVAILABLE and reject events whose item is "bad".
 class RecordingIngest final : public plumb::v1::EventIngest::Service {
  public:
-  grpc::Status PublishBatch(grpc::ServerContext* context, const plumb::v1::PublishBatchRequest* request,
+  grpc::Status PublishBatch(grpc::ServerContext* context,
+                            const plumb::v1::PublishBatchRequest* request,
                             plumb::v1::PublishSummary* summary) override {
-    std::vector<plumb::v1::InteractionEvent> events(request->events().begin(), request->events().end());
+    std::vector<plumb::v1::InteractionEvent> events(request->events().begin(),
+                                                    request->events().end());
     return Take(context, events, summary, /*streamed=*/false);
   }
   grpc::Status Publish(grpc::ServerContext* context,
@@ -35,7 +36,7 @@ class RecordingIngest final : public plumb::v1::EventIngest::Service {
   }
 
   std::mutex mu;
-  int fail_first = 0;                       // calls to answer UNAVAILABLE
+  int fail_first = 0;                                 // calls to answer UNAVAILABLE
   std::vector<plumb::v1::InteractionEvent> received;  // appended events, in order
   std::vector<size_t> call_sizes;
   std::vector<bool> call_streamed;
@@ -43,7 +44,8 @@ class RecordingIngest final : public plumb::v1::EventIngest::Service {
   std::set<std::string> seen_ids;
 
  private:
-  grpc::Status Take(grpc::ServerContext* context, const std::vector<plumb::v1::InteractionEvent>& events,
+  grpc::Status Take(grpc::ServerContext* context,
+                    const std::vector<plumb::v1::InteractionEvent>& events,
                     plumb::v1::PublishSummary* summary, bool streamed) {
     std::lock_guard<std::mutex> lock(mu);
     const auto auth = context->client_metadata().find("authorization");
@@ -104,13 +106,13 @@ class EventReplayTest : public ::testing::Test {
 
 // Line numbers count the header and blank lines, so generated ids name the file line.
 constexpr char kHistory[] =
-    "user,item,ts,event_id\n"   // line 1
-    "m1,t1,1000,\n"             // 2
-    "m2,t2,2000,own-id\n"       // 3
-    "\n"                        // 4: blank, skipped
-    "m3,t3,,\n"                 // 5
-    "m1,t2,4000,\n"             // 6
-    "m2,t3,5000,\n";            // 7
+    "user,item,ts,event_id\n"  // line 1
+    "m1,t1,1000,\n"            // 2
+    "m2,t2,2000,own-id\n"      // 3
+    "\n"                       // 4: blank, skipped
+    "m3,t3,,\n"                // 5
+    "m1,t2,4000,\n"            // 6
+    "m2,t3,5000,\n";           // 7
 
 TEST_F(EventReplayTest, SendsEveryEventInFileOrderWithLineIds) {
   ReplayOptions options;

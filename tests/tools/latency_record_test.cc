@@ -29,9 +29,9 @@ TEST(LatencyRecordTest, EmptyRecordSummarisesToZeros) {
 TEST(LatencyRecordTest, NearestRankOnOneToTen) {
   LatencyRecord record;
   for (int v : {7, 3, 10, 1, 9, 2, 8, 4, 6, 5}) record.Add(v);
-  EXPECT_EQ(record.Percentile(10), 1);   // rank 1
-  EXPECT_EQ(record.Percentile(11), 2);   // ceil(1.1) = 2
-  EXPECT_EQ(record.Percentile(50), 5);   // rank 5 exactly, not 6
+  EXPECT_EQ(record.Percentile(10), 1);  // rank 1
+  EXPECT_EQ(record.Percentile(11), 2);  // ceil(1.1) = 2
+  EXPECT_EQ(record.Percentile(50), 5);  // rank 5 exactly, not 6
   EXPECT_EQ(record.Percentile(90), 9);
   EXPECT_EQ(record.Percentile(99), 10);
   EXPECT_EQ(record.Percentile(100), 10);

@@ -2,13 +2,12 @@
 // what they are asked, and the JSON report built from the result.
 #include "tools/load_generator.h"
 
+#include <grpcpp/grpcpp.h>
+#include <grpcpp/health_check_service_interface.h>
 #include <gtest/gtest.h>
 
 #include <map>
 #include <mutex>
-
-#include <grpcpp/grpcpp.h>
-#include <grpcpp/health_check_service_interface.h>
 
 #include "plumb/v1/ingest.grpc.pb.h"
 #include "plumb/v1/ranker.grpc.pb.h"
@@ -52,7 +51,8 @@ class CountingRanker final : public plumb::v1::Ranker::Service {
 
 class CountingIngest final : public plumb::v1::EventIngest::Service {
  public:
-  grpc::Status PublishBatch(grpc::ServerContext* context, const plumb::v1::PublishBatchRequest* request,
+  grpc::Status PublishBatch(grpc::ServerContext* context,
+                            const plumb::v1::PublishBatchRequest* request,
                             plumb::v1::PublishSummary* summary) override {
     std::lock_guard<std::mutex> lock(mu);
     const auto auth = context->client_metadata().find("authorization");
@@ -211,7 +211,9 @@ TEST_F(LoadGeneratorTest, PublisherSendsTheScheduledEventsWithTheToken) {
 
   o.bearer_token = "wrong";
   EventPublisher refused(channel, &users, &items, o);
-  ASSERT_TRUE(refused.Run(LoadClock::now(), LoadClock::now() + std::chrono::milliseconds(100), &result).ok());
+  ASSERT_TRUE(
+      refused.Run(LoadClock::now(), LoadClock::now() + std::chrono::milliseconds(100), &result)
+          .ok());
   EXPECT_EQ(result.acknowledged, 0u);
   EXPECT_EQ(result.calls.errors_by_code["UNAUTHENTICATED"], result.batches);
 }

@@ -76,25 +76,36 @@ for _ in $(seq 300); do  # the trainer publishes within seconds; wait up to 30 s
   sleep 0.1
 done
 check "status shows an active version after the replay" '[ -n "$active" ]'
-"$QUERY" status --target "$train" --token-file "$tmp/token" >"$tmp/status.txt" 2>&1
+# From here on the trainer keeps publishing candidates but activates none, so the active
+# version only changes when this script says so.
+out=$("$QUERY" auto-activate off --target "$train" --token-file "$tmp/token" 2>&1); rc=$?
+check "auto-activate off" '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "^auto-activate: *off"'
+# A publish that began before the switch may still activate its candidate (the trainer
+# reads the setting when a publish starts): wait until two reads half a second apart agree.
+previous=""
+for _ in $(seq 60); do
+  "$QUERY" status --target "$train" --token-file "$tmp/token" >"$tmp/status.txt" 2>&1
+  active=$(sed -n 's/^active version: *\([0-9]*\).*/\1/p' "$tmp/status.txt")
+  [ -n "$active" ] && [ "$active" = "$previous" ] && break
+  previous=$active
+  sleep 0.5
+done
 cat "$tmp/status.txt"
 check "status: last sequence $events" 'grep -q "^last sequence: *$events$" "$tmp/status.txt"'
 check "status: objective and sizes" 'grep -q "^objective: *cpr" "$tmp/status.txt" && grep -q "^users: *[1-9]" "$tmp/status.txt"'
+check "status: auto-activate off" 'grep -q "^auto-activate: *off" "$tmp/status.txt"'
 "$QUERY" versions --target "$train" --token-file "$tmp/token" >"$tmp/versions.txt" 2>&1; rc=$?
 cat "$tmp/versions.txt"
-check "versions: exit 0, the active one starred" \
-  '[ $rc -eq 0 ] && grep -qE "^\* +${active:-x} .* cpr " "$tmp/versions.txt"'
+check "versions: exit 0, exactly the active version $active starred" \
+  '[ $rc -eq 0 ] && [ "$(grep -c "^\*" "$tmp/versions.txt")" = 1 ] && grep -qE "^\* +${active:-x} .* cpr " "$tmp/versions.txt"'
 out=$("$QUERY" versions --target "$train" 2>&1); rc=$?
 check "versions without the token: UNAUTHENTICATED, exit 1" \
   '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "^plumb-query: UNAUTHENTICATED"'
 out=$("$QUERY" activate --target "$train" --token-file "$tmp/token" --version 987654 2>&1); rc=$?
 check "activate of a version not kept: NOT_FOUND, exit 1 [$out]" \
   '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "^plumb-query: NOT_FOUND"'
-out=$("$QUERY" auto-activate off --target "$train" --token-file "$tmp/token" 2>&1); rc=$?
-check "auto-activate off" '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "^auto-activate: *off"'
-active=$("$QUERY" status --target "$train" --token-file "$tmp/token" | sed -n 's/^active version: *\([0-9]*\).*/\1/p')
 out=$("$QUERY" activate --target "$train" --token-file "$tmp/token" --version "$active" 2>&1); rc=$?
-check "activate the active version again [$out]" '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "^active version $active"'
+check "activate the active version again [$out]" '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "^active version $active (was $active)"'
 out=$("$QUERY" auto-activate maybe --target "$train" --token-file "$tmp/token" 2>&1); rc=$?
 check "auto-activate maybe: usage error, exit 2" '[ $rc -eq 2 ]'
 out=$("$QUERY" auto-activate on --target "$train" --token-file "$tmp/token" 2>&1); rc=$?

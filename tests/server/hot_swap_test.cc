@@ -104,6 +104,7 @@ TEST(HotSwapTest, FourClientsSeeOnlyActiveVersionsInOrderWithoutAFailure) {
                                      grpc::InsecureChannelCredentials());
   std::atomic<bool> stop{false};
   std::atomic<int> failures{0};
+  std::atomic<uint64_t> latest[4] = {0, 0, 0, 0};  // each client's last version seen
   std::vector<std::vector<Observation>> seen(4);
   std::vector<std::thread> clients;
   for (int c = 0; c < 4; ++c) {
@@ -125,6 +126,7 @@ TEST(HotSwapTest, FourClientsSeeOnlyActiveVersionsInOrderWithoutAFailure) {
         }
         Observation o{response.model_version(), {}};
         for (const auto& item : response.items()) o.ids.push_back(item.item_id());
+        latest[c].store(o.version);
         seen[c].push_back(std::move(o));
       }
     });
@@ -144,7 +146,13 @@ TEST(HotSwapTest, FourClientsSeeOnlyActiveVersionsInOrderWithoutAFailure) {
     std::this_thread::sleep_for(std::chrono::milliseconds(10));
   }
   EXPECT_TRUE(reached_last);
-  std::this_thread::sleep_for(std::chrono::milliseconds(100));  // every client sees it
+  // Every client gets at least one answer from the last version before the clients stop.
+  for (int wait = 0; wait < 1000; ++wait) {
+    bool all = true;
+    for (auto& l : latest) all = all && l.load() == last;
+    if (all) break;
+    std::this_thread::sleep_for(std::chrono::milliseconds(10));
+  }
   stop.store(true);
   for (auto& t : clients) t.join();
   loop.Stop();

@@ -231,7 +231,8 @@ int main(int argc, char** argv) {
   app.add_option("--warmup", o.warmup_seconds, "Seconds of calls before measuring")
       ->check(CLI::Range(0.0, 3600.0))
       ->group(q);
-  app.add_option("--threads", o.threads, "Completion-queue threads")
+  app.add_option("--threads", o.threads,
+                 "Completion-queue threads (open loop: each with its own dispatcher thread)")
       ->check(CLI::Range(1u, 64u))
       ->group(q);
   app.add_option("--channels", a.channels, "gRPC connections to the server (calls alternate)")

@@ -5,8 +5,10 @@ set -u
 PLUMB=$1 SERVE=$2 LOAD=$3 QUERY=$4
 tmp=$(mktemp -d)
 serve_pid=""
+tls_pid=""
 cleanup() {
   if [ -n "$serve_pid" ]; then kill "$serve_pid" 2>/dev/null; wait "$serve_pid" 2>/dev/null; fi
+  if [ -n "$tls_pid" ]; then kill "$tls_pid" 2>/dev/null; wait "$tls_pid" 2>/dev/null; fi
   rm -rf "$tmp"
 }
 trap cleanup EXIT
@@ -108,6 +110,9 @@ check "unknown user: one line naming NOT_FOUND [$out]" \
 out=$("$QUERY" recommend --target "$target" --user no-such-member --fallback 2>&1); rc=$?
 check "unknown user with --fallback: the most-interacted list, marked" \
   '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "fallback"'
+out=$("$QUERY" recommend --target "$target" --user newcomer --recent t1,t2 --count 3 2>&1); rc=$?
+check "unknown user with --recent: folded in, the recent items left out" \
+  '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "folded in" && [ "$(printf "%s\n" "$out" | grep -cE "^ +[1-3] +t")" = 3 ] && ! printf "%s\n" "$out" | grep -qE "^ +[0-9]+ +t[12] "'
 out=$("$QUERY" recommend --target "$target" 2>&1); rc=$?
 check "missing --user: usage error exit 2, one line" '[ $rc -eq 2 ] && [ "$(printf "%s\n" "$out" | wc -l)" -eq 1 ]'
 out=$("$QUERY" recommend --target "$target" --user "$user" --count 0 2>&1); rc=$?
@@ -126,6 +131,35 @@ for cmd in recommend similar rank health versions status activate auto-activate;
 done
 check "plumb-load --help" '"$LOAD" --help | grep -q -- "--publish-rate"'
 check "plumb-load replay --help" '"$LOAD" replay --help | grep -q -- "--stream"'
+
+# ---- TLS: a second server on the same store with a self-signed certificate for "localhost" ----
+if command -v openssl >/dev/null 2>&1 &&
+   openssl req -x509 -newkey rsa:2048 -nodes -days 1 -subj /CN=localhost \
+     -addext subjectAltName=DNS:localhost -keyout "$tmp/key.pem" -out "$tmp/cert.pem" >/dev/null 2>&1; then
+  "$SERVE" --db "$tmp/db" --listen 127.0.0.1:0 --metrics "" --tls-cert "$tmp/cert.pem" \
+    --tls-key "$tmp/key.pem" 2>"$tmp/tls.log" &
+  tls_pid=$!
+  tls_port=""
+  for _ in $(seq 300); do
+    tls_port=$(sed -n 's/.*listening on port \([0-9]*\).*/\1/p' "$tmp/tls.log" | head -1)
+    [ -n "$tls_port" ] && break
+    kill -0 "$tls_pid" 2>/dev/null || break
+    sleep 0.1
+  done
+  check "TLS server started" '[ -n "$tls_port" ]'
+  tls=127.0.0.1:${tls_port:-1}
+  out=$("$QUERY" health --target "$tls" --tls-ca "$tmp/cert.pem" --tls-server-name localhost 2>&1); rc=$?
+  check "health over TLS: SERVING [$out]" '[ $rc -eq 0 ] && [ "$out" = SERVING ]'
+  out=$("$QUERY" health --target "$tls" --timeout-ms 2000 2>&1); rc=$?
+  check "plain text to the TLS server: UNAVAILABLE, exit 1" '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "UNAVAILABLE"'
+  "$LOAD" --target "$tls" --target-tls-ca "$tmp/cert.pem" --tls-server-name localhost --rpc health \
+    --duration 0.5 --warmup 0 --concurrency 2 --json "$tmp/tls.json" >/dev/null 2>&1
+  check "plumb-load over TLS: calls OK, zero errors" \
+    '[ "$(json "$tmp/tls.json" "d[\"ok\"] > 0 and d[\"errors\"] == 0")" = True ]'
+  kill "$tls_pid"; wait "$tls_pid" 2>/dev/null; tls_pid=""
+else
+  echo "skipped: TLS checks (no openssl)"
+fi
 
 # ---- after the server stops: UNAVAILABLE ------------------------------------------------------------
 kill "$serve_pid"; wait "$serve_pid" 2>/dev/null; serve_pid=""

@@ -61,6 +61,9 @@ struct OnlineLoop::Impl {
 
   mutable std::mutex mu;
   std::condition_variable wake;
+  // Held for a whole publish and by SetAutoActivate, so that once SetAutoActivate(false)
+  // returns no publish already under way can still activate its candidate.
+  std::mutex publish_mu;
   bool stop = false;
   bool appended = false;
   bool publish_requested = false;
@@ -253,6 +256,7 @@ Status OnlineLoop::Activate(uint64_t version, uint64_t* previous) {
 }
 
 Status OnlineLoop::SetAutoActivate(bool enabled) {
+  std::lock_guard<std::mutex> publishing(impl_->publish_mu);
   store::StateChange change;
   change.meta.emplace_back(kAutoActivateKey, enabled ? "1" : "0");
   PLUMB_RETURN_IF_ERROR(impl_->store->Commit(change));
@@ -369,6 +373,7 @@ void OnlineLoop::Impl::Run() {
 }
 
 Status OnlineLoop::Impl::Publish() {
+  std::lock_guard<std::mutex> publishing(publish_mu);
   const auto started = Clock::now();
   PLUMB_RETURN_IF_ERROR(fit->Sync());
   std::shared_ptr<const trainer::Embeddings> active;

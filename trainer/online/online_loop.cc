@@ -239,6 +239,7 @@ OnlineStatus OnlineLoop::status() const {
 
 Status OnlineLoop::Activate(uint64_t version, uint64_t* previous) {
   Impl& impl = *impl_;
+  std::lock_guard<std::mutex> publishing(impl.publish_mu);
   store::VersionManifest m;
   PLUMB_RETURN_IF_ERROR(impl.store->ReadManifest(version, &m));
   auto copy = std::make_shared<trainer::Embeddings>();

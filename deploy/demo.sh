@@ -84,18 +84,20 @@ echo $! > "$DEMO/plumb-serve.pid"
 say "Streaming $(($(wc -l < "$DEMO/world/events.csv") - 1)) borrowings through EventIngest in time order"
 "$LOAD" replay --events "$DEMO/world/events.csv" --ingest-target "$TRAIN_ADDR"
 
-say "Waiting for the trainer to consume the log and activate a version"
-"$QUERY" publish --target "$TRAIN_ADDR" >/dev/null 2>&1 || true
+say "Waiting for the trainer to train on every event and activate a version that saw them all"
 ok=0
-for _ in $(seq 240); do
-  status=$("$QUERY" status --target "$TRAIN_ADDR" 2>/dev/null || true)
-  active=$(printf '%s\n' "$status" | awk '/active version/ {print $NF}')
-  if [ -n "$active" ] && [ "$active" != 0 ] && printf '%s\n' "$status" | grep -q "lag 0 events"; then
-    if "$QUERY" health --target "$SERVE_ADDR" >/dev/null 2>&1; then ok=1; break; fi
+for _ in $(seq 360); do
+  last=$("$QUERY" status --target "$TRAIN_ADDR" 2>/dev/null | awk '/^last sequence/ {print $3}')
+  seen=$("$QUERY" versions --target "$TRAIN_ADDR" 2>/dev/null | awk '$1 == "*" {print $6}')
+  if [ -n "$last" ] && [ "$last" != 0 ] && [ "$seen" = "$last" ] \
+     && "$QUERY" health --target "$SERVE_ADDR" >/dev/null 2>&1; then
+    ok=1
+    break
   fi
   sleep 0.5
 done
-[ $ok = 1 ] || { echo "no active version after 120 s; see $DEMO/plumb-train.log" >&2; exit 1; }
+[ $ok = 1 ] || { echo "no active version covering all events after 180 s; see $DEMO/plumb-train.log" >&2; exit 1; }
+sleep 1  # one catch-up interval of plumb-serve, so it serves that version
 "$QUERY" status --target "$TRAIN_ADDR"
 "$QUERY" versions --target "$TRAIN_ADDR"
 

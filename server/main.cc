@@ -14,7 +14,9 @@
 #include <memory>
 
 #include "server/catch_up_loop.h"
+#include "server/exposure_metrics.h"
 #include "server/exposure_sink.h"
+#include "server/exposure_window.h"
 #include "server/ranker_service.h"
 #include "server/ranking_server.h"
 #include "server/scorer.h"
@@ -75,6 +77,8 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   SnapshotHolder holder;
   Scorer scorer(config.fold_in);
   ExposureCounter exposure;
+  ExposureWindow window(config.exposure);
+  ExposureTee exposure_tee(&exposure, config.exposure_monitor ? &window : nullptr);
   std::atomic<RankingServer*> endpoint{nullptr};
   CatchUpOptions follow;
   follow.interval = std::chrono::milliseconds(config.catchup_interval_ms);
@@ -93,7 +97,8 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   }
 
   auto metrics = std::make_shared<ServingMetrics>(&holder, &loop, &exposure);
-  RankerService service(&holder, &scorer, config.limits, &exposure, metrics.get());
+  RankerService service(&holder, &scorer, config.limits, &exposure_tee, metrics.get());
+  auto exposure_metrics = std::make_shared<ExposureMetrics>(&holder, &window);
 
   std::unique_ptr<prometheus::Exposer> exposer;
   if (!config.metrics.empty()) {
@@ -104,6 +109,7 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
       return 1;
     }
     exposer->RegisterCollectable(metrics);
+    if (config.exposure_monitor) exposer->RegisterCollectable(exposure_metrics);
     for (int port : exposer->GetListeningPorts()) spdlog::info("metrics on port {}", port);
   }
 

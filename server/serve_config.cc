@@ -26,6 +26,17 @@ void DefineOptions(CLI::App& app, ServeConfig* c) {
   app.add_option("--catchup-interval-ms", c->catchup_interval_ms,
                  "How often to catch up with the trainer and look for a new active version")
       ->check(CLI::Range(10, 3'600'000));
+  app.add_option("--exposure-window-lists", c->exposure.window_lists,
+                 "Exposure monitor: served lists kept in the sliding window")
+      ->check(CLI::Range(1, 10'000'000));
+  app.add_option("--exposure-window-seconds", c->exposure.window_seconds,
+                 "Exposure monitor: also drop lists older than this (0 = by count only)")
+      ->check(CLI::Range(0.0, 86400.0 * 30));
+  app.add_option("--exposure-groups", c->exposure.groups,
+                 "Exposure monitor: popularity groups of equal interaction mass")
+      ->check(CLI::Range(1, 100));
+  app.add_option("--exposure-monitor", c->exposure_monitor,
+                 "Count served lists into the exposure window (false: no exposure gauges)");
   app.add_option("--max-count", c->limits.max_count, "Largest count a request may ask for")
       ->check(CLI::Range(1, 1'000'000));
   app.add_option("--max-candidates", c->limits.max_candidates,

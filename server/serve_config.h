@@ -9,6 +9,7 @@
 #include <iosfwd>
 #include <string>
 
+#include "server/exposure_window.h"
 #include "server/fold_in.h"
 #include "server/ranker_service.h"
 #include "server/ranking_server.h"
@@ -28,6 +29,8 @@ struct ServeConfig {
   EndpointOptions endpoint;        // listen, TLS, threads, reflection
   RankerLimits limits;
   FoldInOptions fold_in;
+  ExposureWindowOptions exposure;
+  bool exposure_monitor = true;  // off: no window, no exposure gauges (for measuring its cost)
 };
 
 // Parses argv (and the --config file it names) into *config.

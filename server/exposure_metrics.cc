@@ -1,0 +1,77 @@
+#include "server/exposure_metrics.h"
+
+#include <string>
+
+namespace plumb::server {
+namespace {
+
+prometheus::MetricFamily Gauge(const std::string& name, const std::string& help) {
+  prometheus::MetricFamily f;
+  f.name = name;
+  f.help = help;
+  f.type = prometheus::MetricType::Gauge;
+  return f;
+}
+
+void Add(prometheus::MetricFamily* f, double value,
+         std::vector<prometheus::ClientMetric::Label> labels = {}) {
+  prometheus::ClientMetric m;
+  m.gauge.value = value;
+  m.label = std::move(labels);
+  f->metric.push_back(std::move(m));
+}
+
+}  // namespace
+
+std::vector<prometheus::MetricFamily> ExposureMetrics::Collect() const {
+  std::vector<prometheus::MetricFamily> out;
+  std::shared_ptr<const Snapshot> snap = holder_ ? holder_->Get() : nullptr;
+  if (snap == nullptr || window_ == nullptr) return out;
+  const ExposureFigures fig = window_->Summarize(*snap);
+  const ExposureSummary& s = fig.summary;
+  auto single = [&](const std::string& name, const std::string& help, double v) {
+    prometheus::MetricFamily f = Gauge(name, help);
+    Add(&f, v);
+    out.push_back(std::move(f));
+  };
+  single("plumb_exposure_window_lists", "Served lists in the exposure window",
+         static_cast<double>(fig.lists));
+  single("plumb_exposure_served_popularity",
+         "Mean training degree of the served slots in the window (ARP)", fig.served_popularity);
+  single("plumb_exposure_interaction_popularity",
+         "Mean training degree over training interactions (sum d^2 / sum d)",
+         fig.interaction_popularity);
+  single("plumb_exposure_popularity_lift_ratio",
+         "Served popularity / interaction popularity (1 neutral, above 1 favours the head)",
+         fig.lift);
+  single("plumb_exposure_gini_ratio", "Gini coefficient of item exposure in the window", s.gini);
+  single("plumb_exposure_coverage_ratio", "Share of the catalogue served at least once in the window",
+         s.coverage);
+  prometheus::MetricFamily exp = Gauge("plumb_exposure_group_share_ratio",
+                                       "Share of served slots per popularity group (0 = least popular)");
+  prometheus::MetricFamily inter = Gauge("plumb_interaction_group_share_ratio",
+                                         "Share of training interactions per popularity group");
+  for (size_t g = 0; g < s.exposure_group_shares.size(); ++g) {
+    Add(&exp, s.exposure_group_shares[g], {{"group", std::to_string(g)}});
+  }
+  for (size_t g = 0; g < s.interaction_group_shares.size(); ++g) {
+    Add(&inter, s.interaction_group_shares[g], {{"group", std::to_string(g)}});
+  }
+  out.push_back(std::move(exp));
+  out.push_back(std::move(inter));
+  if (!s.exposure_group_shares.empty()) {
+    single("plumb_exposure_head_share_ratio", "Share of served slots in the most popular group",
+           s.exposure_group_shares.back());
+  }
+  if (!s.interaction_group_shares.empty()) {
+    single("plumb_interaction_head_share_ratio",
+           "Share of training interactions in the most popular group",
+           s.interaction_group_shares.back());
+  }
+  single("plumb_exposure_drift_ratio",
+         "Jensen-Shannon divergence (base 2, 0..1) between exposure and interaction group shares",
+         s.drift_js);
+  return out;
+}
+
+}  // namespace plumb::server

@@ -1,0 +1,31 @@
+// ExposureMetrics: the exposure monitor's gauges in Prometheus exposition, computed from an
+// ExposureWindow against the version being served at scrape time. Names as in
+// docs/operators.md: plumb_exposure_* and plumb_interaction_*.
+#pragma once
+
+#include <vector>
+
+#include <prometheus/collectable.h>
+#include <prometheus/metric_family.h>
+
+#include "server/exposure_window.h"
+#include "server/snapshot_holder.h"
+
+namespace plumb::server {
+
+class ExposureMetrics final : public prometheus::Collectable {
+ public:
+  // Both borrowed; must outlive every Collect() call.
+  ExposureMetrics(const SnapshotHolder* holder, const ExposureWindow* window)
+      : holder_(holder), window_(window) {}
+
+  // Thread-safe (called by the exposer's HTTP thread). Omits the gauges before the first
+  // snapshot is loaded.
+  std::vector<prometheus::MetricFamily> Collect() const override;
+
+ private:
+  const SnapshotHolder* holder_;
+  const ExposureWindow* window_;
+};
+
+}  // namespace plumb::server

@@ -1,0 +1,140 @@
+#include "server/exposure_window.h"
+
+#include <algorithm>
+#include <atomic>
+#include <chrono>
+#include <cmath>
+#include <deque>
+
+#include "core/metrics.h"
+
+namespace plumb::server {
+namespace {
+
+int64_t SteadyMs() {
+  return std::chrono::duration_cast<std::chrono::milliseconds>(
+             std::chrono::steady_clock::now().time_since_epoch())
+      .count();
+}
+
+}  // namespace
+
+struct ExposureWindow::Shard {
+  std::mutex mu;
+  uint64_t version = 0;
+  std::vector<uint64_t> counts;  // per item of `version`
+  // The lists in this shard's window, oldest first, flattened.
+  struct ListRef {
+    uint32_t size;
+    int64_t time_ms;
+  };
+  std::deque<ListRef> lists;
+  std::deque<uint32_t> items;
+  uint64_t slots = 0;
+
+  void Reset(uint64_t v, uint32_t num_items) {
+    version = v;
+    counts.assign(num_items, 0);
+    lists.clear();
+    items.clear();
+    slots = 0;
+  }
+  void DropOldest() {
+    const ListRef& l = lists.front();
+    for (uint32_t n = 0; n < l.size; ++n) {
+      --counts[items.front()];
+      items.pop_front();
+    }
+    slots -= l.size;
+    lists.pop_front();
+  }
+  void DropOlderThan(int64_t cutoff_ms) {
+    while (!lists.empty() && lists.front().time_ms < cutoff_ms) DropOldest();
+  }
+};
+
+ExposureWindow::ExposureWindow(const ExposureWindowOptions& options) : options_(options) {
+  options_.window_lists = std::max<uint32_t>(1, options_.window_lists);
+  options_.groups = std::max<uint32_t>(1, options_.groups);
+  options_.shards = std::max<uint32_t>(1, options_.shards);
+  lists_per_shard_ = (options_.window_lists + options_.shards - 1) / options_.shards;
+  for (uint32_t s = 0; s < options_.shards; ++s) shards_.push_back(std::make_unique<Shard>());
+}
+
+ExposureWindow::~ExposureWindow() = default;
+
+ExposureWindow::Shard& ExposureWindow::ShardForThisThread() {
+  static std::atomic<uint32_t> next{0};
+  thread_local const uint32_t ticket = next.fetch_add(1, std::memory_order_relaxed);
+  return *shards_[ticket % shards_.size()];
+}
+
+void ExposureWindow::Record(const Snapshot& snap, std::span<const uint32_t> items) {
+  Shard& shard = ShardForThisThread();
+  const int64_t now = options_.window_seconds > 0 ? SteadyMs() : 0;
+  std::lock_guard<std::mutex> lock(shard.mu);
+  if (shard.version != snap.version() || shard.counts.size() != snap.num_items()) {
+    shard.Reset(snap.version(), snap.num_items());
+  }
+  uint32_t kept = 0;
+  for (uint32_t item : items) {
+    if (item >= shard.counts.size()) continue;
+    ++shard.counts[item];
+    shard.items.push_back(item);
+    ++kept;
+  }
+  shard.lists.push_back({kept, now});
+  shard.slots += kept;
+  while (shard.lists.size() > lists_per_shard_) shard.DropOldest();
+  if (options_.window_seconds > 0) {
+    shard.DropOlderThan(now - static_cast<int64_t>(options_.window_seconds * 1000.0));
+  }
+}
+
+ExposureFigures ExposureWindow::Summarize(const Snapshot& snap) const {
+  ExposureFigures f;
+  f.version = snap.version();
+  const uint32_t n = snap.num_items();
+  std::vector<uint64_t> counts(n, 0);
+  const int64_t cutoff =
+      options_.window_seconds > 0
+          ? SteadyMs() - static_cast<int64_t>(options_.window_seconds * 1000.0)
+          : 0;
+  for (const auto& shard_ptr : shards_) {
+    Shard& shard = *shard_ptr;
+    std::lock_guard<std::mutex> lock(shard.mu);
+    if (shard.version != snap.version() || shard.counts.size() != n) continue;
+    if (options_.window_seconds > 0) shard.DropOlderThan(cutoff);
+    for (uint32_t i = 0; i < n; ++i) counts[i] += shard.counts[i];
+    f.lists += shard.lists.size();
+    f.slots += shard.slots;
+  }
+
+  std::span<const uint64_t> degrees = snap.item_degrees();
+  std::vector<uint64_t> zero_degrees;
+  if (degrees.size() != n) {
+    zero_degrees.assign(n, 0);
+    degrees = zero_degrees;
+  }
+  {
+    std::lock_guard<std::mutex> lock(groups_mu_);
+    if (groups_version_ != snap.version() || group_of_item_.size() != n) {
+      popularity_groups(degrees, options_.groups, &group_of_item_);
+      groups_version_ = snap.version();
+    }
+    summarize_exposure(counts, degrees, group_of_item_, options_.groups, &f.summary);
+  }
+  f.served_popularity = f.summary.arp;
+  double sum_d = 0.0, sum_d2 = 0.0;
+  for (uint64_t d : degrees) {
+    sum_d += static_cast<double>(d);
+    sum_d2 += static_cast<double>(d) * static_cast<double>(d);
+  }
+  f.interaction_popularity = sum_d > 0 ? sum_d2 / sum_d : 0.0;
+  f.lift = (f.slots > 0 && f.interaction_popularity > 0)
+               ? f.served_popularity / f.interaction_popularity
+               : std::nan("");
+  return f;
+}
+
+}  // namespace plumb::server

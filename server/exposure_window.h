@@ -1,0 +1,99 @@
+// ExposureWindow: the exposure monitor. Every served list is counted into a sliding window
+// (the last N lists, optionally also no older than T seconds), and at scrape time the window
+// is summarised against the served version's training degrees: ARP of served slots, the same
+// average over training interactions and their ratio (popularity lift), Gini of item
+// exposure, catalogue coverage, exposure share per popularity group beside interaction share
+// per group, and the Jensen–Shannon divergence between the two (DESIGN.md §6).
+//
+// Cost on the request path: Record() is O(K) for a list of K items (plus O(catalogue) once
+// per shard after a version change) and locks one of `shards` mutexes, picked per thread, so
+// request threads do not share one lock. The window is kept per shard: each shard holds the
+// last ceil(window_lists / shards) lists recorded through it, so the window holds about
+// window_lists lists in all (exactly all of them while fewer have been served).
+//
+// Lists are counted against the version that scored them. When the served version changes,
+// each shard drops what it counted for the old version the next time it records (item
+// indexes and degrees belong to one version), and Summarize() only reads shards of the
+// version it is asked about.
+//
+// Thread-safe: Record from any number of threads, Summarize concurrently with them.
+#pragma once
+
+#include <cstdint>
+#include <memory>
+#include <mutex>
+#include <span>
+#include <vector>
+
+#include "core/exposure_stats.h"
+#include "server/exposure_sink.h"
+#include "server/snapshot.h"
+
+namespace plumb::server {
+
+struct ExposureWindowOptions {
+  uint32_t window_lists = 20000;  // lists kept in the window (about; see above). >= 1
+  double window_seconds = 0.0;    // also drop lists older than this; 0 = by count only
+  uint32_t groups = 5;            // popularity groups of equal interaction mass. >= 1
+  uint32_t shards = 16;           // independent locks. >= 1
+};
+
+// What Summarize() reports.
+struct ExposureFigures {
+  uint64_t version = 0;
+  uint64_t lists = 0;                // lists in the window
+  uint64_t slots = 0;                // served slots in the window
+  double served_popularity = 0.0;    // mean training degree of a served slot (ARP)
+  double interaction_popularity = 0.0;  // Σ d² / Σ d: mean degree over training interactions
+  double lift = 0.0;                 // served / interaction popularity; NaN without data
+  ExposureSummary summary;           // gini, coverage, group shares, drift
+};
+
+class ExposureWindow final : public ExposureSink {
+ public:
+  explicit ExposureWindow(const ExposureWindowOptions& options);
+  ~ExposureWindow() override;
+  ExposureWindow(const ExposureWindow&) = delete;
+  ExposureWindow& operator=(const ExposureWindow&) = delete;
+
+  void Record(const Snapshot& snap, std::span<const uint32_t> items) override;
+
+  // Summarises the lists counted against `snap`'s version. Cost O(shards × catalogue +
+  // catalogue log catalogue) — meant for a scrape every few seconds, not the request path.
+  ExposureFigures Summarize(const Snapshot& snap) const;
+
+  const ExposureWindowOptions& options() const { return options_; }
+
+ private:
+  struct Shard;
+  Shard& ShardForThisThread();
+
+  ExposureWindowOptions options_;
+  uint32_t lists_per_shard_;
+  std::vector<std::unique_ptr<Shard>> shards_;
+  // Popularity groups of the version last summarised (recomputed when the version changes).
+  mutable std::mutex groups_mu_;
+  mutable uint64_t groups_version_ = 0;
+  mutable std::vector<uint32_t> group_of_item_;
+};
+
+}  // namespace plumb::server
+
+namespace plumb::server {
+
+// Forwards every served list to two sinks (the lifetime counter and the window). Both are
+// borrowed and must outlive the tee.
+class ExposureTee final : public ExposureSink {
+ public:
+  ExposureTee(ExposureSink* first, ExposureSink* second) : first_(first), second_(second) {}
+  void Record(const Snapshot& snap, std::span<const uint32_t> items) override {
+    if (first_) first_->Record(snap, items);
+    if (second_) second_->Record(snap, items);
+  }
+
+ private:
+  ExposureSink* first_;
+  ExposureSink* second_;
+};
+
+}  // namespace plumb::server

@@ -19,7 +19,7 @@ DEMO=${PLUMB_DEMO_DIR:-/tmp/plumb-demo}
 BUILD=${BUILD_DIR:-build/release}
 SERVE_ADDR=127.0.0.1:7400
 SERVE_METRICS=127.0.0.1:9464
-TRAIN_ADDR=127.0.0.1:7401
+TRAIN_ADDR=127.0.0.1:7601
 TRAIN_METRICS=127.0.0.1:9465
 MODE=${1:-}
 
@@ -84,12 +84,13 @@ echo $! > "$DEMO/plumb-serve.pid"
 say "Streaming $(($(wc -l < "$DEMO/world/events.csv") - 1)) borrowings through EventIngest in time order"
 "$LOAD" replay --events "$DEMO/world/events.csv" --ingest-target "$TRAIN_ADDR"
 
-say "Waiting for the trainer to train on every event and activate a version that saw them all"
+say "Waiting for the trainer to train on every event (plus its idle replay passes) and activate the result"
 ok=0
 for _ in $(seq 360); do
   last=$("$QUERY" status --target "$TRAIN_ADDR" 2>/dev/null | awk '/^last sequence/ {print $3}')
+  idle=$("$QUERY" status --target "$TRAIN_ADDR" 2>/dev/null | awk '/^idle/ {print $2}')
   seen=$("$QUERY" versions --target "$TRAIN_ADDR" 2>/dev/null | awk '$1 == "*" {print $6}')
-  if [ -n "$last" ] && [ "$last" != 0 ] && [ "$seen" = "$last" ] \
+  if [ -n "$last" ] && [ "$last" != 0 ] && [ -n "$seen" ] && [ "$idle" = yes ] \
      && "$QUERY" health --target "$SERVE_ADDR" >/dev/null 2>&1; then
     ok=1
     break

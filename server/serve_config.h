@@ -19,7 +19,7 @@ namespace plumb::server {
 struct ServeConfig {
   std::string db;                          // store directory (required)
   std::string config_file;                 // the TOML file read, if any
-  std::string metrics = "127.0.0.1:7401";  // HOST:PORT of /metrics; empty = no metrics
+  std::string metrics = "127.0.0.1:9464";  // HOST:PORT of /metrics; empty = no metrics
   // The RocksDB secondary's own directory; empty = a fresh temporary directory per process,
   // removed at exit.
   std::string scratch_dir;

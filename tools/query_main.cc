@@ -203,6 +203,7 @@ void PrintStatus(const plumb::v1::TrainerStatus& s) {
               static_cast<unsigned long long>(s.trained_sequence()),
               static_cast<unsigned long long>(lag));
   std::printf("auto-activate:     %s\n", s.auto_activate() ? "on" : "off");
+  std::printf("idle:              %s\n", s.idle() ? "yes (caught up, everything published)" : "no");
   std::printf("objective:         %s\n", s.objective().c_str());
   std::printf("users:             %u\n", s.num_users());
   std::printf("items:             %u\n", s.num_items());

@@ -169,17 +169,27 @@ TEST_F(OnlineLoopTest, OnlineEndsWithinTenPercentOfOfflineFit) {
     Append(part * n / 20, (part + 1) * n / 20);
     loop->NotifyAppended();
   }
-  // Let the idle replay budget (about two passes over history after the last events) run.
-  WaitCaughtUp(*loop, *store_, 4.0);
-  const uint64_t online_version = PublishAndWait(*loop, *store_);
+  // Let the idle replay training run out (the loop reports idle once it is spent).
+  WaitCaughtUp(*loop, *store_, 0.0);
+  const auto deadline = Clock::now() + std::chrono::seconds(120);
+  while (!loop->status().idle && Clock::now() < deadline) {
+    loop->RequestPublish();
+    std::this_thread::sleep_for(std::chrono::milliseconds(50));
+  }
+  ASSERT_TRUE(loop->status().idle);
+  std::vector<store::VersionManifest> kept;
+  ASSERT_TRUE(store_->ListVersions(&kept).ok());
+  ASSERT_FALSE(kept.empty());
+  const uint64_t online_version = kept.front().version;
   loop->Stop();
   const double online = TruthRecall(*store_, online_version);
   loop.reset();
   store_.reset();
 
-  // Offline: the same events, the same dimension and objective, a comparable number of
-  // passes (the online loop makes one anchored pass plus replay_ratio=3 replay samples per
-  // new pair, plus the idle budget of two passes: about six passes over the data).
+  // Offline: the same events, the same dimension and objective, 20 epochs (the online loop
+  // draws one anchored and replay_ratio = 3 replayed samples per new pair, then
+  // idle_replay_passes = 10 passes of replay samples: 14 samples per pair, each CPR sample
+  // using two interactions, so 28 passes over the interactions).
   cli::FitArgs fa;
   fa.import.events = (dir_ / "events.csv").string();
   {
@@ -193,7 +203,7 @@ TEST_F(OnlineLoopTest, OnlineEndsWithinTenPercentOfOfflineFit) {
   fa.import.db = (dir_ / "offline").string();
   fa.import.sync = false;
   fa.dim = o.dim;
-  fa.epochs = 6;
+  fa.epochs = 20;
   fa.threads = 1;
   fa.holdout = o.holdout_fraction;
   ASSERT_TRUE(cli::RunFit(fa).ok());

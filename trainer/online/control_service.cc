@@ -95,6 +95,7 @@ void ControlService::FillStatus(plumb::v1::TrainerStatus* out) const {
   out->set_objective(s.objective);
   out->set_num_users(s.num_users);
   out->set_num_items(s.num_items);
+  out->set_idle(s.idle);
 }
 
 grpc::Status ControlService::GetStatus(grpc::ServerContext* context,

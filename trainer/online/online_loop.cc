@@ -55,6 +55,7 @@ struct OnlineLoop::Impl {
   uint64_t events_since_publish = 0;
   Clock::time_point last_publish_time = Clock::now();
   uint64_t idle_samples_budget = 0;
+  uint64_t samples_since_publish = 0;
 
   // The active version's embeddings, for the gate's side-by-side comparison. Guarded by mu.
   std::shared_ptr<const trainer::Embeddings> active_model;
@@ -307,7 +308,8 @@ void OnlineLoop::Impl::Run() {
       });
       // After new data, allow a bounded amount of replay training while idle (about this
       // many passes over history), so a quiet stream still converges.
-      idle_samples_budget = state.train().size() * 2;
+      idle_samples_budget = static_cast<uint64_t>(
+          options.idle_replay_passes * static_cast<double>(state.train().size()));
     }
 
     // Train: one anchored sample per new pair plus replay samples from history.
@@ -325,6 +327,7 @@ void OnlineLoop::Impl::Run() {
           return false;
         }
         samples += st.samples;
+        samples_since_publish += st.samples;
         loss_sum += st.mean_loss * static_cast<double>(st.samples);
         return true;
       };
@@ -349,7 +352,7 @@ void OnlineLoop::Impl::Run() {
     }
 
     const double since = std::chrono::duration<double>(Clock::now() - last_publish_time).count();
-    const bool due = events_since_publish > 0 &&
+    const bool due = (events_since_publish > 0 || samples_since_publish > 0) &&
                      (events_since_publish >= options.publish_every_events ||
                       since >= options.publish_every_seconds || publish_now);
     if (trainable && due) {
@@ -364,6 +367,9 @@ void OnlineLoop::Impl::Run() {
       publish_requested = false;
     }
 
+    const bool idle = !has_new && (idle_samples_budget == 0 || !trainable) &&
+                      events_since_publish == 0 && samples_since_publish == 0;
+    SetStatus([&](OnlineStatus& st) { st.idle = idle; });
     if (!has_new && (idle_samples_budget == 0 || !trainable)) {
       std::unique_lock<std::mutex> lock(mu);
       wake.wait_for(lock, std::chrono::milliseconds(100),
@@ -427,6 +433,7 @@ Status OnlineLoop::Impl::Publish() {
   PLUMB_RETURN_IF_ERROR(store->Commit(change, &version));
   state.MarkPersisted();
   events_since_publish = 0;
+  samples_since_publish = 0;
   last_publish_time = Clock::now();
 
   std::shared_ptr<const trainer::Embeddings> copy;

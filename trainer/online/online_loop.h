@@ -32,6 +32,10 @@ struct OnlineOptions {
   std::string optimizer = "adagrad";  // sgd | adagrad
   uint32_t batch_size = 1024;      // samples per mini-batch
   double replay_ratio = 3.0;       // replayed history interactions per new interaction
+  // Once the log is consumed, keep training on replayed history for about this many passes
+  // over the training pairs (counted in samples), so a quiet stream still converges; what
+  // it learns is published at the next publish interval. 0 = no idle training.
+  double idle_replay_passes = 10.0;
   uint32_t threads = 1;
   uint64_t seed = 1;
   double holdout_fraction = 0.02;  // share of (user,item) pairs held out for validation
@@ -62,6 +66,8 @@ struct OnlineStatus {
   uint64_t candidates_failed = 0;
   int64_t oldest_untrained_received_ms = 0;  // 0 when caught up
   int64_t last_publish_ms = 0;
+  // Caught up with the log, idle replay spent, and everything learned is published.
+  bool idle = false;
 };
 
 class OnlineLoop {

@@ -148,6 +148,7 @@ Status CheckTrainConfig(const TrainConfig& c) {
   if (!(o.l2 >= 0)) return bad("l2 must not be negative");
   if (o.batch_size < 1) return bad("batch_size must be at least 1");
   if (!(o.replay_ratio >= 0)) return bad("replay_ratio must not be negative");
+  if (!(o.idle_replay_passes >= 0)) return bad("idle_replay_passes must not be negative");
   if (o.threads < 1) return bad("threads must be at least 1");
   if (!(o.holdout_fraction >= 0 && o.holdout_fraction <= 0.5)) {
     return bad("holdout_fraction must be within [0, 0.5]");
@@ -207,6 +208,8 @@ std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConf
   Bind(app, &keys, t, "l2", &o.l2, "L2 regularisation");
   Bind(app, &keys, t, "optimizer", &o.optimizer, "sgd or adagrad");
   Bind(app, &keys, t, "batch_size", &o.batch_size, "Samples per mini-batch");
+  Bind(app, &keys, t, "idle_replay_passes", &o.idle_replay_passes,
+       "Once caught up, passes of replay training over history (0 = none)");
   Bind(app, &keys, t, "replay_ratio", &o.replay_ratio,
        "Replayed history interactions per new interaction");
   Bind(app, &keys, t, "threads", &o.threads, "Training threads");

@@ -58,7 +58,7 @@ say "Building (Release) into $BUILD"
 cmake -S . -B "$BUILD" -G Ninja -DCMAKE_BUILD_TYPE=Release -DPLUMB_BUILD_TESTS=OFF \
   -DPLUMB_BUILD_BENCH=OFF > "$BUILD.cmake.log" 2>&1 || { cat "$BUILD.cmake.log"; exit 1; }
 cmake --build "$BUILD" -j "$(nproc)" --target plumb plumb-train plumb-serve plumb-load plumb-query
-BIN=$ROOT/$BUILD
+case "$BUILD" in /*) BIN=$BUILD ;; *) BIN=$ROOT/$BUILD ;; esac
 PLUMB=$BIN/cli/plumb
 QUERY=$BIN/tools/plumb-query
 LOAD=$BIN/tools/plumb-load

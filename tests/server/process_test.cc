@@ -11,8 +11,8 @@
 #include <sys/wait.h>
 #include <unistd.h>
 
-#include <fstream>
 #include <cctype>
+#include <fstream>
 #include <thread>
 
 #include "plumb/v1/ranker.grpc.pb.h"
@@ -72,8 +72,9 @@ class ServeProcess {
         if (at != std::string::npos) {
           size_t end = at + marker.size();
           while (end < line.size() && std::isdigit(static_cast<unsigned char>(line[end]))) ++end;
-          return end > at + marker.size() ? line.substr(at + marker.size(), end - at - marker.size())
-                                          : line;
+          return end > at + marker.size()
+                     ? line.substr(at + marker.size(), end - at - marker.size())
+                     : line;
         }
       }
       pollfd p{log_fd_, POLLIN, 0};

@@ -49,7 +49,7 @@ TEST(IngestService, BadEventsAreRejectedWithReasonsAndTheRestAccepted) {
        RejectReason::kBadTimestamp},
       {WireEvent("m1", "saw", std::string(129, 'e')), plumb::v1::REJECT_BAD_EVENT_ID,
        RejectReason::kBadEventId},
-      {WireEvent("m\x01", "saw", "b7"), plumb::v1::REJECT_REASON_UNSPECIFIED, RejectReason::kBadId},
+      {WireEvent("m\x01", "saw", "b7"), plumb::v1::REJECT_BAD_ID, RejectReason::kBadId},
   };
   std::vector<uint64_t> bad_index;
   for (size_t i = 0; i < bad.size(); ++i) {

@@ -1,0 +1,40 @@
+#!/usr/bin/env bash
+# Freshness: how long from an event's acknowledgement until plumb-serve answers with a version
+# that learned it. Each round publishes one event for a brand-new user through EventIngest,
+# then polls Recommend for that user until it is no longer NOT_FOUND. The target is the
+# publish interval plus 1 s; this prints every round and the p50 / p95.
+# Usage: bench/system/freshness.sh BUILD_DIR [ROUNDS] [PUBLISH_EVERY_SECONDS]
+set -u
+BIN=$1; ROUNDS=${2:-20}; EVERY=${3:-1}
+PLUMB=$BIN/cli/plumb; TRAIN=$BIN/trainer/online/plumb-train; SERVE=$BIN/server/plumb-serve
+QUERY=$BIN/tools/plumb-query; LOAD=$BIN/tools/plumb-load
+PY=/usr/bin/python3
+tmp=$(mktemp -d); pids=()
+trap 'for p in "${pids[@]}"; do kill "$p" 2>/dev/null; done; sleep 0.3; rm -rf "$tmp"' EXIT
+port() { $PY -c 'import socket; s=socket.socket(); s.bind(("127.0.0.1",0)); print(s.getsockname()[1])'; }
+T=127.0.0.1:$(port); S=127.0.0.1:$(port)
+"$PLUMB" synth --out "$tmp/w" --users 1000 --items 500 --interactions 20000 --seed 2 >/dev/null 2>&1
+"$TRAIN" --db "$tmp/db" --listen "$T" --metrics "" --dim 32 --publish-every-seconds "$EVERY" \
+  --idle-replay-passes 0 >"$tmp/train.log" 2>&1 & pids+=($!)
+sleep 1
+"$LOAD" replay --events "$tmp/w/events.csv" --ingest-target "$T" --quiet >/dev/null 2>&1
+"$SERVE" --db "$tmp/db" --listen "$S" --metrics "" --catchup-interval-ms 100 >"$tmp/serve.log" 2>&1 & pids+=($!)
+for _ in $(seq 100); do "$QUERY" health --target "$S" >/dev/null 2>&1 && break; sleep 0.2; done
+results=()
+for r in $(seq "$ROUNDS"); do
+  printf 'user,item\nfresh%s,t%s\n' "$r" "$((r % 50))" > "$tmp/e.csv"
+  start=$(date +%s.%N)
+  "$LOAD" replay --events "$tmp/e.csv" --ingest-target "$T" --quiet >/dev/null 2>&1
+  acked=$(date +%s.%N)
+  until "$QUERY" recommend --target "$S" --user "fresh$r" --count 1 >/dev/null 2>&1; do sleep 0.02; done
+  done_at=$(date +%s.%N)
+  s=$($PY -c "print('%.3f' % ($done_at - $acked))")
+  echo "round $r: ack in $($PY -c "print('%.3f' % ($acked - $start))") s, served $s s after ack"
+  results+=("$s")
+  sleep 0.$((RANDOM % 10))
+done
+printf '%s\n' "${results[@]}" | $PY -c "
+import sys, math
+v = sorted(float(x) for x in sys.stdin)
+q = lambda p: v[min(len(v) - 1, math.ceil(p * len(v)) - 1)]
+print('freshness over %d rounds, publish interval $EVERY s: p50 %.3f s, p95 %.3f s, max %.3f s (target: interval + 1 s = %.1f s)' % (len(v), q(0.5), q(0.95), v[-1], $EVERY + 1))"

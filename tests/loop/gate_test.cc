@@ -56,7 +56,7 @@ trainer::Embeddings* GateTest::trained_ = nullptr;
 
 TEST_F(GateTest, SampleIsNonEmptyAndSorted) {
   GateSample s = BuildGateSample(*state_, 1000);
-  ASSERT_GT(s.users.size(), 10u);
+  ASSERT_GE(s.users.size(), GateOptions{}.min_users) << "the other gate tests need a full sample";
   for (size_t n = 0; n < s.users.size(); ++n) {
     auto r = s.relevant[n];
     EXPECT_TRUE(std::is_sorted(r.begin(), r.end()));
@@ -99,6 +99,17 @@ TEST_F(GateTest, CollapsedRecallFails) {
   ASSERT_GT(v.active_recall, v.candidate_recall + 0.02);
   EXPECT_EQ(v.outcome, store::GateOutcome::kFailed);
   EXPECT_NE(v.reason.find("below the active"), std::string::npos);
+}
+
+TEST_F(GateTest, TooSmallASampleIsNotCompared) {
+  GateSample s = BuildGateSample(*state_, 10);  // ten users: below min_users
+  trainer::Embeddings fresh;
+  ASSERT_TRUE(trainer::Embeddings::Create(16, trained_->num_users(), trained_->num_items(), 99,
+                                          &fresh)
+                  .ok());
+  GateVerdict v = JudgeCandidate(fresh, trained_, s, state_->train(), {});
+  EXPECT_EQ(v.outcome, store::GateOutcome::kSkipped);
+  EXPECT_NE(v.reason.find("fewer than"), std::string::npos) << v.reason;
 }
 
 TEST_F(GateTest, FirstVersionIsSkippedNotFailed) {

@@ -96,6 +96,12 @@ GateVerdict JudgeCandidate(const trainer::Embeddings& candidate,
                std::to_string(options.max_row_norm);
     return v;
   }
+  if (sample.users.size() < options.min_users) {
+    v.outcome = store::GateOutcome::kSkipped;
+    v.reason = "validation sample has " + std::to_string(sample.users.size()) +
+               " users, fewer than " + std::to_string(options.min_users) + ": not compared";
+    return v;
+  }
   v.candidate_recall = GateRecall(sample, candidate, train, options.k);
   if (active) v.active_recall = GateRecall(sample, *active, train, options.k);
   if (std::isnan(v.candidate_recall)) {

@@ -38,6 +38,9 @@ struct GateOptions {
   uint32_t k = 20;
   double tolerance = 0.02;      // allowed absolute drop of Recall@k
   double max_row_norm = 100.0;
+  // Below this many validation users the recall comparison is noise (one hit among a dozen
+  // users moves recall by several points): the candidate is then not compared (skipped).
+  size_t min_users = 50;
 };
 
 struct GateVerdict {

@@ -26,7 +26,11 @@ for r in $(seq "$ROUNDS"); do
   start=$(date +%s.%N)
   "$LOAD" replay --events "$tmp/e.csv" --ingest-target "$T" --quiet >/dev/null 2>&1
   acked=$(date +%s.%N)
-  until "$QUERY" recommend --target "$S" --user "fresh$r" --count 1 >/dev/null 2>&1; do sleep 0.02; done
+  give_up=$(( $(date +%s) + 30 ))
+  until "$QUERY" recommend --target "$S" --user "fresh$r" --count 1 >/dev/null 2>&1; do
+    [ "$(date +%s)" -lt "$give_up" ] || { echo "round $r: not served within 30 s (see $tmp/train.log)"; exit 1; }
+    sleep 0.02
+  done
   done_at=$(date +%s.%N)
   s=$($PY -c "print('%.3f' % ($done_at - $acked))")
   echo "round $r: ack in $($PY -c "print('%.3f' % ($acked - $start))") s, served $s s after ack"

@@ -100,6 +100,35 @@ Status top_k_by_dot(MatrixView items, std::span<const float> query, const Exclus
                     std::span<float> scratch, TopKSelector* selector, ScanOutcome* outcome,
                     StopCheck should_stop = {});
 
+// One query of a batched scan: what top_k_by_dot takes, minus the matrix and the scratch.
+// Non-owning; everything referenced must outlive the top_k_by_dot_batch call.
+struct ScanTask {
+  std::span<const float> query;
+  Exclusions excluded;
+  TopKSelector* selector = nullptr;
+  ScanOutcome* outcome = nullptr;
+  StopCheck should_stop;
+};
+
+// The most tasks one top_k_by_dot_batch call takes (it keeps per-task state on the stack).
+inline constexpr std::size_t kMaxScanBatch = 16;
+
+// Several top_k_by_dot queries in one pass over the matrix. Blocks are scratch.size() / 2 rows
+// (the scratch holds two score buffers); each block is read once and scored against every
+// task while it is still in cache, two tasks at a time so each row load serves both. Every
+// task ends exactly as top_k_by_dot would leave it: same scores bit for bit (same per-lane
+// arithmetic), same pushes in the same order, same stop semantics (its should_stop is asked
+// before each block after the first; a stopped task leaves the batch and the others go on).
+// Allocates nothing. Thread-safe given distinct selectors, outcomes and scratch.
+// Errors: InvalidArgument if tasks.size() > kMaxScanBatch, the scratch holds fewer than 2
+// floats, or any task fails top_k_by_dot's checks; no selector is touched then.
+Status top_k_by_dot_batch(MatrixView items, std::span<const ScanTask> tasks,
+                          std::span<float> scratch);
+
+// Scratch floats for top_k_by_dot_batch: two buffers of 512 rows; at dim 64 a block is 128 KB
+// of item data, which stays in L2 while every task of the batch scores it.
+inline constexpr std::size_t kBatchScanScratch = 2 * 512;
+
 // As top_k_by_dot, scoring by cosine similarity <row, query> / (|row| |query|) with
 // norms[r] = |row r| precomputed by row_norms(). A row with zero norm scores 0 (cosine is
 // undefined there; treated as orthogonal, so it ranks below any positively similar row).

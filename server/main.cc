@@ -75,7 +75,7 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   }
 
   SnapshotHolder holder;
-  Scorer scorer(config.fold_in);
+  Scorer scorer(config.fold_in, config.scan);
   ExposureCounter exposure;
   ExposureWindow window(config.exposure);
   ExposureTee exposure_tee(&exposure, config.exposure_monitor ? &window : nullptr);
@@ -135,7 +135,11 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   endpoint.store(nullptr);
   exposer.reset();
   server.reset();
-  spdlog::info("stopped after serving {} lists", exposure.lists());
+  const ScanBatchCounts scans = scorer.batch_counts();
+  spdlog::info(
+      "stopped after serving {} lists; Recommend scanned the items in {} passes for {} "
+      "calls",
+      exposure.lists(), scans.passes, scans.queries);
   return 0;
 }
 

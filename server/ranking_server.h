@@ -7,8 +7,8 @@
 // builds the server; Start() sets it to NOT_SERVING immediately after, before returning.)
 //
 // Threads: the synchronous server runs each call on one pool thread. The pool has one
-// completion queue per core, up to one idle poller per core, and at most `max_threads`
-// threads in all; a call arriving when every thread is busy is refused by gRPC with
+// completion queue per core; threads are created as calls need them and then stay (idle
+// ones wait on their queue), up to `max_threads` threads in all; a call arriving when every thread is busy is refused by gRPC with
 // RESOURCE_EXHAUSTED (load shedding) instead of queueing without bound.
 #pragma once
 

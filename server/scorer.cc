@@ -81,17 +81,18 @@ std::string UnknownUserMessage(const Snapshot& snap, std::string_view user_id,
   return msg;
 }
 
-// Scans the whole item matrix for the `count` best rows by dot product with `user`.
+// Scans the whole item matrix for the `count` best rows by dot product with `user`, in a
+// pass of the batcher (possibly shared with other requests).
 Status ScanTopK(const Snapshot& snap, std::span<const float> user, uint32_t count,
-                std::span<const uint32_t> excluded, Deadline deadline, Scratch& s,
-                RankedList* out) {
+                std::span<const uint32_t> excluded, Deadline deadline, ScanBatcher& batcher,
+                Scratch& s, RankedList* out) {
   s.selector.Reset(count);
   ScanOutcome outcome;
   auto past_deadline = [deadline] { return std::chrono::system_clock::now() >= deadline; };
   StopCheck stop;
   if (deadline != kNoDeadline) stop = past_deadline;
-  PLUMB_RETURN_IF_ERROR(top_k_by_dot(snap.items(), user, Exclusions{{}, excluded}, s.block,
-                                     &s.selector, &outcome, stop));
+  PLUMB_RETURN_IF_ERROR(batcher.Run(
+      snap.items(), ScanTask{user, Exclusions{{}, excluded}, &s.selector, &outcome, stop}));
   if (outcome.stopped_early) return DeadlinePassed(outcome.rows_scanned, snap.num_items());
   std::span<const ScoredIndex> best = s.selector.SortedResult();
   out->items.assign(best.begin(), best.end());
@@ -143,7 +144,7 @@ Status Scorer::Recommend(const Snapshot& snap, const RecommendQuery& query, Rank
     }
   }
   return ScanTopK(snap, user, query.count, Union(user_exclusions, s.request_rows, &s.merged),
-                  query.deadline, s, out);
+                  query.deadline, batcher_, s, out);
 }
 
 Status Scorer::RankCandidates(const Snapshot& snap, const CandidatesQuery& query,

@@ -3,8 +3,9 @@
 // translates wire messages to these queries and the results back.
 //
 // Exact scoring: one blocked scan of the whole item matrix (core/scan.h) into a bounded
-// top-K selector, skipping excluded rows; no approximation, no full sort. Per-request
-// scratch (selector, score block, exclusion lists, fold-in vector) is thread-local and
+// top-K selector, skipping excluded rows; no approximation, no full sort. Recommend's scans
+// go through a ScanBatcher, so concurrent calls share passes over the matrix under load.
+// Per-request scratch (selector, score block, exclusion lists, fold-in vector) is thread-local and
 // reused, so a request on a warm thread allocates nothing on the scoring path.
 #pragma once
 
@@ -17,6 +18,7 @@
 #include "core/status.h"
 #include "core/topk.h"
 #include "server/fold_in.h"
+#include "server/scan_batcher.h"
 #include "server/snapshot.h"
 
 namespace plumb::server {
@@ -70,7 +72,10 @@ struct RankedList {
 
 class Scorer {
  public:
-  explicit Scorer(FoldInOptions fold_in = {}) : fold_in_(fold_in) {}
+  explicit Scorer(FoldInOptions fold_in = {}, ScanBatchOptions batching = {})
+      : fold_in_(fold_in), batcher_(batching) {}
+  Scorer(const Scorer&) = delete;
+  Scorer& operator=(const Scorer&) = delete;
 
   // All three methods: thread-safe (scratch is per thread), allocate nothing in steady
   // state apart from growing *out the first time a thread sees a larger answer. The query's
@@ -93,8 +98,12 @@ class Scorer {
   // FailedPrecondition if the item's vector is zero (cosine undefined).
   Status SimilarItems(const Snapshot& snap, const SimilarQuery& query, RankedList* out) const;
 
+  // How Recommend's scans have been shared so far.
+  ScanBatchCounts batch_counts() const { return batcher_.counts(); }
+
  private:
   const FoldInOptions fold_in_;
+  mutable ScanBatcher batcher_;  // thread-safe; mutable because scoring is logically const
 };
 
 }  // namespace plumb::server

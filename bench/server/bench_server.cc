@@ -5,6 +5,10 @@
 //            Recommend (top-20, exclude seen, through Scorer exactly as the service calls it)
 //            against a plain memory scan of the item matrix (sum of every float) and the
 //            scores-only product. CPU time, median of repeated runs (Google Benchmark).
+//   monitor  the exposure monitor's cost: Recommend as above, then the served list recorded
+//            into an ExposureWindow exactly as the service does, against the same calls
+//            without it; interleaved rounds (off, on, off, on, ...) of thread CPU time, and
+//            the median of the per-round ratios, so machine load hits both sides alike.
 //   e2e      the same catalogue behind a real gRPC server on loopback, one client:
 //            Recommend p50/p99 against an "empty" RPC, the same method rejected at
 //            validation (no snapshot access, no scoring), interleaved call by call.
@@ -14,7 +18,7 @@
 //   swap     a 1,000,000 x 64 version (+200,000 users) loaded from a store and swapped in
 //            while another such snapshot is held: seconds and peak RSS, in a fresh process.
 //
-//   build/<dir>/bench/server/bench_server [--sections=scorer,e2e,load,fold-in,swap]
+//   build/<dir>/bench/server/bench_server [--sections=scorer,monitor,e2e,load,fold-in,swap]
 //                                         [google benchmark flags]
 #include <benchmark/benchmark.h>
 #include <grpcpp/grpcpp.h>
@@ -38,6 +42,7 @@
 
 #include "core/scan.h"
 #include "plumb/v1/ranker.grpc.pb.h"
+#include "server/exposure_window.h"
 #include "server/fold_in.h"
 #include "server/ranker_service.h"
 #include "server/ranking_server.h"
@@ -195,6 +200,81 @@ void ScorerSection(int argc, char** argv) {
   std::printf("  scores only        %8.1f us  (%.2fx scan)\n", dots, dots / scan);
   std::printf("  Recommend          %8.1f us  (%.2fx scan; targets: < 1000 us, <= 1.5x)\n", rec,
               rec / scan);
+}
+
+// ---- monitor ----------------------------------------------------------------------------
+
+double ThreadCpuSeconds() {
+  timespec ts{};
+  clock_gettime(CLOCK_THREAD_CPUTIME_ID, &ts);
+  return static_cast<double>(ts.tv_sec) + static_cast<double>(ts.tv_nsec) * 1e-9;
+}
+
+void MonitorSection() {
+  const Snapshot& snap = *World();
+  Scorer scorer;
+  ExposureWindow window(ExposureWindowOptions{});  // the server's defaults
+  RankedList out;
+  std::vector<uint32_t> indexes;
+  std::vector<std::string> ids;
+  for (uint32_t k = 0; k < 4096; ++k)
+    ids.push_back("member-" + std::to_string((k * 7919u) % kUsers));
+  size_t next = 0;
+  // One round: `calls` Recommend calls, each followed (monitor on) by the same Record the
+  // service makes (RankerService::RecordExposure). Returns thread CPU seconds per call.
+  auto round = [&](bool monitor, int calls) {
+    const double start = ThreadCpuSeconds();
+    for (int c = 0; c < calls; ++c) {
+      RecommendQuery q;
+      q.user_id = ids[next++ % ids.size()];
+      q.count = kTop;
+      q.exclude_seen = true;
+      if (!scorer.Recommend(snap, q, &out).ok()) std::abort();
+      if (monitor) {
+        indexes.clear();
+        for (const ScoredIndex& item : out.items) indexes.push_back(item.index);
+        window.Record(snap, indexes);
+      }
+    }
+    return (ThreadCpuSeconds() - start) / calls;
+  };
+  round(true, 300);  // warm-up: the window's per-version arrays are built on first use
+  round(false, 300);
+  constexpr int kRounds = 41, kCalls = 200;
+  std::vector<double> off, on, ratio;
+  for (int r = 0; r < kRounds; ++r) {
+    // Alternate which side goes first, so a drift in machine load does not favour one.
+    double a, b;
+    if (r % 2 == 0) {
+      a = round(false, kCalls);
+      b = round(true, kCalls);
+    } else {
+      b = round(true, kCalls);
+      a = round(false, kCalls);
+    }
+    off.push_back(a);
+    on.push_back(b);
+    ratio.push_back(b / a);
+  }
+  auto median = [](std::vector<double> v) {
+    std::nth_element(v.begin(), v.begin() + static_cast<long>(v.size() / 2), v.end());
+    return v[v.size() / 2];
+  };
+  // The monitor's own work, isolated: Record of a top-20 list, many times.
+  const double record_start = ThreadCpuSeconds();
+  constexpr int kRecords = 200000;
+  for (int r = 0; r < kRecords; ++r) window.Record(snap, indexes);
+  const double record_us = (ThreadCpuSeconds() - record_start) / kRecords * 1e6;
+  const double m_off = median(off) * 1e6, m_on = median(on) * 1e6, m_ratio = median(ratio);
+  std::printf(
+      "\n[monitor] server-side Recommend (top-%u, exclude seen, %u x %u), %d interleaved rounds "
+      "of %d calls, thread CPU time\n",
+      kTop, kItems, kDim, kRounds, kCalls);
+  std::printf("  monitor off        %8.1f us per call (median round)\n", m_off);
+  std::printf("  monitor on         %8.1f us per call (median round)\n", m_on);
+  std::printf("  on / off           %8.4f median of per-round ratios (%+.2f%%; target < +3%%)\n",
+              m_ratio, (m_ratio - 1.0) * 100.0);
+  std::printf("  Record alone       %8.3f us per top-%u list\n", record_us, kTop);
 }
 
 // ---- e2e and load ------------------------------------------------------------------------
@@ -571,7 +651,7 @@ void SwapSection() {
 }  // namespace plumb::server
 
 int main(int argc, char** argv) {
-  std::string sections = "scorer,e2e,load,fold-in,swap";
+  std::string sections = "scorer,monitor,e2e,load,fold-in,swap";
   std::vector<char*> rest;
   for (int i = 0; i < argc; ++i) {
     if (std::strncmp(argv[i], "--sections=", 11) == 0) {
@@ -588,6 +668,7 @@ int main(int argc, char** argv) {
   // The swap runs first, in child processes, before this process holds any data.
   if (wants("swap")) plumb::server::SwapSection();
   if (wants("scorer")) plumb::server::ScorerSection(rest_argc, rest.data());
+  if (wants("monitor")) plumb::server::MonitorSection();
   if (wants("e2e")) plumb::server::E2eSection();
   if (wants("load")) plumb::server::LoadSection();
   if (wants("fold-in")) plumb::server::FoldInSection();

@@ -190,6 +190,114 @@ TEST(TopKByDotTest, RejectsBadArgumentsAndLeavesSelectorAlone) {
   EXPECT_EQ(sel.SortedResult()[0].index, 99u);
 }
 
+// A batched scan must leave every task exactly as its own top_k_by_dot would: the same
+// kernel over the same rows in the same order, so the comparison is bit for bit (an exact
+// algebraic property of the design, not a tolerance), and exact against brute force too.
+TEST(TopKByDotBatchTest, EachTaskEqualsItsOwnScanAndBruteForce) {
+  std::mt19937_64 rng(77);
+  std::normal_distribution<float> normal(0.0f, 1.0f);
+  for (int trial = 0; trial < 60; ++trial) {
+    const std::size_t rows = rng() % 2500;
+    const std::size_t dim = 1 + rng() % 70;
+    const std::size_t tasks = 1 + rng() % kMaxScanBatch;
+    const std::size_t block = 1 + rng() % 400;
+    // Half the trials quantised (ties everywhere), half Gaussian (rounding-sensitive).
+    ItemMatrix m(rows, dim);
+    if (trial % 2 == 0) {
+      m = QuantisedMatrix(rows, dim, rng);
+    } else {
+      for (std::size_t r = 0; r < rows; ++r)
+        for (auto& v : m.mutable_row(r)) v = normal(rng);
+    }
+    std::vector<std::vector<float>> queries(tasks);
+    std::vector<std::vector<uint32_t>> excluded(tasks);
+    std::vector<std::size_t> ks(tasks);
+    for (std::size_t t = 0; t < tasks; ++t) {
+      queries[t] = QuantisedQuery(dim, rng);
+      if (trial % 2 == 1)
+        for (auto& v : queries[t]) v = normal(rng);
+      for (std::size_t r = 0; r < rows; ++r)
+        if (rng() % 7 == 0) excluded[t].push_back(static_cast<uint32_t>(r));
+      ks[t] = rng() % 40;
+    }
+    std::vector<TopKSelector> batch_sel(tasks);
+    std::vector<ScanOutcome> batch_out(tasks);
+    std::vector<ScanTask> batch(tasks);
+    for (std::size_t t = 0; t < tasks; ++t) {
+      batch_sel[t].Reset(ks[t]);
+      batch[t] =
+          ScanTask{queries[t], Exclusions{{}, excluded[t]}, &batch_sel[t], &batch_out[t], {}};
+    }
+    std::vector<float> scratch(block), batch_scratch(2 * block);  // two buffers of `block` rows
+    ASSERT_TRUE(top_k_by_dot_batch(m.view(), batch, batch_scratch).ok());
+    for (std::size_t t = 0; t < tasks; ++t) {
+      TopKSelector alone(ks[t]);
+      ScanOutcome alone_out;
+      ASSERT_TRUE(top_k_by_dot(m.view(), queries[t], Exclusions{{}, excluded[t]}, scratch, &alone,
+                               &alone_out)
+                      .ok());
+      auto a = alone.SortedResult();
+      auto b = batch_sel[t].SortedResult();
+      ASSERT_EQ(std::vector<ScoredIndex>(b.begin(), b.end()),
+                std::vector<ScoredIndex>(a.begin(), a.end()))
+          << "trial " << trial << " task " << t << " of " << tasks;
+      EXPECT_EQ(batch_out[t].rows_scanned, rows);
+      EXPECT_FALSE(batch_out[t].stopped_early);
+      if (trial % 2 == 0) {
+        std::vector<bool> ex(rows, false);
+        for (uint32_t r : excluded[t]) ex[r] = true;
+        EXPECT_EQ(std::vector<ScoredIndex>(b.begin(), b.end()),
+                  BruteForce(m, queries[t], ex, ks[t]))
+            << "trial " << trial << " task " << t;
+      }
+    }
+  }
+}
+
+TEST(TopKByDotBatchTest, AStoppedTaskLeavesTheBatchAndTheOthersFinish) {
+  std::mt19937_64 rng(8);
+  const std::size_t rows = 5000, dim = 16, block = 256;
+  ItemMatrix m = QuantisedMatrix(rows, dim, rng);
+  std::vector<float> q1 = QuantisedQuery(dim, rng), q2 = QuantisedQuery(dim, rng);
+  TopKSelector s1(5), s2(5);
+  ScanOutcome o1, o2;
+  int calls = 0;
+  auto stop_at_third_check = [&] { return ++calls >= 3; };
+  std::vector<ScanTask> tasks = {ScanTask{q1, {}, &s1, &o1, stop_at_third_check},
+                                 ScanTask{q2, {}, &s2, &o2, {}}};
+  std::vector<float> scratch(2 * block);
+  ASSERT_TRUE(top_k_by_dot_batch(m.view(), tasks, scratch).ok());
+  EXPECT_TRUE(o1.stopped_early);
+  EXPECT_EQ(o1.rows_scanned, 3 * block);
+  EXPECT_FALSE(o2.stopped_early);
+  EXPECT_EQ(o2.rows_scanned, rows);
+  std::vector<bool> prefix(rows, false);
+  for (std::size_t r = 3 * block; r < rows; ++r) prefix[r] = true;
+  auto got1 = s1.SortedResult();
+  EXPECT_EQ(std::vector<ScoredIndex>(got1.begin(), got1.end()), BruteForce(m, q1, prefix, 5));
+  auto got2 = s2.SortedResult();
+  EXPECT_EQ(std::vector<ScoredIndex>(got2.begin(), got2.end()),
+            BruteForce(m, q2, std::vector<bool>(rows, false), 5));
+}
+
+TEST(TopKByDotBatchTest, RejectsBadTasksWithoutTouchingAnySelector) {
+  ItemMatrix m(10, 4);
+  std::vector<float> good(4), bad(3), scratch(16);
+  TopKSelector s1(2), s2(2);
+  s1.Push(7, 1.0f);
+  s2.Push(8, 1.0f);
+  ScanOutcome o1, o2;
+  std::vector<ScanTask> tasks = {ScanTask{good, {}, &s1, &o1, {}}, ScanTask{bad, {}, &s2, &o2, {}}};
+  EXPECT_EQ(top_k_by_dot_batch(m.view(), tasks, scratch).code(), Status::Code::kInvalidArgument);
+  EXPECT_EQ(s1.SortedResult()[0].index, 7u);
+  EXPECT_EQ(s2.SortedResult()[0].index, 8u);
+  std::vector<ScanTask> too_many(kMaxScanBatch + 1, ScanTask{good, {}, &s1, &o1, {}});
+  EXPECT_EQ(top_k_by_dot_batch(m.view(), too_many, scratch).code(), Status::Code::kInvalidArgument);
+  EXPECT_EQ(top_k_by_dot_batch(m.view(), {}, scratch).code(), Status::Code::kOk);
+  std::vector<float> one(1);
+  EXPECT_EQ(top_k_by_dot_batch(m.view(), tasks, one).code(), Status::Code::kInvalidArgument);
+}
+
 TEST(TopKByCosineTest, MatchesBruteForceCosine) {
   std::mt19937_64 rng(99);
   std::normal_distribution<float> normal(0.0f, 1.0f);

@@ -93,11 +93,53 @@ TEST(ServeConfigTest, HelpListsEveryKeyWithItsDefault) {
        {"--db", "--config", "--listen", "--metrics", "--scratch-dir", "--catchup-interval-ms",
         "--max-count", "--max-candidates", "--max-exclusions", "--max-recent",
         "--fold-in-confidence", "--fold-in-l2", "--threads", "--reflection", "--tls-cert",
-        "--tls-key", "--tls-client-ca", "--shutdown-grace-ms", "--log-level"}) {
+        "--tls-key", "--tls-client-ca", "--shutdown-grace-ms", "--log-level", "--scan-batch",
+        "--scan-concurrency"}) {
     EXPECT_NE(out.find(key), std::string::npos) << key;
   }
   EXPECT_NE(out.find("=500"), std::string::npos) << out;   // catch-up interval
   EXPECT_NE(out.find("=1000"), std::string::npos) << out;  // max count
+}
+
+// deploy/plumb-serve.toml documents every key: it must parse, hold the built-in defaults for
+// the keys below, and name every flag that --help lists.
+TEST(ServeConfigTest, ExampleFileParsesAndNamesEveryKey) {
+  const std::string example = std::string(PLUMB_SOURCE_DIR) + "/deploy/plumb-serve.toml";
+  ServeConfig c;
+  std::string err;
+  ASSERT_EQ(Parse({"--config", example}, &c, nullptr, &err), -1) << err;
+  ServeConfig d;
+  ASSERT_EQ(Parse({"--db", c.db}, &d), -1);
+  EXPECT_EQ(c.scan.max_batch, d.scan.max_batch);
+  EXPECT_EQ(c.scan.max_concurrent, d.scan.max_concurrent);
+  EXPECT_EQ(c.limits.max_count, d.limits.max_count);
+  EXPECT_EQ(c.catchup_interval_ms, d.catchup_interval_ms);
+  EXPECT_EQ(c.exposure_monitor, d.exposure_monitor);
+
+  std::ifstream in(example);
+  std::stringstream text;
+  text << in.rdbuf();
+  std::string help;
+  ServeConfig h;
+  ASSERT_EQ(Parse({"--help"}, &h, &help), 0);
+  std::stringstream lines(help);
+  int keys = 0;
+  for (std::string line; std::getline(lines, line);) {
+    const size_t at = line.find("  --");
+    if (at == std::string::npos || line.find("--help") != std::string::npos ||
+        line.find("--config") != std::string::npos) {
+      continue;
+    }
+    std::string key;
+    for (size_t i = at + 4;
+         i < line.size() && (std::isalnum(static_cast<unsigned char>(line[i])) || line[i] == '-');
+         ++i) {
+      key += line[i] == '-' ? '_' : line[i];
+    }
+    ++keys;
+    EXPECT_NE(text.str().find(key + " = "), std::string::npos) << "example lacks " << key;
+  }
+  EXPECT_GT(keys, 20);
 }
 
 }  // namespace

@@ -1,0 +1,91 @@
+#!/usr/bin/env bash
+# End-to-end serving figures with plumb-load against real processes on loopback, each beside
+# the empty-RPC floor (the gRPC health check) measured in the same run:
+#   1. a synth world of 200,000 users x 110,000 tools (~104,000 reach the model), fitted
+#      for one epoch at d = 64 (the figures depend on the catalogue's size, not on quality);
+#   2. plumb-serve on it; health floor and Recommend (top-20, exclude seen) at 1, 2, 4, 8
+#      calls in flight;
+#   3. the exposure monitor off vs on, alternated twice at 4 in flight;
+#   4. plumb-train started on the same store, and 10,000 events/s published to it by plumb-load
+#      while it queries (the trainer trains and publishes new 100k-item versions meanwhile,
+#      which plumb-serve loads and swaps in); the floor under the same stream.
+# Clients and processes share the machine's cores. Prints a table at the end; every run's JSON
+# report stays in the work directory when KEEP=1.
+# Usage: bench/system/serving_load.sh BUILD_DIR [SECONDS_PER_RUN]
+set -u
+BIN=$1; SECS=${2:-8}
+PLUMB=$BIN/cli/plumb; TRAIN=$BIN/trainer/online/plumb-train; SERVE=$BIN/server/plumb-serve
+QUERY=$BIN/tools/plumb-query; LOAD=$BIN/tools/plumb-load
+PY=/usr/bin/python3
+tmp=$(mktemp -d); pids=()
+cleanup() {
+  for p in "${pids[@]}"; do kill "$p" 2>/dev/null; done
+  sleep 0.5
+  if [ "${KEEP:-0}" = 1 ]; then echo "kept $tmp"; else rm -rf "$tmp"; fi
+}
+trap cleanup EXIT
+port() { $PY -c 'import socket; s=socket.socket(); s.bind(("127.0.0.1",0)); print(s.getsockname()[1])'; }
+S=127.0.0.1:$(port); T=127.0.0.1:$(port)
+
+echo "== world: 200,000 users x 110,000 tools, ~2.4 M interactions; one-epoch BPR fit at d = 64"
+"$PLUMB" synth --out "$tmp/w" --users 200000 --items 110000 --interactions 2400000 --seed 7 \
+  >/dev/null || exit 1
+"$PLUMB" fit --events "$tmp/w/events.csv" --db "$tmp/db" --objective bpr --epochs 1 --dim 64 \
+  2>&1 | tail -1
+cut -d, -f1 "$tmp/w/events.csv" | tail -n +2 | sort -u >"$tmp/users.txt"
+
+start_serve() {  # extra flags for plumb-serve
+  "$SERVE" --db "$tmp/db" --listen "$S" --metrics "" --catchup-interval-ms 500 "$@" \
+    >>"$tmp/serve.log" 2>&1 &
+  serve_pid=$!; pids+=($serve_pid)
+  for _ in $(seq 300); do "$QUERY" health --target "$S" >/dev/null 2>&1 && return 0; sleep 0.2; done
+  echo "plumb-serve did not become healthy; log:"; cat "$tmp/serve.log"; exit 1
+}
+stop_serve() { kill "$serve_pid"; wait "$serve_pid" 2>/dev/null; }
+
+run() {  # name, then plumb-load flags
+  local name=$1; shift
+  "$LOAD" --target "$S" --users-file "$tmp/users.txt" --duration "$SECS" --warmup 1 \
+    --json "$tmp/$name.json" "$@" >/dev/null 2>"$tmp/$name.err" ||
+    { echo "run $name failed:"; cat "$tmp/$name.err"; exit 1; }
+  $PY - "$tmp/$name.json" "$name" <<'EOF'
+import json, sys
+r = json.load(open(sys.argv[1])); l = r["latency_us"]
+line = ("  %-22s %7.0f calls/s  p50 %6.0f us  p90 %6.0f us  p99 %6.0f us  p99.9 %6.0f us  errors %d"
+        % (sys.argv[2], r["requests_per_second"], l["p50_us"], l["p90_us"], l["p99_us"], l["p999_us"], r["errors"]))
+if "publish" in r:
+    p = r["publish"]
+    line += "  | events acked %.0f/s, rejected %d, failed batches %d" % (
+        p["acknowledged_per_second"], p["rejected"], p["errors"])
+print(line)
+EOF
+}
+
+echo "== plumb-serve alone"
+start_serve
+for c in 1 4; do run "floor-c$c" --rpc health --concurrency "$c"; done
+for c in 1 2 4 8; do run "recommend-c$c" --rpc recommend --exclude-seen --count 20 --concurrency "$c"; done
+stop_serve
+
+echo "== exposure monitor off vs on (alternated), Recommend at 4 in flight"
+for round in 1 2; do
+  start_serve --exposure-monitor false
+  run "monitor-off-$round" --rpc recommend --exclude-seen --count 20 --concurrency 4
+  stop_serve
+  start_serve --exposure-monitor true
+  run "monitor-on-$round" --rpc recommend --exclude-seen --count 20 --concurrency 4
+  stop_serve
+done
+
+echo "== under 10,000 events/s to plumb-train on the same store (trainer trains and publishes)"
+start_serve
+"$TRAIN" --db "$tmp/db" --listen "$T" --metrics "" --objective bpr --dim 64 --threads 1 \
+  --publish-every-seconds 10 --idle-replay-passes 0 >"$tmp/train.log" 2>&1 &
+pids+=($!)
+for _ in $(seq 150); do "$QUERY" status --target "$T" >/dev/null 2>&1 && break; sleep 0.2; done
+stream=(--publish-rate 10000 --publish-batch 100 --ingest-target "$T" --items-file "$tmp/w/items.csv")
+run "floor-c4-events" --rpc health --concurrency 4 "${stream[@]}"
+run "recommend-c1-events" --rpc recommend --exclude-seen --count 20 --concurrency 1 "${stream[@]}"
+run "recommend-c4-events" --rpc recommend --exclude-seen --count 20 --concurrency 4 "${stream[@]}"
+echo "  versions served by plumb-serve during the run:"
+grep -o "serving version [0-9]*.*" "$tmp/serve.log" | sed 's/^/    /' | tail -5

@@ -5,7 +5,6 @@
 #include <cmath>
 #include <cstring>
 #include <limits>
-#include <new>
 #include <string>
 #include <type_traits>
 
@@ -110,47 +109,6 @@ void ScoreRows(const float* rows, std::size_t n, std::size_t dim, const float* q
   }
 }
 
-// ScoreRows for two queries at once: each item row is loaded once and multiplied into both
-// queries' accumulators, which saves half the row loads of two separate passes. Per row and
-// query the arithmetic is ScoreRows' exactly (same lanes, same adds in the same order, and
-// SumLanes is the tree SumEightRows applies to each row), so out_a / out_b equal what
-// ScoreRows writes bit for bit. Four rows at a time: eight accumulators fit the 16 AVX
-// registers beside the loaded row and query chunks.
-PLUMB_SCAN_CLONES
-void ScoreRowsPair(const float* rows, std::size_t n, std::size_t dim, const float* qa,
-                   const float* qb, float* out_a, float* out_b) {
-  const std::size_t full = dim - dim % kLanes;
-  std::size_t r = 0;
-  for (; r + 4 <= n; r += 4) {
-    const float* base = rows + r * dim;
-    Lanes a[4] = {}, b[4] = {};
-    for (std::size_t i = 0; i < 4; ++i) {
-      const float* row = base + i * dim;
-      for (std::size_t d = 0; d < full; d += kLanes) {
-        Lanes x, qav, qbv;
-        LoadLanes(row + d, x);
-        LoadLanes(qa + d, qav);
-        LoadLanes(qb + d, qbv);
-        a[i] += x * qav;
-        b[i] += x * qbv;
-      }
-    }
-    for (std::size_t i = 0; i < 4; ++i) {
-      float sa = SumLanes(a[i]), sb = SumLanes(b[i]);
-      for (std::size_t d = full; d < dim; ++d) {
-        sa += base[i * dim + d] * qa[d];
-        sb += base[i * dim + d] * qb[d];
-      }
-      out_a[r + i] = sa;
-      out_b[r + i] = sb;
-    }
-  }
-  if (r < n) {
-    ScoreRows(rows + r * dim, n - r, dim, qa, out_a + r);
-    ScoreRows(rows + r * dim, n - r, dim, qb, out_b + r);
-  }
-}
-
 // One dot product with the same arithmetic as ScoreRows (same lanes, same order), so a
 // gathered score equals the scanned score of the same row bit for bit.
 float DotRow(const float* row, std::size_t dim, const float* q) {
@@ -160,6 +118,42 @@ float DotRow(const float* row, std::size_t dim, const float* q) {
 }
 
 constexpr float kNaN = std::numeric_limits<float>::quiet_NaN();
+
+// Integer dot products of int8 rows (stride bytes each, zero padded) with an int8 query:
+// exact in int32. Plain loops that the compiler vectorises (widening multiply-adds) in each
+// clone; integer sums have no rounding, so every clone gives the same result.
+PLUMB_SCAN_CLONES
+void CodeDots(const int8_t* codes, std::size_t n, std::size_t stride, const int8_t* q,
+              int32_t* out) {
+  if (stride == 64) {  // the common dimension, with a constant trip count
+    for (std::size_t r = 0; r < n; ++r) {
+      const int8_t* row = codes + r * 64;
+      int32_t acc = 0;
+      for (std::size_t j = 0; j < 64; ++j) acc += int32_t{row[j]} * int32_t{q[j]};
+      out[r] = acc;
+    }
+    return;
+  }
+  for (std::size_t r = 0; r < n; ++r) {
+    const int8_t* row = codes + r * stride;
+    int32_t acc = 0;
+    for (std::size_t j = 0; j < stride; ++j) acc += int32_t{row[j]} * int32_t{q[j]};
+    out[r] = acc;
+  }
+}
+
+// x rounded to the nearest int8 code of step `scale` (> 0), within [-127, 127].
+int8_t Code(double x, double scale) {
+  const double c = std::nearbyint(x / scale);
+  return static_cast<int8_t>(std::clamp(c, -127.0, 127.0));
+}
+
+// A float no smaller than the non-negative double v.
+float RoundUp(double v) {
+  float f = static_cast<float>(v);
+  if (static_cast<double>(f) < v) f = std::nextafter(f, std::numeric_limits<float>::infinity());
+  return f;
+}
 
 // Walks the exclusions alongside the blocks: both are visited in ascending row order, so the
 // sorted-list cursor only moves forward over the whole scan.
@@ -316,66 +310,138 @@ Status top_k_by_dot(MatrixView items, std::span<const float> query, const Exclus
   return Status::Ok();
 }
 
-Status top_k_by_dot_batch(MatrixView items, std::span<const ScanTask> tasks,
-                          std::span<float> scratch) {
-  if (tasks.size() > kMaxScanBatch) {
-    return Status::InvalidArgument("a batched scan takes at most " + std::to_string(kMaxScanBatch) +
-                                   " tasks, got " + std::to_string(tasks.size()));
+Status QuantizedItems::Build(MatrixView items, QuantizedItems* out) {
+  if (items.dim > 65536) {
+    return Status::InvalidArgument("quantised scoring supports at most 65536 dimensions, got " +
+                                   std::to_string(items.dim));
   }
-  if (scratch.size() < 2 && items.rows > 0 && !tasks.empty()) {
-    return Status::InvalidArgument("a batched scan needs a scratch buffer of at least 2 floats");
+  QuantizedItems q;
+  q.rows_ = items.rows;
+  q.dim_ = items.dim;
+  q.stride_ = (items.dim + 15) / 16 * 16;
+  try {
+    q.codes_.assign(q.rows_ * q.stride_, 0);
+    q.scale_.resize(q.rows_);
+    q.residual_norm_.resize(q.rows_);
+    q.norm_.resize(q.rows_);
+  } catch (const std::bad_alloc&) {
+    return Status::ResourceExhausted("cannot allocate the int8 copy of " +
+                                     std::to_string(items.rows) + " rows");
   }
-  for (const ScanTask& task : tasks) {
-    PLUMB_RETURN_IF_ERROR(CheckScanArgs(items, task.query, scratch, task.selector, task.outcome));
-  }
-  // Per-task cursors, built in place: ExclusionCursor holds a reference and is not
-  // assignable, and a fixed array keeps the call allocation-free.
-  static_assert(std::is_trivially_destructible_v<ExclusionCursor>);
-  alignas(ExclusionCursor) unsigned char cursor_bytes[kMaxScanBatch][sizeof(ExclusionCursor)];
-  ExclusionCursor* cursors[kMaxScanBatch];
-  std::size_t live[kMaxScanBatch];  // indexes of the tasks still scanning
-  std::size_t live_count = 0;
-  for (std::size_t t = 0; t < tasks.size(); ++t) {
-    cursors[t] = new (cursor_bytes[t]) ExclusionCursor(tasks[t].excluded);
-    live[live_count++] = t;
-    *tasks[t].outcome = ScanOutcome{};
-  }
-  // Two score buffers: tasks are scored in pairs (ScoreRowsPair).
-  const std::size_t block = scratch.size() / 2;
-  float* scores_a = scratch.data();
-  float* scores_b = scratch.data() + block;
-  auto finish = [&](std::size_t t, std::size_t begin, std::size_t n, float* scores) {
-    cursors[t]->MarkBlock(begin, begin + n, scores);
-    PushBlock(begin, n, scores, tasks[t].selector);
-    tasks[t].outcome->rows_scanned = begin + n;
-  };
-  for (std::size_t begin = 0; begin < items.rows && live_count > 0; begin += block) {
-    if (begin > 0) {  // drop the tasks that ask to stop, keeping the others' order
-      std::size_t kept = 0;
-      for (std::size_t j = 0; j < live_count; ++j) {
-        const std::size_t t = live[j];
-        if (tasks[t].should_stop()) {
-          tasks[t].outcome->stopped_early = true;
-        } else {
-          live[kept++] = t;
-        }
+  for (std::size_t r = 0; r < q.rows_; ++r) {
+    const std::span<const float> row = items.row(r);
+    float max_abs = 0.0f;
+    for (float v : row) {
+      if (!std::isfinite(v)) {
+        return Status::InvalidArgument("row " + std::to_string(r) + " has a non-finite value");
       }
-      live_count = kept;
+      max_abs = std::max(max_abs, std::fabs(v));
+    }
+    const float scale = max_abs / 127.0f;
+    int8_t* codes = q.codes_.data() + r * q.stride_;
+    double residual = 0.0, norm = 0.0;
+    for (std::size_t j = 0; j < row.size(); ++j) {
+      const double x = row[j];
+      norm += x * x;
+      if (scale > 0.0f) codes[j] = Code(x, scale);
+      const double e = x - static_cast<double>(scale) * codes[j];  // exact in double
+      residual += e * e;
+    }
+    q.scale_[r] = scale;
+    // sqrt in double is correctly rounded; a relative 1e-12 covers the sums' rounding.
+    q.residual_norm_[r] = RoundUp(std::sqrt(residual) * (1.0 + 1e-12));
+    q.norm_[r] = RoundUp(std::sqrt(norm) * (1.0 + 1e-12));
+  }
+  *out = std::move(q);
+  return Status::Ok();
+}
+
+std::size_t QuantizedItems::bytes() const {
+  return codes_.size() + sizeof(float) * (scale_.size() + residual_norm_.size() + norm_.size());
+}
+
+Status top_k_by_dot_pruned(MatrixView items, const QuantizedItems& codes,
+                           std::span<const float> query, const Exclusions& excluded,
+                           std::span<float> scratch, TopKSelector* selector, ScanOutcome* outcome,
+                           StopCheck should_stop) {
+  PLUMB_RETURN_IF_ERROR(CheckScanArgs(items, query, scratch, selector, outcome));
+  if (codes.rows_ != items.rows || codes.dim_ != items.dim) {
+    return Status::InvalidArgument("quantised copy has " + std::to_string(codes.rows_) + " x " +
+                                   std::to_string(codes.dim_) + ", items have " +
+                                   std::to_string(items.rows) + " x " + std::to_string(items.dim));
+  }
+  // The query in int8 the same way: u = t p + d.
+  double max_abs = 0.0, uu = 0.0;
+  for (float v : query) {
+    if (!std::isfinite(v)) return Status::InvalidArgument("query has a non-finite value");
+    max_abs = std::max(max_abs, double{std::fabs(v)});
+    uu += double{v} * double{v};
+  }
+  const float t = static_cast<float>(max_abs / 127.0);
+  alignas(64) int8_t p[1024];   // the quantised query; larger dims use p_large
+  std::vector<int8_t> p_large;  // allocates, but only for dim > 1024
+  int8_t* pq = p;
+  if (codes.stride_ > sizeof(p)) {
+    p_large.assign(codes.stride_, 0);
+    pq = p_large.data();
+  } else {
+    std::fill(p, p + codes.stride_, int8_t{0});
+  }
+  double pp = 0.0, dd = 0.0;
+  for (std::size_t j = 0; j < query.size(); ++j) {
+    if (t > 0.0f) pq[j] = Code(query[j], t);
+    const double d = static_cast<double>(query[j]) - static_cast<double>(t) * pq[j];
+    pp += static_cast<double>(pq[j]) * pq[j];
+    dd += d * d;
+  }
+  // x.u = s t (q.p) + t (e.p) + x.d, with e = x - s q and d = u - t p, so
+  // |x.u - s t (q.p)| <= |e| t |p| + |x| |d| (Cauchy-Schwarz on each term).
+  const float tp_norm = RoundUp(double{t} * std::sqrt(pp) * (1.0 + 1e-12));
+  const float d_norm = RoundUp(std::sqrt(dd) * (1.0 + 1e-12));
+  const float u_norm = RoundUp(std::sqrt(uu) * (1.0 + 1e-12));
+  // The exact scan's own float rounding: a dot product of n terms summed in float is within
+  // about n * 2^-24 * sum |x_j u_j| <= n * 2^-24 |x| |u| of the real value; twice that, with
+  // the lane tree's depth added, covers ScoreRows' order of summation.
+  const float scan_slack =
+      static_cast<float>((2.0 * static_cast<double>(items.dim) + 16.0) * std::ldexp(1.0, -24)) *
+      u_norm;
+
+  *outcome = ScanOutcome{};
+  const std::size_t block = scratch.size();
+  float* upper = scratch.data();
+  // Integer sums of one block; on the stack in chunks so that the call allocates nothing.
+  constexpr std::size_t kChunk = 256;
+  int32_t dots[kChunk];
+  ExclusionCursor cursor(excluded);
+  for (std::size_t begin = 0; begin < items.rows; begin += block) {
+    if (begin > 0 && should_stop()) {
+      outcome->stopped_early = true;
+      return Status::Ok();
     }
     const std::size_t n = std::min(block, items.rows - begin);
-    const float* rows = items.data + begin * items.dim;
-    std::size_t j = 0;
-    for (; j + 2 <= live_count; j += 2) {
-      const std::size_t ta = live[j], tb = live[j + 1];
-      ScoreRowsPair(rows, n, items.dim, tasks[ta].query.data(), tasks[tb].query.data(), scores_a,
-                    scores_b);
-      finish(ta, begin, n, scores_a);
-      finish(tb, begin, n, scores_b);
+    for (std::size_t c = 0; c < n; c += kChunk) {
+      const std::size_t m = std::min(kChunk, n - c);
+      const std::size_t first = begin + c;
+      CodeDots(codes.codes_.data() + first * codes.stride_, m, codes.stride_, pq, dots);
+      for (std::size_t i = 0; i < m; ++i) {
+        const std::size_t r = first + i;
+        const float estimate = codes.scale_[r] * t * static_cast<float>(dots[i]);
+        const float bound = codes.residual_norm_[r] * tp_norm + codes.norm_[r] * d_norm +
+                            codes.norm_[r] * scan_slack;
+        // The estimate's and the bound's own float rounding (a few ulps each): 1e-6 relative.
+        upper[c + i] = estimate + bound + 1e-6f * (std::fabs(estimate) + bound) + 1e-30f;
+      }
     }
-    if (j < live_count) {
-      ScoreRows(rows, n, items.dim, tasks[live[j]].query.data(), scores_a);
-      finish(live[j], begin, n, scores_a);
+    cursor.MarkBlock(begin, begin + n, upper);
+    float threshold = selector->threshold();
+    for (std::size_t i = 0; i < n; ++i) {
+      if (!(upper[i] >= threshold)) continue;  // cannot reach the K-th best, or excluded (NaN)
+      const std::size_t r = begin + i;
+      selector->Push(static_cast<uint32_t>(r),
+                     DotRow(items.data + r * items.dim, items.dim, query.data()));
+      threshold = selector->threshold();
     }
+    outcome->rows_scanned = begin + n;
   }
   return Status::Ok();
 }

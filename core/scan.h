@@ -11,6 +11,7 @@
 #include <span>
 #include <type_traits>
 #include <utility>
+#include <vector>
 
 #include "core/aligned.h"
 #include "core/status.h"
@@ -100,34 +101,52 @@ Status top_k_by_dot(MatrixView items, std::span<const float> query, const Exclus
                     std::span<float> scratch, TopKSelector* selector, ScanOutcome* outcome,
                     StopCheck should_stop = {});
 
-// One query of a batched scan: what top_k_by_dot takes, minus the matrix and the scratch.
-// Non-owning; everything referenced must outlive the top_k_by_dot_batch call.
-struct ScanTask {
-  std::span<const float> query;
-  Exclusions excluded;
-  TopKSelector* selector = nullptr;
-  ScanOutcome* outcome = nullptr;
-  StopCheck should_stop;
+// An int8 copy of an item matrix, with per-row bounds on what the rounding lost, so that
+// top_k_by_dot_pruned can rule most rows out with a cheap integer dot product and compute the
+// exact float score only for rows that might enter the top K. A quarter of the matrix's size
+// (dim rounded up to 16 bytes per row, plus 12 bytes of per-row constants). Built once per
+// model version; immutable afterwards, so any number of threads may read it.
+class QuantizedItems {
+ public:
+  QuantizedItems() = default;
+
+  // Row r becomes codes q_r = round(x_r / s_r) with s_r = max_j |x_rj| / 127, and the exact
+  // Euclidean norms of x_r and of the residual x_r - s_r q_r (computed in double, rounded up
+  // to float) are kept as bounds.
+  // Errors: InvalidArgument if a value is not finite or dim > 65536 (int32 sums could
+  // overflow); ResourceExhausted if the memory cannot be had. *out is unchanged on error.
+  static Status Build(MatrixView items, QuantizedItems* out);
+
+  std::size_t rows() const { return rows_; }
+  std::size_t dim() const { return dim_; }
+  std::size_t bytes() const;
+
+ private:
+  friend Status top_k_by_dot_pruned(MatrixView, const QuantizedItems&, std::span<const float>,
+                                    const Exclusions&, std::span<float>, TopKSelector*,
+                                    ScanOutcome*, StopCheck);
+  std::size_t rows_ = 0, dim_ = 0, stride_ = 0;  // stride_: dim rounded up to 16
+  std::vector<int8_t> codes_;                    // rows_ x stride_, zero padded
+  std::vector<float> scale_;                     // s_r
+  std::vector<float> residual_norm_;             // >= |x_r - s_r q_r|
+  std::vector<float> norm_;                      // >= |x_r|
 };
 
-// The most tasks one top_k_by_dot_batch call takes (it keeps per-task state on the stack).
-inline constexpr std::size_t kMaxScanBatch = 16;
-
-// Several top_k_by_dot queries in one pass over the matrix. Blocks are scratch.size() / 2 rows
-// (the scratch holds two score buffers); each block is read once and scored against every
-// task while it is still in cache, two tasks at a time so each row load serves both. Every
-// task ends exactly as top_k_by_dot would leave it: same scores bit for bit (same per-lane
-// arithmetic), same pushes in the same order, same stop semantics (its should_stop is asked
-// before each block after the first; a stopped task leaves the batch and the others go on).
-// Allocates nothing. Thread-safe given distinct selectors, outcomes and scratch.
-// Errors: InvalidArgument if tasks.size() > kMaxScanBatch, the scratch holds fewer than 2
-// floats, or any task fails top_k_by_dot's checks; no selector is touched then.
-Status top_k_by_dot_batch(MatrixView items, std::span<const ScanTask> tasks,
-                          std::span<float> scratch);
-
-// Scratch floats for top_k_by_dot_batch: two buffers of 512 rows; at dim 64 a block is 128 KB
-// of item data, which stays in L2 while every task of the batch scores it.
-inline constexpr std::size_t kBatchScanScratch = 2 * 512;
+// Exactly what top_k_by_dot leaves in the selector (the same rows with the same float scores,
+// bit for bit), found with less arithmetic. The query is rounded to int8 the same way; for
+// each row the integer dot product gives an estimate and a rigorous error bound
+// (Cauchy-Schwarz on both residuals, plus the float rounding of the exact scan), and the row's
+// exact score is computed only if estimate + bound reaches the selector's current threshold.
+// A row it skips scores strictly below the K-th best score, so it could never have been kept.
+// The selector is not reset first; should_stop is asked before each block after the first,
+// as in top_k_by_dot (blocks of scratch.size() rows). Allocates nothing. Thread-safe given
+// distinct selectors and scratch.
+// Errors: as top_k_by_dot, plus InvalidArgument if `codes` was not built from a matrix of
+// this shape or the query is not finite.
+Status top_k_by_dot_pruned(MatrixView items, const QuantizedItems& codes,
+                           std::span<const float> query, const Exclusions& excluded,
+                           std::span<float> scratch, TopKSelector* selector, ScanOutcome* outcome,
+                           StopCheck should_stop = {});
 
 // As top_k_by_dot, scoring by cosine similarity <row, query> / (|row| |query|) with
 // norms[r] = |row r| precomputed by row_norms(). A row with zero norm scores 0 (cosine is

@@ -75,7 +75,7 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   }
 
   SnapshotHolder holder;
-  Scorer scorer(config.fold_in, config.scan);
+  Scorer scorer(config.fold_in);
   ExposureCounter exposure;
   ExposureWindow window(config.exposure);
   ExposureTee exposure_tee(&exposure, config.exposure_monitor ? &window : nullptr);
@@ -135,11 +135,7 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   endpoint.store(nullptr);
   exposer.reset();
   server.reset();
-  const ScanBatchCounts scans = scorer.batch_counts();
-  spdlog::info(
-      "stopped after serving {} lists; Recommend scanned the items in {} passes for {} "
-      "calls",
-      exposure.lists(), scans.passes, scans.queries);
+  spdlog::info("stopped after serving {} lists", exposure.lists());
   return 0;
 }
 

@@ -81,18 +81,20 @@ std::string UnknownUserMessage(const Snapshot& snap, std::string_view user_id,
   return msg;
 }
 
-// Scans the whole item matrix for the `count` best rows by dot product with `user`, in a
-// pass of the batcher (possibly shared with other requests).
+// The `count` best rows of the whole item matrix by dot product with `user`: the pruned exact
+// scan (int8 estimates first, exact float scores where they can matter; same answer as a full
+// float scan, see core/scan.h).
 Status ScanTopK(const Snapshot& snap, std::span<const float> user, uint32_t count,
-                std::span<const uint32_t> excluded, Deadline deadline, ScanBatcher& batcher,
-                Scratch& s, RankedList* out) {
+                std::span<const uint32_t> excluded, Deadline deadline, Scratch& s,
+                RankedList* out) {
   s.selector.Reset(count);
   ScanOutcome outcome;
   auto past_deadline = [deadline] { return std::chrono::system_clock::now() >= deadline; };
   StopCheck stop;
   if (deadline != kNoDeadline) stop = past_deadline;
-  PLUMB_RETURN_IF_ERROR(batcher.Run(
-      snap.items(), ScanTask{user, Exclusions{{}, excluded}, &s.selector, &outcome, stop}));
+  PLUMB_RETURN_IF_ERROR(top_k_by_dot_pruned(snap.items(), snap.item_codes(), user,
+                                            Exclusions{{}, excluded}, s.block, &s.selector,
+                                            &outcome, stop));
   if (outcome.stopped_early) return DeadlinePassed(outcome.rows_scanned, snap.num_items());
   std::span<const ScoredIndex> best = s.selector.SortedResult();
   out->items.assign(best.begin(), best.end());
@@ -144,7 +146,7 @@ Status Scorer::Recommend(const Snapshot& snap, const RecommendQuery& query, Rank
     }
   }
   return ScanTopK(snap, user, query.count, Union(user_exclusions, s.request_rows, &s.merged),
-                  query.deadline, batcher_, s, out);
+                  query.deadline, s, out);
 }
 
 Status Scorer::RankCandidates(const Snapshot& snap, const CandidatesQuery& query,

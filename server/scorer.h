@@ -3,8 +3,9 @@
 // translates wire messages to these queries and the results back.
 //
 // Exact scoring: one blocked scan of the whole item matrix (core/scan.h) into a bounded
-// top-K selector, skipping excluded rows; no approximation, no full sort. Recommend's scans
-// go through a ScanBatcher, so concurrent calls share passes over the matrix under load.
+// top-K selector, skipping excluded rows; no approximation, no full sort. Recommend reads the
+// snapshot's int8 copy first and computes exact float scores only for rows that might enter
+// the top K (top_k_by_dot_pruned): the same answer for about half the work.
 // Per-request scratch (selector, score block, exclusion lists, fold-in vector) is thread-local and
 // reused, so a request on a warm thread allocates nothing on the scoring path.
 #pragma once
@@ -18,7 +19,6 @@
 #include "core/status.h"
 #include "core/topk.h"
 #include "server/fold_in.h"
-#include "server/scan_batcher.h"
 #include "server/snapshot.h"
 
 namespace plumb::server {
@@ -72,10 +72,7 @@ struct RankedList {
 
 class Scorer {
  public:
-  explicit Scorer(FoldInOptions fold_in = {}, ScanBatchOptions batching = {})
-      : fold_in_(fold_in), batcher_(batching) {}
-  Scorer(const Scorer&) = delete;
-  Scorer& operator=(const Scorer&) = delete;
+  explicit Scorer(FoldInOptions fold_in = {}) : fold_in_(fold_in) {}
 
   // All three methods: thread-safe (scratch is per thread), allocate nothing in steady
   // state apart from growing *out the first time a thread sees a larger answer. The query's
@@ -98,12 +95,8 @@ class Scorer {
   // FailedPrecondition if the item's vector is zero (cosine undefined).
   Status SimilarItems(const Snapshot& snap, const SimilarQuery& query, RankedList* out) const;
 
-  // How Recommend's scans have been shared so far.
-  ScanBatchCounts batch_counts() const { return batcher_.counts(); }
-
  private:
   const FoldInOptions fold_in_;
-  mutable ScanBatcher batcher_;  // thread-safe; mutable because scoring is logically const
 };
 
 }  // namespace plumb::server

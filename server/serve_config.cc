@@ -53,13 +53,6 @@ void DefineOptions(CLI::App& app, ServeConfig* c) {
   app.add_option("--fold-in-l2", c->fold_in.l2,
                  "Fold-in: ridge term as a fraction of the item Gram matrix's mean eigenvalue")
       ->check(CLI::Range(0.0, 1e3));
-  app.add_option("--scan-batch", c->scan.max_batch,
-                 "Recommend calls that may share one pass over the item matrix (1: no sharing)")
-      ->check(CLI::Range(1, 16));
-  app.add_option("--scan-concurrency", c->scan.max_concurrent,
-                 "Passes over the item matrix running at once; more calls wait and share the "
-                 "next pass (0: one per core)")
-      ->check(CLI::Range(0, 1024));
   app.add_option("--threads", c->endpoint.max_threads,
                  "Most gRPC server threads (0: 8 per core, at least 16); calls beyond them "
                  "get RESOURCE_EXHAUSTED")

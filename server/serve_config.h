@@ -11,7 +11,6 @@
 
 #include "server/exposure_window.h"
 #include "server/fold_in.h"
-#include "server/scan_batcher.h"
 #include "server/ranker_service.h"
 #include "server/ranking_server.h"
 
@@ -30,7 +29,6 @@ struct ServeConfig {
   EndpointOptions endpoint;        // listen, TLS, threads, reflection
   RankerLimits limits;
   FoldInOptions fold_in;
-  ScanBatchOptions scan;  // how concurrent Recommend calls share passes over the item matrix
   ExposureWindowOptions exposure;
   bool exposure_monitor = true;  // off: no window, no exposure gauges (for measuring its cost)
 };

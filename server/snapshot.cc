@@ -150,6 +150,8 @@ Status Snapshot::Build(SnapshotParts parts, std::shared_ptr<const Snapshot>* out
         return Status::Ok();
       },
       [&]() -> Status {
+        // Here rather than with the items: this side has less to do.
+        PLUMB_RETURN_IF_ERROR(QuantizedItems::Build(parts.items.view(), &snap->item_codes_));
         if (num_users > 0) PLUMB_RETURN_IF_ERROR(CheckMatrix(parts.users, "user"));
         PLUMB_RETURN_IF_ERROR(CheckSeen(parts, num_users, num_items, where));
         Status ids = IdMap::Build(parts.user_ids, &snap->user_index_);
@@ -172,7 +174,7 @@ Status Snapshot::Build(SnapshotParts parts, std::shared_ptr<const Snapshot>* out
 }
 
 size_t Snapshot::memory_bytes() const {
-  return (items_.rows() + users_.rows()) * items_.dim() * sizeof(float) +
+  return (items_.rows() + users_.rows()) * items_.dim() * sizeof(float) + item_codes_.bytes() +
          item_norms_.capacity() * sizeof(float) + item_gram_.capacity() * sizeof(double) +
          item_index_.memory_bytes() + user_index_.memory_bytes() +
          item_degrees_.capacity() * sizeof(uint64_t) +

@@ -17,6 +17,7 @@
 #include <vector>
 
 #include "core/aligned.h"
+#include "core/scan.h"
 #include "core/status.h"
 #include "server/id_map.h"
 
@@ -70,6 +71,8 @@ class Snapshot {
   MatrixView items() const { return items_.view(); }
   std::span<const float> item_vector(uint32_t item) const { return items_.row(item); }
   std::span<const float> user_vector(uint32_t user) const { return users_.row(user); }
+  // The int8 copy of the item matrix that Recommend's pruned exact scan reads first.
+  const QuantizedItems& item_codes() const { return item_codes_; }
   // Euclidean norm of each item vector, for cosine similarity.
   std::span<const float> item_norms() const { return item_norms_; }
   // QᵀQ of the item matrix (dim x dim, row-major), for fold-in of unknown users.
@@ -104,6 +107,7 @@ class Snapshot {
   int64_t loaded_ms_ = 0;
   ItemMatrix items_;
   ItemMatrix users_;
+  QuantizedItems item_codes_;
   std::vector<float> item_norms_;
   std::vector<double> item_gram_;
   IdMap item_index_;

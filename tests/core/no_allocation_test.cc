@@ -68,18 +68,18 @@ TEST(NoAllocationTest, RepeatedTopKScansAllocateNothing) {
     ASSERT_EQ(sel.SortedResult().size(), 20u);
   }
   EXPECT_EQ(g_allocations.load() - before, 0);
-  // The batched scan: its selectors are set up (and allocate) first.
-  TopKSelector batch_sel[3];
-  ScanOutcome batch_out[3];
-  for (auto& s : batch_sel) s.Reset(10);
-  const ScanTask tasks[3] = {
-      {queries[0], Exclusions{bitmap, seen}, &batch_sel[0], &batch_out[0], stop},
-      {queries[1], {}, &batch_sel[1], &batch_out[1], {}},
-      {queries[2], Exclusions{{}, seen}, &batch_sel[2], &batch_out[2], {}}};
-  const long before_batch = g_allocations.load();
-  ASSERT_TRUE(top_k_by_dot_batch(m.view(), tasks, scratch).ok());
-  EXPECT_EQ(g_allocations.load() - before_batch, 0);
-  for (auto& s : batch_sel) ASSERT_EQ(s.SortedResult().size(), 10u);
+  // The pruned scan: its int8 copy is built (and allocates) first.
+  QuantizedItems codes;
+  ASSERT_TRUE(QuantizedItems::Build(m.view(), &codes).ok());
+  const long before_pruned = g_allocations.load();
+  for (std::size_t i = 0; i < queries.size(); ++i) {
+    sel.Reset(20);
+    ASSERT_TRUE(top_k_by_dot_pruned(m.view(), codes, queries[i], Exclusions{bitmap, seen}, scratch,
+                                    &sel, &outcome, stop)
+                    .ok());
+    ASSERT_EQ(sel.SortedResult().size(), 20u);
+  }
+  EXPECT_EQ(g_allocations.load() - before_pruned, 0);
   // The counter works: a vector allocation is seen.
   std::vector<int>* v = new std::vector<int>(3);
   EXPECT_GE(g_allocations.load() - before, 2);

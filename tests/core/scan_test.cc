@@ -4,6 +4,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <limits>
 #include <random>
 #include <vector>
 
@@ -190,112 +191,104 @@ TEST(TopKByDotTest, RejectsBadArgumentsAndLeavesSelectorAlone) {
   EXPECT_EQ(sel.SortedResult()[0].index, 99u);
 }
 
-// A batched scan must leave every task exactly as its own top_k_by_dot would: the same
-// kernel over the same rows in the same order, so the comparison is bit for bit (an exact
-// algebraic property of the design, not a tolerance), and exact against brute force too.
-TEST(TopKByDotBatchTest, EachTaskEqualsItsOwnScanAndBruteForce) {
-  std::mt19937_64 rng(77);
+// The pruned scan must leave the selector exactly as the full scan does (same rows, same
+// float scores bit for bit): it only skips rows whose rigorous upper bound is below the
+// current K-th best. Exercised on Gaussian rows, rows of wildly different norms, quantised
+// rows full of exact ties, zero rows, k above the row count, exclusions, odd dimensions.
+TEST(TopKByDotPrunedTest, SelectorEqualsTheFullScanBitForBit) {
+  std::mt19937_64 rng(99);
   std::normal_distribution<float> normal(0.0f, 1.0f);
-  for (int trial = 0; trial < 60; ++trial) {
-    const std::size_t rows = rng() % 2500;
-    const std::size_t dim = 1 + rng() % 70;
-    const std::size_t tasks = 1 + rng() % kMaxScanBatch;
-    const std::size_t block = 1 + rng() % 400;
-    // Half the trials quantised (ties everywhere), half Gaussian (rounding-sensitive).
+  for (int trial = 0; trial < 150; ++trial) {
+    const std::size_t rows = rng() % 4000;
+    const std::size_t dim = 1 + rng() % 100;
+    const std::size_t k = (trial % 15 == 0) ? rows + 3 : rng() % 60;
+    const std::size_t block = 1 + rng() % 900;
     ItemMatrix m(rows, dim);
-    if (trial % 2 == 0) {
-      m = QuantisedMatrix(rows, dim, rng);
+    const int kind = trial % 3;
+    if (kind == 0) {
+      m = QuantisedMatrix(rows, dim, rng);  // ties everywhere
     } else {
-      for (std::size_t r = 0; r < rows; ++r)
-        for (auto& v : m.mutable_row(r)) v = normal(rng);
-    }
-    std::vector<std::vector<float>> queries(tasks);
-    std::vector<std::vector<uint32_t>> excluded(tasks);
-    std::vector<std::size_t> ks(tasks);
-    for (std::size_t t = 0; t < tasks; ++t) {
-      queries[t] = QuantisedQuery(dim, rng);
-      if (trial % 2 == 1)
-        for (auto& v : queries[t]) v = normal(rng);
-      for (std::size_t r = 0; r < rows; ++r)
-        if (rng() % 7 == 0) excluded[t].push_back(static_cast<uint32_t>(r));
-      ks[t] = rng() % 40;
-    }
-    std::vector<TopKSelector> batch_sel(tasks);
-    std::vector<ScanOutcome> batch_out(tasks);
-    std::vector<ScanTask> batch(tasks);
-    for (std::size_t t = 0; t < tasks; ++t) {
-      batch_sel[t].Reset(ks[t]);
-      batch[t] =
-          ScanTask{queries[t], Exclusions{{}, excluded[t]}, &batch_sel[t], &batch_out[t], {}};
-    }
-    std::vector<float> scratch(block), batch_scratch(2 * block);  // two buffers of `block` rows
-    ASSERT_TRUE(top_k_by_dot_batch(m.view(), batch, batch_scratch).ok());
-    for (std::size_t t = 0; t < tasks; ++t) {
-      TopKSelector alone(ks[t]);
-      ScanOutcome alone_out;
-      ASSERT_TRUE(top_k_by_dot(m.view(), queries[t], Exclusions{{}, excluded[t]}, scratch, &alone,
-                               &alone_out)
-                      .ok());
-      auto a = alone.SortedResult();
-      auto b = batch_sel[t].SortedResult();
-      ASSERT_EQ(std::vector<ScoredIndex>(b.begin(), b.end()),
-                std::vector<ScoredIndex>(a.begin(), a.end()))
-          << "trial " << trial << " task " << t << " of " << tasks;
-      EXPECT_EQ(batch_out[t].rows_scanned, rows);
-      EXPECT_FALSE(batch_out[t].stopped_early);
-      if (trial % 2 == 0) {
-        std::vector<bool> ex(rows, false);
-        for (uint32_t r : excluded[t]) ex[r] = true;
-        EXPECT_EQ(std::vector<ScoredIndex>(b.begin(), b.end()),
-                  BruteForce(m, queries[t], ex, ks[t]))
-            << "trial " << trial << " task " << t;
+      for (std::size_t r = 0; r < rows; ++r) {
+        // kind 2: norms spread over six orders of magnitude, and some all-zero rows
+        const float scale = kind == 1 ? 1.0f : std::pow(10.0f, static_cast<float>(rng() % 7) - 3);
+        const bool zero = kind == 2 && rng() % 20 == 0;
+        for (auto& v : m.mutable_row(r)) v = zero ? 0.0f : scale * normal(rng);
       }
     }
+    std::vector<float> q(dim);
+    for (auto& v : q)
+      v = kind == 0 ? static_cast<float>(static_cast<int>(rng() % 3) - 1) : normal(rng);
+    std::vector<uint32_t> excluded;
+    for (std::size_t r = 0; r < rows; ++r)
+      if (rng() % 9 == 0) excluded.push_back(static_cast<uint32_t>(r));
+    QuantizedItems codes;
+    ASSERT_TRUE(QuantizedItems::Build(m.view(), &codes).ok());
+    std::vector<float> scratch(block);
+    TopKSelector full(k), pruned(k);
+    ScanOutcome full_out, pruned_out;
+    ASSERT_TRUE(
+        top_k_by_dot(m.view(), q, Exclusions{{}, excluded}, scratch, &full, &full_out).ok());
+    ASSERT_TRUE(top_k_by_dot_pruned(m.view(), codes, q, Exclusions{{}, excluded}, scratch, &pruned,
+                                    &pruned_out)
+                    .ok());
+    auto a = full.SortedResult();
+    auto b = pruned.SortedResult();
+    ASSERT_EQ(std::vector<ScoredIndex>(b.begin(), b.end()),
+              std::vector<ScoredIndex>(a.begin(), a.end()))
+        << "trial " << trial << " rows=" << rows << " dim=" << dim << " k=" << k;
+    EXPECT_EQ(pruned_out.rows_scanned, rows);
+    EXPECT_FALSE(pruned_out.stopped_early);
   }
 }
 
-TEST(TopKByDotBatchTest, AStoppedTaskLeavesTheBatchAndTheOthersFinish) {
-  std::mt19937_64 rng(8);
-  const std::size_t rows = 5000, dim = 16, block = 256;
-  ItemMatrix m = QuantisedMatrix(rows, dim, rng);
-  std::vector<float> q1 = QuantisedQuery(dim, rng), q2 = QuantisedQuery(dim, rng);
-  TopKSelector s1(5), s2(5);
-  ScanOutcome o1, o2;
-  int calls = 0;
-  auto stop_at_third_check = [&] { return ++calls >= 3; };
-  std::vector<ScanTask> tasks = {ScanTask{q1, {}, &s1, &o1, stop_at_third_check},
-                                 ScanTask{q2, {}, &s2, &o2, {}}};
-  std::vector<float> scratch(2 * block);
-  ASSERT_TRUE(top_k_by_dot_batch(m.view(), tasks, scratch).ok());
-  EXPECT_TRUE(o1.stopped_early);
-  EXPECT_EQ(o1.rows_scanned, 3 * block);
-  EXPECT_FALSE(o2.stopped_early);
-  EXPECT_EQ(o2.rows_scanned, rows);
-  std::vector<bool> prefix(rows, false);
-  for (std::size_t r = 3 * block; r < rows; ++r) prefix[r] = true;
-  auto got1 = s1.SortedResult();
-  EXPECT_EQ(std::vector<ScoredIndex>(got1.begin(), got1.end()), BruteForce(m, q1, prefix, 5));
-  auto got2 = s2.SortedResult();
-  EXPECT_EQ(std::vector<ScoredIndex>(got2.begin(), got2.end()),
-            BruteForce(m, q2, std::vector<bool>(rows, false), 5));
+// Where the bound matters most: rows whose int8 estimates are indistinguishable. A bound
+// that were too tight (e.g. the rounding residuals left out) would let an earlier near-tie
+// hide the true best row; the hand-built answer is row 1234 with score exactly 1.
+TEST(TopKByDotPrunedTest, KnownBestRowAmongNearTies) {
+  // 3000 rows that all score 1.0 - tiny amounts, one that scores 1.0 exactly: the int8
+  // estimates cannot tell them apart, the bound must keep all of them in play.
+  const std::size_t rows = 3000, dim = 64;
+  ItemMatrix m(rows, dim);
+  std::mt19937_64 rng(5);
+  for (std::size_t r = 0; r < rows; ++r) {
+    auto row = m.mutable_row(r);
+    row[0] = 1.0f - static_cast<float>(1 + rng() % 1000) * 1e-6f;
+    for (std::size_t j = 1; j < dim; ++j) row[j] = static_cast<float>(rng() % 100) * 1e-3f;
+  }
+  m.mutable_row(1234)[0] = 1.0f;
+  std::vector<float> q(dim, 0.0f);
+  q[0] = 1.0f;
+  QuantizedItems codes;
+  ASSERT_TRUE(QuantizedItems::Build(m.view(), &codes).ok());
+  std::vector<float> scratch(256);
+  TopKSelector sel(1);
+  ScanOutcome outcome;
+  ASSERT_TRUE(top_k_by_dot_pruned(m.view(), codes, q, {}, scratch, &sel, &outcome).ok());
+  ASSERT_EQ(sel.size(), 1u);
+  EXPECT_EQ(sel.SortedResult()[0].index, 1234u);
+  EXPECT_EQ(sel.SortedResult()[0].score, 1.0f);
 }
 
-TEST(TopKByDotBatchTest, RejectsBadTasksWithoutTouchingAnySelector) {
-  ItemMatrix m(10, 4);
-  std::vector<float> good(4), bad(3), scratch(16);
-  TopKSelector s1(2), s2(2);
-  s1.Push(7, 1.0f);
-  s2.Push(8, 1.0f);
-  ScanOutcome o1, o2;
-  std::vector<ScanTask> tasks = {ScanTask{good, {}, &s1, &o1, {}}, ScanTask{bad, {}, &s2, &o2, {}}};
-  EXPECT_EQ(top_k_by_dot_batch(m.view(), tasks, scratch).code(), Status::Code::kInvalidArgument);
-  EXPECT_EQ(s1.SortedResult()[0].index, 7u);
-  EXPECT_EQ(s2.SortedResult()[0].index, 8u);
-  std::vector<ScanTask> too_many(kMaxScanBatch + 1, ScanTask{good, {}, &s1, &o1, {}});
-  EXPECT_EQ(top_k_by_dot_batch(m.view(), too_many, scratch).code(), Status::Code::kInvalidArgument);
-  EXPECT_EQ(top_k_by_dot_batch(m.view(), {}, scratch).code(), Status::Code::kOk);
-  std::vector<float> one(1);
-  EXPECT_EQ(top_k_by_dot_batch(m.view(), tasks, one).code(), Status::Code::kInvalidArgument);
+TEST(TopKByDotPrunedTest, RejectsMismatchesAndNonFiniteValues) {
+  ItemMatrix m(10, 4), other(11, 4);
+  QuantizedItems codes;
+  ASSERT_TRUE(QuantizedItems::Build(m.view(), &codes).ok());
+  EXPECT_EQ(codes.rows(), 10u);
+  EXPECT_EQ(codes.dim(), 4u);
+  std::vector<float> q(4, 1.0f), scratch(16);
+  TopKSelector sel(2);
+  ScanOutcome outcome;
+  EXPECT_EQ(top_k_by_dot_pruned(other.view(), codes, q, {}, scratch, &sel, &outcome).code(),
+            Status::Code::kInvalidArgument);
+  q[2] = std::numeric_limits<float>::infinity();
+  EXPECT_EQ(top_k_by_dot_pruned(m.view(), codes, q, {}, scratch, &sel, &outcome).code(),
+            Status::Code::kInvalidArgument);
+  m.mutable_row(3)[1] = std::numeric_limits<float>::quiet_NaN();
+  QuantizedItems bad;
+  const Status s = QuantizedItems::Build(m.view(), &bad);
+  EXPECT_EQ(s.code(), Status::Code::kInvalidArgument);
+  EXPECT_NE(s.message().find("row 3"), std::string::npos) << s.message();
+  EXPECT_EQ(bad.rows(), 0u);  // unchanged on error
 }
 
 TEST(TopKByCosineTest, MatchesBruteForceCosine) {

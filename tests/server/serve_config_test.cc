@@ -93,8 +93,7 @@ TEST(ServeConfigTest, HelpListsEveryKeyWithItsDefault) {
        {"--db", "--config", "--listen", "--metrics", "--scratch-dir", "--catchup-interval-ms",
         "--max-count", "--max-candidates", "--max-exclusions", "--max-recent",
         "--fold-in-confidence", "--fold-in-l2", "--threads", "--reflection", "--tls-cert",
-        "--tls-key", "--tls-client-ca", "--shutdown-grace-ms", "--log-level", "--scan-batch",
-        "--scan-concurrency"}) {
+        "--tls-key", "--tls-client-ca", "--shutdown-grace-ms", "--log-level"}) {
     EXPECT_NE(out.find(key), std::string::npos) << key;
   }
   EXPECT_NE(out.find("=500"), std::string::npos) << out;   // catch-up interval
@@ -110,8 +109,6 @@ TEST(ServeConfigTest, ExampleFileParsesAndNamesEveryKey) {
   ASSERT_EQ(Parse({"--config", example}, &c, nullptr, &err), -1) << err;
   ServeConfig d;
   ASSERT_EQ(Parse({"--db", c.db}, &d), -1);
-  EXPECT_EQ(c.scan.max_batch, d.scan.max_batch);
-  EXPECT_EQ(c.scan.max_concurrent, d.scan.max_concurrent);
   EXPECT_EQ(c.limits.max_count, d.limits.max_count);
   EXPECT_EQ(c.catchup_interval_ms, d.catchup_interval_ms);
   EXPECT_EQ(c.exposure_monitor, d.exposure_monitor);

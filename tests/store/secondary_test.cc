@@ -74,6 +74,29 @@ TEST_F(SecondaryTest, FollowsAcrossFlushesAndAPrimaryRestart) {
   EXPECT_EQ(users, testing::PatternMatrix(3, 2, 1.0f));
 }
 
+// The last commit before a primary restart must reach a follower even if the restarted
+// primary writes nothing more (plumb-serve must pick up the version a stopped trainer left).
+TEST_F(SecondaryTest, SeesTheLastCommitBeforeAPrimaryRestartWithoutNewWrites) {
+  AddIds(3, 3);
+  auto follower = OpenFollower();
+  ASSERT_NE(follower, nullptr);
+  const uint64_t v1 = Publish(2, 1.0f, true);
+  Reopen();  // closes and opens again; no write after that
+  ASSERT_TRUE(follower->CatchUp().ok());
+  uint64_t active = 0;
+  ASSERT_TRUE(follower->GetActiveVersion(&active).ok());
+  EXPECT_EQ(active, v1);
+  std::vector<float> users(6);
+  ASSERT_TRUE(follower->ReadMatrix(v1, MatrixKind::kUsers, users).ok());
+  EXPECT_EQ(users, testing::PatternMatrix(3, 2, 1.0f));
+  // And with the primary closed altogether.
+  const uint64_t v2 = Publish(2, 2.0f, true);
+  store_.reset();
+  ASSERT_TRUE(follower->CatchUp().ok());
+  ASSERT_TRUE(follower->GetActiveVersion(&active).ok());
+  EXPECT_EQ(active, v2);
+}
+
 TEST_F(SecondaryTest, IsReadOnly) {
   auto follower = OpenFollower();
   ASSERT_NE(follower, nullptr);

@@ -4,6 +4,9 @@
 #include <bit>
 #include <cmath>
 #include <cstring>
+#if defined(__x86_64__)
+#include <immintrin.h>
+#endif
 #include <limits>
 #include <string>
 #include <type_traits>
@@ -120,26 +123,70 @@ float DotRow(const float* row, std::size_t dim, const float* q) {
 constexpr float kNaN = std::numeric_limits<float>::quiet_NaN();
 
 // Integer dot products of int8 rows (stride bytes each, zero padded) with an int8 query:
-// exact in int32. Plain loops that the compiler vectorises (widening multiply-adds) in each
-// clone; integer sums have no rounding, so every clone gives the same result.
+// exact in int32, so every code path below gives the same sums.
+//
+// Portable path: plain loops the compiler vectorises in each clone.
 PLUMB_SCAN_CLONES
-void CodeDots(const int8_t* codes, std::size_t n, std::size_t stride, const int8_t* q,
-              int32_t* out) {
-  if (stride == 64) {  // the common dimension, with a constant trip count
-    for (std::size_t r = 0; r < n; ++r) {
-      const int8_t* row = codes + r * 64;
-      int32_t acc = 0;
-      for (std::size_t j = 0; j < 64; ++j) acc += int32_t{row[j]} * int32_t{q[j]};
-      out[r] = acc;
-    }
-    return;
-  }
+void CodeDotsPortable(const int8_t* codes, std::size_t n, std::size_t stride, const int8_t* q,
+                      int32_t* out) {
   for (std::size_t r = 0; r < n; ++r) {
     const int8_t* row = codes + r * stride;
     int32_t acc = 0;
     for (std::size_t j = 0; j < stride; ++j) acc += int32_t{row[j]} * int32_t{q[j]};
     out[r] = acc;
   }
+}
+
+#if defined(__x86_64__) && (defined(__GNUC__) || defined(__clang__))
+#define PLUMB_HAVE_AVX2_CODE_DOTS 1
+// AVX2 path for strides that are multiples of 32 (the compiler's own vectorisation of the
+// loop above was measured 3x slower: it reduces every row horizontally on its own).
+// maddubs multiplies unsigned by signed bytes, so each row chunk a enters as |a| and the
+// query as sign(p, a) (p negated where a < 0, zeroed where a == 0): |a| * sign(p, a) = a * p.
+// Adjacent pairs sum to int16 without saturation since |a|, |p| <= 127 (2 * 127^2 < 2^15);
+// madd with ones widens them to int32. Eight rows are reduced together by horizontal adds.
+__attribute__((target("avx2"))) void CodeDotsAvx2(const int8_t* codes, std::size_t n,
+                                                  std::size_t stride, const int8_t* q,
+                                                  int32_t* out) {
+  const __m256i ones = _mm256_set1_epi16(1);
+  std::size_t r = 0;
+  for (; r + 8 <= n; r += 8) {
+    __m256i acc[8];
+    for (std::size_t i = 0; i < 8; ++i) {
+      const int8_t* row = codes + (r + i) * stride;
+      acc[i] = _mm256_setzero_si256();
+      for (std::size_t c = 0; c < stride; c += 32) {
+        const __m256i a = _mm256_loadu_si256(reinterpret_cast<const __m256i*>(row + c));
+        const __m256i p = _mm256_loadu_si256(reinterpret_cast<const __m256i*>(q + c));
+        const __m256i pairs = _mm256_maddubs_epi16(_mm256_abs_epi8(a), _mm256_sign_epi8(p, a));
+        acc[i] = _mm256_add_epi32(acc[i], _mm256_madd_epi16(pairs, ones));
+      }
+    }
+    const __m256i s01 = _mm256_hadd_epi32(acc[0], acc[1]);
+    const __m256i s23 = _mm256_hadd_epi32(acc[2], acc[3]);
+    const __m256i s45 = _mm256_hadd_epi32(acc[4], acc[5]);
+    const __m256i s67 = _mm256_hadd_epi32(acc[6], acc[7]);
+    // Each 128-bit half of s0123 holds partial sums of rows 0..3; of s4567, rows 4..7.
+    const __m256i s0123 = _mm256_hadd_epi32(s01, s23);
+    const __m256i s4567 = _mm256_hadd_epi32(s45, s67);
+    const __m256i lo = _mm256_permute2x128_si256(s0123, s4567, 0x20);
+    const __m256i hi = _mm256_permute2x128_si256(s0123, s4567, 0x31);
+    _mm256_storeu_si256(reinterpret_cast<__m256i*>(out + r), _mm256_add_epi32(lo, hi));
+  }
+  if (r < n) CodeDotsPortable(codes + r * stride, n - r, stride, q, out + r);
+}
+#endif
+
+void CodeDots(const int8_t* codes, std::size_t n, std::size_t stride, const int8_t* q,
+              int32_t* out) {
+#if defined(PLUMB_HAVE_AVX2_CODE_DOTS)
+  static const bool avx2 = __builtin_cpu_supports("avx2");
+  if (avx2 && stride % 32 == 0) {
+    CodeDotsAvx2(codes, n, stride, q, out);
+    return;
+  }
+#endif
+  CodeDotsPortable(codes, n, stride, q, out);
 }
 
 // x rounded to the nearest int8 code of step `scale` (> 0), within [-127, 127].
@@ -247,6 +294,7 @@ void ScanBlocks(MatrixView items, std::span<const float> query, const Exclusions
     cursor.MarkBlock(begin, begin + n, scores);
     PushBlock(begin, n, scores, selector);
     outcome->rows_scanned = begin + n;
+    outcome->rows_scored_exactly = begin + n;
   }
 }
 
@@ -439,6 +487,7 @@ Status top_k_by_dot_pruned(MatrixView items, const QuantizedItems& codes,
       const std::size_t r = begin + i;
       selector->Push(static_cast<uint32_t>(r),
                      DotRow(items.data + r * items.dim, items.dim, query.data()));
+      ++outcome->rows_scored_exactly;
       threshold = selector->threshold();
     }
     outcome->rows_scanned = begin + n;

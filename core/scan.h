@@ -68,6 +68,10 @@ struct ScanOutcome {
   // Rows scored (excluded rows included in the count), a multiple of the block size unless
   // the scan reached the end.
   std::size_t rows_scanned = 0;
+  // Rows whose exact float score was computed: for top_k_by_dot / top_k_by_cosine every row
+  // scanned (excluded ones included); for top_k_by_dot_pruned only the non-excluded rows its
+  // bound could not rule out (how well the pruning worked).
+  std::size_t rows_scored_exactly = 0;
 };
 
 // scores[r] = <items.row(r), query> for every r < items.rows.

@@ -354,7 +354,11 @@ TEST_F(RankerServerTest, EveryErrorPathReturnsItsDocumentedCodeAndNamesTheField)
 // 300,000 x 64 items take several milliseconds to scan; deadlines from 1 to 40 ms are
 // tried so that some land inside the scan whatever the machine's speed.
 TEST_F(RankerServerTest, DeadlinesPassingDuringTheScanStopItEarly) {
-  Load(RandomModel(2, 300'000, 64, 0, 9, false), 1);
+  // Every item the same vector: all scores tie, so the pruned scan cannot rule any row out and
+  // computes all 300,000 exact scores (a few ms), long enough for short deadlines to pass.
+  TestModel model = RandomModel(2, 300'000, 64, 0, 9, false);
+  for (size_t k = 0; k < model.items.size(); ++k) model.items[k] = model.items[k % 64];
+  Load(std::move(model), 1);
   int client_deadline_exceeded = 0;
   for (int ms = 1; ms <= 40; ++ms) {
     grpc::ClientContext context;

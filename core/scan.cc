@@ -298,6 +298,119 @@ void ScanBlocks(MatrixView items, std::span<const float> query, const Exclusions
   }
 }
 
+// 1 / |query| for cosine scores, the same float for the full and the pruned scan.
+Status InverseQueryNorm(std::span<const float> query, float* inv) {
+  double qq = 0.0;
+  for (float v : query) qq += double{v} * double{v};
+  const double query_norm = std::sqrt(qq);
+  if (!(query_norm > 0.0) || !std::isfinite(query_norm)) {
+    return Status::InvalidArgument("cosine similarity needs a finite, non-zero query");
+  }
+  *inv = static_cast<float>(1.0 / query_norm);
+  return Status::Ok();
+}
+
+struct CodeView {
+  const int8_t* codes;
+  std::size_t stride;
+  const float* scale;
+  const float* residual_norm;
+  const float* norm;
+};
+
+// The shared body of the pruned scans. `finish(r, upper_dot)` turns a bound on row r's float
+// dot product into a bound on its final score (identity for dot, the cosine normalisation with
+// its rounding for cosine); `exact(r)` is the row's final score exactly as the full scan
+// computes it.
+template <typename Finish, typename Exact>
+Status PrunedScan(MatrixView items, const CodeView& codes, std::span<const float> query,
+                  const Exclusions& excluded, std::span<float> scratch, TopKSelector* selector,
+                  ScanOutcome* outcome, StopCheck should_stop, Finish finish, Exact exact) {
+  // The query in int8 the same way: u = t p + d.
+  double max_abs = 0.0, uu = 0.0;
+  for (float v : query) {
+    if (!std::isfinite(v)) return Status::InvalidArgument("query has a non-finite value");
+    max_abs = std::max(max_abs, double{std::fabs(v)});
+    uu += double{v} * double{v};
+  }
+  const float t = static_cast<float>(max_abs / 127.0);
+  alignas(64) int8_t p[1024];   // the quantised query; larger dims use p_large
+  std::vector<int8_t> p_large;  // allocates, but only for dim > 1024
+  int8_t* pq = p;
+  if (codes.stride > sizeof(p)) {
+    p_large.assign(codes.stride, 0);
+    pq = p_large.data();
+  } else {
+    std::fill(p, p + codes.stride, int8_t{0});
+  }
+  double pp = 0.0, dd = 0.0;
+  for (std::size_t j = 0; j < query.size(); ++j) {
+    if (t > 0.0f) pq[j] = Code(query[j], t);
+    const double d = static_cast<double>(query[j]) - static_cast<double>(t) * pq[j];
+    pp += static_cast<double>(pq[j]) * pq[j];
+    dd += d * d;
+  }
+  // x.u = s t (q.p) + t (e.p) + x.d, with e = x - s q and d = u - t p, so
+  // |x.u - s t (q.p)| <= |e| t |p| + |x| |d| (Cauchy-Schwarz on each term).
+  const float tp_norm = RoundUp(double{t} * std::sqrt(pp) * (1.0 + 1e-12));
+  const float d_norm = RoundUp(std::sqrt(dd) * (1.0 + 1e-12));
+  const float u_norm = RoundUp(std::sqrt(uu) * (1.0 + 1e-12));
+  // The exact scan's own float rounding: a dot product of n terms summed in float is within
+  // about n * 2^-24 * sum |x_j u_j| <= n * 2^-24 |x| |u| of the real value; twice that, with
+  // the lane tree's depth added, covers ScoreRows' order of summation.
+  const float scan_slack =
+      static_cast<float>((2.0 * static_cast<double>(items.dim) + 16.0) * std::ldexp(1.0, -24)) *
+      u_norm;
+
+  *outcome = ScanOutcome{};
+  const std::size_t block = scratch.size();
+  float* upper = scratch.data();
+  // Integer sums of one block; on the stack in chunks so that the call allocates nothing.
+  constexpr std::size_t kChunk = 256;
+  int32_t dots[kChunk];
+  ExclusionCursor cursor(excluded);
+  for (std::size_t begin = 0; begin < items.rows; begin += block) {
+    if (begin > 0 && should_stop()) {
+      outcome->stopped_early = true;
+      return Status::Ok();
+    }
+    const std::size_t n = std::min(block, items.rows - begin);
+    for (std::size_t c = 0; c < n; c += kChunk) {
+      const std::size_t m = std::min(kChunk, n - c);
+      const std::size_t first = begin + c;
+      CodeDots(codes.codes + first * codes.stride, m, codes.stride, pq, dots);
+      for (std::size_t i = 0; i < m; ++i) {
+        const std::size_t r = first + i;
+        const float estimate = codes.scale[r] * t * static_cast<float>(dots[i]);
+        const float bound =
+            codes.residual_norm[r] * tp_norm + codes.norm[r] * d_norm + codes.norm[r] * scan_slack;
+        // The estimate's and the bound's own float rounding (a few ulps each): 1e-6 relative.
+        upper[c + i] = finish(r, estimate + bound + 1e-6f * (std::fabs(estimate) + bound) + 1e-30f);
+      }
+    }
+    cursor.MarkBlock(begin, begin + n, upper);
+    float threshold = selector->threshold();
+    for (std::size_t i = 0; i < n; ++i) {
+      if (!(upper[i] >= threshold)) continue;  // cannot reach the K-th best, or excluded (NaN)
+      const std::size_t r = begin + i;
+      selector->Push(static_cast<uint32_t>(r), exact(r));
+      ++outcome->rows_scored_exactly;
+      threshold = selector->threshold();
+    }
+    outcome->rows_scanned = begin + n;
+  }
+  return Status::Ok();
+}
+
+Status CheckCodes(MatrixView items, std::size_t rows, std::size_t dim) {
+  if (rows != items.rows || dim != items.dim) {
+    return Status::InvalidArgument("quantised copy has " + std::to_string(rows) + " x " +
+                                   std::to_string(dim) + ", items have " +
+                                   std::to_string(items.rows) + " x " + std::to_string(items.dim));
+  }
+  return Status::Ok();
+}
+
 }  // namespace
 
 Status dot_scores(MatrixView items, std::span<const float> query, std::span<float> scores) {
@@ -413,86 +526,44 @@ Status top_k_by_dot_pruned(MatrixView items, const QuantizedItems& codes,
                            std::span<float> scratch, TopKSelector* selector, ScanOutcome* outcome,
                            StopCheck should_stop) {
   PLUMB_RETURN_IF_ERROR(CheckScanArgs(items, query, scratch, selector, outcome));
-  if (codes.rows_ != items.rows || codes.dim_ != items.dim) {
-    return Status::InvalidArgument("quantised copy has " + std::to_string(codes.rows_) + " x " +
-                                   std::to_string(codes.dim_) + ", items have " +
-                                   std::to_string(items.rows) + " x " + std::to_string(items.dim));
-  }
-  // The query in int8 the same way: u = t p + d.
-  double max_abs = 0.0, uu = 0.0;
-  for (float v : query) {
-    if (!std::isfinite(v)) return Status::InvalidArgument("query has a non-finite value");
-    max_abs = std::max(max_abs, double{std::fabs(v)});
-    uu += double{v} * double{v};
-  }
-  const float t = static_cast<float>(max_abs / 127.0);
-  alignas(64) int8_t p[1024];   // the quantised query; larger dims use p_large
-  std::vector<int8_t> p_large;  // allocates, but only for dim > 1024
-  int8_t* pq = p;
-  if (codes.stride_ > sizeof(p)) {
-    p_large.assign(codes.stride_, 0);
-    pq = p_large.data();
-  } else {
-    std::fill(p, p + codes.stride_, int8_t{0});
-  }
-  double pp = 0.0, dd = 0.0;
-  for (std::size_t j = 0; j < query.size(); ++j) {
-    if (t > 0.0f) pq[j] = Code(query[j], t);
-    const double d = static_cast<double>(query[j]) - static_cast<double>(t) * pq[j];
-    pp += static_cast<double>(pq[j]) * pq[j];
-    dd += d * d;
-  }
-  // x.u = s t (q.p) + t (e.p) + x.d, with e = x - s q and d = u - t p, so
-  // |x.u - s t (q.p)| <= |e| t |p| + |x| |d| (Cauchy-Schwarz on each term).
-  const float tp_norm = RoundUp(double{t} * std::sqrt(pp) * (1.0 + 1e-12));
-  const float d_norm = RoundUp(std::sqrt(dd) * (1.0 + 1e-12));
-  const float u_norm = RoundUp(std::sqrt(uu) * (1.0 + 1e-12));
-  // The exact scan's own float rounding: a dot product of n terms summed in float is within
-  // about n * 2^-24 * sum |x_j u_j| <= n * 2^-24 |x| |u| of the real value; twice that, with
-  // the lane tree's depth added, covers ScoreRows' order of summation.
-  const float scan_slack =
-      static_cast<float>((2.0 * static_cast<double>(items.dim) + 16.0) * std::ldexp(1.0, -24)) *
-      u_norm;
+  PLUMB_RETURN_IF_ERROR(CheckCodes(items, codes.rows_, codes.dim_));
+  const CodeView view{codes.codes_.data(), codes.stride_, codes.scale_.data(),
+                      codes.residual_norm_.data(), codes.norm_.data()};
+  return PrunedScan(
+      items, view, query, excluded, scratch, selector, outcome, should_stop,
+      [](std::size_t, float upper) { return upper; },
+      [&](std::size_t r) { return DotRow(items.data + r * items.dim, items.dim, query.data()); });
+}
 
-  *outcome = ScanOutcome{};
-  const std::size_t block = scratch.size();
-  float* upper = scratch.data();
-  // Integer sums of one block; on the stack in chunks so that the call allocates nothing.
-  constexpr std::size_t kChunk = 256;
-  int32_t dots[kChunk];
-  ExclusionCursor cursor(excluded);
-  for (std::size_t begin = 0; begin < items.rows; begin += block) {
-    if (begin > 0 && should_stop()) {
-      outcome->stopped_early = true;
-      return Status::Ok();
-    }
-    const std::size_t n = std::min(block, items.rows - begin);
-    for (std::size_t c = 0; c < n; c += kChunk) {
-      const std::size_t m = std::min(kChunk, n - c);
-      const std::size_t first = begin + c;
-      CodeDots(codes.codes_.data() + first * codes.stride_, m, codes.stride_, pq, dots);
-      for (std::size_t i = 0; i < m; ++i) {
-        const std::size_t r = first + i;
-        const float estimate = codes.scale_[r] * t * static_cast<float>(dots[i]);
-        const float bound = codes.residual_norm_[r] * tp_norm + codes.norm_[r] * d_norm +
-                            codes.norm_[r] * scan_slack;
-        // The estimate's and the bound's own float rounding (a few ulps each): 1e-6 relative.
-        upper[c + i] = estimate + bound + 1e-6f * (std::fabs(estimate) + bound) + 1e-30f;
-      }
-    }
-    cursor.MarkBlock(begin, begin + n, upper);
-    float threshold = selector->threshold();
-    for (std::size_t i = 0; i < n; ++i) {
-      if (!(upper[i] >= threshold)) continue;  // cannot reach the K-th best, or excluded (NaN)
-      const std::size_t r = begin + i;
-      selector->Push(static_cast<uint32_t>(r),
-                     DotRow(items.data + r * items.dim, items.dim, query.data()));
-      ++outcome->rows_scored_exactly;
-      threshold = selector->threshold();
-    }
-    outcome->rows_scanned = begin + n;
+Status top_k_by_cosine_pruned(MatrixView items, const QuantizedItems& codes,
+                              std::span<const float> norms, std::span<const float> query,
+                              const Exclusions& excluded, std::span<float> scratch,
+                              TopKSelector* selector, ScanOutcome* outcome, StopCheck should_stop) {
+  PLUMB_RETURN_IF_ERROR(CheckScanArgs(items, query, scratch, selector, outcome));
+  PLUMB_RETURN_IF_ERROR(CheckCodes(items, codes.rows_, codes.dim_));
+  if (norms.size() < items.rows) {
+    return Status::InvalidArgument("norms hold " + std::to_string(norms.size()) +
+                                   " values, items have " + std::to_string(items.rows) + " rows");
   }
-  return Status::Ok();
+  float inv_query_norm = 0.0f;
+  PLUMB_RETURN_IF_ERROR(InverseQueryNorm(query, &inv_query_norm));
+  const CodeView view{codes.codes_.data(), codes.stride_, codes.scale_.data(),
+                      codes.residual_norm_.data(), codes.norm_.data()};
+  return PrunedScan(
+      items, view, query, excluded, scratch, selector, outcome, should_stop,
+      // cos = dot / (|u| |x|) is increasing in dot, so a bound on dot bounds it; the two float
+      // operations round by at most an ulp each, covered by 1e-6 relative. Zero rows score 0.
+      [&](std::size_t r, float upper) {
+        const float norm = norms[r];
+        if (!(norm > 0.0f)) return 0.0f;
+        const float c = upper * inv_query_norm / norm;
+        return c + 1e-6f * std::fabs(c) + 1e-30f;
+      },
+      [&](std::size_t r) {
+        const float norm = norms[r];
+        const float dot = DotRow(items.data + r * items.dim, items.dim, query.data());
+        return norm > 0.0f ? dot * inv_query_norm / norm : 0.0f;
+      });
 }
 
 Status top_k_by_cosine(MatrixView items, std::span<const float> norms, std::span<const float> query,
@@ -503,13 +574,8 @@ Status top_k_by_cosine(MatrixView items, std::span<const float> norms, std::span
     return Status::InvalidArgument("norms hold " + std::to_string(norms.size()) +
                                    " values, items have " + std::to_string(items.rows) + " rows");
   }
-  double qq = 0.0;
-  for (float v : query) qq += double{v} * double{v};
-  const double query_norm = std::sqrt(qq);
-  if (!(query_norm > 0.0) || !std::isfinite(query_norm)) {
-    return Status::InvalidArgument("cosine similarity needs a finite, non-zero query");
-  }
-  const float inv_query_norm = static_cast<float>(1.0 / query_norm);
+  float inv_query_norm = 0.0f;
+  PLUMB_RETURN_IF_ERROR(InverseQueryNorm(query, &inv_query_norm));
   ScanBlocks(items, query, excluded, scratch, selector, outcome, should_stop,
              [&](std::size_t begin, std::size_t n, float* scores) {
                for (std::size_t i = 0; i < n; ++i) {

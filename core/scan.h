@@ -129,6 +129,9 @@ class QuantizedItems {
   friend Status top_k_by_dot_pruned(MatrixView, const QuantizedItems&, std::span<const float>,
                                     const Exclusions&, std::span<float>, TopKSelector*,
                                     ScanOutcome*, StopCheck);
+  friend Status top_k_by_cosine_pruned(MatrixView, const QuantizedItems&, std::span<const float>,
+                                       std::span<const float>, const Exclusions&, std::span<float>,
+                                       TopKSelector*, ScanOutcome*, StopCheck);
   std::size_t rows_ = 0, dim_ = 0, stride_ = 0;  // stride_: dim rounded up to 16
   std::vector<int8_t> codes_;                    // rows_ x stride_, zero padded
   std::vector<float> scale_;                     // s_r
@@ -151,6 +154,14 @@ Status top_k_by_dot_pruned(MatrixView items, const QuantizedItems& codes,
                            std::span<const float> query, const Exclusions& excluded,
                            std::span<float> scratch, TopKSelector* selector, ScanOutcome* outcome,
                            StopCheck should_stop = {});
+
+// top_k_by_cosine's answer (bit for bit) by the same pruning as top_k_by_dot_pruned; norms are
+// the ones top_k_by_cosine takes. Errors: those of top_k_by_cosine and top_k_by_dot_pruned.
+Status top_k_by_cosine_pruned(MatrixView items, const QuantizedItems& codes,
+                              std::span<const float> norms, std::span<const float> query,
+                              const Exclusions& excluded, std::span<float> scratch,
+                              TopKSelector* selector, ScanOutcome* outcome,
+                              StopCheck should_stop = {});
 
 // As top_k_by_dot, scoring by cosine similarity <row, query> / (|row| |query|) with
 // norms[r] = |row r| precomputed by row_norms(). A row with zero norm scores 0 (cosine is

@@ -3,9 +3,10 @@
 // translates wire messages to these queries and the results back.
 //
 // Exact scoring: one blocked scan of the whole item matrix (core/scan.h) into a bounded
-// top-K selector, skipping excluded rows; no approximation, no full sort. Recommend reads the
-// snapshot's int8 copy first and computes exact float scores only for rows that might enter
-// the top K (top_k_by_dot_pruned): the same answer for about half the work.
+// top-K selector, skipping excluded rows; no approximation, no full sort. Recommend and
+// SimilarItems read the snapshot's int8 copy first and compute exact float scores only for
+// rows that might enter the top K (top_k_by_dot_pruned, top_k_by_cosine_pruned): the same
+// answer as a full float scan for less than half the work.
 // Per-request scratch (selector, score block, exclusion lists, fold-in vector) is thread-local and
 // reused, so a request on a warm thread allocates nothing on the scoring path.
 #pragma once

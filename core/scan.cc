@@ -298,6 +298,20 @@ void ScanBlocks(MatrixView items, std::span<const float> query, const Exclusions
   }
 }
 
+// A row's cosine score from its float dot product, the same expression (hence the same bits)
+// in the full and the pruned scan. A zero row scores 0.
+inline float CosineScore(float dot, float inv_query_norm, float norm) {
+  return norm > 0.0f ? dot * inv_query_norm / norm : 0.0f;
+}
+
+Status CheckNorms(MatrixView items, std::span<const float> norms) {
+  if (norms.size() < items.rows) {
+    return Status::InvalidArgument("norms hold " + std::to_string(norms.size()) +
+                                   " values, items have " + std::to_string(items.rows) + " rows");
+  }
+  return Status::Ok();
+}
+
 // 1 / |query| for cosine scores, the same float for the full and the pruned scan.
 Status InverseQueryNorm(std::span<const float> query, float* inv) {
   double qq = 0.0;
@@ -541,10 +555,7 @@ Status top_k_by_cosine_pruned(MatrixView items, const QuantizedItems& codes,
                               TopKSelector* selector, ScanOutcome* outcome, StopCheck should_stop) {
   PLUMB_RETURN_IF_ERROR(CheckScanArgs(items, query, scratch, selector, outcome));
   PLUMB_RETURN_IF_ERROR(CheckCodes(items, codes.rows_, codes.dim_));
-  if (norms.size() < items.rows) {
-    return Status::InvalidArgument("norms hold " + std::to_string(norms.size()) +
-                                   " values, items have " + std::to_string(items.rows) + " rows");
-  }
+  PLUMB_RETURN_IF_ERROR(CheckNorms(items, norms));
   float inv_query_norm = 0.0f;
   PLUMB_RETURN_IF_ERROR(InverseQueryNorm(query, &inv_query_norm));
   const CodeView view{codes.codes_.data(), codes.stride_, codes.scale_.data(),
@@ -560,9 +571,8 @@ Status top_k_by_cosine_pruned(MatrixView items, const QuantizedItems& codes,
         return c + 1e-6f * std::fabs(c) + 1e-30f;
       },
       [&](std::size_t r) {
-        const float norm = norms[r];
-        const float dot = DotRow(items.data + r * items.dim, items.dim, query.data());
-        return norm > 0.0f ? dot * inv_query_norm / norm : 0.0f;
+        return CosineScore(DotRow(items.data + r * items.dim, items.dim, query.data()),
+                           inv_query_norm, norms[r]);
       });
 }
 
@@ -570,17 +580,13 @@ Status top_k_by_cosine(MatrixView items, std::span<const float> norms, std::span
                        const Exclusions& excluded, std::span<float> scratch, TopKSelector* selector,
                        ScanOutcome* outcome, StopCheck should_stop) {
   PLUMB_RETURN_IF_ERROR(CheckScanArgs(items, query, scratch, selector, outcome));
-  if (norms.size() < items.rows) {
-    return Status::InvalidArgument("norms hold " + std::to_string(norms.size()) +
-                                   " values, items have " + std::to_string(items.rows) + " rows");
-  }
+  PLUMB_RETURN_IF_ERROR(CheckNorms(items, norms));
   float inv_query_norm = 0.0f;
   PLUMB_RETURN_IF_ERROR(InverseQueryNorm(query, &inv_query_norm));
   ScanBlocks(items, query, excluded, scratch, selector, outcome, should_stop,
              [&](std::size_t begin, std::size_t n, float* scores) {
                for (std::size_t i = 0; i < n; ++i) {
-                 const float norm = norms[begin + i];
-                 scores[i] = norm > 0.0f ? scores[i] * inv_query_norm / norm : 0.0f;
+                 scores[i] = CosineScore(scores[i], inv_query_norm, norms[begin + i]);
                }
              });
   return Status::Ok();

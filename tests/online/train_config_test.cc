@@ -8,6 +8,7 @@
 #include <string>
 #include <vector>
 
+#include "tests/common/help_keys.h"
 #include "tests/online/scratch_dir.h"
 
 namespace plumb::online {
@@ -162,25 +163,13 @@ TEST(TrainConfig, ExampleFileCoversEveryKeyWithItsDefault) {
   TrainConfig h;
   ::testing::internal::CaptureStdout();
   ASSERT_EQ(Parse({"--help"}, &h), 0);
-  std::stringstream help(::testing::internal::GetCapturedStdout());
-  int keys = 0;
-  for (std::string line; std::getline(help, line);) {
-    const size_t at = line.find("  --");
-    if (at == std::string::npos || line.find("--help") != std::string::npos ||
-        line.find("--config") != std::string::npos) {
-      continue;
-    }
-    std::string key;
-    for (size_t i = at + 4;
-         i < line.size() && (std::isalnum(static_cast<unsigned char>(line[i])) || line[i] == '-');
-         ++i) {
-      key += line[i] == '-' ? '_' : line[i];
-    }
-    ++keys;
+  const std::vector<std::string> keys =
+      plumb::testing::HelpKeys(::testing::internal::GetCapturedStdout());
+  for (const std::string& key : keys) {
     EXPECT_NE(text.str().find("\n" + key + " = "), std::string::npos)
         << key << " is not in " << example;
   }
-  EXPECT_GE(keys, 35);
+  EXPECT_GE(keys.size(), 35u);
 }
 
 }  // namespace

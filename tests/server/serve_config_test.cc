@@ -6,6 +6,7 @@
 #include <fstream>
 #include <sstream>
 
+#include "tests/common/help_keys.h"
 #include "tests/server/test_model.h"
 
 namespace plumb::server {
@@ -119,24 +120,11 @@ TEST(ServeConfigTest, ExampleFileParsesAndNamesEveryKey) {
   std::string help;
   ServeConfig h;
   ASSERT_EQ(Parse({"--help"}, &h, &help), 0);
-  std::stringstream lines(help);
-  int keys = 0;
-  for (std::string line; std::getline(lines, line);) {
-    const size_t at = line.find("  --");
-    if (at == std::string::npos || line.find("--help") != std::string::npos ||
-        line.find("--config") != std::string::npos) {
-      continue;
-    }
-    std::string key;
-    for (size_t i = at + 4;
-         i < line.size() && (std::isalnum(static_cast<unsigned char>(line[i])) || line[i] == '-');
-         ++i) {
-      key += line[i] == '-' ? '_' : line[i];
-    }
-    ++keys;
+  const std::vector<std::string> keys = plumb::testing::HelpKeys(help);
+  for (const std::string& key : keys) {
     EXPECT_NE(text.str().find(key + " = "), std::string::npos) << "example lacks " << key;
   }
-  EXPECT_GT(keys, 20);
+  EXPECT_GT(keys.size(), 20u);
 }
 
 }  // namespace

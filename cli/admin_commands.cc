@@ -6,6 +6,7 @@
 #include <fstream>
 
 #include "cli/commands.h"
+#include "trainer/online/training_config.h"
 #include "cli/store_access.h"
 
 namespace plumb::cli {
@@ -70,6 +71,8 @@ Status RunVersions(const AdminArgs& args) {
                 static_cast<unsigned long long>(m.events_seen), m.num_users, m.num_items, m.dim,
                 recall, GateName(m.gate), m.gate_reason.empty() ? "" : ": ",
                 m.gate_reason.c_str());
+    std::printf("%-3s %8s  trained: %s\n", "", "",
+                online::FormatTrainingConfig(m.training).c_str());
   }
   std::printf("(* active)\n");
   return Status::Ok();

@@ -6,6 +6,7 @@
 #include "cli/commands.h"
 #include "cli/csv_reader.h"
 #include "cli/store_access.h"
+#include "trainer/online/training_config.h"
 #include "trainer/online/training_state.h"
 
 namespace plumb::cli {
@@ -163,6 +164,9 @@ Status RunFit(const FitArgs& args) {
   m.figures["epochs"] = args.epochs;
   m.figures["beta"] = args.beta;
   m.figures["fit_seconds"] = seconds;
+  m.training = online::MakeTrainingConfig("fit", train_options, args.dim, args.epochs, 0.0,
+                                          holdout);
+  m.training.refit_pairs = train.size();
   write.users = {model.users().data(), model.num_users(), model.dim()};
   write.items = {model.items().data(), model.num_items(), model.dim()};
   write.item_degrees = train.item_degrees();
@@ -172,7 +176,9 @@ Status RunFit(const FitArgs& args) {
   change.cursor = cursor;
   change.version = &write;
   change.activate_published = args.activate;
-  change.meta.emplace_back(kHoldoutKey, std::to_string(holdout));
+  char holdout_text[32];
+  std::snprintf(holdout_text, sizeof holdout_text, "%.17g", holdout);
+  change.meta.emplace_back(kHoldoutKey, holdout_text);
   uint64_t version = 0;
   PLUMB_RETURN_IF_ERROR(store->Commit(change, &version));
   state.MarkPersisted();

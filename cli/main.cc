@@ -1,6 +1,7 @@
 // plumb: the offline command line. `plumb --help` lists the commands, `plumb CMD --help`
 // their options.
 #include <cstdio>
+#include <string>
 
 #include <CLI/CLI.hpp>
 
@@ -23,6 +24,25 @@ void AddWorldOptions(CLI::App* cmd, trainer::SynthOptions* w) {
       ->capture_default_str();
   cmd->add_option("--test-per-user", w->test_items_per_user,
                   "tools drawn per member for the ground-truth test")
+      ->capture_default_str();
+  cmd->add_option_function<std::string>(
+         "--drift",
+         [w](const std::string& name) { (void)trainer::ParseSynthDrift(name, &w->drift); },
+         "one change half-way: none, popularity (another shelf order) or tastes (members' "
+         "tastes move; the test follows the late tastes)")
+      ->check(CLI::IsMember({"none", "popularity", "tastes"}))
+      ->default_str("none");
+  cmd->add_option("--drift-at", w->drift_at, "when the drift happens, as a share of the window")
+      ->check(CLI::Range(0.01, 0.99))
+      ->capture_default_str();
+  cmd->add_option("--drift-strength", w->drift_strength,
+                  "tastes drift: how far tastes move (0 none .. 1 a fresh draw)")
+      ->check(CLI::Range(0.0, 1.0))
+      ->capture_default_str();
+  cmd->add_option("--arrival-span", w->arrival_span,
+                  "members and tools join during this first share of the window (0 = all at "
+                  "the start)")
+      ->check(CLI::Range(0.0, 0.95))
       ->capture_default_str();
 }
 

@@ -63,6 +63,25 @@ std::string EncodeManifest(const VersionManifest& manifest, uint32_t rows_per_bl
   stored.set_gate_reason(manifest.gate_reason);
   for (const auto& [name, value] : manifest.figures) (*stored.mutable_figures())[name] = value;
   stored.set_num_interactions(manifest.num_interactions);
+  if (const TrainingConfig& t = manifest.training; t.known()) {
+    auto* c = stored.mutable_training();
+    c->set_origin(t.origin);
+    c->set_objective(t.objective);
+    c->set_dim(t.dim);
+    c->set_cpr_k(t.cpr_k);
+    c->set_cpr_mix_k(t.cpr_mix_k);
+    c->set_cpr_mix_share(t.cpr_mix_share);
+    c->set_beta(t.beta);
+    c->set_optimizer(t.optimizer);
+    c->set_learning_rate(t.learning_rate);
+    c->set_l2(t.l2);
+    c->set_batch_size(t.batch_size);
+    c->set_epochs(t.epochs);
+    c->set_replay_ratio(t.replay_ratio);
+    c->set_holdout_fraction(t.holdout_fraction);
+    c->set_seed(t.seed);
+    c->set_refit_pairs(t.refit_pairs);
+  }
   std::string out;
   // Deterministic so that the same manifest always yields the same bytes (map order).
   {
@@ -116,6 +135,27 @@ bool DecodeManifest(std::string_view value, uint64_t version, VersionManifest* o
   out->gate_reason = stored.gate_reason();
   out->figures.clear();
   for (const auto& [name, figure] : stored.figures()) out->figures[name] = figure;
+  out->training = TrainingConfig();
+  if (stored.has_training()) {
+    const auto& c = stored.training();
+    TrainingConfig& t = out->training;
+    t.origin = c.origin();
+    t.objective = c.objective();
+    t.dim = c.dim();
+    t.cpr_k = c.cpr_k();
+    t.cpr_mix_k = c.cpr_mix_k();
+    t.cpr_mix_share = c.cpr_mix_share();
+    t.beta = c.beta();
+    t.optimizer = c.optimizer();
+    t.learning_rate = c.learning_rate();
+    t.l2 = c.l2();
+    t.batch_size = c.batch_size();
+    t.epochs = c.epochs();
+    t.replay_ratio = c.replay_ratio();
+    t.holdout_fraction = c.holdout_fraction();
+    t.seed = c.seed();
+    t.refit_pairs = c.refit_pairs();
+  }
   *rows_per_block = stored.rows_per_block();
   return true;
 }

@@ -98,6 +98,28 @@ struct AppendResult {
   uint64_t last_seq = 0;
 };
 
+// How a version was trained (storage.proto StoredTrainingConfig has the meaning of each
+// field). origin is empty for versions written before configurations were recorded.
+struct TrainingConfig {
+  std::string origin;
+  std::string objective;
+  uint32_t dim = 0;
+  uint32_t cpr_k = 0;
+  uint32_t cpr_mix_k = 0;
+  double cpr_mix_share = 0.0;
+  double beta = 0.0;
+  std::string optimizer;
+  double learning_rate = 0.0;
+  double l2 = 0.0;
+  uint32_t batch_size = 0;
+  uint32_t epochs = 0;
+  double replay_ratio = 0.0;
+  double holdout_fraction = 0.0;
+  uint64_t seed = 0;
+  uint64_t refit_pairs = 0;
+  bool known() const { return !origin.empty(); }
+};
+
 struct VersionManifest {
   uint64_t version = 0;  // assigned by Commit() when 0
   int64_t created_ms = 0;
@@ -112,6 +134,7 @@ struct VersionManifest {
   GateOutcome gate = GateOutcome::kUnspecified;
   std::string gate_reason;
   std::map<std::string, double> figures;
+  TrainingConfig training;
 };
 
 // A borrowed view of a row-major float32 matrix: rows * dim values.

@@ -1,7 +1,7 @@
 // plumb-query: one call to a running plumb process, answer printed for people.
 //
 //   plumb-serve (Ranker, health):  recommend, similar, rank, health
-//   plumb-train (ModelControl):    versions, status, activate, auto-activate
+//   plumb-train (ModelControl):    versions, status, activate, auto-activate, retrain
 //
 // Exit status: 0 success (health: only when SERVING); 1 the call failed, with one line
 // "plumb-query: <STATUS_CODE>: <message>" on stderr; 2 usage error.
@@ -193,6 +193,35 @@ const char* GateName(plumb::v1::GateOutcome gate) {
   }
 }
 
+// One line, as plumb versions prints it (trainer/online/training_config.cc).
+std::string FormatTraining(const plumb::v1::TrainingConfig& c) {
+  if (c.origin().empty()) return "unrecorded";
+  char buf[320];
+  std::string k;
+  if (c.objective() == "cpr") {
+    k = " k=" + std::to_string(c.cpr_k());
+    if (c.cpr_mix_share() > 0) {
+      char mix[64];
+      std::snprintf(mix, sizeof mix, " k%u-share=%g", c.cpr_mix_k(), c.cpr_mix_share());
+      k += mix;
+    }
+  }
+  std::snprintf(buf, sizeof buf, "%s%s beta=%g dim=%u %s lr=%g l2=%g batch=%u epochs=%u seed=%llu",
+                c.objective().c_str(), k.c_str(), c.beta(), c.dim(), c.optimizer().c_str(),
+                c.learning_rate(), c.l2(), c.batch_size(), c.epochs(),
+                static_cast<unsigned long long>(c.seed()));
+  std::string out = buf;
+  if (c.origin() == "online") {
+    std::snprintf(buf, sizeof buf, " replay=%g", c.replay_ratio());
+    out += buf;
+  }
+  if (c.holdout_fraction() > 0) {
+    std::snprintf(buf, sizeof buf, " holdout=%g", c.holdout_fraction());
+    out += buf;
+  }
+  return out;
+}
+
 void PrintStatus(const plumb::v1::TrainerStatus& s) {
   const uint64_t lag =
       s.last_sequence() > s.trained_sequence() ? s.last_sequence() - s.trained_sequence() : 0;
@@ -202,8 +231,27 @@ void PrintStatus(const plumb::v1::TrainerStatus& s) {
   std::printf("trained sequence:  %llu (lag %llu events)\n",
               static_cast<unsigned long long>(s.trained_sequence()),
               static_cast<unsigned long long>(lag));
-  std::printf("auto-activate:     %s\n", s.auto_activate() ? "on" : "off");
+  std::printf("auto-activate:     %s%s%s\n", s.auto_activate() ? "on" : "off",
+              s.auto_activate_reason().empty() ? "" : " - ", s.auto_activate_reason().c_str());
   std::printf("idle:              %s\n", s.idle() ? "yes (caught up, everything published)" : "no");
+  std::printf("training:          %s\n", FormatTraining(s.training()).c_str());
+  if (!s.pending_config_change().empty()) {
+    std::printf("config change:     %s; publishing waits for the rebuild, the active version "
+                "stays in charge\n",
+                s.pending_config_change().c_str());
+  }
+  std::printf("refits:            %llu done, %llu failed%s%s; last took %.1f s; the model's last "
+              "refit covered %llu of %llu training pairs\n",
+              static_cast<unsigned long long>(s.refits_completed()),
+              static_cast<unsigned long long>(s.refits_failed()),
+              s.refit_running() ? "; running: " : "",
+              s.refit_running() ? s.refit_reason().c_str() : "", s.last_refit_seconds(),
+              static_cast<unsigned long long>(s.refit_pairs()),
+              static_cast<unsigned long long>(s.train_pairs()));
+  std::printf("candidates:        %llu passed, %llu failed, %llu skipped (since start)\n",
+              static_cast<unsigned long long>(s.candidates_passed()),
+              static_cast<unsigned long long>(s.candidates_failed()),
+              static_cast<unsigned long long>(s.candidates_skipped()));
   std::printf("objective:         %s\n", s.objective().c_str());
   std::printf("users:             %u\n", s.num_users());
   std::printf("items:             %u\n", s.num_items());
@@ -234,7 +282,24 @@ int Versions(const Connection& c) {
                 FormatTime(v.created_ms()).c_str(), v.objective().c_str(),
                 static_cast<unsigned long long>(v.events_seen()), v.num_users(), v.num_items(),
                 v.dim(), recall, GateName(v.gate()), v.gate_reason().c_str());
+    std::printf("%-2s %8s  trained: %s\n", "", "", FormatTraining(v.training()).c_str());
   }
+  return 0;
+}
+
+int Retrain(const Connection& c, const std::string& reason) {
+  std::shared_ptr<grpc::Channel> channel;
+  grpc::ClientContext context;
+  if (Status s = Prepare(c, &channel, &context); !s.ok()) return Fail(s.message());
+  plumb::v1::RetrainRequest request;
+  request.set_reason(reason);
+  plumb::v1::TrainerStatus response;
+  const grpc::Status status =
+      plumb::v1::ModelControl::NewStub(channel)->Retrain(&context, request, &response);
+  if (!status.ok()) return Fail(status);
+  std::printf("rebuild from the whole event log requested; it is published as a gated "
+              "candidate when it lands\n");
+  PrintStatus(response);
   return 0;
 }
 
@@ -302,7 +367,8 @@ void AddConnection(CLI::App* cmd, Connection* c, bool control) {
 int main(int argc, char** argv) {
   CLI::App app(
       "plumb-query: one call to a running plumb-serve (recommend, similar, rank, health) or "
-      "plumb-train (versions, status, activate, auto-activate), answer printed as text.\n"
+      "plumb-train (versions, status, activate, auto-activate, retrain), answer printed as "
+      "text.\n"
       "Exit status: 0 success (health: only when SERVING), 1 the call failed (status code and "
       "message on stderr), 2 usage error.",
       "plumb-query");
@@ -380,6 +446,12 @@ int main(int argc, char** argv) {
       ->required()
       ->check(CLI::IsMember({"on", "off"}));
 
+  std::string retrain_reason;
+  CLI::App* retrain = app.add_subcommand(
+      "retrain", "Rebuild the model from the whole event log in the background (a refit)");
+  AddConnection(retrain, &control, true);
+  retrain->add_option("--reason", retrain_reason, "Why (shown in status and the trainer's log)");
+
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {
@@ -394,5 +466,6 @@ int main(int argc, char** argv) {
   if (*versions) return Versions(control);
   if (*status) return TrainerStatus(control);
   if (*activate) return Activate(control, version);
+  if (*retrain) return Retrain(control, retrain_reason);
   return AutoActivate(control, setting);
 }

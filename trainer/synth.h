@@ -15,6 +15,19 @@
 //   - c: one scale, calibrated so that about target_interactions borrowings are observed.
 // Observed: y = (relevance draw) AND (exposure draw), i.e. P(y=1) = r min(1, c e_u e_i r^alpha).
 //
+// Change over time (optional, for streams that are not stationary):
+//   - drift: at drift_at of the time window the world changes once. kPopularity: the shelf
+//     order is drawn again (other tools become the visible ones); kTastes: every member's
+//     taste moves to x'_u = sqrt(1 - s^2) x_u + s z_u with fresh normal z_u and s =
+//     drift_strength, and the ground-truth test follows the late tastes. Each phase's
+//     exposure scale is c times the phase's share of the window (borrowing happens at the
+//     same rate in time), and a pair observed in the first phase is not observed again.
+//   - arrivals: members and tools join at a time drawn uniformly from the first
+//     arrival_span of the window; a pair can only be borrowed while both exist, so its
+//     exposure in a phase is multiplied by the share of the phase in which both exist, and its
+//     timestamp falls in that overlap. Late rows are what an online trainer meets in
+//     production: users and items it has never seen.
+//
 // Generation never visits all member x tool pairs: for each member, candidate tools are
 // drawn by geometric skipping over the visibility order with the bound min(1, c e_u e_i)
 // and then accepted with the exact remaining probability (thinning), so the result is
@@ -25,6 +38,7 @@
 #include <cstdint>
 #include <span>
 #include <string>
+#include <string_view>
 #include <vector>
 
 #include "core/status.h"
@@ -32,6 +46,12 @@
 #include "trainer/interactions.h"
 
 namespace plumb::trainer {
+
+enum class SynthDrift : uint8_t { kNone, kPopularity, kTastes };
+
+// "none" | "popularity" | "tastes". Errors: InvalidArgument naming the accepted values.
+Status ParseSynthDrift(std::string_view name, SynthDrift* out);
+std::string_view SynthDriftName(SynthDrift drift);
 
 struct SynthOptions {
   uint32_t users = 2000;
@@ -58,6 +78,12 @@ struct SynthOptions {
   // Timestamps (milliseconds since the epoch) spread uniformly over this window.
   int64_t start_ms = 1735689600000;  // 2025-01-01T00:00:00Z
   uint32_t days = 90;
+  // Change over time (see the file comment). drift_at in (0, 1), drift_strength in [0, 1],
+  // arrival_span in [0, 1) (0: everyone exists from the start).
+  SynthDrift drift = SynthDrift::kNone;
+  double drift_at = 0.5;
+  double drift_strength = 1.0;
+  double arrival_span = 0.0;
 };
 
 // Checks ranges. Errors: InvalidArgument naming the option.
@@ -80,17 +106,25 @@ struct SynthWorld {
   std::vector<std::string> item_names;
 
   // Ground truth, for analysis and oracle rankings.
-  RowMatrix user_taste;                 // users x truth_dim
-  RowMatrix item_traits;                // items x truth_dim
-  std::vector<double> item_appeal;      // a_i
-  std::vector<double> item_visibility;  // e_i, max 1
-  std::vector<double> user_activity;    // e_u
-  double exposure_scale = 0.0;          // c
+  RowMatrix user_taste;               // users x truth_dim (before a taste drift)
+  RowMatrix user_taste_late;          // after a taste drift; empty without one
+  std::vector<int64_t> user_join_ms;  // arrival times (all start_ms without arrivals)
+  std::vector<int64_t> item_join_ms;
+  RowMatrix item_traits;                     // items x truth_dim
+  std::vector<double> item_appeal;           // a_i
+  std::vector<double> item_visibility;       // e_i, max 1 (before a popularity drift)
+  std::vector<double> item_visibility_late;  // after a popularity drift (else the same)
+  std::vector<double> user_activity;         // e_u
+  double exposure_scale = 0.0;               // c
 
-  // r(u, i) as defined above.
+  // r(u, i) as defined above, with the tastes of the end of the window (the late tastes
+  // after a taste drift; the test set follows these).
   double Relevance(uint32_t user, uint32_t item) const;
-  // The relevance logit of every item for `user` into scores (size items): a ranking by
-  // true relevance, the reference beside which evaluation reports group shares.
+  // r(u, i) with the tastes before a taste drift (the same as Relevance without one).
+  double EarlyRelevance(uint32_t user, uint32_t item) const;
+  // The relevance logit of every item for `user` into scores (size items), with the late
+  // tastes: a ranking by true relevance, the reference beside which evaluation reports
+  // group shares.
   void TrueScores(uint32_t user, std::span<float> scores) const;
   // The observed events as training interactions (users x items shape).
   Status TrainInteractions(Interactions* out) const;

@@ -108,6 +108,14 @@ Status FitLoop::Create(const TrainOptions& options, Embeddings* model, const Int
   return Status::Ok();
 }
 
+Status FitLoop::ReplaceOptimizer(std::unique_ptr<Optimizer> optimizer) {
+  if (optimizer == nullptr || optimizer->kind() != options_.optimizer) {
+    return Status::InvalidArgument("replacement optimiser missing or of another kind");
+  }
+  optimizer_ = std::move(optimizer);
+  return Status::Ok();
+}
+
 Status FitLoop::Sync() {
   PLUMB_RETURN_IF_ERROR(model_->Grow(data_->num_users(), data_->num_items()));
   return optimizer_->Resize(*model_);

@@ -122,6 +122,15 @@ class FitLoop {
   const Objective& objective() const { return *objective_; }
   const Optimizer& optimizer() const { return *optimizer_; }
 
+  // Hands the optimiser (with its per-row state) to the caller, e.g. to continue a
+  // background refit's state in the live loop. The FitLoop must not be used afterwards.
+  std::unique_ptr<Optimizer> ReleaseOptimizer() { return std::move(optimizer_); }
+
+  // Continues with `optimizer` (and its per-row state) instead of the current one; the next
+  // call grows it to the model's shape. InvalidArgument if it is null or of another kind
+  // than options().optimizer.
+  Status ReplaceOptimizer(std::unique_ptr<Optimizer> optimizer);
+
  private:
   struct Worker;
   struct Totals;

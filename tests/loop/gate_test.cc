@@ -1,9 +1,10 @@
 #include "trainer/online/gate.h"
 
+#include <gtest/gtest.h>
+
+#include <algorithm>
 #include <cmath>
 #include <limits>
-
-#include <gtest/gtest.h>
 
 #include "trainer/online/training_state.h"
 #include "trainer/synth.h"
@@ -56,11 +57,54 @@ trainer::Embeddings* GateTest::trained_ = nullptr;
 
 TEST_F(GateTest, SampleIsNonEmptyAndSorted) {
   GateSample s = BuildGateSample(*state_, 1000);
-  ASSERT_GE(s.users.size(), GateOptions{}.min_users) << "the other gate tests need a full sample";
+  ASSERT_GE(s.effective_pairs, GateOptions{}.min_effective_pairs)
+      << "the other gate tests need a full sample";
+  size_t pairs = 0;
   for (size_t n = 0; n < s.users.size(); ++n) {
     auto r = s.relevant[n];
     EXPECT_TRUE(std::is_sorted(r.begin(), r.end()));
+    pairs += r.size();
   }
+  EXPECT_EQ(s.weights.size(), pairs);
+  // Every held-out pair of a user with training pairs is used: none is re-sampled away.
+  size_t usable = 0;
+  for (const trainer::Pair& p : state_->validation()) {
+    if (state_->train().user_degree(p.user) > 0) ++usable;
+  }
+  EXPECT_EQ(pairs, usable);
+}
+
+// Weighted recall and the Kish effective sample size on a hand-worked sample: weights
+// 1, 1/2, 1/4, 1/4 (items of degree 1, 2, 4, 4); hits on the first and third pair.
+// Recall = (1 + 1/4) / (1 + 1/2 + 1/4 + 1/4) = 1.25 / 2 = 0.625.
+// Kish (1965) effective size = (sum w)^2 / sum w^2 = 4 / (1 + 1/4 + 1/16 + 1/16) = 2.909...
+TEST(GateMath, WeightedRecallAndEffectiveSizeByHand) {
+  GateSample s;
+  s.users = {0, 1};
+  const uint32_t a[] = {1, 2};
+  const uint32_t b[] = {3, 4};
+  s.relevant.Append(a);
+  s.relevant.Append(b);
+  s.weights = {1.0, 0.5, 0.25, 0.25};
+  const uint8_t hits[] = {1, 0, 1, 0};
+  EXPECT_DOUBLE_EQ(GateRecall(s, hits), 0.625);
+  const double sum = 2.0, sum_sq = 1.0 + 0.25 + 0.0625 + 0.0625;
+  EXPECT_NEAR(sum * sum / sum_sq, 2.909090909, 1e-8);
+}
+
+TEST_F(GateTest, WeightsAreInversePopularity) {
+  GateSample s = BuildGateSample(*state_, 1000);
+  size_t p = 0;
+  double sum = 0.0, sum_sq = 0.0;
+  for (size_t n = 0; n < s.users.size(); ++n) {
+    for (uint32_t i : s.relevant[n]) {
+      const double want = 1.0 / std::max<uint32_t>(1, state_->train().item_degree(i));
+      EXPECT_DOUBLE_EQ(s.weights[p++], want);
+      sum += want;
+      sum_sq += want * want;
+    }
+  }
+  EXPECT_NEAR(s.effective_pairs, sum * sum / sum_sq, 1e-9);
 }
 
 TEST_F(GateTest, SameModelPasses) {
@@ -73,7 +117,8 @@ TEST_F(GateTest, SameModelPasses) {
 TEST_F(GateTest, NanRowFails) {
   trainer::Embeddings bad = *trained_;
   bad.item_row(3)[0] = std::numeric_limits<float>::quiet_NaN();
-  GateVerdict v = JudgeCandidate(bad, trained_, BuildGateSample(*state_, 1000), state_->train(), {});
+  GateVerdict v =
+      JudgeCandidate(bad, trained_, BuildGateSample(*state_, 1000), state_->train(), {});
   EXPECT_EQ(v.outcome, store::GateOutcome::kFailed);
   EXPECT_NE(v.reason.find("non-finite"), std::string::npos);
 }
@@ -81,7 +126,8 @@ TEST_F(GateTest, NanRowFails) {
 TEST_F(GateTest, HugeNormFails) {
   trainer::Embeddings bad = *trained_;
   bad.user_row(0)[0] = 1e6f;
-  GateVerdict v = JudgeCandidate(bad, trained_, BuildGateSample(*state_, 1000), state_->train(), {});
+  GateVerdict v =
+      JudgeCandidate(bad, trained_, BuildGateSample(*state_, 1000), state_->train(), {});
   EXPECT_EQ(v.outcome, store::GateOutcome::kFailed);
   EXPECT_NE(v.reason.find("row norm"), std::string::npos);
 }
@@ -89,9 +135,9 @@ TEST_F(GateTest, HugeNormFails) {
 TEST_F(GateTest, CollapsedRecallFails) {
   // A candidate that has forgotten everything: fresh random rows.
   trainer::Embeddings fresh;
-  ASSERT_TRUE(trainer::Embeddings::Create(16, trained_->num_users(), trained_->num_items(), 99,
-                                          &fresh)
-                  .ok());
+  ASSERT_TRUE(
+      trainer::Embeddings::Create(16, trained_->num_users(), trained_->num_items(), 99, &fresh)
+          .ok());
   GateSample s = BuildGateSample(*state_, 1000);
   GateVerdict v = JudgeCandidate(fresh, trained_, s, state_->train(), {});
   std::printf("trained recall@20 %.4f, random recall@20 %.4f\n", v.active_recall,
@@ -99,22 +145,37 @@ TEST_F(GateTest, CollapsedRecallFails) {
   ASSERT_GT(v.active_recall, v.candidate_recall + 0.02);
   EXPECT_EQ(v.outcome, store::GateOutcome::kFailed);
   EXPECT_NE(v.reason.find("below the active"), std::string::npos);
+  EXPECT_GT(v.standard_error, 0.0);
+}
+
+// A candidate that differs from the active version by noise only (a few rows nudged) is not
+// failed, even with a zero tolerance: the drop must exceed two standard errors.
+TEST_F(GateTest, NoiseSizedDifferenceDoesNotFail) {
+  trainer::Embeddings nudged = *trained_;
+  for (uint32_t u = 0; u < 20; ++u) nudged.user_row(u)[0] += 0.05f;
+  GateOptions o;
+  o.tolerance = 0.0;
+  GateVerdict v =
+      JudgeCandidate(nudged, trained_, BuildGateSample(*state_, 1000), state_->train(), o);
+  EXPECT_EQ(v.outcome, store::GateOutcome::kPassed) << v.reason;
+  EXPECT_LE(std::abs(v.candidate_recall - v.active_recall), 2.0 * v.standard_error + 1e-12);
 }
 
 TEST_F(GateTest, TooSmallASampleIsNotCompared) {
-  GateSample s = BuildGateSample(*state_, 10);  // ten users: below min_users
+  GateSample s = BuildGateSample(*state_, 2);  // two users: a tiny effective size
+  ASSERT_LT(s.effective_pairs, GateOptions{}.min_effective_pairs);
   trainer::Embeddings fresh;
-  ASSERT_TRUE(trainer::Embeddings::Create(16, trained_->num_users(), trained_->num_items(), 99,
-                                          &fresh)
-                  .ok());
+  ASSERT_TRUE(
+      trainer::Embeddings::Create(16, trained_->num_users(), trained_->num_items(), 99, &fresh)
+          .ok());
   GateVerdict v = JudgeCandidate(fresh, trained_, s, state_->train(), {});
   EXPECT_EQ(v.outcome, store::GateOutcome::kSkipped);
   EXPECT_NE(v.reason.find("fewer than"), std::string::npos) << v.reason;
 }
 
 TEST_F(GateTest, FirstVersionIsSkippedNotFailed) {
-  GateVerdict v = JudgeCandidate(*trained_, nullptr, BuildGateSample(*state_, 1000),
-                                 state_->train(), {});
+  GateVerdict v =
+      JudgeCandidate(*trained_, nullptr, BuildGateSample(*state_, 1000), state_->train(), {});
   EXPECT_EQ(v.outcome, store::GateOutcome::kSkipped);
   EXPECT_TRUE(std::isnan(v.active_recall));
 }

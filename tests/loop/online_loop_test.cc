@@ -3,20 +3,21 @@
 // resumes from the durable cursor.
 #include "trainer/online/online_loop.h"
 
+#include <gtest/gtest.h>
 #include <unistd.h>
 
 #include <chrono>
 #include <filesystem>
 #include <fstream>
+#include <set>
 #include <thread>
 #include <unordered_map>
-
-#include <gtest/gtest.h>
 
 #include "cli/commands.h"
 #include "cli/store_access.h"
 #include "store/store.h"
 #include "trainer/evaluate.h"
+#include "trainer/online/training_state.h"
 #include "trainer/synth.h"
 
 namespace plumb::online {
@@ -65,10 +66,11 @@ class OnlineLoopTest : public ::testing::Test {
   }
 
   // Appends world events [from, to) in time order.
-  void Append(size_t from, size_t to) {
+  void Append(size_t from, size_t to) { AppendFrom(*world_, from, to); }
+  void AppendFrom(const trainer::SynthWorld& world, size_t from, size_t to) {
     std::vector<store::EventInput> in;
     for (size_t n = from; n < to; ++n) {
-      const auto& e = world_->events[n];
+      const auto& e = world.events[n];
       store::EventInput ev;
       ev.user_id = trainer::MemberLabel(e.user);
       ev.item_id = trainer::ToolLabel(e.item);
@@ -86,6 +88,27 @@ class OnlineLoopTest : public ::testing::Test {
       std::this_thread::sleep_for(std::chrono::milliseconds(20));
     }
     std::this_thread::sleep_for(std::chrono::duration<double>(extra_seconds));
+  }
+
+  // Waits until the loop reports idle: log consumed, no refit running or due, everything
+  // published.
+  static void WaitIdle(OnlineLoop& loop, const store::Store& store) {
+    WaitCaughtUp(loop, store, 0.0);
+    const auto deadline = Clock::now() + std::chrono::seconds(180);
+    while (!loop.status().idle && Clock::now() < deadline) {
+      std::this_thread::sleep_for(std::chrono::milliseconds(50));
+    }
+    ASSERT_TRUE(loop.status().idle) << "not idle after 180 s";
+  }
+
+  static std::string WriteEventsCsv(const trainer::SynthWorld& world, const fs::path& path) {
+    std::ofstream out(path);
+    out << "user,item,ts\n";
+    for (const auto& e : world.events) {
+      out << trainer::MemberLabel(e.user) << ',' << trainer::ToolLabel(e.item) << ',' << e.ts_ms
+          << '\n';
+    }
+    return path.string();
   }
 
   // Publishes now and waits for the new version number.
@@ -106,6 +129,10 @@ class OnlineLoopTest : public ::testing::Test {
 
   // Recall@20 of a stored version on the world's ground-truth debiased test.
   static double TruthRecall(const store::Store& store, uint64_t version) {
+    return TruthRecall(store, version, *world_);
+  }
+  static double TruthRecall(const store::Store& store, uint64_t version,
+                            const trainer::SynthWorld& world) {
     cli::LoadedModel m;
     Status s = cli::LoadModel(store, version, &m);
     EXPECT_TRUE(s.ok()) << s.ToString();
@@ -113,7 +140,7 @@ class OnlineLoopTest : public ::testing::Test {
     for (uint32_t u = 0; u < m.user_ids.size(); ++u) users.emplace(m.user_ids[u], u);
     for (uint32_t i = 0; i < m.item_ids.size(); ++i) items.emplace(m.item_ids[i], i);
     std::vector<trainer::Pair> test;
-    for (const trainer::Pair& p : world_->test) {
+    for (const trainer::Pair& p : world.test) {
       auto u = users.find(trainer::MemberLabel(p.user));
       auto i = items.find(trainer::ToolLabel(p.item));
       if (u != users.end() && i != items.end()) test.push_back({u->second, i->second});
@@ -159,65 +186,154 @@ TEST_F(OnlineLoopTest, LearningHappensWhileEventsStreamIn) {
   EXPECT_GT(r_last, r_first + 0.01);
 }
 
-TEST_F(OnlineLoopTest, OnlineEndsWithinTenPercentOfOfflineFit) {
+// The streamed model ends where a batch fit of the same events ends. The world is the hard
+// case for an incremental trainer: members and tools join over the first half of the window,
+// so the stream in time order keeps bringing rows the model has never seen (before background
+// refits existed, online recall was 0.7-0.9 x offline on such worlds; bench/quality).
+TEST_F(OnlineLoopTest, StreamedModelMatchesAnOfflineFit) {
+  trainer::SynthOptions wo;
+  wo.users = 1500;
+  wo.items = 600;
+  wo.target_interactions = 45000;
+  wo.seed = 8;
+  wo.arrival_span = 0.5;
+  trainer::SynthWorld world;
+  ASSERT_TRUE(trainer::GenerateSynthWorld(wo, &world).ok());
   OnlineOptions o = Options();
   std::unique_ptr<OnlineLoop> loop;
   ASSERT_TRUE(OnlineLoop::Create(store_.get(), o, &loop).ok());
   loop->Start();
-  const size_t n = world_->events.size();
+  const size_t n = world.events.size();
   for (size_t part = 0; part < 20; ++part) {
-    Append(part * n / 20, (part + 1) * n / 20);
+    AppendFrom(world, part * n / 20, (part + 1) * n / 20);
     loop->NotifyAppended();
-  }
-  // Let the idle replay training run out (the loop reports idle once it is spent).
-  WaitCaughtUp(*loop, *store_, 0.0);
-  const auto deadline = Clock::now() + std::chrono::seconds(120);
-  while (!loop->status().idle && Clock::now() < deadline) {
-    loop->RequestPublish();
     std::this_thread::sleep_for(std::chrono::milliseconds(50));
   }
-  ASSERT_TRUE(loop->status().idle);
+  WaitIdle(*loop, *store_);
   std::vector<store::VersionManifest> kept;
   ASSERT_TRUE(store_->ListVersions(&kept).ok());
   ASSERT_FALSE(kept.empty());
-  const uint64_t online_version = kept.front().version;
+  uint64_t active = 0;
+  ASSERT_TRUE(store_->GetActiveVersion(&active).ok());
+  EXPECT_EQ(kept.front().version, active) << "the last version passed the gate";
+  EXPECT_EQ(kept.front().training.refit_pairs, kept.front().num_interactions)
+      << "the final version rests on a refit of every training pair";
+  EXPECT_GE(loop->status().refits_completed, 1u);
   loop->Stop();
-  const double online = TruthRecall(*store_, online_version);
+  const double online = TruthRecall(*store_, active, world);
   loop.reset();
   store_.reset();
 
-  // Offline: the same events, the same dimension and objective, 20 epochs (the online loop
-  // draws one anchored and replay_ratio = 3 replayed samples per new pair, then
-  // idle_replay_passes = 10 passes of replay samples: 14 samples per pair, each CPR sample
-  // using two interactions, so 28 passes over the interactions).
+  // Offline: the same events and configuration (dim, objective, beta, hold-out, epochs).
   cli::FitArgs fa;
-  fa.import.events = (dir_ / "events.csv").string();
-  {
-    std::ofstream out(fa.import.events);
-    out << "user,item,ts\n";
-    for (const auto& e : world_->events) {
-      out << trainer::MemberLabel(e.user) << ',' << trainer::ToolLabel(e.item) << ',' << e.ts_ms
-          << '\n';
-    }
-  }
+  fa.import.events = WriteEventsCsv(world, dir_ / "events.csv");
   fa.import.db = (dir_ / "offline").string();
   fa.import.sync = false;
   fa.dim = o.dim;
-  fa.epochs = 20;
+  fa.epochs = o.refit_epochs;
   fa.threads = 1;
   fa.holdout = o.holdout_fraction;
   ASSERT_TRUE(cli::RunFit(fa).ok());
   std::unique_ptr<store::Store> offline_store;
   ASSERT_TRUE(cli::OpenForRead(fa.import.db, &offline_store).ok());
-  const double offline = TruthRecall(*offline_store, 1);
+  const double offline = TruthRecall(*offline_store, 1, world);
   std::printf("ground-truth Recall@20: online %.4f, offline fit %.4f (ratio %.3f)\n", online,
               offline, online / offline);
-  EXPECT_GE(online, 0.9 * offline);
+  EXPECT_GE(online, 0.95 * offline);
+}
+
+// Changing a training setting does not leave the old model silently in charge: the loop
+// rebuilds from the whole log, publishes nothing until the rebuild lands, and the version it
+// then publishes records the new configuration.
+TEST_F(OnlineLoopTest, ConfigurationChangeRebuildsAndRecordsTheNewConfiguration) {
+  std::unique_ptr<OnlineLoop> loop;
+  ASSERT_TRUE(OnlineLoop::Create(store_.get(), Options(), &loop).ok());
+  loop->Start();
+  Append(0, 8000);
+  loop->NotifyAppended();
+  WaitIdle(*loop, *store_);
+  std::vector<store::VersionManifest> before;
+  ASSERT_TRUE(store_->ListVersions(&before).ok());
+  ASSERT_FALSE(before.empty());
+  EXPECT_EQ(before.front().training.origin, "online");
+  EXPECT_EQ(before.front().training.beta, 3.0);
+  EXPECT_EQ(before.front().training.dim, 32u);
+  loop->Stop();
+  loop.reset();
+
+  OnlineOptions changed = Options();
+  changed.beta = 6.0;
+  changed.dim = 24;
+  ASSERT_TRUE(OnlineLoop::Create(store_.get(), changed, &loop).ok());
+  const OnlineStatus at_start = loop->status();
+  EXPECT_NE(at_start.pending_config_change.find("beta 3 -> 6"), std::string::npos)
+      << at_start.pending_config_change;
+  EXPECT_NE(at_start.pending_config_change.find("dim 32 -> 24"), std::string::npos);
+  loop->Start();
+  WaitIdle(*loop, *store_);
+  std::vector<store::VersionManifest> after;
+  ASSERT_TRUE(store_->ListVersions(&after).ok());
+  ASSERT_GT(after.size(), before.size());
+  const store::VersionManifest& v = after.front();
+  EXPECT_EQ(v.training.beta, 6.0);
+  EXPECT_EQ(v.training.dim, 24u);
+  EXPECT_EQ(v.dim, 24u);
+  EXPECT_EQ(v.training.refit_pairs, v.num_interactions);
+  EXPECT_TRUE(loop->status().pending_config_change.empty());
+  // Every version published after the restart has the new configuration: none came from the
+  // old model while the rebuild ran.
+  for (const auto& m : after) {
+    if (m.version > before.front().version) {
+      EXPECT_EQ(m.training.beta, 6.0) << m.version;
+    }
+  }
+  loop->Stop();
+}
+
+// A rebuild under a live stream loses and duplicates nothing: events keep arriving while
+// refits are requested again and again; in the end every event was folded in exactly once and
+// the last version covers the whole log and exactly the distinct training pairs.
+TEST_F(OnlineLoopTest, RebuildUnderALiveStreamLosesAndDuplicatesNothing) {
+  std::unique_ptr<OnlineLoop> loop;
+  ASSERT_TRUE(OnlineLoop::Create(store_.get(), Options(), &loop).ok());
+  loop->Start();
+  const size_t n = world_->events.size();
+  for (size_t part = 0; part < 30; ++part) {
+    Append(part * n / 30, (part + 1) * n / 30);
+    loop->NotifyAppended();
+    if (part % 3 == 0) loop->RequestRetrain("test: part " + std::to_string(part));
+    std::this_thread::sleep_for(std::chrono::milliseconds(30));
+  }
+  WaitIdle(*loop, *store_);
+  const OnlineStatus st = loop->status();
+  EXPECT_EQ(st.events_trained, n) << "every appended event folded in exactly once";
+  EXPECT_EQ(st.trained_sequence, store_->LastSequence());
+  EXPECT_GE(st.refits_completed, 2u);
+  std::vector<store::VersionManifest> kept;
+  ASSERT_TRUE(store_->ListVersions(&kept).ok());
+  ASSERT_FALSE(kept.empty());
+  const store::VersionManifest& last = kept.front();
+  EXPECT_EQ(last.events_seen, store_->LastSequence());
+  // Distinct (user, item) pairs of the world that are not held out.
+  std::set<std::pair<uint32_t, uint32_t>> pairs;
+  for (const auto& e : world_->events) {
+    if (!IsHeldOut(trainer::MemberLabel(e.user), trainer::ToolLabel(e.item),
+                   Options().holdout_fraction)) {
+      pairs.insert({e.user, e.item});
+    }
+  }
+  EXPECT_EQ(last.num_interactions, pairs.size());
+  EXPECT_EQ(st.train_pairs, pairs.size());
+  loop->Stop();
 }
 
 TEST_F(OnlineLoopTest, RestartResumesFromTheDurableCursor) {
+  // Without refits: a refit that lands publishes on its own, and this test needs events that
+  // were consumed but not published when the loop stops.
+  OnlineOptions o = Options();
+  o.refit = false;
   std::unique_ptr<OnlineLoop> loop;
-  ASSERT_TRUE(OnlineLoop::Create(store_.get(), Options(), &loop).ok());
+  ASSERT_TRUE(OnlineLoop::Create(store_.get(), o, &loop).ok());
   loop->Start();
   Append(0, 5000);
   loop->NotifyAppended();
@@ -233,7 +349,7 @@ TEST_F(OnlineLoopTest, RestartResumesFromTheDurableCursor) {
   uint64_t cursor = 0;
   ASSERT_TRUE(store_->GetCursor(&cursor).ok());
   EXPECT_EQ(cursor, 5000u) << "only a publish advances the durable cursor";
-  ASSERT_TRUE(OnlineLoop::Create(store_.get(), Options(), &loop).ok());
+  ASSERT_TRUE(OnlineLoop::Create(store_.get(), o, &loop).ok());
   EXPECT_EQ(loop->status().trained_sequence, 5000u);
   EXPECT_EQ(loop->status().active_version, v);
   loop->Start();

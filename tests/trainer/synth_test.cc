@@ -168,6 +168,108 @@ TEST(Synth, WritesCsvFiles) {
   EXPECT_EQ(WriteSynthCsv(w, "/proc/plumb_no_such_dir").code(), Status::Code::kIoError);
 }
 
+// With a drift and arrivals the generator stays exact. Each pair is observed in the first
+// phase with p1 = r1 min(1, c s1 o1 e_u v1_i r1^a) and, if not, in the second with p2 (same
+// form with the late shelf or tastes; s = the phase's share of the window, o = the share of
+// the phase in which both member and tool exist). So the expected count of each phase is a
+// sum over all pairs of p1, and of (1 - p1) p2; both are computed here by brute force and
+// compared with what was generated, within 4.5 standard deviations.
+void ExpectPhasesExact(SynthDrift drift) {
+  SynthOptions o = Small();
+  o.drift = drift;
+  o.drift_strength = 0.8;
+  o.arrival_span = 0.6;
+  SynthWorld w;
+  ASSERT_TRUE(GenerateSynthWorld(o, &w).ok());
+  const int64_t window = static_cast<int64_t>(o.days) * 86'400'000;
+  const int64_t cut = static_cast<int64_t>(o.drift_at * static_cast<double>(window));
+  auto overlap = [&](int64_t begin, int64_t end, uint32_t u, uint32_t i) {
+    const int64_t from = std::max({begin, w.user_join_ms[u], w.item_join_ms[i]});
+    return from >= end ? 0.0 : static_cast<double>(end - from) / static_cast<double>(end - begin);
+  };
+  const double s1 = static_cast<double>(cut) / static_cast<double>(window), s2 = 1.0 - s1;
+  double mean[2] = {0, 0}, var[2] = {0, 0};
+  for (uint32_t u = 0; u < o.users; ++u) {
+    for (uint32_t i = 0; i < o.items; ++i) {
+      const double r1 = w.EarlyRelevance(u, i), r2 = w.Relevance(u, i);
+      const double p1 =
+          r1 * std::min(1.0, w.exposure_scale * s1 * overlap(0, cut, u, i) * w.user_activity[u] *
+                                 w.item_visibility[i] * std::pow(r1, o.alpha));
+      const double p2 =
+          (1.0 - p1) * r2 *
+          std::min(1.0, w.exposure_scale * s2 * overlap(cut, window, u, i) * w.user_activity[u] *
+                            w.item_visibility_late[i] * std::pow(r2, o.alpha));
+      mean[0] += p1;
+      var[0] += p1 * (1 - p1);
+      mean[1] += p2;
+      var[1] += p2 * (1 - p2);
+    }
+  }
+  double seen[2] = {0, 0};
+  for (const SynthEvent& e : w.events) {
+    const int64_t t = e.ts_ms - o.start_ms;
+    seen[t < cut ? 0 : 1] += 1;
+    // Nothing is borrowed before both the member and the tool exist.
+    EXPECT_GE(t, std::max(w.user_join_ms[e.user], w.item_join_ms[e.item]));
+  }
+  for (int p = 0; p < 2; ++p) {
+    EXPECT_NEAR(seen[p], mean[p], 4.5 * std::sqrt(var[p]) + 1.0) << "phase " << p;
+  }
+}
+
+TEST(Synth, PopularityDriftAndArrivalsAreExact) { ExpectPhasesExact(SynthDrift::kPopularity); }
+TEST(Synth, TasteDriftAndArrivalsAreExact) { ExpectPhasesExact(SynthDrift::kTastes); }
+
+// After a popularity drift the late borrowings follow the new shelf: the tools most visible
+// in the second phase get most of the second phase's borrowings, and their share there is far
+// above their share before the drift.
+TEST(Synth, LateBorrowingsFollowTheNewShelf) {
+  SynthOptions o = Small();
+  o.drift = SynthDrift::kPopularity;
+  SynthWorld w;
+  ASSERT_TRUE(GenerateSynthWorld(o, &w).ok());
+  std::vector<double> late = w.item_visibility_late;
+  std::nth_element(late.begin(), late.begin() + 40, late.end(), std::greater<double>());
+  const double bar = late[40];
+  const int64_t cut = static_cast<int64_t>(o.drift_at * o.days * 86'400'000.0);
+  double top[2] = {0, 0}, all[2] = {0, 0};
+  for (const SynthEvent& e : w.events) {
+    const int p = e.ts_ms - o.start_ms < cut ? 0 : 1;
+    all[p] += 1;
+    if (w.item_visibility_late[e.item] > bar) top[p] += 1;
+  }
+  EXPECT_GT(top[1] / all[1], 0.2);
+  EXPECT_GT(top[1] / all[1], 2.0 * top[0] / all[0]);
+}
+
+// After a taste drift the test set follows the late tastes: its pairs' mean late relevance is
+// well above their mean early relevance (a fresh draw of strength 0.8 leaves a correlation of
+// sqrt(1 - 0.64) = 0.6 between early and late tastes).
+TEST(Synth, TestFollowsLateTastes) {
+  SynthOptions o = Small();
+  o.drift = SynthDrift::kTastes;
+  o.drift_strength = 0.8;
+  SynthWorld w;
+  ASSERT_TRUE(GenerateSynthWorld(o, &w).ok());
+  ASSERT_FALSE(w.test.empty());
+  double late = 0, early = 0;
+  for (const Pair& p : w.test) {
+    late += w.Relevance(p.user, p.item);
+    early += w.EarlyRelevance(p.user, p.item);
+  }
+  EXPECT_GT(late, 1.3 * early);
+}
+
+// Without drift or arrivals the world is what it was before those options existed (the
+// demo's figures and every test's expectations rest on it): the early and late views agree.
+TEST(Synth, NoDriftMeansOnePhase) {
+  SynthWorld w;
+  ASSERT_TRUE(GenerateSynthWorld(Small(), &w).ok());
+  EXPECT_EQ(w.user_taste_late.rows(), 0);
+  EXPECT_EQ(w.item_visibility, w.item_visibility_late);
+  for (uint32_t u = 0; u < 5; ++u) EXPECT_EQ(w.Relevance(u, 3), w.EarlyRelevance(u, 3));
+}
+
 TEST(Synth, RejectsBadOptions) {
   SynthWorld w;
   SynthOptions o = Small();
@@ -184,6 +286,21 @@ TEST(Synth, RejectsBadOptions) {
   const Status st = GenerateSynthWorld(o, &w);
   EXPECT_EQ(st.code(), Status::Code::kInvalidArgument);
   EXPECT_NE(st.message().find("unreachable"), std::string::npos) << st.ToString();
+  for (double at : {0.0, 1.0}) {
+    o = Small();
+    o.drift_at = at;
+    EXPECT_EQ(GenerateSynthWorld(o, &w).code(), Status::Code::kInvalidArgument) << at;
+  }
+  o = Small();
+  o.arrival_span = 1.0;
+  EXPECT_EQ(GenerateSynthWorld(o, &w).code(), Status::Code::kInvalidArgument);
+  o = Small();
+  o.drift_strength = 1.5;
+  EXPECT_EQ(GenerateSynthWorld(o, &w).code(), Status::Code::kInvalidArgument);
+  SynthDrift d;
+  EXPECT_TRUE(ParseSynthDrift("tastes", &d).ok());
+  EXPECT_EQ(d, SynthDrift::kTastes);
+  EXPECT_EQ(ParseSynthDrift("sideways", &d).code(), Status::Code::kInvalidArgument);
 }
 
 }  // namespace

@@ -24,6 +24,26 @@ plumb::v1::GateOutcome WireGate(store::GateOutcome gate) {
   return plumb::v1::GATE_OUTCOME_UNSPECIFIED;
 }
 
+void FillTraining(const store::TrainingConfig& c, plumb::v1::TrainingConfig* out) {
+  if (!c.known()) return;
+  out->set_origin(c.origin);
+  out->set_objective(c.objective);
+  out->set_dim(c.dim);
+  out->set_cpr_k(c.cpr_k);
+  out->set_cpr_mix_k(c.cpr_mix_k);
+  out->set_cpr_mix_share(c.cpr_mix_share);
+  out->set_beta(c.beta);
+  out->set_optimizer(c.optimizer);
+  out->set_learning_rate(c.learning_rate);
+  out->set_l2(c.l2);
+  out->set_batch_size(c.batch_size);
+  out->set_epochs(c.epochs);
+  out->set_replay_ratio(c.replay_ratio);
+  out->set_holdout_fraction(c.holdout_fraction);
+  out->set_seed(c.seed);
+  out->set_refit_pairs(c.refit_pairs);
+}
+
 }  // namespace
 
 grpc::Status ToGrpcStatus(const Status& status, const std::string& what) {
@@ -81,6 +101,8 @@ grpc::Status ControlService::ListVersions(grpc::ServerContext* context,
     v->set_gate(WireGate(m.gate));
     v->set_gate_reason(m.gate_reason);
     v->set_active(m.version == active);
+    v->set_num_interactions(m.num_interactions);
+    FillTraining(m.training, v->mutable_training());
   }
   return grpc::Status::OK;
 }
@@ -96,6 +118,19 @@ void ControlService::FillStatus(plumb::v1::TrainerStatus* out) const {
   out->set_num_users(s.num_users);
   out->set_num_items(s.num_items);
   out->set_idle(s.idle);
+  out->set_auto_activate_reason(s.auto_activate_reason);
+  FillTraining(s.training, out->mutable_training());
+  out->set_pending_config_change(s.pending_config_change);
+  out->set_refit_running(s.refit_running);
+  out->set_refit_reason(s.refit_reason);
+  out->set_refits_completed(s.refits_completed);
+  out->set_refits_failed(s.refits_failed);
+  out->set_last_refit_seconds(s.last_refit_seconds);
+  out->set_train_pairs(s.train_pairs);
+  out->set_refit_pairs(s.refit_pairs);
+  out->set_candidates_passed(s.candidates_passed);
+  out->set_candidates_failed(s.candidates_failed);
+  out->set_candidates_skipped(s.candidates_skipped);
 }
 
 grpc::Status ControlService::GetStatus(grpc::ServerContext* context,
@@ -133,6 +168,32 @@ grpc::Status ControlService::SetAutoActivate(grpc::ServerContext* context,
   if (Status s = loop_->SetAutoActivate(request->enabled()); !s.ok()) {
     return ToGrpcStatus(s, "cannot change automatic activation");
   }
+  FillStatus(response);
+  return grpc::Status::OK;
+}
+
+}  // namespace plumb::online
+
+namespace plumb::online {
+
+grpc::Status ControlService::Retrain(grpc::ServerContext* context,
+                                     const plumb::v1::RetrainRequest* request,
+                                     plumb::v1::TrainerStatus* response) {
+  InflightCalls::Scope scope;
+  if (grpc::Status s = Admit(admission_, *context, &scope); !s.ok()) return s;
+  const std::string& reason = request->reason();
+  if (reason.size() > 200) {
+    return grpc::Status(grpc::StatusCode::INVALID_ARGUMENT,
+                        "reason is " + std::to_string(reason.size()) +
+                            " bytes; at most 200 are accepted");
+  }
+  for (unsigned char c : reason) {
+    if (c < 0x20 || c == 0x7f) {
+      return grpc::Status(grpc::StatusCode::INVALID_ARGUMENT,
+                          "reason contains a control character");
+    }
+  }
+  loop_->RequestRetrain(reason.empty() ? "retrain requested" : "retrain requested: " + reason);
   FillStatus(response);
   return grpc::Status::OK;
 }

@@ -33,6 +33,9 @@ class ControlService final : public plumb::v1::ModelControl::Service {
   grpc::Status SetAutoActivate(grpc::ServerContext* context,
                                const plumb::v1::SetAutoActivateRequest* request,
                                plumb::v1::TrainerStatus* response) override;
+  // INVALID_ARGUMENT for a reason longer than 200 bytes or with control characters.
+  grpc::Status Retrain(grpc::ServerContext* context, const plumb::v1::RetrainRequest* request,
+                       plumb::v1::TrainerStatus* response) override;
 
  private:
   void FillStatus(plumb::v1::TrainerStatus* out) const;

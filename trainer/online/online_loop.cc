@@ -1,23 +1,22 @@
 #include "trainer/online/online_loop.h"
 
+#include <spdlog/spdlog.h>
+
 #include <algorithm>
-#include <atomic>
 #include <chrono>
 #include <cmath>
 #include <condition_variable>
+#include <cstdio>
+#include <cstdlib>
+#include <functional>
 #include <mutex>
 #include <thread>
-#include <unordered_map>
 
-#include <spdlog/spdlog.h>
-
-#include "core/metrics.h"
-#include "core/scan.h"
-#include "core/split.h"
-#include "core/topk.h"
 #include "store/store.h"
 #include "trainer/embeddings.h"
 #include "trainer/online/gate.h"
+#include "trainer/online/refit.h"
+#include "trainer/online/training_config.h"
 #include "trainer/online/training_state.h"
 #include "trainer/trainer.h"
 
@@ -33,6 +32,7 @@ int64_t NowMs() {
 }
 
 constexpr char kAutoActivateKey[] = "auto_activate";
+constexpr char kAutoActivateReasonKey[] = "auto_activate_reason";
 // The hold-out share is a property of the store (the `plumb` command line uses the same key):
 // replaying the log with another share would disagree with the interaction sets written.
 constexpr char kHoldoutKey[] = "holdout_fraction";
@@ -40,51 +40,19 @@ constexpr size_t kReadChunk = 4096;
 // Validation users scored per gate check: bounds the cost of a publish on a large catalogue.
 constexpr size_t kGateMaxUsers = 2000;
 
-}  // namespace
-
-struct OnlineLoop::Impl {
-  store::Store* store = nullptr;
-  OnlineOptions options;
-  trainer::TrainOptions train_options;
-
-  // Owned by the training thread (and by Create before it starts).
-  TrainingState state;
-  trainer::Embeddings model;
-  std::unique_ptr<trainer::FitLoop> fit;
-  uint64_t cursor = 0;  // last log sequence folded into `state`
-  uint64_t events_since_publish = 0;
-  Clock::time_point last_publish_time = Clock::now();
-  uint64_t idle_samples_budget = 0;
-  uint64_t samples_since_publish = 0;
-
-  // The active version's embeddings, for the gate's side-by-side comparison. Guarded by mu.
-  std::shared_ptr<const trainer::Embeddings> active_model;
-
-  mutable std::mutex mu;
-  std::condition_variable wake;
-  // Held for a whole publish and by SetAutoActivate, so that once SetAutoActivate(false)
-  // returns no publish already under way can still activate its candidate.
-  std::mutex publish_mu;
-  bool stop = false;
-  bool appended = false;
-  bool publish_requested = false;
-  OnlineStatus status;
-
-  std::thread thread;
-
-  void Run();
-  Status Publish();
-  void SetStatus(const std::function<void(OnlineStatus&)>& fn) {
-    std::lock_guard<std::mutex> lock(mu);
-    fn(status);
+const char* GateName(store::GateOutcome gate) {
+  switch (gate) {
+    case store::GateOutcome::kFailed:
+      return "failed";
+    case store::GateOutcome::kSkipped:
+      return "skipped";
+    case store::GateOutcome::kPassed:
+      return "passed";
+    case store::GateOutcome::kUnspecified:
+      break;
   }
-};
-
-OnlineLoop::OnlineLoop() : impl_(std::make_unique<Impl>()) {}
-
-OnlineLoop::~OnlineLoop() { Stop(); }
-
-namespace {
+  return "unspecified";
+}
 
 Status LoadEmbeddings(const store::Store& store, const store::VersionManifest& m, uint64_t seed,
                       trainer::Embeddings* out) {
@@ -98,6 +66,68 @@ Status LoadEmbeddings(const store::Store& store, const store::VersionManifest& m
 }
 
 }  // namespace
+
+struct OnlineLoop::Impl {
+  store::Store* store = nullptr;
+  OnlineOptions options;
+  trainer::TrainOptions train_options;
+  store::TrainingConfig config;  // what this loop's versions record
+
+  // Owned by the training thread (and by Create before it starts).
+  TrainingState state;
+  trainer::Embeddings model;
+  std::unique_ptr<trainer::FitLoop> fit;
+  uint64_t cursor = 0;  // last log sequence folded into `state`
+  uint64_t events_since_publish = 0;
+  Clock::time_point last_publish_time = Clock::now();
+  uint64_t idle_samples_budget = 0;
+  uint64_t samples_since_publish = 0;
+  uint64_t logged_errors = 0;
+  // Refits: the background fit, the pairs the live model's last refit covered, and when the
+  // next growth-triggered one may start.
+  Refitter refitter;
+  uint64_t refit_pairs = 0;
+  Clock::time_point next_refit_allowed = Clock::now();
+  std::string refit_forced_reason;  // non-empty: start one regardless of growth and cool-down
+  // Non-empty while the published versions were trained with another configuration than
+  // `config`: nothing is published until a refit with `config` lands.
+  std::string pending_config_change;
+
+  // The active version's embeddings, for the gate's side-by-side comparison. Guarded by mu.
+  std::shared_ptr<const trainer::Embeddings> active_model;
+
+  mutable std::mutex mu;
+  std::condition_variable wake;
+  // Held for a whole publish and by SetAutoActivate / Activate, so that once they return no
+  // publish already under way can still activate its candidate.
+  std::mutex publish_mu;
+  bool stop = false;
+  bool appended = false;
+  bool publish_requested = false;
+  std::string retrain_requested;  // guarded by mu: reason of a RequestRetrain not yet started
+  OnlineStatus status;
+
+  std::thread thread;
+
+  void Run();
+  // One step of Run, each of which owns one concern.
+  bool ConsumeLog(std::vector<store::Event>* events, std::vector<uint64_t>* new_pairs);
+  void TrainIncrement(std::span<const uint64_t> new_pairs, bool has_new);
+  void MaybeStartRefit();
+  bool AdoptFinishedRefit();
+  bool Step(std::span<const uint64_t> anchors, uint64_t replay, uint64_t* samples,
+            double* loss_sum);
+  bool RefitDue() const;
+  Status Publish();
+  void SetStatus(const std::function<void(OnlineStatus&)>& fn) {
+    std::lock_guard<std::mutex> lock(mu);
+    fn(status);
+  }
+};
+
+OnlineLoop::OnlineLoop() : impl_(std::make_unique<Impl>()) {}
+
+OnlineLoop::~OnlineLoop() { Stop(); }
 
 Status OnlineLoop::Create(store::Store* store, const OnlineOptions& options,
                           std::unique_ptr<OnlineLoop>* out) {
@@ -126,11 +156,26 @@ Status OnlineLoop::Create(store::Store* store, const OnlineOptions& options,
     return Status::InvalidArgument("holdout_fraction must be in [0, 1)");
   }
   if (options.gate_k == 0) return Status::InvalidArgument("gate_k must be at least 1");
+  if (options.refit_epochs == 0) return Status::InvalidArgument("refit_epochs must be >= 1");
+  if (!(options.refit_min_growth >= 0.0)) {
+    return Status::InvalidArgument("refit_min_growth must be >= 0");
+  }
+  if (!(options.refit_max_duty > 0.0 && options.refit_max_duty <= 1.0)) {
+    return Status::InvalidArgument("refit_max_duty must be in (0, 1]");
+  }
+  if (options.threads == 0 || options.threads > 256) {
+    return Status::InvalidArgument("threads must be in 1..256");
+  }
 
   std::string stored_holdout;
   Status hs = store->GetMeta(kHoldoutKey, &stored_holdout);
   if (hs.ok()) {
-    const double stored = std::stod(stored_holdout);
+    char* end = nullptr;
+    const double stored = std::strtod(stored_holdout.c_str(), &end);
+    if (end == stored_holdout.c_str() || *end != '\0' || !(stored >= 0.0 && stored < 1.0)) {
+      return Status::Corruption("meta holdout_fraction holds '" + stored_holdout +
+                                "', not a share in [0, 1)");
+    }
     if (stored != options.holdout_fraction) {
       spdlog::warn("this store holds out {} of pairs; using that, not the configured {}", stored,
                    options.holdout_fraction);
@@ -139,31 +184,43 @@ Status OnlineLoop::Create(store::Store* store, const OnlineOptions& options,
   } else if (!hs.IsNotFound()) {
     return hs;
   }
+  impl.config = MakeTrainingConfig("online", t, options.dim, options.refit_epochs,
+                                   options.replay_ratio, impl.options.holdout_fraction);
   PLUMB_RETURN_IF_ERROR(
       TrainingState::Load(*store, impl.options.holdout_fraction, &impl.state, &impl.cursor));
 
-  // Warm start from the newest kept version that did not fail its gate.
+  // Warm start from the newest kept version that did not fail its gate and was trained with
+  // this configuration. A version trained otherwise (the configuration changed since) is not
+  // a starting point: a rebuild starts at once and nothing is published until it lands.
   std::vector<store::VersionManifest> versions;
   PLUMB_RETURN_IF_ERROR(store->ListVersions(&versions));
   uint64_t active = 0;
   PLUMB_RETURN_IF_ERROR(store->GetActiveVersion(&active));
   bool warm = false;
-  for (const store::VersionManifest& m : versions) {
-    if (m.gate == store::GateOutcome::kFailed && m.version != active) continue;
-    if (m.dim != options.dim) {
-      return Status::FailedPrecondition(
-          "the store's version " + std::to_string(m.version) + " has dim " +
-          std::to_string(m.dim) + " but dim is configured as " + std::to_string(options.dim) +
-          "; use the stored dim or a new store");
+  if (!versions.empty()) {
+    const std::string change = DescribeConfigChange(versions.front(), impl.config);
+    if (!change.empty()) {
+      impl.pending_config_change = change;
+      impl.refit_forced_reason = "training configuration changed (" + change + ")";
+      spdlog::warn(
+          "version {} was trained with another configuration ({}); rebuilding from the "
+          "whole log, and publishing nothing until the rebuild lands",
+          versions.front().version, change);
     }
+  }
+  for (const store::VersionManifest& m : versions) {
+    if (!impl.pending_config_change.empty()) break;
+    if (m.gate == store::GateOutcome::kFailed && m.version != active) continue;
     PLUMB_RETURN_IF_ERROR(LoadEmbeddings(*store, m, options.seed, &impl.model));
-    spdlog::info("warm start from version {} ({} users, {} items)", m.version, m.num_users,
-                 m.num_items);
+    impl.refit_pairs = m.training.refit_pairs;
+    spdlog::info("warm start from version {} ({} users, {} items, last refit covered {} pairs)",
+                 m.version, m.num_users, m.num_items, impl.refit_pairs);
     warm = true;
     break;
   }
   if (!warm) {
-    PLUMB_RETURN_IF_ERROR(trainer::Embeddings::Create(options.dim, 0, 0, options.seed, &impl.model));
+    PLUMB_RETURN_IF_ERROR(
+        trainer::Embeddings::Create(options.dim, 0, 0, options.seed, &impl.model));
   }
   PLUMB_RETURN_IF_ERROR(
       impl.model.Grow(impl.state.train().num_users(), impl.state.train().num_items()));
@@ -174,26 +231,42 @@ Status OnlineLoop::Create(store::Store* store, const OnlineOptions& options,
     impl.active_model = std::move(copy);
     impl.status.active_validation_recall = m.validation_recall;
   }
-  PLUMB_RETURN_IF_ERROR(
-      trainer::FitLoop::Create(t, &impl.model, &impl.state.train(), &impl.fit));
+  PLUMB_RETURN_IF_ERROR(trainer::FitLoop::Create(t, &impl.model, &impl.state.train(), &impl.fit));
 
   std::string auto_value;
   Status meta = store->GetMeta(kAutoActivateKey, &auto_value);
   bool auto_activate = options.auto_activate;
-  if (meta.ok()) auto_activate = auto_value == "1";
-  else if (!meta.IsNotFound()) return meta;
+  if (meta.ok())
+    auto_activate = auto_value == "1";
+  else if (!meta.IsNotFound())
+    return meta;
+  std::string auto_reason;
+  if (!auto_activate) {
+    Status rs = store->GetMeta(kAutoActivateReasonKey, &auto_reason);
+    if (rs.IsNotFound())
+      auto_reason = "turned off";
+    else if (!rs.ok())
+      return rs;
+  }
 
   OnlineStatus& s = impl.status;
   s.active_version = active;
   s.last_sequence = store->LastSequence();
   s.trained_sequence = impl.cursor;
   s.auto_activate = auto_activate;
+  s.auto_activate_reason = auto_reason;
   s.objective = options.objective;
   s.num_users = impl.state.users().size();
   s.num_items = impl.state.items().size();
-  spdlog::info("training state: cursor {}, {} users, {} items, {} training pairs, {} held out",
-               impl.cursor, s.num_users, s.num_items, impl.state.train().size(),
-               impl.state.validation().size());
+  s.training = impl.config;
+  s.pending_config_change = impl.pending_config_change;
+  s.refit_pairs = impl.refit_pairs;
+  s.train_pairs = impl.state.train().size();
+  spdlog::info(
+      "training state: cursor {}, {} users, {} items, {} training pairs, {} held out; "
+      "training {}",
+      impl.cursor, s.num_users, s.num_items, impl.state.train().size(),
+      impl.state.validation().size(), FormatTrainingConfig(impl.config));
   *out = std::move(loop);
   return Status::Ok();
 }
@@ -213,6 +286,7 @@ void OnlineLoop::Stop() {
   }
   impl.wake.notify_all();
   if (impl.thread.joinable()) impl.thread.join();
+  impl.refitter.Cancel();
 }
 
 void OnlineLoop::NotifyAppended() {
@@ -227,6 +301,14 @@ void OnlineLoop::RequestPublish() {
   {
     std::lock_guard<std::mutex> lock(impl_->mu);
     impl_->publish_requested = true;
+  }
+  impl_->wake.notify_all();
+}
+
+void OnlineLoop::RequestRetrain(const std::string& reason) {
+  {
+    std::lock_guard<std::mutex> lock(impl_->mu);
+    impl_->retrain_requested = reason.empty() ? "requested" : reason;
   }
   impl_->wake.notify_all();
 }
@@ -247,31 +329,233 @@ Status OnlineLoop::Activate(uint64_t version, uint64_t* previous) {
   PLUMB_RETURN_IF_ERROR(LoadEmbeddings(*impl.store, m, impl.options.seed, copy.get()));
   uint64_t before = 0;
   PLUMB_RETURN_IF_ERROR(impl.store->GetActiveVersion(&before));
-  PLUMB_RETURN_IF_ERROR(impl.store->Activate(version));
+  // The operator's choice holds: automatic activation pauses in the same write.
+  const std::string reason = "paused: version " + std::to_string(version) +
+                             " was activated by request (was " + std::to_string(before) +
+                             "); turn it back on with `plumb-query auto-activate on`";
+  store::StateChange change;
+  change.activate = version;
+  change.meta.emplace_back(kAutoActivateKey, "0");
+  change.meta.emplace_back(kAutoActivateReasonKey, reason);
+  PLUMB_RETURN_IF_ERROR(impl.store->Commit(change));
   if (previous) *previous = before;
   std::lock_guard<std::mutex> lock(impl.mu);
   impl.active_model = std::move(copy);
   impl.status.active_version = version;
   impl.status.active_validation_recall = m.validation_recall;
-  spdlog::info("version {} activated by request (was {})", version, before);
+  impl.status.auto_activate = false;
+  impl.status.auto_activate_reason = reason;
+  spdlog::info("version {} activated by request (was {}); automatic activation paused", version,
+               before);
   return Status::Ok();
 }
 
 Status OnlineLoop::SetAutoActivate(bool enabled) {
   std::lock_guard<std::mutex> publishing(impl_->publish_mu);
+  const std::string reason = enabled ? "" : "turned off by request";
   store::StateChange change;
   change.meta.emplace_back(kAutoActivateKey, enabled ? "1" : "0");
+  change.meta.emplace_back(kAutoActivateReasonKey, reason);
   PLUMB_RETURN_IF_ERROR(impl_->store->Commit(change));
   std::lock_guard<std::mutex> lock(impl_->mu);
   impl_->status.auto_activate = enabled;
+  impl_->status.auto_activate_reason = reason;
   spdlog::info("automatic activation {}", enabled ? "on" : "off");
   return Status::Ok();
+}
+
+bool OnlineLoop::Impl::ConsumeLog(std::vector<store::Event>* events,
+                                  std::vector<uint64_t>* new_pairs) {
+  Status s = store->ReadEvents(cursor, kReadChunk, events);
+  if (!s.ok()) {
+    spdlog::error("reading the event log after {}: {}", cursor, s.ToString());
+    std::unique_lock<std::mutex> lock(mu);
+    wake.wait_for(lock, std::chrono::seconds(1), [this] { return stop; });
+    events->clear();
+    return false;
+  }
+  new_pairs->clear();
+  for (const store::Event& ev : *events) {
+    s = state.Apply(ev, new_pairs);
+    if (!s.ok()) {
+      spdlog::error("event {}: {}", ev.seq, s.ToString());
+      break;
+    }
+    cursor = ev.seq;
+    ++events_since_publish;
+  }
+  if (events->empty()) return false;
+  SetStatus([&](OnlineStatus& st) {
+    st.trained_sequence = cursor;
+    st.events_trained += events->size();
+    st.num_users = state.users().size();
+    st.num_items = state.items().size();
+    st.train_pairs = state.train().size();
+    const uint64_t last = store->LastSequence();
+    st.oldest_untrained_received_ms = last > cursor ? events->back().received_ms : 0;
+  });
+  // After new data, allow a bounded amount of replay training while idle (about this many
+  // passes over history), so a quiet stream still converges.
+  idle_samples_budget =
+      static_cast<uint64_t>(options.idle_replay_passes * static_cast<double>(state.train().size()));
+  return true;
+}
+
+bool OnlineLoop::Impl::Step(std::span<const uint64_t> anchors, uint64_t replay, uint64_t* samples,
+                            double* loss_sum) {
+  trainer::StepStats st;
+  Status ss = fit->StepBatch(anchors, replay, &st);
+  if (!ss.ok()) {
+    if (logged_errors++ % 100 == 0) spdlog::warn("training step: {}", ss.ToString());
+    return false;
+  }
+  *samples += st.samples;
+  samples_since_publish += st.samples;
+  *loss_sum += st.mean_loss * static_cast<double>(st.samples);
+  return true;
+}
+
+void OnlineLoop::Impl::TrainIncrement(std::span<const uint64_t> new_pairs, bool has_new) {
+  if (state.train().size() < options.min_train_pairs) return;
+  const uint32_t bs = std::max<uint32_t>(1, options.batch_size);
+  uint64_t samples = 0;
+  double loss_sum = 0.0;
+  if (!new_pairs.empty()) {
+    // One anchored sample per new pair plus replay samples from history.
+    for (size_t off = 0; off < new_pairs.size(); off += bs) {
+      const size_t n = std::min<size_t>(bs, new_pairs.size() - off);
+      const uint64_t replay = static_cast<uint64_t>(options.replay_ratio * n);
+      if (!Step(new_pairs.subspan(off, n), replay, &samples, &loss_sum)) break;
+    }
+  } else if (!has_new && idle_samples_budget > 0 && !options.refit) {
+    const uint64_t replay = std::min<uint64_t>(bs, idle_samples_budget);
+    idle_samples_budget -= replay;
+    Step({}, replay, &samples, &loss_sum);
+  }
+  if (samples > 0) {
+    SetStatus([&](OnlineStatus& st) {
+      st.samples_trained += samples;
+      st.last_loss = loss_sum / static_cast<double>(samples);
+    });
+  }
+}
+
+bool OnlineLoop::Impl::RefitDue() const {
+  if (!refit_forced_reason.empty()) return true;
+  if (!options.refit) return false;
+  const uint64_t pairs = state.train().size();
+  if (pairs < options.min_train_pairs || pairs <= refit_pairs) return false;
+  const double growth = static_cast<double>(pairs - refit_pairs);
+  return growth >= options.refit_min_growth * static_cast<double>(refit_pairs);
+}
+
+void OnlineLoop::Impl::MaybeStartRefit() {
+  {
+    std::lock_guard<std::mutex> lock(mu);
+    if (!retrain_requested.empty()) {
+      if (refit_forced_reason.empty()) refit_forced_reason = retrain_requested;
+      retrain_requested.clear();
+    }
+  }
+  if (refitter.running() || !RefitDue()) return;
+  const bool forced = !refit_forced_reason.empty();
+  if (!forced && Clock::now() < next_refit_allowed) return;
+  if (state.train().size() < std::max<uint64_t>(options.min_train_pairs, 1)) return;
+  if (!fit->Sync().ok()) return;
+  RefitJob job;
+  const auto pairs = state.train().pairs();
+  job.pairs.assign(pairs.begin(), pairs.end());
+  job.num_users = state.train().num_users();
+  job.num_items = state.train().num_items();
+  job.options = train_options;
+  job.options.threads = options.threads;
+  job.dim = options.dim;
+  job.epochs = options.refit_epochs;
+  job.cursor = cursor;
+  job.reason =
+      forced ? refit_forced_reason
+             : (refit_pairs == 0 ? std::string("first fit")
+                                 : "history grew " + std::to_string(pairs.size() - refit_pairs) +
+                                       " pairs since the last refit");
+  const std::string reason = job.reason;
+  const size_t n = job.pairs.size();
+  if (Status s = refitter.Start(std::move(job)); !s.ok()) {
+    spdlog::warn("refit not started: {}", s.ToString());
+    return;
+  }
+  refit_forced_reason.clear();
+  spdlog::info("refit started on {} training pairs (events up to {}): {}", n, cursor, reason);
+  SetStatus([&](OnlineStatus& st) {
+    st.refit_running = true;
+    st.refit_reason = reason;
+  });
+}
+
+bool OnlineLoop::Impl::AdoptFinishedRefit() {
+  RefitResult r;
+  if (!refitter.Poll(&r)) return false;
+  // Cool-down: refits take at most refit_max_duty of the time on average.
+  next_refit_allowed =
+      Clock::now() + std::chrono::duration_cast<Clock::duration>(std::chrono::duration<double>(
+                         r.seconds * (1.0 / options.refit_max_duty - 1.0)));
+  if (!r.status.ok()) {
+    spdlog::error("refit ({}) failed after {:.1f} s: {}", r.reason, r.seconds, r.status.ToString());
+    SetStatus([&](OnlineStatus& st) {
+      st.refit_running = false;
+      ++st.refits_failed;
+    });
+    // A configuration change still needs its rebuild: try again after the cool-down.
+    if (!pending_config_change.empty()) refit_forced_reason = r.reason;
+    return false;
+  }
+  // Continue from the refit: its embeddings and optimiser state, grown to today's rows, then
+  // the pairs that arrived while it ran, as incremental steps.
+  model = std::move(r.model);
+  if (Status s = fit->ReplaceOptimizer(std::move(r.optimizer)); !s.ok()) {
+    spdlog::error("refit result not adopted: {}", s.ToString());
+    return false;
+  }
+  const uint64_t total = state.train().size();
+  std::vector<uint64_t> later;
+  later.reserve(total - r.snapshot_pairs);
+  for (uint64_t p = r.snapshot_pairs; p < total; ++p) later.push_back(p);
+  uint64_t samples = 0;
+  double loss_sum = 0.0;
+  if (Status s = fit->Sync(); !s.ok()) {
+    spdlog::error("refit result not adopted: {}", s.ToString());
+    return false;
+  }
+  const uint32_t bs = std::max<uint32_t>(1, options.batch_size);
+  for (size_t off = 0; off < later.size(); off += bs) {
+    const size_t n = std::min<size_t>(bs, later.size() - off);
+    if (!Step(std::span<const uint64_t>(later).subspan(off, n),
+              static_cast<uint64_t>(options.replay_ratio * n), &samples, &loss_sum)) {
+      break;
+    }
+  }
+  refit_pairs = r.snapshot_pairs;
+  // A converged fit needs no replay passes on top; new events bring their own budget.
+  idle_samples_budget = 0;
+  const bool config_landed = !pending_config_change.empty();
+  pending_config_change.clear();
+  spdlog::info(
+      "refit ({}) done in {:.1f} s on {} pairs, loss {:.4f}; {} pairs that arrived "
+      "meanwhile stepped in{}",
+      r.reason, r.seconds, r.snapshot_pairs, r.last_loss, later.size(),
+      config_landed ? "; the new training configuration is now in charge" : "");
+  SetStatus([&](OnlineStatus& st) {
+    st.refit_running = false;
+    ++st.refits_completed;
+    st.last_refit_seconds = r.seconds;
+    st.refit_pairs = refit_pairs;
+    st.pending_config_change.clear();
+  });
+  return true;  // Run publishes it at once
 }
 
 void OnlineLoop::Impl::Run() {
   std::vector<store::Event> events;
   std::vector<uint64_t> new_pairs;
-  uint64_t logged_errors = 0;
   while (true) {
     bool publish_now = false;
     {
@@ -279,101 +563,39 @@ void OnlineLoop::Impl::Run() {
       if (stop) return;
       publish_now = publish_requested;
     }
-    Status s = store->ReadEvents(cursor, kReadChunk, &events);
-    if (!s.ok()) {
-      spdlog::error("reading the event log after {}: {}", cursor, s.ToString());
-      std::unique_lock<std::mutex> lock(mu);
-      wake.wait_for(lock, std::chrono::seconds(1), [this] { return stop; });
-      continue;
-    }
-    new_pairs.clear();
-    for (const store::Event& ev : events) {
-      s = state.Apply(ev, &new_pairs);
-      if (!s.ok()) {
-        spdlog::error("event {}: {}", ev.seq, s.ToString());
-        break;
-      }
-      cursor = ev.seq;
-      ++events_since_publish;
-    }
-    const bool has_new = !events.empty();
-    if (has_new) {
-      SetStatus([&](OnlineStatus& st) {
-        st.trained_sequence = cursor;
-        st.events_trained += events.size();
-        st.num_users = state.users().size();
-        st.num_items = state.items().size();
-        const uint64_t last = store->LastSequence();
-        st.oldest_untrained_received_ms = last > cursor ? events.back().received_ms : 0;
-      });
-      // After new data, allow a bounded amount of replay training while idle (about this
-      // many passes over history), so a quiet stream still converges.
-      idle_samples_budget = static_cast<uint64_t>(
-          options.idle_replay_passes * static_cast<double>(state.train().size()));
-    }
+    const bool has_new = ConsumeLog(&events, &new_pairs);
+    const bool adopted = AdoptFinishedRefit();
+    if (adopted) publish_now = true;
+    MaybeStartRefit();
+    TrainIncrement(new_pairs, has_new);
 
-    // Train: one anchored sample per new pair plus replay samples from history.
     const bool trainable = state.train().size() >= options.min_train_pairs;
-    if (trainable) {
-      const uint32_t bs = std::max<uint32_t>(1, options.batch_size);
-      uint64_t replay_total = 0;
-      uint64_t samples = 0;
-      double loss_sum = 0.0;
-      auto step = [&](std::span<const uint64_t> anchors, uint64_t replay) {
-        trainer::StepStats st;
-        Status ss = fit->StepBatch(anchors, replay, &st);
-        if (!ss.ok()) {
-          if (logged_errors++ % 100 == 0) spdlog::warn("training step: {}", ss.ToString());
-          return false;
-        }
-        samples += st.samples;
-        samples_since_publish += st.samples;
-        loss_sum += st.mean_loss * static_cast<double>(st.samples);
-        return true;
-      };
-      if (!new_pairs.empty()) {
-        for (size_t off = 0; off < new_pairs.size(); off += bs) {
-          const size_t n = std::min<size_t>(bs, new_pairs.size() - off);
-          const uint64_t replay = static_cast<uint64_t>(options.replay_ratio * n);
-          replay_total += replay;
-          if (!step(std::span<const uint64_t>(new_pairs).subspan(off, n), replay)) break;
-        }
-      } else if (!has_new && idle_samples_budget > 0) {
-        const uint64_t replay = std::min<uint64_t>(bs, idle_samples_budget);
-        idle_samples_budget -= replay;
-        step({}, replay);
-      }
-      if (samples > 0) {
-        SetStatus([&](OnlineStatus& st) {
-          st.samples_trained += samples;
-          st.last_loss = loss_sum / static_cast<double>(samples);
-        });
-      }
-    }
-
     const double since = std::chrono::duration<double>(Clock::now() - last_publish_time).count();
-    const bool due = (events_since_publish > 0 || samples_since_publish > 0) &&
-                     (events_since_publish >= options.publish_every_events ||
-                      since >= options.publish_every_seconds || publish_now);
-    if (trainable && due) {
+    // A requested publish happens even with nothing new (RequestPublish's contract).
+    const bool due = publish_now || ((events_since_publish > 0 || samples_since_publish > 0) &&
+                                     (events_since_publish >= options.publish_every_events ||
+                                      since >= options.publish_every_seconds));
+    // While a configuration change waits for its rebuild, the old versions stay in charge.
+    if (trainable && due && pending_config_change.empty()) {
       Status ps = Publish();
       if (!ps.ok()) spdlog::error("publish failed: {}", ps.ToString());
-      {
-        std::lock_guard<std::mutex> lock(mu);
-        publish_requested = false;
-      }
-    } else if (publish_now && !trainable) {
+      std::lock_guard<std::mutex> lock(mu);
+      publish_requested = false;
+    } else if (publish_now && (!trainable || !pending_config_change.empty())) {
       std::lock_guard<std::mutex> lock(mu);
       publish_requested = false;
     }
 
+    const bool waiting_refit = refitter.running() || (RefitDue() && trainable);
+    if (options.refit) idle_samples_budget = 0;  // refits do what idle replay would
     const bool idle = !has_new && (idle_samples_budget == 0 || !trainable) &&
-                      events_since_publish == 0 && samples_since_publish == 0;
+                      events_since_publish == 0 && samples_since_publish == 0 && !waiting_refit;
     SetStatus([&](OnlineStatus& st) { st.idle = idle; });
     if (!has_new && (idle_samples_budget == 0 || !trainable)) {
       std::unique_lock<std::mutex> lock(mu);
-      wake.wait_for(lock, std::chrono::milliseconds(100),
-                    [this] { return stop || appended || publish_requested; });
+      wake.wait_for(lock, std::chrono::milliseconds(100), [this] {
+        return stop || appended || publish_requested || !retrain_requested.empty();
+      });
       appended = false;
     }
   }
@@ -395,14 +617,15 @@ Status OnlineLoop::Impl::Publish() {
   gopt.k = options.gate_k;
   gopt.tolerance = options.gate_tolerance;
   gopt.max_row_norm = options.gate_max_row_norm;
-  const GateVerdict verdict = JudgeCandidate(model, active.get(),
-                                             BuildGateSample(state, kGateMaxUsers),
-                                             state.train(), gopt);
+  const GateVerdict verdict = JudgeCandidate(
+      model, active.get(), BuildGateSample(state, kGateMaxUsers), state.train(), gopt);
   const store::GateOutcome gate = verdict.outcome;
   const std::string& reason = verdict.reason;
   const double candidate_recall = verdict.candidate_recall;
   const double active_recall = verdict.active_recall;
-  const bool activate = gate != store::GateOutcome::kFailed && auto_activate;
+  const bool gate_allows = gate == store::GateOutcome::kPassed ||
+                           (gate == store::GateOutcome::kSkipped && !options.require_gate);
+  const bool activate = gate_allows && auto_activate;
 
   store::VersionWrite write;
   store::VersionManifest& m = write.manifest;
@@ -419,6 +642,8 @@ Status OnlineLoop::Impl::Publish() {
   m.gate_reason = reason;
   m.figures["active_validation_recall"] = active_recall;
   m.figures["beta"] = options.beta;
+  m.training = config;
+  m.training.refit_pairs = refit_pairs;
   write.users = {model.users().data(), model.num_users(), model.dim()};
   write.items = {model.items().data(), model.num_items(), model.dim()};
   write.item_degrees = state.train().item_degrees();
@@ -428,7 +653,10 @@ Status OnlineLoop::Impl::Publish() {
   change.cursor = cursor;
   change.version = &write;
   change.activate_published = activate;
-  change.meta.emplace_back(kHoldoutKey, std::to_string(options.holdout_fraction));
+  // Written with full precision: a rounded share would change the split after a restart.
+  char holdout[32];
+  std::snprintf(holdout, sizeof holdout, "%.17g", options.holdout_fraction);
+  change.meta.emplace_back(kHoldoutKey, holdout);
   uint64_t version = 0;
   PLUMB_RETURN_IF_ERROR(store->Commit(change, &version));
   state.MarkPersisted();
@@ -442,8 +670,17 @@ Status OnlineLoop::Impl::Publish() {
     std::lock_guard<std::mutex> lock(mu);
     status.candidate_validation_recall = candidate_recall;
     status.last_publish_ms = m.created_ms;
-    if (gate == store::GateOutcome::kFailed) ++status.candidates_failed;
-    else ++status.candidates_passed;
+    switch (gate) {
+      case store::GateOutcome::kFailed:
+        ++status.candidates_failed;
+        break;
+      case store::GateOutcome::kSkipped:
+        ++status.candidates_skipped;
+        break;
+      default:
+        ++status.candidates_passed;
+        break;
+    }
     if (activate) {
       active_model = std::move(copy);
       status.active_version = version;
@@ -451,14 +688,16 @@ Status OnlineLoop::Impl::Publish() {
     }
   }
   const double ms = std::chrono::duration<double, std::milli>(Clock::now() - started).count();
-  spdlog::info("version {}: events up to {}, {} users, {} items, recall@{} {:.4f} (active {:.4f}), "
-               "gate {}{}{} in {:.0f} ms",
-               version, cursor, m.num_users, m.num_items, options.gate_k, candidate_recall,
-               active_recall,
-               gate == store::GateOutcome::kFailed ? "failed"
-               : gate == store::GateOutcome::kSkipped ? "skipped" : "passed",
-               reason.empty() ? "" : ": ", reason, ms);
-  if (activate) spdlog::info("version {} is now active", version);
+  spdlog::info(
+      "version {}: events up to {}, {} users, {} items, recall@{} {:.4f} (active {:.4f}), "
+      "gate {}{}{} in {:.0f} ms",
+      version, cursor, m.num_users, m.num_items, options.gate_k, candidate_recall, active_recall,
+      GateName(gate), reason.empty() ? "" : ": ", reason, ms);
+  if (activate) {
+    spdlog::info("version {} is now active", version);
+  } else if (gate_allows) {
+    spdlog::info("version {} kept inactive: automatic activation is off", version);
+  }
   return Status::Ok();
 }
 

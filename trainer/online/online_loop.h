@@ -5,6 +5,17 @@
 // interval builds a candidate version, gates it, and commits it together with the training
 // state and the cursor in one atomic store write.
 //
+// Refits: in the background, at a bounded cadence, the loop also fits the whole history
+// from scratch the way `plumb fit` does (trainer/online/refit.h says why). When a refit ends
+// the loop continues from its embeddings and optimiser state, replays the pairs that arrived
+// meanwhile as incremental steps, and publishes the result as an ordinary gated candidate.
+// A refit starts when (a) the training pairs grew by refit_min_growth since the last one and
+// the previous refit's cool-down has passed (a refit that took T seconds is followed by at
+// least T (1 / refit_max_duty - 1) seconds without one), (b) the training configuration
+// differs from the one the newest version was trained with (then nothing is published
+// until the rebuild with the new configuration lands: the old active version stays in charge,
+// and status says why), or (c) RequestRetrain() asks for one.
+//
 // Thread safety: Start/Stop from one thread; every other method may be called from any
 // thread (the gRPC services call them) while the loop runs.
 #pragma once
@@ -14,38 +25,43 @@
 #include <string>
 
 #include "core/status.h"
-
-namespace plumb::store {
-class Store;
-}
+#include "store/store.h"
 
 namespace plumb::online {
 
 struct OnlineOptions {
-  std::string objective = "cpr";   // cpr | bpr | bce
+  std::string objective = "cpr";  // cpr | bpr | bce
   uint32_t dim = 64;
-  uint32_t cpr_k = 2;              // CPR sample size
-  double cpr_k3_share = 0.0;       // share of k=3 samples mixed into CPR batches
-  double beta = 3.0;               // dynamic sampling: candidates drawn per kept sample
+  uint32_t cpr_k = 2;         // CPR sample size
+  double cpr_k3_share = 0.0;  // share of k=3 samples mixed into CPR batches
+  double beta = 3.0;          // dynamic sampling: candidates drawn per kept sample
   double learning_rate = 0.05;
   double l2 = 1e-4;
   std::string optimizer = "adagrad";  // sgd | adagrad
-  uint32_t batch_size = 1024;      // samples per mini-batch
-  double replay_ratio = 3.0;       // replayed history interactions per new interaction
+  uint32_t batch_size = 1024;         // samples per mini-batch
+  double replay_ratio = 3.0;          // replayed history interactions per new interaction
   // Once the log is consumed, keep training on replayed history for about this many passes
   // over the training pairs (counted in samples), so a quiet stream still converges; what
   // it learns is published at the next publish interval. 0 = no idle training.
   double idle_replay_passes = 10.0;
+  // Threads of a background refit (the incremental steps run on the training thread).
   uint32_t threads = 1;
+  // Background refits (see the file comment). refit = false: incremental steps only.
+  bool refit = true;
+  uint32_t refit_epochs = 20;      // epochs of a refit, as `plumb fit --epochs`
+  double refit_min_growth = 0.01;  // new training pairs, as a share of the last refit's
+  double refit_max_duty = 0.5;     // share of time refits may run on average, in (0, 1]
   uint64_t seed = 1;
   double holdout_fraction = 0.02;  // share of (user,item) pairs held out for validation
   uint64_t publish_every_events = 20000;
   double publish_every_seconds = 30.0;
   uint32_t min_train_pairs = 100;  // no version before this many training pairs
   uint32_t gate_k = 20;
-  double gate_tolerance = 0.02;    // allowed absolute drop of validation Recall@K
+  double gate_tolerance = 0.02;  // allowed absolute drop of validation Recall@K
   double gate_max_row_norm = 100.0;
-  bool auto_activate = true;       // initial value; persisted in the store's meta
+  bool auto_activate = true;  // initial value; persisted in the store's meta
+  // Auto-activate only candidates that passed a real comparison (not "skipped" ones).
+  bool require_gate = false;
 };
 
 // Read-only view of what the loop is doing, for GetStatus and metrics.
@@ -64,6 +80,21 @@ struct OnlineStatus {
   double candidate_validation_recall = 0.0;
   uint64_t candidates_passed = 0;
   uint64_t candidates_failed = 0;
+  uint64_t candidates_skipped = 0;
+  // Why automatic activation is off (empty when on), e.g. after a manual activation.
+  std::string auto_activate_reason;
+  // The configuration the loop trains with, and what the published versions were trained
+  // with when that differs (publishing waits for the rebuild; empty otherwise).
+  store::TrainingConfig training;
+  std::string pending_config_change;
+  // Refits.
+  bool refit_running = false;
+  std::string refit_reason;  // of the running refit, or of the last one
+  uint64_t refits_completed = 0;
+  uint64_t refits_failed = 0;
+  double last_refit_seconds = 0.0;
+  uint64_t refit_pairs = 0;                  // training pairs covered by the model's last refit
+  uint64_t train_pairs = 0;                  // training pairs now
   int64_t oldest_untrained_received_ms = 0;  // 0 when caught up
   int64_t last_publish_ms = 0;
   // Caught up with the log, idle replay spent, and everything learned is published.
@@ -93,13 +124,20 @@ class OnlineLoop {
   // Forces a publish at the next opportunity (tests, and the end of a stream in demos).
   void RequestPublish();
 
+  // Starts a refit of the whole history now (unless one is running; then it is recorded
+  // and started when that one ends). Its result is published as a gated candidate.
+  void RequestRetrain(const std::string& reason);
+
   OnlineStatus status() const;
 
-  // Promotion or rollback: makes a kept version active. NotFound / FailedPrecondition as
-  // Store::Activate. `previous` receives the version that was active.
+  // Promotion or rollback: makes a kept version active and pauses automatic activation
+  // (an operator's choice holds until SetAutoActivate(true); status says why it is off).
+  // NotFound / FailedPrecondition as Store::Activate. `previous` receives the version that
+  // was active.
   Status Activate(uint64_t version, uint64_t* previous);
 
-  // Turns automatic activation on or off (persisted in the store's meta "auto_activate").
+  // Turns automatic activation on or off (persisted in the store's meta "auto_activate" and
+  // "auto_activate_reason").
   Status SetAutoActivate(bool enabled);
 
  private:

@@ -149,7 +149,14 @@ Status CheckTrainConfig(const TrainConfig& c) {
   if (o.batch_size < 1) return bad("batch_size must be at least 1");
   if (!(o.replay_ratio >= 0)) return bad("replay_ratio must not be negative");
   if (!(o.idle_replay_passes >= 0)) return bad("idle_replay_passes must not be negative");
-  if (o.threads < 1) return bad("threads must be at least 1");
+  if (o.threads < 1 || o.threads > 256) return bad("threads must be within [1, 256]");
+  if (o.refit_epochs < 1 || o.refit_epochs > 10000) {
+    return bad("refit_epochs must be within [1, 10000]");
+  }
+  if (!(o.refit_min_growth >= 0)) return bad("refit_min_growth must not be negative");
+  if (!(o.refit_max_duty > 0 && o.refit_max_duty <= 1)) {
+    return bad("refit_max_duty must be within (0, 1]");
+  }
   if (!(o.holdout_fraction >= 0 && o.holdout_fraction <= 0.5)) {
     return bad("holdout_fraction must be within [0, 0.5]");
   }
@@ -212,7 +219,14 @@ std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConf
        "Once caught up, passes of replay training over history (0 = none)");
   Bind(app, &keys, t, "replay_ratio", &o.replay_ratio,
        "Replayed history interactions per new interaction");
-  Bind(app, &keys, t, "threads", &o.threads, "Training threads");
+  Bind(app, &keys, t, "threads", &o.threads, "Threads of a background refit");
+  Bind(app, &keys, t, "refit", &o.refit,
+       "Refit the whole history in the background at a bounded cadence");
+  Bind(app, &keys, t, "refit_epochs", &o.refit_epochs, "Epochs of a refit (as plumb fit --epochs)");
+  Bind(app, &keys, t, "refit_min_growth", &o.refit_min_growth,
+       "Refit once training pairs grew by this share since the last refit");
+  Bind(app, &keys, t, "refit_max_duty", &o.refit_max_duty,
+       "Share of time refits may run on average (a refit of T s waits T(1/duty-1) s)");
   Bind(app, &keys, t, "seed", &o.seed, "Random seed");
   Bind(app, &keys, t, "holdout_fraction", &o.holdout_fraction,
        "Share of (user, item) pairs held out for validation");
@@ -228,6 +242,8 @@ std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConf
   Bind(app, &keys, t, "gate_max_row_norm", &o.gate_max_row_norm, "Gate: largest row norm allowed");
   Bind(app, &keys, t, "auto_activate", &o.auto_activate,
        "Activate gate-passing candidates (initial value; kept in the store)");
+  Bind(app, &keys, t, "require_gate", &o.require_gate,
+       "Activate only candidates the gate compared and passed (not skipped ones)");
 
   try {
     app.parse(argc, argv);

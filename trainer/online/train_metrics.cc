@@ -6,6 +6,9 @@
 #include <prometheus/registry.h>
 
 #include <algorithm>
+#include <cstdio>
+
+#include "trainer/online/training_config.h"
 
 namespace plumb::online {
 
@@ -60,6 +63,39 @@ TrainMetrics::TrainMetrics() : registry_(std::make_shared<prometheus::Registry>(
                          .Register(r);
   passed_.counter = &candidates.Add({{"outcome", "passed"}});
   failed_.counter = &candidates.Add({{"outcome", "failed"}});
+  skipped_.counter = &candidates.Add({{"outcome", "skipped"}});
+  auto& refits = BuildCounter()
+                     .Name("plumb_refits_total")
+                     .Help("Background refits of the whole history, by outcome")
+                     .Register(r);
+  refits_done_.counter = &refits.Add({{"outcome", "done"}});
+  refits_failed_.counter = &refits.Add({{"outcome", "failed"}});
+  refit_running_ = &BuildGauge()
+                        .Name("plumb_refit_running")
+                        .Help("1 while a background refit runs")
+                        .Register(r)
+                        .Add({});
+  refit_seconds_ = &BuildGauge()
+                        .Name("plumb_refit_last_duration_seconds")
+                        .Help("Wall time of the last completed refit")
+                        .Register(r)
+                        .Add({});
+  refit_coverage_ = &BuildGauge()
+                         .Name("plumb_refit_coverage_ratio")
+                         .Help("Share of today's training pairs that the model's last refit "
+                               "covered (the rest were learned incrementally)")
+                         .Register(r)
+                         .Add({});
+  config_pending_ = &BuildGauge()
+                         .Name("plumb_training_config_change_pending")
+                         .Help("1 while versions are trained with an older configuration and a "
+                               "rebuild with the current one is under way (nothing published)")
+                         .Register(r)
+                         .Add({});
+  config_family_ = &BuildGauge()
+                        .Name("plumb_training_config_info")
+                        .Help("The training configuration in labels; value always 1")
+                        .Register(r);
   lag_events_ = &BuildGauge()
                      .Name("plumb_trainer_lag_events")
                      .Help("Last log sequence minus trained sequence")
@@ -119,6 +155,39 @@ void TrainMetrics::Refresh(const CommitterStats& committer, const OnlineStatus* 
   trained_.Update(loop->events_trained);
   passed_.Update(loop->candidates_passed);
   failed_.Update(loop->candidates_failed);
+  skipped_.Update(loop->candidates_skipped);
+  refits_done_.Update(loop->refits_completed);
+  refits_failed_.Update(loop->refits_failed);
+  refit_running_->Set(loop->refit_running ? 1.0 : 0.0);
+  refit_seconds_->Set(loop->last_refit_seconds);
+  refit_coverage_->Set(loop->train_pairs > 0 ? static_cast<double>(loop->refit_pairs) /
+                                                   static_cast<double>(loop->train_pairs)
+                                             : 0.0);
+  config_pending_->Set(loop->pending_config_change.empty() ? 0.0 : 1.0);
+  const store::TrainingConfig& t = loop->training;
+  const std::string text = FormatTrainingConfig(t);
+  if (config_ == nullptr || text != config_text_) {
+    if (config_ != nullptr) config_family_->Remove(config_);
+    auto num = [](double v) {
+      char buf[32];
+      std::snprintf(buf, sizeof buf, "%g", v);
+      return std::string(buf);
+    };
+    config_ = &config_family_->Add({{"objective", t.objective},
+                                    {"dim", std::to_string(t.dim)},
+                                    {"cpr_k", std::to_string(t.cpr_k)},
+                                    {"cpr_mix_share", num(t.cpr_mix_share)},
+                                    {"beta", num(t.beta)},
+                                    {"optimizer", t.optimizer},
+                                    {"learning_rate", num(t.learning_rate)},
+                                    {"l2", num(t.l2)},
+                                    {"epochs", std::to_string(t.epochs)},
+                                    {"replay_ratio", num(t.replay_ratio)},
+                                    {"holdout_fraction", num(t.holdout_fraction)},
+                                    {"seed", std::to_string(t.seed)}});
+    config_->Set(1.0);
+    config_text_ = text;
+  }
   loss_->Set(loop->last_loss);
 
   const uint64_t last = std::max(loop->last_sequence, committer.last_seq);

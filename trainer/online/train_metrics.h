@@ -61,7 +61,15 @@ class TrainMetrics {
   std::array<prometheus::Counter*, kNumRejectReasons> rejected_{};
 
   std::mutex mu_;  // guards the feeds and the labelled families below
-  TotalFeed accepted_, duplicates_, trained_, passed_, failed_;
+  TotalFeed accepted_, duplicates_, trained_, passed_, failed_, skipped_;
+  TotalFeed refits_done_, refits_failed_;
+  prometheus::Gauge* refit_running_ = nullptr;
+  prometheus::Gauge* refit_seconds_ = nullptr;
+  prometheus::Gauge* refit_coverage_ = nullptr;
+  prometheus::Gauge* config_pending_ = nullptr;
+  prometheus::Family<prometheus::Gauge>* config_family_ = nullptr;
+  prometheus::Gauge* config_ = nullptr;
+  std::string config_text_;
   TotalFeed samples_;  // labelled by objective, attached on the first Refresh with a loop
   prometheus::Family<prometheus::Counter>* samples_family_ = nullptr;
   prometheus::Family<prometheus::Gauge>* loss_family_ = nullptr;

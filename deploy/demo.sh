@@ -102,9 +102,11 @@ sleep 1  # one catch-up interval of plumb-serve, so it serves that version
 "$QUERY" status --target "$TRAIN_ADDR"
 "$QUERY" versions --target "$TRAIN_ADDR"
 
-say "For contrast: an offline BPR model of the same borrowings"
+say "For contrast: offline fits of the same borrowings, CPR (what the trainer runs) and plain BPR"
+"$PLUMB" fit --events "$DEMO/world/events.csv" --db "$DEMO/cpr-db" --objective cpr --dim 32 \
+  --epochs 20 --holdout 0.02 2>"$DEMO/cpr-fit.log"
 "$PLUMB" fit --events "$DEMO/world/events.csv" --db "$DEMO/bpr-db" --objective bpr --dim 32 \
-  --epochs 20 2>"$DEMO/bpr-fit.log"
+  --epochs 20 --holdout 0.02 2>"$DEMO/bpr-fit.log"
 
 MEMBERS=$(awk -F, 'NR>1 {print $1}' "$DEMO/world/events.csv" | sort | uniq -c | sort -rn \
   | awk 'NR==40 || NR==400 || NR==1200 {print $2}')
@@ -126,9 +128,11 @@ say "Exposure gauges from http://$SERVE_METRICS/metrics"
 curl -s "http://$SERVE_METRICS/metrics" | grep -E '^plumb_(exposure|interaction)_' || true
 
 say "Evaluated on the ground-truth test (members' true tastes, not what they were shown)"
-echo "-- the online CPR version:"
+echo "-- the online CPR version (streamed into plumb-train):"
 "$PLUMB" eval --db "$DEMO/db" --test "$DEMO/world/test.csv" --k 20
-echo "-- the offline BPR version:"
+echo "-- an offline CPR fit of the same borrowings:"
+"$PLUMB" eval --db "$DEMO/cpr-db" --test "$DEMO/world/test.csv" --k 20
+echo "-- an offline BPR fit of the same borrowings:"
 "$PLUMB" eval --db "$DEMO/bpr-db" --test "$DEMO/world/test.csv" --k 20
 
 say "Done in $(( $(date +%s) - started )) s"

@@ -47,6 +47,8 @@ WORLDS = {
                         drift="tastes", drift_strength=0.8, order="time", dim=32),
     "large-mild": dict(users=20000, items=6000, interactions=400000, zipf=0.6,
                        arrival_span=0.5, order="time", dim=64),
+    "dense-small": dict(users=1000, items=400, interactions=60000, zipf=0.9,
+                        arrival_span=0.2, order="bursty", dim=16),
 }
 DEFAULT_WORLDS = ["strong-time", "mild-shuffled", "strong-bursty", "popularity-drift",
                   "tastes-move"]

@@ -391,5 +391,72 @@ TEST_F(OnlineLoopTest, PausedAutoActivationKeepsTheActiveVersion) {
   EXPECT_EQ(value, "0");
 }
 
+// A rollback holds: after an operator activates an older version, the next candidates (which
+// pass the gate) are kept but not activated, status says why, and a restart keeps it so; only
+// turning automatic activation back on lets the next candidate take over.
+TEST_F(OnlineLoopTest, RollbackHoldsUntilAutoActivationIsTurnedBackOn) {
+  std::unique_ptr<OnlineLoop> loop;
+  ASSERT_TRUE(OnlineLoop::Create(store_.get(), Options(), &loop).ok());
+  loop->Start();
+  Append(0, 6000);
+  loop->NotifyAppended();
+  WaitIdle(*loop, *store_);
+  const uint64_t v1 = PublishAndWait(*loop, *store_);
+  Append(6000, 12000);
+  loop->NotifyAppended();
+  WaitIdle(*loop, *store_);
+  uint64_t newest = 0;
+  ASSERT_TRUE(store_->GetActiveVersion(&newest).ok());
+  ASSERT_GT(newest, v1);
+  uint64_t previous = 0;
+  ASSERT_TRUE(loop->Activate(v1, &previous).ok());  // the operator rolls back
+  EXPECT_FALSE(loop->status().auto_activate);
+  EXPECT_NE(loop->status().auto_activate_reason.find("activated by request"), std::string::npos)
+      << loop->status().auto_activate_reason;
+  Append(12000, 18000);
+  loop->NotifyAppended();
+  WaitIdle(*loop, *store_);
+  const uint64_t later = PublishAndWait(*loop, *store_);
+  ASSERT_GT(later, newest);
+  uint64_t active = 0;
+  ASSERT_TRUE(store_->GetActiveVersion(&active).ok());
+  EXPECT_EQ(active, v1) << "the rollback held against later candidates";
+  loop->Stop();
+  loop.reset();
+
+  ASSERT_TRUE(OnlineLoop::Create(store_.get(), Options(), &loop).ok());
+  EXPECT_FALSE(loop->status().auto_activate) << "the pause survives a restart";
+  EXPECT_NE(loop->status().auto_activate_reason.find("activated by request"), std::string::npos);
+  ASSERT_TRUE(loop->SetAutoActivate(true).ok());
+  EXPECT_TRUE(loop->status().auto_activate_reason.empty());
+  loop->Start();
+  const uint64_t resumed = PublishAndWait(*loop, *store_);
+  ASSERT_TRUE(store_->GetActiveVersion(&active).ok());
+  EXPECT_EQ(active, resumed);
+  loop->Stop();
+}
+
+// Skipped is not passed: the first candidate (nothing to compare with) counts as skipped, and
+// with require_gate it is kept but not activated.
+TEST_F(OnlineLoopTest, SkippedCandidatesAreCountedAsSkippedAndCanBeRefused) {
+  OnlineOptions o = Options();
+  o.require_gate = true;
+  std::unique_ptr<OnlineLoop> loop;
+  ASSERT_TRUE(OnlineLoop::Create(store_.get(), o, &loop).ok());
+  loop->Start();
+  Append(0, 5000);
+  loop->NotifyAppended();
+  WaitCaughtUp(*loop, *store_, 0.0);
+  const uint64_t v = PublishAndWait(*loop, *store_);
+  ASSERT_GT(v, 0u);
+  loop->Stop();
+  const OnlineStatus st = loop->status();
+  EXPECT_GE(st.candidates_skipped, 1u);
+  EXPECT_EQ(st.candidates_passed, 0u);
+  uint64_t active = 0;
+  ASSERT_TRUE(store_->GetActiveVersion(&active).ok());
+  EXPECT_EQ(active, 0u) << "no version passed a real comparison, so none was activated";
+}
+
 }  // namespace
 }  // namespace plumb::online

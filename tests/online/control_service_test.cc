@@ -45,6 +45,8 @@ class ControlServiceTest : public ::testing::Test {
     options.min_train_pairs = 50;
     options.publish_every_events = 1'000'000'000;  // publish only when asked
     options.publish_every_seconds = 1e6;
+    // Refits publish on their own when they land; most tests here count versions exactly.
+    options.refit = refit_;
     ASSERT_TRUE(OnlineLoop::Create(store_.get(), options, &loop_).ok());
     loop_->Start();
     log_ = std::make_unique<StoreEventLog>(store_.get());
@@ -111,6 +113,7 @@ class ControlServiceTest : public ::testing::Test {
     return control_stub_->Activate(&context, request, response);
   }
 
+  bool refit_ = false;
   ScratchDir dir_;
   std::unique_ptr<BearerAuth> auth_;
   std::unique_ptr<store::Store> store_;
@@ -186,6 +189,67 @@ TEST_F(ControlServiceTest, StatusVersionsPromotionAndRollback) {
   EXPECT_EQ(activated.previous_version(), newest.version());
   EXPECT_EQ(Status().active_version(), v1);
   EXPECT_FALSE(Status().auto_activate());
+  EXPECT_NE(Status().auto_activate_reason().find("activated by request"), std::string::npos);
+}
+
+class ControlServiceWithRefitsTest : public ControlServiceTest {
+ protected:
+  void SetUp() override {
+    refit_ = true;
+    ControlServiceTest::SetUp();
+  }
+};
+
+// Retrain starts a rebuild from the whole log, reported in the status, and its result is
+// published as a candidate whose training configuration says it covers every pair; versions
+// and status carry the configuration. A reason over 200 bytes or with a control character is
+// INVALID_ARGUMENT.
+TEST_F(ControlServiceWithRefitsTest, RetrainRebuildsAndVersionsSayHowTheyWereTrained) {
+  Publish(0, 3'000);
+  ASSERT_TRUE(WaitForVersions(1));
+  plumb::v1::TrainerStatus status = Status();
+  EXPECT_EQ(status.training().origin(), "online");
+  EXPECT_EQ(status.training().objective(), "cpr");
+  EXPECT_EQ(status.training().dim(), 8u);
+  EXPECT_EQ(status.training().beta(), 3.0);
+  EXPECT_EQ(status.training().epochs(), 20u);
+  const uint64_t done_before = [&] {
+    // Let refits triggered by the first events settle.
+    for (int i = 0; i < 300 && !Status().idle(); ++i) {
+      std::this_thread::sleep_for(std::chrono::milliseconds(20));
+    }
+    return Status().refits_completed();
+  }();
+  const int kept = Versions().versions_size();
+
+  plumb::v1::TrainerStatus after;
+  {
+    grpc::ClientContext context;
+    plumb::v1::RetrainRequest request;
+    request.set_reason("new tools arrived");
+    ASSERT_TRUE(control_stub_->Retrain(&context, request, &after).ok());
+  }
+  const auto until = std::chrono::steady_clock::now() + std::chrono::seconds(60);
+  while (Status().refits_completed() <= done_before && std::chrono::steady_clock::now() < until) {
+    std::this_thread::sleep_for(std::chrono::milliseconds(20));
+  }
+  status = Status();
+  EXPECT_GT(status.refits_completed(), done_before);
+  EXPECT_NE(status.refit_reason().find("new tools arrived"), std::string::npos)
+      << status.refit_reason();
+  ASSERT_TRUE(WaitForVersions(kept + 1));
+  const plumb::v1::VersionInfo newest = Versions().versions(0);
+  EXPECT_EQ(newest.training().origin(), "online");
+  EXPECT_EQ(newest.training().refit_pairs(), newest.num_interactions());
+  EXPECT_EQ(status.refit_pairs(), status.train_pairs());
+
+  for (const std::string& bad : {std::string(201, 'x'), std::string("line\nbreak")}) {
+    grpc::ClientContext context;
+    plumb::v1::RetrainRequest request;
+    request.set_reason(bad);
+    EXPECT_EQ(control_stub_->Retrain(&context, request, &after).error_code(),
+              grpc::StatusCode::INVALID_ARGUMENT);
+  }
 }
 
 class ControlServiceWithTokenTest : public ControlServiceTest {
@@ -224,6 +288,11 @@ TEST_F(ControlServiceWithTokenTest, EveryControlCallNeedsTheToken) {
     EXPECT_EQ(control_stub_->SetAutoActivate(&c, set_auto, &status).error_code(),
               grpc::StatusCode::UNAUTHENTICATED);
     EXPECT_TRUE(loop_->status().auto_activate);  // unchanged
+  }
+  {
+    grpc::ClientContext c;
+    EXPECT_EQ(control_stub_->Retrain(&c, {}, &status).error_code(),
+              grpc::StatusCode::UNAUTHENTICATED);
   }
   {
     grpc::ClientContext c;

@@ -110,6 +110,12 @@ out=$("$QUERY" auto-activate maybe --target "$train" --token-file "$tmp/token" 2
 check "auto-activate maybe: usage error, exit 2" '[ $rc -eq 2 ]'
 out=$("$QUERY" auto-activate on --target "$train" --token-file "$tmp/token" 2>&1); rc=$?
 check "auto-activate on" '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "^auto-activate: *on"'
+check "versions say how they were trained" 'grep -qE "^ +trained: cpr k=2 beta=3 dim=" "$tmp/versions.txt"'
+check "status shows the training configuration and refits" \
+  'grep -qE "^training: *cpr k=2 beta=3" "$tmp/status.txt" && grep -qE "^refits: *[0-9]+ done" "$tmp/status.txt"'
+out=$("$QUERY" retrain --target "$train" --token-file "$tmp/token" --reason "tools test" 2>&1); rc=$?
+check "retrain: exit 0 and says what it does [$out]" \
+  '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "rebuild from the whole event log requested"'
 
 # ---- serving while events stream in ---------------------------------------------------------------------
 "$SERVE" --db "$tmp/db" --listen 127.0.0.1:0 --metrics "" 2>"$tmp/serve.log" &

@@ -17,14 +17,15 @@
 
 #include "grpc/health/v1/health.grpc.pb.h"
 #include "plumb/v1/control.grpc.pb.h"
+#include "cli/item_names.h"
 #include "plumb/v1/ranker.grpc.pb.h"
 #include "tools/client_channel.h"
-#include "tools/item_names.h"
 
 namespace {
 
 using namespace plumb::tools;
 using plumb::Status;
+using plumb::cli::ItemNames;
 
 struct Connection {
   explicit Connection(std::string target) { spec.target = std::move(target); }

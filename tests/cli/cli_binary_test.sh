@@ -22,6 +22,20 @@ printf 'user,item\nm1,t1\nm2,\n' > "$tmp/bad.csv"
 out=$("$PLUMB" fit --events "$tmp/bad.csv" --db "$tmp/db" 2>&1); rc=$?
 check "bad csv: non-zero exit" '[ $rc -ne 0 ]'
 check "bad csv: names file and line" 'printf "%s" "$out" | grep -q "bad.csv:3: item is empty"'
+# Spreadsheets' "CSV UTF-8" starts with a byte-order mark: import, fit, eval and top --names
+# take it as plain CSV.
+"$PLUMB" synth --out "$tmp/w" --users 200 --items 80 --interactions 2000 --seed 3 >/dev/null 2>&1 \
+  || { echo "FAIL: synth for the byte-order-mark checks"; fail=1; }
+for f in events test items; do printf '\xEF\xBB\xBF' > "$tmp/w/bom_$f.csv"; cat "$tmp/w/$f.csv" >> "$tmp/w/bom_$f.csv"; done
+check "import with a byte-order mark" '"$PLUMB" import --events "$tmp/w/bom_events.csv" --db "$tmp/bomdb" >/dev/null 2>&1'
+check "fit with a byte-order mark" '"$PLUMB" fit --events "$tmp/w/bom_events.csv" --db "$tmp/bomfit" --dim 8 --epochs 1 >/dev/null 2>&1'
+check "eval with a byte-order mark" '"$PLUMB" eval --db "$tmp/bomfit" --test "$tmp/w/bom_test.csv" --k 5 >/dev/null 2>&1'
+user=$(awk -F, 'NR==2 {print $1}' "$tmp/w/events.csv")
+check "top --names with a byte-order mark shows names" \
+  '"$PLUMB" top --db "$tmp/bomfit" --user "$user" --count 3 --names "$tmp/w/bom_items.csv" | grep -q "#"'
+tr , '\t' < "$tmp/w/events.csv" > "$tmp/w/events.tsv"
+out=$("$PLUMB" import --events "$tmp/w/events.tsv" --db "$tmp/tsvdb" 2>&1); rc=$?
+check "tab-separated file: non-zero exit, told to use commas" '[ $rc -ne 0 ] && printf "%s" "$out" | grep -q "use commas"'
 out=$("$PLUMB" fit --db "$tmp/db2" --objective nope 2>&1); rc=$?
 check "unknown objective refused" '[ $rc -ne 0 ]'
 exit $fail

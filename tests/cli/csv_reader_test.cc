@@ -1,5 +1,7 @@
 #include "cli/csv_reader.h"
 
+#include "cli/item_names.h"
+
 #include <filesystem>
 #include <fstream>
 
@@ -73,6 +75,51 @@ TEST(ReadEventCsv, HeaderMustNameUserAndItem) {
   Status s = ReadEventCsv(path, {}, &ev, &rep);
   ASSERT_FALSE(s.ok());
   EXPECT_NE(s.message().find("'user' and 'item'"), std::string::npos);
+}
+
+// A spreadsheet's "CSV UTF-8" starts with the byte-order mark EF BB BF (the encoding of
+// U+FEFF in UTF-8, RFC 3629 section 6); it is not part of the first column's name.
+TEST(ReadEventCsv, AByteOrderMarkBeforeTheHeaderIsIgnored) {
+  const std::string path =
+      WriteTemp("bom.csv", "\xEF\xBB\xBFuser,item,ts\r\nm1,t1,5\r\nm2,t2,6\r\n");
+  std::vector<CsvEvent> ev;
+  CsvReadReport rep;
+  Status s = ReadEventCsv(path, {}, &ev, &rep);
+  ASSERT_TRUE(s.ok()) << s.ToString();
+  ASSERT_EQ(ev.size(), 2u);
+  EXPECT_EQ(ev[0].user, "m1");
+  EXPECT_EQ(ev[1].timestamp_ms, 6);
+  // Only a leading mark is removed: one inside a field is data (here, an id with a mark).
+  const std::string inside = WriteTemp("bom_inside.csv", "user,item\n\xEF\xBB\xBFm1,t1\n");
+  ASSERT_TRUE(ReadEventCsv(inside, {}, &ev, &rep).ok());
+  EXPECT_EQ(ev[0].user, "\xEF\xBB\xBFm1");
+}
+
+TEST(ReadEventCsv, ATabOrSemicolonSeparatedFileIsToldToUseCommas) {
+  std::vector<CsvEvent> ev;
+  CsvReadReport rep;
+  Status s = ReadEventCsv(WriteTemp("tabs.tsv", "user\titem\tts\nm1\tt1\t5\n"), {}, &ev, &rep);
+  ASSERT_FALSE(s.ok());
+  EXPECT_NE(s.message().find("separated by tabs"), std::string::npos) << s.message();
+  EXPECT_NE(s.message().find("use commas"), std::string::npos) << s.message();
+  s = ReadEventCsv(WriteTemp("semi.csv", "\xEF\xBB\xBFuser;item\nm1;t1\n"), {}, &ev, &rep);
+  ASSERT_FALSE(s.ok());
+  EXPECT_NE(s.message().find("separated by semicolons"), std::string::npos) << s.message();
+  EXPECT_NE(s.message().find("(got 'user;item')"), std::string::npos) << s.message();
+  // A comma-separated header that lacks a column gets no separator hint.
+  s = ReadEventCsv(WriteTemp("hdr2.csv", "member,tool\nm1,t1\n"), {}, &ev, &rep);
+  EXPECT_EQ(s.message().find("use commas"), std::string::npos) << s.message();
+}
+
+TEST(ItemNames, AByteOrderMarkIsIgnoredAndAMissingNameColumnIsAnError) {
+  ItemNames names;
+  Status s = ItemNames::Read(WriteTemp("names_bom.csv", "\xEF\xBB\xBFitem,name\nt1,spade\n"),
+                             &names);
+  ASSERT_TRUE(s.ok()) << s.ToString();
+  EXPECT_EQ(names.Find("t1"), "spade");
+  s = ItemNames::Read(WriteTemp("names_none.csv", "item,label\nt1,spade\n"), &names);
+  ASSERT_FALSE(s.ok());
+  EXPECT_NE(s.message().find("'item' and 'name'"), std::string::npos) << s.message();
 }
 
 TEST(ReadEventCsv, WeightOutOfRangeIsRejected) {

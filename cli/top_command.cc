@@ -46,8 +46,7 @@ Status RunTop(const TopArgs& args) {
     for (const ScoredIndex& s : selector.SortedResult()) {
       const std::string& id = m.item_ids[s.index];
       std::printf("  %2d. %-8s %-36s %8.4f  (borrowed by %u)\n", ++rank, id.c_str(),
-                  names.Find(id).c_str(), s.score,
-                  m.train.item_degree(s.index));
+                  names.Find(id).c_str(), s.score, m.train.item_degree(s.index));
     }
   }
   return Status::Ok();

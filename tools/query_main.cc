@@ -15,9 +15,9 @@
 #include <memory>
 #include <sstream>
 
+#include "cli/item_names.h"
 #include "grpc/health/v1/health.grpc.pb.h"
 #include "plumb/v1/control.grpc.pb.h"
-#include "cli/item_names.h"
 #include "plumb/v1/ranker.grpc.pb.h"
 #include "tools/client_channel.h"
 

@@ -12,8 +12,11 @@ PY=/usr/bin/python3; [ -x $PY ] || PY=python3
 tmp=$(mktemp -d)
 pids=
 cleanup() {
-  for p in $pids; do kill -TERM "$p" 2>/dev/null; done; sleep 0.5
-  for p in $pids; do kill -KILL "$p" 2>/dev/null; done
+  for p in $pids; do kill -TERM "$p" 2>/dev/null; done
+  for p in $pids; do  # a clean stop removes plumb-serve's scratch directory
+    for _ in $(seq 50); do kill -0 "$p" 2>/dev/null || break; sleep 0.1; done
+    kill -KILL "$p" 2>/dev/null
+  done
   rm -rf "$tmp"
 }
 trap cleanup EXIT

@@ -4,6 +4,7 @@
 #include <string>
 #include <vector>
 
+#include "rpc/checked_methods.h"
 #include "store/store.h"
 #include "trainer/online/online_loop.h"
 
@@ -51,8 +52,38 @@ grpc::Status ToGrpcStatus(const Status& status, const std::string& what) {
 }
 
 ControlService::ControlService(store::Store* store, OnlineLoop* loop,
-                               const CallAdmission& admission)
-    : store_(store), loop_(loop), admission_(admission) {}
+                               const CallAdmission& admission, TrainMetrics* metrics)
+    : store_(store), loop_(loop), admission_(admission) {
+  using namespace plumb::v1;
+  auto observer = [metrics](const char* method) -> rpc::CallObserver {
+    if (metrics == nullptr) return {};
+    return [metrics, method](const grpc::Status& status, bool undecodable, double) {
+      if (undecodable) metrics->CountUndecodable(method);
+      metrics->CountCall(method, rpc::GrpcCodeName(status.error_code()));
+    };
+  };
+  const std::string service = ModelControl::service_full_name();
+  MarkMethodStreamed(rpc::MethodIndex(service, "ListVersions"),
+                     rpc::CheckedUnary<ListVersionsRequest, ListVersionsResponse>(
+                         [this](grpc::ServerContext* c, const ListVersionsRequest* q,
+                                ListVersionsResponse* r) { return ListVersions(c, q, r); },
+                         observer("ListVersions")));
+  MarkMethodStreamed(rpc::MethodIndex(service, "GetStatus"),
+                     rpc::CheckedUnary<GetStatusRequest, TrainerStatus>(
+                         [this](grpc::ServerContext* c, const GetStatusRequest* q,
+                                TrainerStatus* r) { return GetStatus(c, q, r); },
+                         observer("GetStatus")));
+  MarkMethodStreamed(rpc::MethodIndex(service, "Activate"),
+                     rpc::CheckedUnary<ActivateRequest, ActivateResponse>(
+                         [this](grpc::ServerContext* c, const ActivateRequest* q,
+                                ActivateResponse* r) { return Activate(c, q, r); },
+                         observer("Activate")));
+  MarkMethodStreamed(rpc::MethodIndex(service, "SetAutoActivate"),
+                     rpc::CheckedUnary<SetAutoActivateRequest, TrainerStatus>(
+                         [this](grpc::ServerContext* c, const SetAutoActivateRequest* q,
+                                TrainerStatus* r) { return SetAutoActivate(c, q, r); },
+                         observer("SetAutoActivate")));
+}
 
 grpc::Status ControlService::ListVersions(grpc::ServerContext* context,
                                           const plumb::v1::ListVersionsRequest*,

@@ -176,7 +176,7 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
   InflightCalls inflight;
   const CallAdmission admission{auth.get(), &inflight};
   IngestService ingest(&committer, &metrics, admission, limits);
-  ControlService control(store.get(), loop.get(), admission);
+  ControlService control(store.get(), loop.get(), admission, &metrics);
 
   grpc::EnableDefaultHealthCheckService(true);
   grpc::reflection::InitProtoReflectionServerBuilderPlugin();

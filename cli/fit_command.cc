@@ -6,6 +6,7 @@
 #include "cli/commands.h"
 #include "cli/csv_reader.h"
 #include "cli/store_access.h"
+#include "core/duration.h"
 #include "trainer/online/training_state.h"
 
 namespace plumb::cli {
@@ -90,6 +91,9 @@ Status RunFit(const FitArgs& args) {
   store::StoreOptions so;
   so.sync = args.import.sync;
   so.keep_versions = args.keep_versions;
+  if (Status s = ParseDuration(args.keep_versions_for, &so.keep_versions_for_ms); !s.ok()) {
+    return Status::InvalidArgument("--keep-versions-for: " + s.message());
+  }
   std::unique_ptr<store::Store> store;
   PLUMB_RETURN_IF_ERROR(OpenForWrite(args.import.db, so, &store));
   if (!args.import.events.empty()) PLUMB_RETURN_IF_ERROR(ImportInto(store.get(), args.import));

@@ -1,7 +1,7 @@
 // plumb-query: one call to a running plumb process, answer printed for people.
 //
 //   plumb-serve (Ranker, health):  recommend, similar, rank, health
-//   plumb-train (ModelControl):    versions, status, activate, auto-activate
+//   plumb-train (ModelControl):    versions, status, activate, pin, unpin, auto-activate
 //
 // Exit status: 0 success (health: only when SERVING); 1 the call failed, with one line
 // "plumb-query: <STATUS_CODE>: <message>" on stderr; 2 usage error.
@@ -222,19 +222,20 @@ int Versions(const Connection& c) {
     std::printf("no versions kept\n");
     return 0;
   }
-  std::printf("%-2s %8s  %-20s  %-9s %10s %8s %8s %5s  %-14s %-8s %s\n", "", "version",
+  std::printf("%-2s %8s  %-20s  %-9s %10s %8s %8s %5s  %-14s %-8s %-6s %s\n", "", "version",
               "created (UTC)", "objective", "events", "users", "items", "dim", "val. recall",
-              "gate", "gate reason");
+              "gate", "pinned", "gate reason");
   for (const plumb::v1::VersionInfo& v : response.versions()) {
     char recall[32] = "-";
     if (std::isfinite(v.validation_recall()) && v.validation_k() > 0) {
       std::snprintf(recall, sizeof recall, "%.4f @%u", v.validation_recall(), v.validation_k());
     }
-    std::printf("%-2s %8llu  %-20s  %-9s %10llu %8u %8u %5u  %-14s %-8s %s\n",
+    std::printf("%-2s %8llu  %-20s  %-9s %10llu %8u %8u %5u  %-14s %-8s %-6s %s\n",
                 v.active() ? "*" : "", static_cast<unsigned long long>(v.version()),
                 FormatTime(v.created_ms()).c_str(), v.objective().c_str(),
                 static_cast<unsigned long long>(v.events_seen()), v.num_users(), v.num_items(),
-                v.dim(), recall, GateName(v.gate()), v.gate_reason().c_str());
+                v.dim(), recall, GateName(v.gate()), v.pinned() ? "yes" : "-",
+                v.gate_reason().c_str());
   }
   return 0;
 }
@@ -264,6 +265,22 @@ int Activate(const Connection& c, uint64_t version) {
   std::printf("active version %llu (was %llu)\n",
               static_cast<unsigned long long>(response.active_version()),
               static_cast<unsigned long long>(response.previous_version()));
+  return 0;
+}
+
+int Pin(const Connection& c, uint64_t version, bool pinned) {
+  std::shared_ptr<grpc::Channel> channel;
+  grpc::ClientContext context;
+  if (Status s = Prepare(c, &channel, &context); !s.ok()) return Fail(s.message());
+  plumb::v1::SetPinnedRequest request;
+  request.set_version(version);
+  request.set_pinned(pinned);
+  plumb::v1::VersionInfo response;
+  const grpc::Status status =
+      plumb::v1::ModelControl::NewStub(channel)->SetPinned(&context, request, &response);
+  if (!status.ok()) return Fail(status);
+  std::printf("version %llu is %s\n", static_cast<unsigned long long>(response.version()),
+              response.pinned() ? "pinned: never pruned" : "unpinned: pruned by the retention rules");
   return 0;
 }
 
@@ -373,6 +390,16 @@ int main(int argc, char** argv) {
   activate->add_option("--version", version, "Version number")
       ->required()
       ->check(CLI::PositiveNumber);
+  uint64_t pin_version = 0;
+  CLI::App* pin = app.add_subcommand(
+      "pin", "Pin a kept version: never pruned, whatever its age (ModelControl/SetPinned)");
+  AddConnection(pin, &control, true);
+  pin->add_option("--version", pin_version, "Version number")->required()->check(CLI::PositiveNumber);
+  CLI::App* unpin = app.add_subcommand("unpin", "Unpin a version: the retention rules apply again");
+  AddConnection(unpin, &control, true);
+  unpin->add_option("--version", pin_version, "Version number")
+      ->required()
+      ->check(CLI::PositiveNumber);
   std::string setting;
   CLI::App* auto_activate = app.add_subcommand(
       "auto-activate", "Turn automatic activation of gate-passing versions on or off");
@@ -395,5 +422,7 @@ int main(int argc, char** argv) {
   if (*versions) return Versions(control);
   if (*status) return TrainerStatus(control);
   if (*activate) return Activate(control, version);
+  if (*pin) return Pin(control, pin_version, true);
+  if (*unpin) return Pin(control, pin_version, false);
   return AutoActivate(control, setting);
 }

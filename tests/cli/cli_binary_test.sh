@@ -8,7 +8,7 @@ check() { if ! eval "$2"; then echo "FAIL: $1"; fail=1; else echo "ok: $1"; fi; 
 
 check "top-level --help lists the commands" \
   '"$PLUMB" --help | grep -q "synth" && "$PLUMB" --help | grep -q "compare"'
-for cmd in synth import fit eval compare versions activate inspect export top; do
+for cmd in synth import fit eval compare versions activate pin unpin inspect export top; do
   check "$cmd --help" '"$PLUMB" $cmd --help >/dev/null'
 done
 check "fit --help shows defaults" '"$PLUMB" fit --help | grep -q "beta.*3"'
@@ -33,6 +33,13 @@ check "eval with a byte-order mark" '"$PLUMB" eval --db "$tmp/bomfit" --test "$t
 user=$(awk -F, 'NR==2 {print $1}' "$tmp/w/events.csv")
 check "top --names with a byte-order mark shows names" \
   '"$PLUMB" top --db "$tmp/bomfit" --user "$user" --count 3 --names "$tmp/w/bom_items.csv" | grep -q "#"'
+out=$("$PLUMB" pin --db "$tmp/bomfit" --version 1 2>&1); rc=$?
+check "pin: exit 0" '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "version 1 is pinned"'
+check "versions marks the active pinned version '*p'" '"$PLUMB" versions --db "$tmp/bomfit" | grep -qE "^\*p +1 "'
+check "unpin" '"$PLUMB" unpin --db "$tmp/bomfit" --version 1 >/dev/null && "$PLUMB" versions --db "$tmp/bomfit" | grep -qE "^\* +1 "'
+out=$("$PLUMB" pin --db "$tmp/bomfit" --version 9 2>&1); rc=$?
+check "pin of a version not kept: non-zero exit, says so" '[ $rc -ne 0 ] && printf "%s" "$out" | grep -q "version 9 is not stored"'
+check "inspect says what the versions take" '"$PLUMB" inspect --db "$tmp/bomfit" | grep -q "MB before compression"'
 tr , '\t' < "$tmp/w/events.csv" > "$tmp/w/events.tsv"
 out=$("$PLUMB" import --events "$tmp/w/events.tsv" --db "$tmp/tsvdb" 2>&1); rc=$?
 check "tab-separated file: non-zero exit, told to use commas" '[ $rc -ne 0 ] && printf "%s" "$out" | grep -q "use commas"'

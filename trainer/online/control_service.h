@@ -38,6 +38,9 @@ class ControlService final : public plumb::v1::ModelControl::Service {
   grpc::Status SetAutoActivate(grpc::ServerContext* context,
                                const plumb::v1::SetAutoActivateRequest* request,
                                plumb::v1::TrainerStatus* response) override;
+  // NOT_FOUND for a version that is not kept, INVALID_ARGUMENT for version 0.
+  grpc::Status SetPinned(grpc::ServerContext* context, const plumb::v1::SetPinnedRequest* request,
+                         plumb::v1::VersionInfo* response) override;
 
  private:
   void FillStatus(plumb::v1::TrainerStatus* out) const;

@@ -67,6 +67,7 @@ struct TopArgs {
   uint32_t count = 10;
   uint64_t version = 0;       // 0: the active one
   std::string names;          // optional `item,name` CSV
+  bool include_seen = false;  // default: the user's training items are left out
 };
 
 struct AdminArgs {

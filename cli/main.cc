@@ -138,6 +138,8 @@ int main(int argc, char** argv) {
   top_cmd->add_option("--version", top.version, "version (default: the active one)");
   top_cmd->add_option("--names", top.names, "CSV `item,name` to show item names")
       ->check(CLI::ExistingFile);
+  top_cmd->add_flag("--include-seen", top.include_seen,
+                    "also list items the user already had (default: left out)");
 
   CLI11_PARSE(app, argc, argv);
 

@@ -34,7 +34,7 @@ Status RunTop(const TopArgs& args) {
     const uint32_t u = it->second;
     selector.Reset(args.count);
     Exclusions ex;
-    ex.sorted_rows = m.train.items_of(u);
+    if (!args.include_seen) ex.sorted_rows = m.train.items_of(u);
     ScanOutcome outcome;
     PLUMB_RETURN_IF_ERROR(top_k_by_dot(m.model.item_view(),
                                        std::span<const float>(m.model.user_row(u), m.model.dim()),

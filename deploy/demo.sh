@@ -135,16 +135,14 @@ MEMBERS=$(awk -F, 'NR>1 {print $1}' "$DEMO/world/events.csv" | sort | uniq -c | 
 for m in $MEMBERS; do
   say "Member $m"
   echo "-- served by plumb-serve (online CPR):"
-  "$QUERY" recommend --target "$SERVE_ADDR" --user "$m" --count 10 --exclude-seen \
-    --names "$DEMO/world/items.csv"
+  "$QUERY" recommend --target "$SERVE_ADDR" --user "$m" --count 10 --names "$DEMO/world/items.csv"
   echo "-- the offline BPR model:"
   "$PLUMB" top --db "$DEMO/bpr-db" --user "$m" --count 10 --names "$DEMO/world/items.csv"
 done
 
 say "Sending Recommend traffic for 5 s to fill the exposure window"
 awk -F, 'NR>1 {print $1}' "$DEMO/world/events.csv" | sort -u > "$DEMO/users.txt"
-"$LOAD" --target "$SERVE_ADDR" --users-file "$DEMO/users.txt" --duration 5 --concurrency 4 \
-  --count 20 --exclude-seen
+"$LOAD" --target "$SERVE_ADDR" --users-file "$DEMO/users.txt" --duration 5 --concurrency 4 --count 20
 
 say "Exposure gauges from http://$SERVE_METRICS/metrics"
 curl -s "http://$SERVE_METRICS/metrics" | grep -E '^plumb_(exposure|interaction)_' || true

@@ -186,7 +186,7 @@ grpc::Status RankerService::Recommend(grpc::ServerContext* context,
     RecommendQuery query;
     query.user_id = request->user_id();
     query.count = request->count();
-    query.exclude_seen = request->exclude_seen();
+    query.exclude_seen = !request->include_seen();
     query.exclude_item_ids = Views(request->exclude_item_ids(), 0);
     query.recent_item_ids = Views(request->recent_item_ids(), 1);
     query.unknown_user = request->unknown_user() == plumb::v1::UNKNOWN_USER_MOST_INTERACTED

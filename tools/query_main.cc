@@ -60,7 +60,7 @@ struct ListArgs {
   Connection conn{"127.0.0.1:7400"};
   std::string id;  // user or item
   uint32_t count = 10;
-  bool exclude_seen = false;
+  bool include_seen = false;
   std::vector<std::string> recent, exclude, candidates;
   std::string names_file;
   bool fallback = false;
@@ -94,7 +94,7 @@ int Recommend(const ListArgs& a) {
   plumb::v1::RecommendRequest request;
   request.set_user_id(a.id);
   request.set_count(a.count);
-  request.set_exclude_seen(a.exclude_seen);
+  request.set_include_seen(a.include_seen);
   for (const auto& item : a.recent) request.add_recent_item_ids(item);
   for (const auto& item : a.exclude) request.add_exclude_item_ids(item);
   if (a.fallback) request.set_unknown_user(plumb::v1::UNKNOWN_USER_MOST_INTERACTED);
@@ -334,7 +334,8 @@ int main(int argc, char** argv) {
   AddConnection(recommend, &rec.conn, false);
   recommend->add_option("--user", rec.id, "External user id")->required();
   recommend->add_option("--count", rec.count, "How many items")->check(CLI::Range(1u, 1000000u));
-  recommend->add_flag("--exclude-seen", rec.exclude_seen, "Leave out items the user already had");
+  recommend->add_flag("--include-seen", rec.include_seen,
+                      "Also return items the user already had (default: left out)");
   recommend
       ->add_option("--recent", rec.recent,
                    "For a user the model does not know: recent items, most recent first")

@@ -63,7 +63,7 @@ def main():
     version = None
     for user in users:
         out = subprocess.run([query, "recommend", "--target", serve, "--user", user,
-                              "--count", str(count), "--exclude-seen"],
+                              "--count", str(count)],
                              capture_output=True, text=True, check=True).stdout
         got = re.findall(r"^\s*\d+\s+(\S+)\s", out, re.M)
         assert len(got) == count, out

@@ -67,10 +67,12 @@ TrainMetrics::TrainMetrics() : registry_(std::make_shared<prometheus::Registry>(
                       .Register(r);
   auto& candidates = BuildCounter()
                          .Name("plumb_candidate_versions_total")
-                         .Help("Candidate versions built, by gate outcome")
+                         .Help("Candidate versions built, by gate outcome (passed, failed, "
+                               "skipped: not gated, e.g. nothing to compare with)")
                          .Register(r);
   passed_.counter = &candidates.Add({{"outcome", "passed"}});
   failed_.counter = &candidates.Add({{"outcome", "failed"}});
+  skipped_.counter = &candidates.Add({{"outcome", "skipped"}});
   lag_events_ = &BuildGauge()
                      .Name("plumb_trainer_lag_events")
                      .Help("Last log sequence minus trained sequence")
@@ -83,10 +85,11 @@ TrainMetrics::TrainMetrics() : registry_(std::make_shared<prometheus::Registry>(
                       .Add({});
   auto& recall = BuildGauge()
                      .Name("plumb_validation_recall_ratio")
-                     .Help("Recall@K on the held-out validation sample")
+                     .Help("Recall@K on the held-out validation sample, of the active version "
+                           "and of the last candidate (label role)")
                      .Register(r);
-  recall_active_ = &recall.Add({{"version", "active"}});
-  recall_candidate_ = &recall.Add({{"version", "candidate"}});
+  recall_active_ = &recall.Add({{"role", "active"}});
+  recall_candidate_ = &recall.Add({{"role", "candidate"}});
   active_version_ = &BuildGauge()
                          .Name("plumb_trainer_active_version")
                          .Help("Active embedding version (0 = none)")
@@ -149,6 +152,7 @@ void TrainMetrics::Refresh(const CommitterStats& committer, const OnlineStatus* 
   trained_.Update(loop->events_trained);
   passed_.Update(loop->candidates_passed);
   failed_.Update(loop->candidates_failed);
+  skipped_.Update(loop->candidates_skipped);
   loss_->Set(loop->last_loss);
 
   const uint64_t last = std::max(loop->last_sequence, committer.last_seq);

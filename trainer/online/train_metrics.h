@@ -72,7 +72,7 @@ class TrainMetrics {
   prometheus::Family<prometheus::Counter>* undecodable_ = nullptr;  // thread-safe Add
 
   std::mutex mu_;  // guards the feeds and the labelled families below
-  TotalFeed accepted_, duplicates_, trained_, passed_, failed_;
+  TotalFeed accepted_, duplicates_, trained_, passed_, failed_, skipped_;
   TotalFeed samples_;  // labelled by objective, attached on the first Refresh with a loop
   prometheus::Family<prometheus::Counter>* samples_family_ = nullptr;
   prometheus::Family<prometheus::Gauge>* loss_family_ = nullptr;

@@ -79,7 +79,9 @@ Status RunVersions(const AdminArgs& args) {
 Status RunPin(const AdminArgs& args, bool pinned) {
   if (args.version == 0) return Status::InvalidArgument("--version is required");
   std::unique_ptr<store::Store> store;
-  PLUMB_RETURN_IF_ERROR(OpenForWrite(args.db, store::StoreOptions{}, &store));
+  store::StoreOptions existing;
+  existing.create_if_missing = false;  // activating or pinning never creates a store
+  PLUMB_RETURN_IF_ERROR(OpenForWrite(args.db, existing, &store));
   PLUMB_RETURN_IF_ERROR(store->SetPinned(args.version, pinned));
   std::printf("version %llu is %s\n", static_cast<unsigned long long>(args.version),
               pinned ? "pinned: never pruned" : "unpinned: pruned by the retention rules");
@@ -89,7 +91,9 @@ Status RunPin(const AdminArgs& args, bool pinned) {
 Status RunActivate(const AdminArgs& args) {
   if (args.version == 0) return Status::InvalidArgument("--version is required");
   std::unique_ptr<store::Store> store;
-  PLUMB_RETURN_IF_ERROR(OpenForWrite(args.db, store::StoreOptions{}, &store));
+  store::StoreOptions existing;
+  existing.create_if_missing = false;  // activating or pinning never creates a store
+  PLUMB_RETURN_IF_ERROR(OpenForWrite(args.db, existing, &store));
   uint64_t before = 0;
   PLUMB_RETURN_IF_ERROR(store->GetActiveVersion(&before));
   PLUMB_RETURN_IF_ERROR(store->Activate(args.version));

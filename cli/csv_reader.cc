@@ -124,6 +124,8 @@ Status ReadEventCsv(const std::string& path, const CsvReadOptions& options,
   }
 
   uint64_t line_no = 1;
+  uint64_t timestamps = 0;
+  int64_t max_ts = 0;
   auto fail_or_skip = [&](const std::string& reason) -> Status {
     std::string where = path + ":" + std::to_string(line_no) + ": " + reason;
     if (!options.skip_bad) {
@@ -178,11 +180,13 @@ Status ReadEventCsv(const std::string& path, const CsvReadOptions& options,
       float weight = 0;
       auto [p, ec] = std::from_chars(w->data(), w->data() + w->size(), weight);
       if (ec != std::errc() || p != w->data() + w->size() || !std::isfinite(weight) ||
-          weight <= 0.0f || weight > 1000.0f) {
-        PLUMB_RETURN_IF_ERROR(fail_or_skip("weight '" + *w + "' is not a number in (0, 1000]"));
+          weight < 0.0f || weight > 1000.0f) {
+        PLUMB_RETURN_IF_ERROR(fail_or_skip("weight '" + *w +
+                                           "' is not a number in [0, 1000] (0 means 1)"));
         continue;
       }
-      ev.weight = weight;
+      // One rule with the wire, where an unset weight reads as 0: 0 means the default 1.
+      ev.weight = weight == 0.0f ? 1.0f : weight;
     }
     if (const std::string* e = field(col_event); e) {
       if (e->size() > 128) {
@@ -191,8 +195,19 @@ Status ReadEventCsv(const std::string& path, const CsvReadOptions& options,
       }
       ev.event_id = *e;
     }
+    if (ev.timestamp_ms > 0) {
+      ++timestamps;
+      max_ts = std::max(max_ts, ev.timestamp_ms);
+    }
     out->push_back(std::move(ev));
     ++report->read;
+  }
+  if (timestamps > 0 && max_ts < kPlausibleTimestampMs) {
+    report->warnings.push_back(
+        path + ": every ts is below " + std::to_string(kPlausibleTimestampMs) +
+        " (1973-03-03 in milliseconds; the largest is " + std::to_string(max_ts) +
+        "): are they seconds? ts is read as milliseconds since the epoch, so these events "
+        "are dated 1970; multiply by 1000");
   }
   if (in.bad()) return Status::IoError(path + ": read error after line " + std::to_string(line_no));
   return Status::Ok();

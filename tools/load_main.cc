@@ -170,6 +170,7 @@ int RunReplay(ReplayArgs& a) {
   if (Status s = MakeChannel(a.train, &channel); !s.ok()) return Fail(s.message());
   ReplaySummary summary;
   Status s = ReplayEvents(channel, o, a.quiet ? nullptr : &std::cerr, &summary);
+  for (const std::string& w : summary.warnings) std::cerr << "plumb-load: warning: " << w << "\n";
   for (const std::string& r : summary.rejections) std::cerr << "rejected: " << r << "\n";
   if (!s.ok()) {
     return Fail(s.message() + (s.code() == Status::Code::kUnavailable && summary.sent == 0

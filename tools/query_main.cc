@@ -41,6 +41,20 @@ int Fail(const std::string& message) {
 
 int Fail(const grpc::Status& status) { return Fail(DescribeStatus(status)); }
 
+// A call to the wrong process gets UNIMPLEMENTED from gRPC, with no word of why: say which
+// process answers it. `control`: a ModelControl command (plumb-train), else a Ranker or
+// health command (plumb-serve).
+int Fail(const grpc::Status& status, const std::string& target, bool control) {
+  if (status.error_code() != grpc::StatusCode::UNIMPLEMENTED) return Fail(status);
+  return Fail(DescribeStatus(status) + " (" + target + " does not serve " +
+              (control ? "plumb.v1.ModelControl: versions, status, activate, pin, unpin and "
+                         "auto-activate are answered by plumb-train, at its --listen address "
+                         "(default 127.0.0.1:7601)"
+                       : "plumb.v1.Ranker: recommend, similar and rank are answered by "
+                         "plumb-serve, at its --listen address (default 127.0.0.1:7400)") +
+              "; is this the other process?)");
+}
+
 // Opens the channel and prepares a context with the deadline (and token, if any).
 Status Prepare(const Connection& c, std::shared_ptr<grpc::Channel>* channel,
                grpc::ClientContext* context) {
@@ -101,7 +115,7 @@ int Recommend(const ListArgs& a) {
   plumb::v1::RecommendResponse response;
   const grpc::Status status =
       plumb::v1::Ranker::NewStub(channel)->Recommend(&context, request, &response);
-  if (!status.ok()) return Fail(status);
+  if (!status.ok()) return Fail(status, a.conn.spec.target, false);
   std::printf("model version %llu, user %s, %d items%s\n",
               static_cast<unsigned long long>(response.model_version()), a.id.c_str(),
               response.items_size(),
@@ -122,7 +136,7 @@ int Similar(const ListArgs& a) {
   plumb::v1::SimilarItemsResponse response;
   const grpc::Status status =
       plumb::v1::Ranker::NewStub(channel)->SimilarItems(&context, request, &response);
-  if (!status.ok()) return Fail(status);
+  if (!status.ok()) return Fail(status, a.conn.spec.target, false);
   std::printf("model version %llu, items like %s (cosine), %d items\n",
               static_cast<unsigned long long>(response.model_version()), a.id.c_str(),
               response.items_size());
@@ -140,7 +154,7 @@ int Rank(const ListArgs& a) {
   plumb::v1::RankCandidatesResponse response;
   const grpc::Status status =
       plumb::v1::Ranker::NewStub(channel)->RankCandidates(&context, request, &response);
-  if (!status.ok()) return Fail(status);
+  if (!status.ok()) return Fail(status, a.conn.spec.target, false);
   std::printf("model version %llu, user %s, %d of %zu candidates ranked%s\n",
               static_cast<unsigned long long>(response.model_version()), a.id.c_str(),
               response.items_size(), a.candidates.size(),
@@ -217,7 +231,7 @@ int Versions(const Connection& c) {
   plumb::v1::ListVersionsResponse response;
   const grpc::Status status = plumb::v1::ModelControl::NewStub(channel)->ListVersions(
       &context, plumb::v1::ListVersionsRequest(), &response);
-  if (!status.ok()) return Fail(status);
+  if (!status.ok()) return Fail(status, c.spec.target, true);
   if (response.versions().empty()) {
     std::printf("no versions kept\n");
     return 0;
@@ -247,7 +261,7 @@ int TrainerStatus(const Connection& c) {
   plumb::v1::TrainerStatus response;
   const grpc::Status status = plumb::v1::ModelControl::NewStub(channel)->GetStatus(
       &context, plumb::v1::GetStatusRequest(), &response);
-  if (!status.ok()) return Fail(status);
+  if (!status.ok()) return Fail(status, c.spec.target, true);
   PrintStatus(response);
   return 0;
 }
@@ -261,7 +275,7 @@ int Activate(const Connection& c, uint64_t version) {
   plumb::v1::ActivateResponse response;
   const grpc::Status status =
       plumb::v1::ModelControl::NewStub(channel)->Activate(&context, request, &response);
-  if (!status.ok()) return Fail(status);
+  if (!status.ok()) return Fail(status, c.spec.target, true);
   std::printf("active version %llu (was %llu)\n",
               static_cast<unsigned long long>(response.active_version()),
               static_cast<unsigned long long>(response.previous_version()));
@@ -278,7 +292,7 @@ int Pin(const Connection& c, uint64_t version, bool pinned) {
   plumb::v1::VersionInfo response;
   const grpc::Status status =
       plumb::v1::ModelControl::NewStub(channel)->SetPinned(&context, request, &response);
-  if (!status.ok()) return Fail(status);
+  if (!status.ok()) return Fail(status, c.spec.target, true);
   std::printf("version %llu is %s\n", static_cast<unsigned long long>(response.version()),
               response.pinned() ? "pinned: never pruned" : "unpinned: pruned by the retention rules");
   return 0;
@@ -293,7 +307,7 @@ int AutoActivate(const Connection& c, const std::string& setting) {
   plumb::v1::TrainerStatus response;
   const grpc::Status status =
       plumb::v1::ModelControl::NewStub(channel)->SetAutoActivate(&context, request, &response);
-  if (!status.ok()) return Fail(status);
+  if (!status.ok()) return Fail(status, c.spec.target, true);
   PrintStatus(response);
   return 0;
 }

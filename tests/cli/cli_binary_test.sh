@@ -43,6 +43,22 @@ check "inspect says what the versions take" '"$PLUMB" inspect --db "$tmp/bomfit"
 tr , '\t' < "$tmp/w/events.csv" > "$tmp/w/events.tsv"
 out=$("$PLUMB" import --events "$tmp/w/events.tsv" --db "$tmp/tsvdb" 2>&1); rc=$?
 check "tab-separated file: non-zero exit, told to use commas" '[ $rc -ne 0 ] && printf "%s" "$out" | grep -q "use commas"'
+# A failed import changes nothing: no store directory is left behind.
+out=$("$PLUMB" import --events "$tmp/bad.csv" --db "$tmp/never" 2>&1); rc=$?
+check "failed import: non-zero exit and no store directory left" '[ $rc -ne 0 ] && [ ! -e "$tmp/never" ]'
+out=$("$PLUMB" fit --events "$tmp/bad.csv" --db "$tmp/never2" 2>&1); rc=$?
+check "failed fit import: no store directory left" '[ $rc -ne 0 ] && [ ! -e "$tmp/never2" ]'
+# A directory of someone else's files is not turned into a store.
+mkdir -p "$tmp/mine" && echo "notes" > "$tmp/mine/notes.txt"
+out=$("$PLUMB" import --events "$tmp/w/events.csv" --db "$tmp/mine" 2>&1); rc=$?
+check "import into a directory of other files: refused, directory untouched" \
+  '[ $rc -ne 0 ] && printf "%s" "$out" | grep -q "holds other files and no plumb store" && [ "$(ls "$tmp/mine")" = notes.txt ]'
+out=$("$PLUMB" activate --db "$tmp/nothing" --version 1 2>&1); rc=$?
+check "activate on a missing store: refused, nothing created" '[ $rc -ne 0 ] && [ ! -e "$tmp/nothing" ]'
+# ts in seconds: a warning on stderr, and the import still happens.
+printf 'user,item,ts\nm1,t1,1700000000\nm2,t2,1700000100\n' > "$tmp/seconds.csv"
+out=$("$PLUMB" import --events "$tmp/seconds.csv" --db "$tmp/secdb" 2>&1); rc=$?
+check "ts in seconds: imported with a warning" '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "are they seconds?"'
 out=$("$PLUMB" fit --db "$tmp/db2" --objective nope 2>&1); rc=$?
 check "unknown objective refused" '[ $rc -ne 0 ]'
 exit $fail

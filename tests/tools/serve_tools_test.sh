@@ -128,6 +128,11 @@ check "missing --user: usage error exit 2, one line" '[ $rc -eq 2 ] && [ "$(prin
 out=$("$QUERY" recommend --target "$target" --user "$user" --count 0 2>&1); rc=$?
 check "count 0: usage error exit 2" '[ $rc -eq 2 ]'
 
+# A trainer command sent to plumb-serve: UNIMPLEMENTED, and the message says who answers it.
+out=$("$QUERY" status --target "$target" 2>&1); rc=$?
+check "status against plumb-serve: exit 1, names plumb-train [$out]" \
+  '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "^plumb-query: UNIMPLEMENTED.*answered by plumb-train"'
+
 # ---- health ----------------------------------------------------------------------------------------
 out=$("$QUERY" health --target "$target" 2>&1); rc=$?
 check "health: SERVING, exit 0" '[ $rc -eq 0 ] && [ "$out" = SERVING ]'

@@ -65,8 +65,9 @@ Status RunVersions(const AdminArgs& args) {
     if (!std::isnan(m.validation_recall) && m.validation_k > 0) {
       std::snprintf(recall, sizeof recall, "%.4f@%u", m.validation_recall, m.validation_k);
     }
-    std::printf("%-3s %8llu  %-20s  %-4s %9llu %8u %8u %4u  %-10s %s%s%s\n",
-                m.version == active ? "*" : "", static_cast<unsigned long long>(m.version),
+    const std::string mark = std::string(m.version == active ? "*" : "") + (m.pinned ? "p" : "");
+    std::printf("%-3s %8llu  %-20s  %-4s %9llu %8u %8u %4u  %-10s %s%s%s\n", mark.c_str(),
+                static_cast<unsigned long long>(m.version),
                 FormatTime(m.created_ms).c_str(), m.objective.c_str(),
                 static_cast<unsigned long long>(m.events_seen), m.num_users, m.num_items, m.dim,
                 recall, GateName(m.gate), m.gate_reason.empty() ? "" : ": ",
@@ -74,14 +75,28 @@ Status RunVersions(const AdminArgs& args) {
     std::printf("%-3s %8s  trained: %s\n", "", "",
                 online::FormatTrainingConfig(m.training).c_str());
   }
-  std::printf("(* active)\n");
+  std::printf("(* active, p pinned: kept whatever the retention rules say)\n");
+  return Status::Ok();
+}
+
+Status RunPin(const AdminArgs& args, bool pinned) {
+  if (args.version == 0) return Status::InvalidArgument("--version is required");
+  std::unique_ptr<store::Store> store;
+  store::StoreOptions existing;
+  existing.create_if_missing = false;  // activating or pinning never creates a store
+  PLUMB_RETURN_IF_ERROR(OpenForWrite(args.db, existing, &store));
+  PLUMB_RETURN_IF_ERROR(store->SetPinned(args.version, pinned));
+  std::printf("version %llu is %s\n", static_cast<unsigned long long>(args.version),
+              pinned ? "pinned: never pruned" : "unpinned: pruned by the retention rules");
   return Status::Ok();
 }
 
 Status RunActivate(const AdminArgs& args) {
   if (args.version == 0) return Status::InvalidArgument("--version is required");
   std::unique_ptr<store::Store> store;
-  PLUMB_RETURN_IF_ERROR(OpenForWrite(args.db, store::StoreOptions{}, &store));
+  store::StoreOptions existing;
+  existing.create_if_missing = false;  // activating or pinning never creates a store
+  PLUMB_RETURN_IF_ERROR(OpenForWrite(args.db, existing, &store));
   uint64_t before = 0;
   PLUMB_RETURN_IF_ERROR(store->GetActiveVersion(&before));
   PLUMB_RETURN_IF_ERROR(store->Activate(args.version));
@@ -110,8 +125,16 @@ Status RunInspect(const AdminArgs& args) {
               store->IdCount(store::IdSpace::kItem));
   std::printf("interactions    %llu distinct (user, item) training pairs\n",
               static_cast<unsigned long long>(interactions));
-  std::printf("versions kept   %zu, active %llu\n", versions.size(),
-              static_cast<unsigned long long>(active));
+  // A version's blocks: (users + items) x dim float32s and one uint32 degree per item.
+  uint64_t version_bytes = 0;
+  for (const store::VersionManifest& m : versions) {
+    version_bytes += (uint64_t{m.num_users} + m.num_items) * m.dim * sizeof(float) +
+                     uint64_t{m.num_items} * sizeof(uint32_t);
+  }
+  std::printf("versions kept   %zu, active %llu; their embeddings take %.1f MB before "
+              "compression\n",
+              versions.size(), static_cast<unsigned long long>(active),
+              static_cast<double>(version_bytes) / 1e6);
   std::string auto_activate;
   if (store->GetMeta("auto_activate", &auto_activate).ok()) {
     std::printf("auto-activate   %s\n", auto_activate == "1" ? "on" : "off (paused)");

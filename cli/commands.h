@@ -37,6 +37,7 @@ struct FitArgs {
   double holdout = 0.0;       // share of pairs held out (stored as the store's holdout)
   bool activate = true;
   uint32_t keep_versions = 5;
+  std::string keep_versions_for = "2h";  // also keep every version younger than this
 };
 
 struct EvalArgs {
@@ -66,6 +67,7 @@ struct TopArgs {
   uint32_t count = 10;
   uint64_t version = 0;       // 0: the active one
   std::string names;          // optional `item,name` CSV
+  bool include_seen = false;  // default: the user's training items are left out
 };
 
 struct AdminArgs {
@@ -82,6 +84,8 @@ Status RunEval(const EvalArgs& args);
 Status RunCompare(const CompareArgs& args);
 Status RunVersions(const AdminArgs& args);
 Status RunActivate(const AdminArgs& args);
+// Pins (pinned = true) or unpins a kept version: a pinned version is never pruned.
+Status RunPin(const AdminArgs& args, bool pinned);
 Status RunInspect(const AdminArgs& args);
 Status RunExport(const AdminArgs& args);
 Status RunTop(const TopArgs& args);

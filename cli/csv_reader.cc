@@ -68,6 +68,37 @@ Status SplitCsvLine(std::string_view line, std::vector<std::string>* fields) {
   return Status::Ok();
 }
 
+std::string_view StripUtf8Bom(std::string_view text) {
+  if (text.starts_with(kUtf8Bom)) text.remove_prefix(kUtf8Bom.size());
+  return text;
+}
+
+Status SplitCsvHeader(const std::string& path, std::string_view line,
+                      std::vector<std::string>* names) {
+  if (Status s = SplitCsvLine(StripUtf8Bom(line), names); !s.ok()) {
+    return Status::InvalidArgument(path + ":1: " + s.message());
+  }
+  return Status::Ok();
+}
+
+Status MissingColumnsError(const std::string& path, std::string_view required,
+                           std::string_view header_line) {
+  std::string_view shown = StripUtf8Bom(header_line);
+  while (!shown.empty() && (shown.back() == '\r' || shown.back() == '\n')) shown.remove_suffix(1);
+  std::string message = path + ":1: header must name columns " + std::string(required) +
+                        " (got '" + std::string(shown) + "')";
+  if (shown.find(',') == std::string_view::npos) {
+    if (shown.find('\t') != std::string_view::npos) {
+      message += "; the columns are separated by tabs: plumb reads comma-separated files, "
+                 "use commas";
+    } else if (shown.find(';') != std::string_view::npos) {
+      message += "; the columns are separated by semicolons: plumb reads comma-separated "
+                 "files, use commas";
+    }
+  }
+  return Status::InvalidArgument(message);
+}
+
 Status ReadEventCsv(const std::string& path, const CsvReadOptions& options,
                     std::vector<CsvEvent>* out, CsvReadReport* report) {
   out->clear();
@@ -78,9 +109,7 @@ Status ReadEventCsv(const std::string& path, const CsvReadOptions& options,
   std::string line;
   std::vector<std::string> fields;
   if (!std::getline(in, line)) return Status::InvalidArgument(path + ": empty file, expected a header line");
-  if (Status s = SplitCsvLine(line, &fields); !s.ok()) {
-    return Status::InvalidArgument(path + ":1: " + s.message());
-  }
+  PLUMB_RETURN_IF_ERROR(SplitCsvHeader(path, line, &fields));
   std::optional<size_t> col_user, col_item, col_ts, col_weight, col_event;
   for (size_t c = 0; c < fields.size(); ++c) {
     const std::string& name = fields[c];
@@ -91,11 +120,12 @@ Status ReadEventCsv(const std::string& path, const CsvReadOptions& options,
     else if (name == "event_id") col_event = c;
   }
   if (!col_user || !col_item) {
-    return Status::InvalidArgument(path + ":1: header must name columns 'user' and 'item' (got '" +
-                                   line + "')");
+    return MissingColumnsError(path, "'user' and 'item'", line);
   }
 
   uint64_t line_no = 1;
+  uint64_t timestamps = 0;
+  int64_t max_ts = 0;
   auto fail_or_skip = [&](const std::string& reason) -> Status {
     std::string where = path + ":" + std::to_string(line_no) + ": " + reason;
     if (!options.skip_bad) {
@@ -150,11 +180,13 @@ Status ReadEventCsv(const std::string& path, const CsvReadOptions& options,
       float weight = 0;
       auto [p, ec] = std::from_chars(w->data(), w->data() + w->size(), weight);
       if (ec != std::errc() || p != w->data() + w->size() || !std::isfinite(weight) ||
-          weight <= 0.0f || weight > 1000.0f) {
-        PLUMB_RETURN_IF_ERROR(fail_or_skip("weight '" + *w + "' is not a number in (0, 1000]"));
+          weight < 0.0f || weight > 1000.0f) {
+        PLUMB_RETURN_IF_ERROR(fail_or_skip("weight '" + *w +
+                                           "' is not a number in [0, 1000] (0 means 1)"));
         continue;
       }
-      ev.weight = weight;
+      // One rule with the wire, where an unset weight reads as 0: 0 means the default 1.
+      ev.weight = weight == 0.0f ? 1.0f : weight;
     }
     if (const std::string* e = field(col_event); e) {
       if (e->size() > 128) {
@@ -163,8 +195,19 @@ Status ReadEventCsv(const std::string& path, const CsvReadOptions& options,
       }
       ev.event_id = *e;
     }
+    if (ev.timestamp_ms > 0) {
+      ++timestamps;
+      max_ts = std::max(max_ts, ev.timestamp_ms);
+    }
     out->push_back(std::move(ev));
     ++report->read;
+  }
+  if (timestamps > 0 && max_ts < kPlausibleTimestampMs) {
+    report->warnings.push_back(
+        path + ": every ts is below " + std::to_string(kPlausibleTimestampMs) +
+        " (1973-03-03 in milliseconds; the largest is " + std::to_string(max_ts) +
+        "): are they seconds? ts is read as milliseconds since the epoch, so these events "
+        "are dated 1970; multiply by 1000");
   }
   if (in.bad()) return Status::IoError(path + ": read error after line " + std::to_string(line_no));
   return Status::Ok();

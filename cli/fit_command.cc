@@ -7,6 +7,7 @@
 #include "cli/csv_reader.h"
 #include "cli/store_access.h"
 #include "trainer/online/training_config.h"
+#include "core/duration.h"
 #include "trainer/online/training_state.h"
 
 namespace plumb::cli {
@@ -21,7 +22,9 @@ int64_t NowMs() {
 }
 
 // Reads and validates the whole file first, so that a bad line changes nothing.
-Status ImportInto(store::Store* store, const ImportArgs& args) {
+// Reads and checks the whole file before any store is opened, so that a bad file changes
+// nothing (and creates no store directory).
+Status ReadForImport(const ImportArgs& args, std::vector<store::EventInput>* events) {
   std::vector<CsvEvent> rows;
   CsvReadReport report;
   CsvReadOptions opt;
@@ -32,8 +35,9 @@ Status ImportInto(store::Store* store, const ImportArgs& args) {
                  static_cast<unsigned long long>(report.skipped),
                  report.first_skip_reason.c_str());
   }
-  std::vector<store::EventInput> events;
-  events.reserve(rows.size());
+  for (const std::string& w : report.warnings) std::fprintf(stderr, "import: warning: %s\n", w.c_str());
+  events->clear();
+  events->reserve(rows.size());
   const int64_t now = NowMs();
   for (CsvEvent& r : rows) {
     store::EventInput e;
@@ -42,8 +46,12 @@ Status ImportInto(store::Store* store, const ImportArgs& args) {
     e.timestamp_ms = r.timestamp_ms > 0 ? r.timestamp_ms : now;
     e.weight = r.weight;
     e.event_id = std::move(r.event_id);
-    events.push_back(std::move(e));
+    events->push_back(std::move(e));
   }
+  return Status::Ok();
+}
+
+Status AppendImported(store::Store* store, const std::vector<store::EventInput>& events) {
   store::AppendResult result;
   PLUMB_RETURN_IF_ERROR(store->AppendEvents(events, &result));
   std::fprintf(stderr, "import: %llu events appended, %llu duplicates of earlier event ids, log "
@@ -57,11 +65,19 @@ Status ImportInto(store::Store* store, const ImportArgs& args) {
 }  // namespace
 
 Status RunImport(const ImportArgs& args) {
+  std::vector<store::EventInput> events;
+  PLUMB_RETURN_IF_ERROR(ReadForImport(args, &events));
   store::StoreOptions so;
   so.sync = args.sync;
   std::unique_ptr<store::Store> store;
-  PLUMB_RETURN_IF_ERROR(OpenForWrite(args.db, so, &store));
-  return ImportInto(store.get(), args);
+  bool created = false;
+  PLUMB_RETURN_IF_ERROR(OpenForWrite(args.db, so, &store, &created));
+  Status s = AppendImported(store.get(), events);
+  if (!s.ok() && created) {
+    store.reset();
+    RemoveCreatedStore(args.db);
+  }
+  return s;
 }
 
 Status MakeTrainOptions(const FitArgs& args, trainer::TrainOptions* out) {
@@ -91,9 +107,23 @@ Status RunFit(const FitArgs& args) {
   store::StoreOptions so;
   so.sync = args.import.sync;
   so.keep_versions = args.keep_versions;
+  if (Status s = ParseDuration(args.keep_versions_for, &so.keep_versions_for_ms); !s.ok()) {
+    return Status::InvalidArgument("--keep-versions-for: " + s.message());
+  }
+  std::vector<store::EventInput> events;
+  if (!args.import.events.empty()) PLUMB_RETURN_IF_ERROR(ReadForImport(args.import, &events));
   std::unique_ptr<store::Store> store;
-  PLUMB_RETURN_IF_ERROR(OpenForWrite(args.import.db, so, &store));
-  if (!args.import.events.empty()) PLUMB_RETURN_IF_ERROR(ImportInto(store.get(), args.import));
+  bool created = false;
+  PLUMB_RETURN_IF_ERROR(OpenForWrite(args.import.db, so, &store, &created));
+  if (!args.import.events.empty()) {
+    if (Status s = AppendImported(store.get(), events); !s.ok()) {
+      if (created) {
+        store.reset();
+        RemoveCreatedStore(args.import.db);
+      }
+      return s;
+    }
+  }
 
   // The hold-out share is a property of the store: replaying the log with another share
   // would disagree with the interaction sets already written.

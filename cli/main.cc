@@ -99,7 +99,12 @@ int main(int argc, char** argv) {
   AddTrainOptions(fit_cmd, &fit);
   fit_cmd->add_option("--holdout", fit.holdout, "share of pairs held out for validation (first fit only)")
       ->capture_default_str();
-  fit_cmd->add_option("--keep-versions", fit.keep_versions, "versions kept in the store")->capture_default_str();
+  fit_cmd->add_option("--keep-versions", fit.keep_versions, "newest versions always kept in the store")
+      ->capture_default_str();
+  fit_cmd
+      ->add_option("--keep-versions-for", fit.keep_versions_for,
+                   "also keep every version younger than this (30m, 2h, 7d; 0 = by count only)")
+      ->capture_default_str();
   bool no_activate = false;
   fit_cmd->add_flag("--no-activate", no_activate, "publish without activating");
 
@@ -132,6 +137,12 @@ int main(int argc, char** argv) {
   auto* activate_cmd = app.add_subcommand("activate", "make a kept version active (promote or roll back)");
   activate_cmd->add_option("--db", admin.db, "store directory")->required();
   activate_cmd->add_option("--version", admin.version, "version number")->required();
+  auto* pin_cmd = app.add_subcommand("pin", "pin a kept version: never pruned, whatever its age");
+  pin_cmd->add_option("--db", admin.db, "store directory")->required();
+  pin_cmd->add_option("--version", admin.version, "version number")->required();
+  auto* unpin_cmd = app.add_subcommand("unpin", "unpin a version: the retention rules apply again");
+  unpin_cmd->add_option("--db", admin.db, "store directory")->required();
+  unpin_cmd->add_option("--version", admin.version, "version number")->required();
   auto* inspect_cmd = app.add_subcommand("inspect", "summarise a store: log, cursor, ids, versions");
   inspect_cmd->add_option("--db", admin.db, "store directory")->required();
   auto* export_cmd = app.add_subcommand("export", "write a version as users.tsv and items.tsv");
@@ -147,6 +158,8 @@ int main(int argc, char** argv) {
   top_cmd->add_option("--version", top.version, "version (default: the active one)");
   top_cmd->add_option("--names", top.names, "CSV `item,name` to show item names")
       ->check(CLI::ExistingFile);
+  top_cmd->add_flag("--include-seen", top.include_seen,
+                    "also list items the user already had (default: left out)");
 
   CLI11_PARSE(app, argc, argv);
 
@@ -160,6 +173,8 @@ int main(int argc, char** argv) {
   else if (*compare_cmd) s = RunCompare(compare);
   else if (*versions_cmd) s = RunVersions(admin);
   else if (*activate_cmd) s = RunActivate(admin);
+  else if (*pin_cmd) s = RunPin(admin, true);
+  else if (*unpin_cmd) s = RunPin(admin, false);
   else if (*inspect_cmd) s = RunInspect(admin);
   else if (*export_cmd) s = RunExport(admin);
   else if (*top_cmd) s = RunTop(top);

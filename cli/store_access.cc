@@ -7,14 +7,38 @@
 namespace plumb::cli {
 
 Status OpenForWrite(const std::string& db, const store::StoreOptions& options,
-                    std::unique_ptr<store::Store>* out) {
+                    std::unique_ptr<store::Store>* out, bool* created) {
+  namespace fs = std::filesystem;
+  std::error_code ec;
+  const bool existed = fs::exists(db, ec);
+  if (existed) {
+    if (!fs::is_directory(db, ec)) {
+      return Status::InvalidArgument(db + " is a file, not a store directory");
+    }
+    // A store directory always holds RocksDB's CURRENT file. A directory without one that
+    // holds anything else is someone's: RocksDB would write its files among theirs.
+    if (!fs::exists(fs::path(db) / "CURRENT", ec) && !fs::is_empty(db, ec)) {
+      if (!options.create_if_missing) return Status::NotFound("no store at " + db);
+      return Status::InvalidArgument(
+          db + " is a directory that holds other files and no plumb store; give a new or an "
+               "empty directory for the store");
+    }
+  } else if (!options.create_if_missing) {
+    return Status::NotFound("no store at " + db);
+  }
   Status s = store::Store::OpenPrimary(db, options, out);
+  if (created != nullptr) *created = s.ok() && !existed;
   if (!s.ok() && s.message().find("lock") != std::string::npos) {
     return Status::Unavailable(
         db + " is in use by another process (is plumb-train running? while it runs, change "
              "versions through its ModelControl service): " + s.message());
   }
   return s;
+}
+
+void RemoveCreatedStore(const std::string& db) {
+  std::error_code ec;
+  std::filesystem::remove_all(db, ec);
 }
 
 Status OpenForRead(const std::string& db, std::unique_ptr<store::Store>* out) {

@@ -13,9 +13,17 @@
 namespace plumb::cli {
 
 // Opens `db` for writing. When another process (plumb-train) holds it, the error says so
-// and points at the ModelControl service.
+// and points at the ModelControl service. With options.create_if_missing, a missing or
+// empty directory becomes a new store; an existing directory that holds other files and no
+// store is refused (InvalidArgument), so that RocksDB never writes among a user's files.
+// Without it, anything but a store is NotFound. *created (may be null) tells whether this
+// call made a new store, so that a caller whose first write then fails can remove it
+// again (RemoveCreatedStore) instead of leaving an empty store behind.
 Status OpenForWrite(const std::string& db, const store::StoreOptions& options,
-                    std::unique_ptr<store::Store>* out);
+                    std::unique_ptr<store::Store>* out, bool* created = nullptr);
+
+// Deletes a store directory that OpenForWrite created (close the store first).
+void RemoveCreatedStore(const std::string& db);
 
 // Opens an existing `db` for reading only, as a follower, so it works while plumb-train
 // runs. The follower's scratch directory is temporary and removed by the returned store's

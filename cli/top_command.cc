@@ -1,10 +1,9 @@
 // plumb top: a user's top-N list from a stored version, offline — the same exact ranking the
 // server computes (dot product over all items, the user's training items excluded).
 #include <cstdio>
-#include <unordered_map>
 
 #include "cli/commands.h"
-#include "cli/csv_reader.h"
+#include "cli/item_names.h"
 #include "cli/store_access.h"
 #include "core/scan.h"
 #include "core/topk.h"
@@ -19,24 +18,8 @@ Status RunTop(const TopArgs& args) {
   LoadedModel m;
   PLUMB_RETURN_IF_ERROR(LoadModel(*store, args.version, &m));
 
-  std::unordered_map<std::string, std::string> names;
-  if (!args.names.empty()) {
-    std::vector<std::string> fields;
-    FILE* f = std::fopen(args.names.c_str(), "r");
-    if (!f) return Status::NotFound("cannot open " + args.names);
-    char line[4096];
-    bool header = true;
-    while (std::fgets(line, sizeof line, f)) {
-      std::string_view l(line);
-      while (!l.empty() && (l.back() == '\n' || l.back() == '\r')) l.remove_suffix(1);
-      if (header) {
-        header = false;
-        continue;
-      }
-      if (SplitCsvLine(l, &fields).ok() && fields.size() >= 2) names[fields[0]] = fields[1];
-    }
-    std::fclose(f);
-  }
+  ItemNames names;
+  if (!args.names.empty()) PLUMB_RETURN_IF_ERROR(ItemNames::Read(args.names, &names));
 
   std::unordered_map<std::string, uint32_t> user_index;
   for (uint32_t u = 0; u < m.user_ids.size(); ++u) user_index.emplace(m.user_ids[u], u);
@@ -51,7 +34,7 @@ Status RunTop(const TopArgs& args) {
     const uint32_t u = it->second;
     selector.Reset(args.count);
     Exclusions ex;
-    ex.sorted_rows = m.train.items_of(u);
+    if (!args.include_seen) ex.sorted_rows = m.train.items_of(u);
     ScanOutcome outcome;
     PLUMB_RETURN_IF_ERROR(top_k_by_dot(m.model.item_view(),
                                        std::span<const float>(m.model.user_row(u), m.model.dim()),
@@ -62,10 +45,8 @@ Status RunTop(const TopArgs& args) {
     int rank = 0;
     for (const ScoredIndex& s : selector.SortedResult()) {
       const std::string& id = m.item_ids[s.index];
-      auto n = names.find(id);
       std::printf("  %2d. %-8s %-36s %8.4f  (borrowed by %u)\n", ++rank, id.c_str(),
-                  n == names.end() ? "" : n->second.c_str(), s.score,
-                  m.train.item_degree(s.index));
+                  names.Find(id).c_str(), s.score, m.train.item_degree(s.index));
     }
   }
   return Status::Ok();

@@ -10,17 +10,19 @@
 #   deploy/demo.sh --once     run, then stop everything and exit 0 (unattended)
 #   deploy/demo.sh --stop     stop services a previous run left up
 #
-# Environment: PLUMB_DEMO_DIR (default /tmp/plumb-demo), BUILD_DIR (default build/release),
-# PLUMB_DEMO_SKIP_INSTALL=1 to skip apt.
+# Environment: PLUMB_DEMO_DIR (default /tmp/plumb-demo), BUILD_DIR (default build/release,
+# relative to the repository), PLUMB_DEMO_SKIP_INSTALL=1 to skip apt, and the loopback
+# addresses PLUMB_DEMO_SERVE (127.0.0.1:7400), PLUMB_DEMO_SERVE_METRICS (127.0.0.1:9464),
+# PLUMB_DEMO_TRAIN (127.0.0.1:7601), PLUMB_DEMO_TRAIN_METRICS (127.0.0.1:9465).
 set -euo pipefail
 cd "$(dirname "$0")/.."
 ROOT=$(pwd)
 DEMO=${PLUMB_DEMO_DIR:-/tmp/plumb-demo}
 BUILD=${BUILD_DIR:-build/release}
-SERVE_ADDR=127.0.0.1:7400
-SERVE_METRICS=127.0.0.1:9464
-TRAIN_ADDR=127.0.0.1:7601
-TRAIN_METRICS=127.0.0.1:9465
+SERVE_ADDR=${PLUMB_DEMO_SERVE:-127.0.0.1:7400}
+SERVE_METRICS=${PLUMB_DEMO_SERVE_METRICS:-127.0.0.1:9464}
+TRAIN_ADDR=${PLUMB_DEMO_TRAIN:-127.0.0.1:7601}
+TRAIN_METRICS=${PLUMB_DEMO_TRAIN_METRICS:-127.0.0.1:9465}
 MODE=${1:-}
 
 say() { printf '\n\033[1m== %s\033[0m\n' "$*"; }
@@ -36,6 +38,23 @@ stop_services() {
       rm -f "$DEMO/$name.pid"
     fi
   done
+}
+
+# Waits until NAME's log shows MARKER; if the process exits first (an address in use, say),
+# shows why and stops the demo.
+wait_started() {
+  local name=$1 marker=$2
+  for _ in $(seq 300); do
+    grep -q "$marker" "$DEMO/$name.log" 2>/dev/null && return 0
+    if ! kill -0 "$(cat "$DEMO/$name.pid")" 2>/dev/null; then
+      echo "$name exited at start; its log ($DEMO/$name.log) ends:" >&2
+      tail -5 "$DEMO/$name.log" >&2
+      exit 1
+    fi
+    sleep 0.1
+  done
+  echo "$name did not report ready within 30 s; see $DEMO/$name.log" >&2
+  exit 1
 }
 
 if [ "$MODE" = "--stop" ]; then
@@ -55,8 +74,11 @@ if [ "${PLUMB_DEMO_SKIP_INSTALL:-0}" != 1 ]; then
 fi
 
 say "Building (Release) into $BUILD"
+# A fresh clone has no build/ yet: make the tree before anything is written into it.
+mkdir -p "$BUILD"
 cmake -S . -B "$BUILD" -G Ninja -DCMAKE_BUILD_TYPE=Release -DPLUMB_BUILD_TESTS=OFF \
-  -DPLUMB_BUILD_BENCH=OFF > "$BUILD.cmake.log" 2>&1 || { cat "$BUILD.cmake.log"; exit 1; }
+  -DPLUMB_BUILD_BENCH=OFF > "$BUILD/demo-configure.log" 2>&1 \
+  || { cat "$BUILD/demo-configure.log"; exit 1; }
 cmake --build "$BUILD" -j "$(nproc)" --target plumb plumb-train plumb-serve plumb-load plumb-query
 case "$BUILD" in /*) BIN=$BUILD ;; *) BIN=$ROOT/$BUILD ;; esac
 PLUMB=$BIN/cli/plumb
@@ -66,7 +88,8 @@ LOAD=$BIN/tools/plumb-load
 stop_services
 rm -rf "$DEMO"
 mkdir -p "$DEMO"
-if [ "$MODE" = "--once" ]; then trap stop_services EXIT; fi
+# --once stops the services at the end; a demo that fails never leaves them running.
+trap 'rc=$?; if [ "$rc" != 0 ] || [ "$MODE" = "--once" ]; then stop_services; fi' EXIT
 
 say "Generating the lending library (members borrow what the shelf by the door shows them)"
 "$PLUMB" synth --out "$DEMO/world" --users 3000 --items 1500 --interactions 120000 --seed 42
@@ -76,10 +99,11 @@ say "Starting plumb-train ($TRAIN_ADDR, metrics $TRAIN_METRICS) and plumb-serve 
   --dim 32 --publish-every-events 40000 --publish-every-seconds 5 --holdout-fraction 0.02 \
   > "$DEMO/plumb-train.log" 2>&1 &
 echo $! > "$DEMO/plumb-train.pid"
-for _ in $(seq 100); do [ -d "$DEMO/db" ] && [ -f "$DEMO/db/CURRENT" ] && break; sleep 0.1; done
+wait_started plumb-train "plumb-train serving"
 "$BIN/server/plumb-serve" --db "$DEMO/db" --listen "$SERVE_ADDR" --metrics "$SERVE_METRICS" \
   > "$DEMO/plumb-serve.log" 2>&1 &
 echo $! > "$DEMO/plumb-serve.pid"
+wait_started plumb-serve "plumb-serve listening"
 
 say "Streaming $(($(wc -l < "$DEMO/world/events.csv") - 1)) borrowings through EventIngest in time order"
 "$LOAD" replay --events "$DEMO/world/events.csv" --ingest-target "$TRAIN_ADDR"
@@ -113,16 +137,14 @@ MEMBERS=$(awk -F, 'NR>1 {print $1}' "$DEMO/world/events.csv" | sort | uniq -c | 
 for m in $MEMBERS; do
   say "Member $m"
   echo "-- served by plumb-serve (online CPR):"
-  "$QUERY" recommend --target "$SERVE_ADDR" --user "$m" --count 10 --exclude-seen \
-    --names "$DEMO/world/items.csv"
+  "$QUERY" recommend --target "$SERVE_ADDR" --user "$m" --count 10 --names "$DEMO/world/items.csv"
   echo "-- the offline BPR model:"
   "$PLUMB" top --db "$DEMO/bpr-db" --user "$m" --count 10 --names "$DEMO/world/items.csv"
 done
 
 say "Sending Recommend traffic for 5 s to fill the exposure window"
 awk -F, 'NR>1 {print $1}' "$DEMO/world/events.csv" | sort -u > "$DEMO/users.txt"
-"$LOAD" --target "$SERVE_ADDR" --users-file "$DEMO/users.txt" --duration 5 --concurrency 4 \
-  --count 20 --exclude-seen
+"$LOAD" --target "$SERVE_ADDR" --users-file "$DEMO/users.txt" --duration 5 --concurrency 4 --count 20
 
 say "Exposure gauges from http://$SERVE_METRICS/metrics"
 curl -s "http://$SERVE_METRICS/metrics" | grep -E '^plumb_(exposure|interaction)_' || true

@@ -36,10 +36,12 @@ std::vector<prometheus::MetricFamily> ExposureMetrics::Collect() const {
   };
   single("plumb_exposure_window_lists", "Served lists in the exposure window",
          static_cast<double>(fig.lists));
-  single("plumb_exposure_served_popularity",
-         "Mean training degree of the served slots in the window (ARP)", fig.served_popularity);
-  single("plumb_exposure_interaction_popularity",
-         "Mean training degree over training interactions (sum d^2 / sum d)",
+  single("plumb_exposure_served_popularity_interactions",
+         "ARP: mean training degree (interactions per item) of the served slots in the window",
+         fig.served_popularity);
+  single("plumb_interaction_popularity_interactions",
+         "Mean training degree (interactions per item) over training interactions, "
+         "sum d^2 / sum d: the ARP of serving that mirrors the data",
          fig.interaction_popularity);
   single("plumb_exposure_popularity_lift_ratio",
          "Served popularity / interaction popularity (1 neutral, above 1 favours the head)",
@@ -47,15 +49,17 @@ std::vector<prometheus::MetricFamily> ExposureMetrics::Collect() const {
   single("plumb_exposure_gini_ratio", "Gini coefficient of item exposure in the window", s.gini);
   single("plumb_exposure_coverage_ratio", "Share of the catalogue served at least once in the window",
          s.coverage);
-  prometheus::MetricFamily exp = Gauge("plumb_exposure_group_share_ratio",
-                                       "Share of served slots per popularity group (0 = least popular)");
+  prometheus::MetricFamily exp = Gauge(
+      "plumb_exposure_group_share_ratio",
+      "Share of served slots per popularity group (group 1 = least popular, as in plumb eval)");
   prometheus::MetricFamily inter = Gauge("plumb_interaction_group_share_ratio",
-                                         "Share of training interactions per popularity group");
+                                         "Share of training interactions per popularity group "
+                                         "(group 1 = least popular)");
   for (size_t g = 0; g < s.exposure_group_shares.size(); ++g) {
-    Add(&exp, s.exposure_group_shares[g], {{"group", std::to_string(g)}});
+    Add(&exp, s.exposure_group_shares[g], {{"group", std::to_string(g + 1)}});
   }
   for (size_t g = 0; g < s.interaction_group_shares.size(); ++g) {
-    Add(&inter, s.interaction_group_shares[g], {{"group", std::to_string(g)}});
+    Add(&inter, s.interaction_group_shares[g], {{"group", std::to_string(g + 1)}});
   }
   out.push_back(std::move(exp));
   out.push_back(std::move(inter));
@@ -68,8 +72,9 @@ std::vector<prometheus::MetricFamily> ExposureMetrics::Collect() const {
            "Share of training interactions in the most popular group",
            s.interaction_group_shares.back());
   }
-  single("plumb_exposure_drift_ratio",
-         "Jensen-Shannon divergence (base 2, 0..1) between exposure and interaction group shares",
+  single("plumb_exposure_js_divergence",
+         "Jensen-Shannon divergence in bits (0 identical .. 1 disjoint) between the exposure and "
+         "the interaction group shares",
          s.drift_js);
   return out;
 }

@@ -27,6 +27,7 @@ struct ExposureWindow::Shard {
   struct ListRef {
     uint32_t size;
     int64_t time_ms;
+    uint64_t number;  // ExposureWindow::recorded_ after this list
   };
   std::deque<ListRef> lists;
   std::deque<uint32_t> items;
@@ -51,13 +52,16 @@ struct ExposureWindow::Shard {
   void DropOlderThan(int64_t cutoff_ms) {
     while (!lists.empty() && lists.front().time_ms < cutoff_ms) DropOldest();
   }
+  // Drops the lists numbered `last` or lower (out of the window).
+  void DropUpTo(uint64_t last) {
+    while (!lists.empty() && lists.front().number <= last) DropOldest();
+  }
 };
 
 ExposureWindow::ExposureWindow(const ExposureWindowOptions& options) : options_(options) {
   options_.window_lists = std::max<uint32_t>(1, options_.window_lists);
   options_.groups = std::max<uint32_t>(1, options_.groups);
   options_.shards = std::max<uint32_t>(1, options_.shards);
-  lists_per_shard_ = (options_.window_lists + options_.shards - 1) / options_.shards;
   for (uint32_t s = 0; s < options_.shards; ++s) shards_.push_back(std::make_unique<Shard>());
 }
 
@@ -83,9 +87,10 @@ void ExposureWindow::Record(const Snapshot& snap, std::span<const uint32_t> item
     shard.items.push_back(item);
     ++kept;
   }
-  shard.lists.push_back({kept, now});
+  const uint64_t number = recorded_.fetch_add(1, std::memory_order_relaxed) + 1;
+  shard.lists.push_back({kept, now, number});
   shard.slots += kept;
-  while (shard.lists.size() > lists_per_shard_) shard.DropOldest();
+  if (number > options_.window_lists) shard.DropUpTo(number - options_.window_lists);
   if (options_.window_seconds > 0) {
     shard.DropOlderThan(now - static_cast<int64_t>(options_.window_seconds * 1000.0));
   }
@@ -100,9 +105,13 @@ ExposureFigures ExposureWindow::Summarize(const Snapshot& snap) const {
       options_.window_seconds > 0
           ? SteadyMs() - static_cast<int64_t>(options_.window_seconds * 1000.0)
           : 0;
+  const uint64_t recorded = recorded_.load(std::memory_order_relaxed);
+  const uint64_t out_of_window =
+      recorded > options_.window_lists ? recorded - options_.window_lists : 0;
   for (const auto& shard_ptr : shards_) {
     Shard& shard = *shard_ptr;
     std::lock_guard<std::mutex> lock(shard.mu);
+    shard.DropUpTo(out_of_window);
     if (shard.version != snap.version() || shard.counts.size() != n) continue;
     if (options_.window_seconds > 0) shard.DropOlderThan(cutoff);
     for (uint32_t i = 0; i < n; ++i) counts[i] += shard.counts[i];

@@ -7,9 +7,12 @@
 //
 // Cost on the request path: Record() is O(K) for a list of K items (plus O(catalogue) once
 // per shard after a version change) and locks one of `shards` mutexes, picked per thread, so
-// request threads do not share one lock. The window is kept per shard: each shard holds the
-// last ceil(window_lists / shards) lists recorded through it, so the window holds about
-// window_lists lists in all (exactly all of them while fewer have been served).
+// request threads do not share one lock. Every list gets a number from one counter shared by
+// the shards, and a list belongs to the window while it is among the last window_lists
+// numbered: the window holds the last window_lists lists served, however the request
+// threads fall on the shards (exactly, when no list is being recorded during the summary).
+// A shard drops what fell out of the window when it records, and Summarize() drops it from
+// every shard, so an idle shard holds no stale lists past the next scrape.
 //
 // Lists are counted against the version that scored them. When the served version changes,
 // each shard drops what it counted for the old version the next time it records (item
@@ -19,6 +22,7 @@
 // Thread-safe: Record from any number of threads, Summarize concurrently with them.
 #pragma once
 
+#include <atomic>
 #include <cstdint>
 #include <memory>
 #include <mutex>
@@ -32,7 +36,7 @@
 namespace plumb::server {
 
 struct ExposureWindowOptions {
-  uint32_t window_lists = 20000;  // lists kept in the window (about; see above). >= 1
+  uint32_t window_lists = 20000;  // the last this many served lists form the window. >= 1
   double window_seconds = 0.0;    // also drop lists older than this; 0 = by count only
   uint32_t groups = 5;            // popularity groups of equal interaction mass. >= 1
   uint32_t shards = 16;           // independent locks. >= 1
@@ -69,7 +73,9 @@ class ExposureWindow final : public ExposureSink {
   Shard& ShardForThisThread();
 
   ExposureWindowOptions options_;
-  uint32_t lists_per_shard_;
+  // Lists recorded so far (for the current versions of the shards); a list's number is the
+  // value after its own increment, taken under its shard's lock.
+  std::atomic<uint64_t> recorded_{0};
   std::vector<std::unique_ptr<Shard>> shards_;
   // Popularity groups of the version last summarised (recomputed when the version changes).
   mutable std::mutex groups_mu_;

@@ -13,6 +13,7 @@
 #include <iostream>
 #include <memory>
 
+#include "rpc/listen_probe.h"
 #include "server/catch_up_loop.h"
 #include "server/exposure_metrics.h"
 #include "server/exposure_sink.h"
@@ -61,8 +62,18 @@ class ScratchDir {
 };
 
 int Serve(const ServeConfig& config, const sigset_t& signals) {
+  // Both addresses are checked before the store is opened and a snapshot loaded (seconds on
+  // a large catalogue): a port held by another process is reported at once.
+  plumb::Status s = plumb::rpc::ProbeListenAddress(config.endpoint.listen, "gRPC");
+  if (s.ok() && !config.metrics.empty()) {
+    s = plumb::rpc::ProbeListenAddress(config.metrics, "metrics");
+  }
+  if (!s.ok()) {
+    spdlog::critical("{}", s.message());
+    return 1;
+  }
   ScratchDir scratch;
-  plumb::Status s = scratch.Init(config.scratch_dir);
+  s = scratch.Init(config.scratch_dir);
   if (!s.ok()) {
     spdlog::critical("{}", s.ToString());
     return 1;
@@ -105,7 +116,9 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
     try {
       exposer = std::make_unique<prometheus::Exposer>(config.metrics);
     } catch (const std::exception& e) {
-      spdlog::critical("cannot serve metrics on '{}': {}", config.metrics, e.what());
+      const plumb::Status why = plumb::rpc::ProbeListenAddress(config.metrics, "metrics");
+      spdlog::critical("cannot serve metrics on '{}': {}", config.metrics,
+                       why.ok() ? std::string(e.what()) : why.message());
       return 1;
     }
     exposer->RegisterCollectable(metrics);
@@ -116,7 +129,7 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   std::unique_ptr<RankingServer> server;
   s = RankingServer::Start(config.endpoint, &service, &server);
   if (!s.ok()) {
-    spdlog::critical("{}", s.ToString());
+    spdlog::critical("cannot serve gRPC on '{}': {}", config.endpoint.listen, s.message());
     return 1;
   }
   endpoint.store(server.get());

@@ -4,6 +4,8 @@
 #include <string_view>
 #include <vector>
 
+#include "rpc/checked_methods.h"
+
 namespace plumb::server {
 
 namespace {
@@ -113,7 +115,35 @@ void AddItems(const Snapshot& snap, std::span<const ScoredIndex> items, Response
 
 RankerService::RankerService(const SnapshotHolder* holder, const Scorer* scorer,
                              RankerLimits limits, ExposureSink* exposure, ServingMetrics* metrics)
-    : holder_(holder), scorer_(scorer), limits_(limits), exposure_(exposure), metrics_(metrics) {}
+    : holder_(holder), scorer_(scorer), limits_(limits), exposure_(exposure), metrics_(metrics) {
+  // Requests are decoded by plumb, not gRPC (rpc/checked_methods.h): one that cannot be
+  // decoded gets INVALID_ARGUMENT naming the field and is counted here; the methods count
+  // every other outcome themselves.
+  using namespace plumb::v1;
+  auto observer = [this](RankerMethod method) -> rpc::CallObserver {
+    return [this, method](const grpc::Status& status, bool undecodable, double seconds) {
+      if (undecodable && metrics_ != nullptr) {
+        metrics_->ObserveRequest(method, status.error_code(), seconds);
+      }
+    };
+  };
+  const std::string service = Ranker::service_full_name();
+  MarkMethodStreamed(rpc::MethodIndex(service, "Recommend"),
+                     rpc::CheckedUnary<RecommendRequest, RecommendResponse>(
+                         [this](grpc::ServerContext* c, const RecommendRequest* q,
+                                RecommendResponse* r) { return Recommend(c, q, r); },
+                         observer(RankerMethod::kRecommend)));
+  MarkMethodStreamed(rpc::MethodIndex(service, "RankCandidates"),
+                     rpc::CheckedUnary<RankCandidatesRequest, RankCandidatesResponse>(
+                         [this](grpc::ServerContext* c, const RankCandidatesRequest* q,
+                                RankCandidatesResponse* r) { return RankCandidates(c, q, r); },
+                         observer(RankerMethod::kRankCandidates)));
+  MarkMethodStreamed(rpc::MethodIndex(service, "SimilarItems"),
+                     rpc::CheckedUnary<SimilarItemsRequest, SimilarItemsResponse>(
+                         [this](grpc::ServerContext* c, const SimilarItemsRequest* q,
+                                SimilarItemsResponse* r) { return SimilarItems(c, q, r); },
+                         observer(RankerMethod::kSimilarItems)));
+}
 
 void RankerService::Finish(RankerMethod method, const grpc::Status& status,
                            std::chrono::steady_clock::time_point start) const {
@@ -156,7 +186,7 @@ grpc::Status RankerService::Recommend(grpc::ServerContext* context,
     RecommendQuery query;
     query.user_id = request->user_id();
     query.count = request->count();
-    query.exclude_seen = request->exclude_seen();
+    query.exclude_seen = !request->include_seen();
     query.exclude_item_ids = Views(request->exclude_item_ids(), 0);
     query.recent_item_ids = Views(request->recent_item_ids(), 1);
     query.unknown_user = request->unknown_user() == plumb::v1::UNKNOWN_USER_MOST_INTERACTED

@@ -37,7 +37,9 @@ class RankerService final : public plumb::v1::Ranker::Service {
   // Status codes: INVALID_ARGUMENT (a field out of its limits), UNAVAILABLE (no version
   // loaded yet), NOT_FOUND (unknown user or item, see ranker.proto), DEADLINE_EXCEEDED
   // (the call's deadline passed while scoring), FAILED_PRECONDITION (SimilarItems for an
-  // item with a zero vector), INTERNAL (a bug).
+  // item with a zero vector), INTERNAL (a bug). A request that cannot be decoded (e.g. a
+  // string field holding invalid UTF-8) gets INVALID_ARGUMENT naming the field before any
+  // of these run (see rpc/checked_methods.h), and is counted like any other call.
   grpc::Status Recommend(grpc::ServerContext* context, const plumb::v1::RecommendRequest* request,
                          plumb::v1::RecommendResponse* response) override;
   grpc::Status RankCandidates(grpc::ServerContext* context,

@@ -8,6 +8,8 @@
 #include <sstream>
 #include <thread>
 
+#include "rpc/listen_probe.h"
+
 namespace plumb::server {
 
 namespace {
@@ -65,6 +67,9 @@ Status RankingServer::Start(const EndpointOptions& options, grpc::Service* ranke
 
   std::unique_ptr<RankingServer> server(new RankingServer());
   grpc::ServerBuilder builder;
+  // gRPC sets SO_REUSEPORT on its listeners by default: a second server on the same port
+  // would then start and take a share of the calls. One port, one process.
+  builder.AddChannelArgument(GRPC_ARG_ALLOW_REUSEPORT, 0);
   builder.AddListeningPort(options.listen, credentials, &server->port_);
   builder.RegisterService(ranker);
   builder.SetSyncServerOption(grpc::ServerBuilder::SyncServerOption::NUM_CQS, cores);
@@ -81,7 +86,8 @@ Status RankingServer::Start(const EndpointOptions& options, grpc::Service* ranke
   builder.SetResourceQuota(quota);
   server->server_ = builder.BuildAndStart();
   if (server->server_ == nullptr || server->port_ == 0) {
-    return Status::IoError("cannot listen on '" + options.listen + "'");
+    Status why = rpc::ProbeListenAddress(options.listen, "gRPC");
+    return why.ok() ? Status::IoError("cannot listen on '" + options.listen + "'") : why;
   }
   server->SetServing(false);
   *out = std::move(server);

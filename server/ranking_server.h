@@ -40,7 +40,8 @@ class RankingServer {
  public:
   // Builds and starts the server with `ranker` (borrowed; must outlive the server).
   // InvalidArgument for half a TLS configuration; IoError when a PEM file cannot be read
-  // or the address cannot be bound.
+  // or the address cannot be bound; FailedPrecondition ("address in use: ...") when another
+  // socket holds the address (port reuse is off: no two servers share a port).
   static Status Start(const EndpointOptions& options, grpc::Service* ranker,
                       std::unique_ptr<RankingServer>* out);
 

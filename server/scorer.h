@@ -37,7 +37,7 @@ inline constexpr Deadline kNoDeadline = Deadline::max();
 struct RecommendQuery {
   std::string_view user_id;
   uint32_t count = 0;
-  bool exclude_seen = false;
+  bool exclude_seen = true;  // the wire's default too (RecommendRequest.include_seen)
   std::span<const std::string_view> exclude_item_ids;  // unknown ids are ignored
   std::span<const std::string_view> recent_item_ids;   // used only for unknown users
   UnknownUserPolicy unknown_user = UnknownUserPolicy::kFail;

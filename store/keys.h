@@ -69,6 +69,8 @@ inline constexpr std::string_view kMetaActiveVersion = "plumb.active_version";
 inline constexpr std::string_view kMetaCursor = "plumb.cursor";
 inline constexpr std::string_view kMetaNextVersion = "plumb.next_version";
 inline constexpr std::string_view kMetaLastSequence = "plumb.last_sequence";
+// The pinned versions: big-endian uint64 version numbers, ascending, concatenated.
+inline constexpr std::string_view kMetaPinnedVersions = "plumb.pinned_versions";
 
 // Column family names, as created on disk.
 inline constexpr const char* kEventsFamily = "events";

@@ -167,6 +167,7 @@ struct Store::Impl {
   Status CheckComplete(const rocksdb::ReadOptions& ro, uint64_t version) const;
   Status ListVersionNumbers(const rocksdb::ReadOptions& ro, std::vector<uint64_t>* out) const;
   Status ActiveVersion(const rocksdb::ReadOptions& ro, uint64_t* version) const;
+  Status PinnedVersions(const rocksdb::ReadOptions& ro, std::set<uint64_t>* out) const;
   Status DeleteVersion(const rocksdb::ReadOptions& ro, uint64_t version,
                        rocksdb::WriteBatch* batch) const;
   Status CheckNewIds(IdSpace space, uint32_t count,
@@ -260,6 +261,23 @@ Status Store::Impl::ActiveVersion(const rocksdb::ReadOptions& ro, uint64_t* vers
   auto parsed = keys::ParseFixed64(value);
   if (!parsed) return Status::Corruption("meta: active version is not an 8-byte value");
   *version = *parsed;
+  return Status::Ok();
+}
+
+Status Store::Impl::PinnedVersions(const rocksdb::ReadOptions& ro,
+                                   std::set<uint64_t>* out) const {
+  out->clear();
+  std::string value;
+  Status s = Get(ro, meta, keys::kMetaPinnedVersions, &value, "meta: pinned versions");
+  if (s.IsNotFound()) return Status::Ok();
+  PLUMB_RETURN_IF_ERROR(s);
+  if (value.size() % 8 != 0) {
+    return Status::Corruption("meta: pinned versions hold " + std::to_string(value.size()) +
+                              " bytes, not a multiple of 8");
+  }
+  for (size_t at = 0; at < value.size(); at += 8) {
+    out->insert(keys::ReadBigEndian64(value.data() + at));
+  }
   return Status::Ok();
 }
 
@@ -884,13 +902,23 @@ Status Store::Commit(const StateChange& change, uint64_t* published) {
               [&](uint32_t b) { return keys::VersionDegreesKey(version, b); });
     batch.Put(d.meta, AsSlice(keys::kMetaNextVersion), AsSlice(keys::Fixed64(version + 1)));
 
-    // Keep the newest keep_versions versions, and the active one whatever its age.
+    // Keep the newest keep_versions versions, every version younger than
+    // keep_versions_for_ms, and the active and pinned ones whatever their rank or age.
     std::vector<uint64_t> versions;
     PLUMB_RETURN_IF_ERROR(d.ListVersionNumbers(ro, &versions));
     versions.push_back(version);
     std::sort(versions.rbegin(), versions.rend());
+    std::set<uint64_t> pinned;
+    PLUMB_RETURN_IF_ERROR(d.PinnedVersions(ro, &pinned));
+    const int64_t now_ms = NowMs();
     for (size_t k = d.options.keep_versions; k < versions.size(); ++k) {
-      if (versions[k] == new_active) continue;
+      if (versions[k] == new_active || pinned.contains(versions[k])) continue;
+      if (d.options.keep_versions_for_ms > 0) {
+        VersionManifest old;
+        uint32_t old_rpb = 0;
+        PLUMB_RETURN_IF_ERROR(d.ReadManifestLocked(ro, versions[k], &old, &old_rpb));
+        if (now_ms - old.created_ms < d.options.keep_versions_for_ms) continue;
+      }
       PLUMB_RETURN_IF_ERROR(d.DeleteVersion(ro, versions[k], &batch));
     }
   }
@@ -918,6 +946,8 @@ Status Store::ListVersions(std::vector<VersionManifest>* out) const {
   Impl::ReadView view(*impl_);
   std::vector<uint64_t> versions;
   PLUMB_RETURN_IF_ERROR(impl_->ListVersionNumbers(view.options(), &versions));
+  std::set<uint64_t> pinned;
+  PLUMB_RETURN_IF_ERROR(impl_->PinnedVersions(view.options(), &pinned));
   for (auto v = versions.rbegin(); v != versions.rend(); ++v) {
     VersionManifest manifest;
     uint32_t rpb = 0;
@@ -925,6 +955,7 @@ Status Store::ListVersions(std::vector<VersionManifest>* out) const {
     // Listed a moment ago under the same view, so a NotFound here is damage too.
     if (s.IsNotFound()) return Status::Corruption(VersionWhat(*v, "manifest vanished"));
     PLUMB_RETURN_IF_ERROR(s);
+    manifest.pinned = pinned.contains(*v);
     out->push_back(std::move(manifest));
   }
   return Status::Ok();
@@ -933,7 +964,11 @@ Status Store::ListVersions(std::vector<VersionManifest>* out) const {
 Status Store::ReadManifest(uint64_t version, VersionManifest* out) const {
   Impl::ReadView view(*impl_);
   uint32_t rpb = 0;
-  return impl_->ReadManifestLocked(view.options(), version, out, &rpb);
+  PLUMB_RETURN_IF_ERROR(impl_->ReadManifestLocked(view.options(), version, out, &rpb));
+  std::set<uint64_t> pinned;
+  PLUMB_RETURN_IF_ERROR(impl_->PinnedVersions(view.options(), &pinned));
+  out->pinned = pinned.contains(version);
+  return Status::Ok();
 }
 
 Status Store::ReadMatrix(uint64_t version, MatrixKind kind, std::span<float> dest) const {
@@ -982,6 +1017,29 @@ Status Store::Activate(uint64_t version) {
   rocksdb::WriteBatch batch;
   batch.Put(impl_->meta, AsSlice(keys::kMetaActiveVersion), AsSlice(keys::Fixed64(version)));
   return impl_->Write(&batch, "activating version " + std::to_string(version));
+}
+
+Status Store::SetPinned(uint64_t version, bool pinned) {
+  PLUMB_RETURN_IF_ERROR(impl_->RequirePrimary("SetPinned"));
+  std::lock_guard write_lock(impl_->write_mu);
+  const rocksdb::ReadOptions ro;
+  VersionManifest manifest;
+  uint32_t rpb = 0;
+  PLUMB_RETURN_IF_ERROR(impl_->ReadManifestLocked(ro, version, &manifest, &rpb));
+  std::set<uint64_t> pins;
+  PLUMB_RETURN_IF_ERROR(impl_->PinnedVersions(ro, &pins));
+  if (pins.contains(version) == pinned) return Status::Ok();
+  if (pinned) {
+    pins.insert(version);
+  } else {
+    pins.erase(version);
+  }
+  std::string value;
+  for (uint64_t v : pins) keys::PutBigEndian64(&value, v);
+  rocksdb::WriteBatch batch;
+  batch.Put(impl_->meta, AsSlice(keys::kMetaPinnedVersions), AsSlice(value));
+  return impl_->Write(&batch, std::string(pinned ? "pinning" : "unpinning") + " version " +
+                                  std::to_string(version));
 }
 
 Status Store::GetMeta(std::string_view key, std::string* value) const {

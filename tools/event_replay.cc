@@ -58,7 +58,7 @@ plumb::v1::InteractionEvent ToWire(const cli::CsvEvent& e, const std::string& id
   w.set_user_id(e.user);
   w.set_item_id(e.item);
   if (e.timestamp_ms > 0) w.set_timestamp_ms(e.timestamp_ms);
-  if (e.weight != 1.0f) w.set_weight(e.weight);
+  if (e.weight != 1.0f) w.set_weight(e.weight);  // 1 goes as unset (0), which means 1
   w.set_event_id(id);
   return w;
 }
@@ -85,6 +85,7 @@ Status ReplayEvents(std::shared_ptr<grpc::Channel> channel, const ReplayOptions&
   std::vector<cli::CsvEvent> events;
   cli::CsvReadReport report;
   PLUMB_RETURN_IF_ERROR(cli::ReadEventCsv(path, cli::CsvReadOptions{}, &events, &report));
+  summary->warnings = report.warnings;
   std::vector<uint64_t> lines = DataLineNumbers(text);
   if (lines.size() != events.size()) {
     // The file changed between the two reads; ids from it would not be reproducible.

@@ -51,6 +51,8 @@ struct ReplaySummary {
   std::string id_prefix;  // the prefix used for generated event ids
   // "file:line: REASON: detail" for the first rejected events (at most 20).
   std::vector<std::string> rejections;
+  // Likely mistakes in the file that did not stop the replay (e.g. every ts in seconds).
+  std::vector<std::string> warnings;
 };
 
 // Replays options.events_file through `channel`. Progress lines go to `progress` (may be

@@ -6,6 +6,7 @@
 #include <fstream>
 #include <memory>
 
+#include "cli/csv_reader.h"
 #include "store/store.h"
 
 namespace plumb::tools {
@@ -31,6 +32,7 @@ Status ReadIdFile(const std::string& path, std::vector<std::string>* ids) {
   while (std::getline(in, line)) {
     ++line_no;
     std::string_view id = line;
+    if (line_no == 1) id = cli::StripUtf8Bom(id);  // spreadsheets' "CSV UTF-8"
     if (const size_t comma = id.find(','); comma != std::string_view::npos)
       id = id.substr(0, comma);
     id = Trim(id);

@@ -11,7 +11,8 @@ namespace plumb::tools {
 
 // Reads one id per line. Surrounding whitespace is trimmed and empty lines are skipped; a
 // line holding a comma keeps its first field, so the first column of a CSV works too
-// (a header line then counts as an id: strip it, or use a plain list).
+// (a header line then counts as an id: strip it, or use a plain list). A leading UTF-8
+// byte-order mark is ignored.
 // NotFound when the file cannot be opened; InvalidArgument (naming file and line) for an
 // id over 256 bytes or a file without any id.
 Status ReadIdFile(const std::string& path, std::vector<std::string>* ids);

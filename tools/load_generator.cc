@@ -142,7 +142,7 @@ Status LoadGenerator::Run(LoadResult* result) {
           call->context.set_deadline(deadline);
           call->request.set_user_id((*ids_)[draw(*rng)]);
           call->request.set_count(o.count);
-          call->request.set_exclude_seen(o.exclude_seen);
+          call->request.set_include_seen(!o.exclude_seen);
           call->reader = stub.ranker->PrepareAsyncRecommend(&call->context, call->request, cq);
           call->reader->StartCall();
           call->reader->Finish(&call->response, &call->status, call);

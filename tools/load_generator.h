@@ -37,7 +37,7 @@ struct LoadOptions {
   int deadline_ms = 1000;
   // Recommend / SimilarItems fields.
   uint32_t count = 10;
-  bool exclude_seen = false;
+  bool exclude_seen = true;  // the wire's default; --include-seen turns it off
   // Which ids the calls name: rank r of a seeded permutation with weight 1/r^zipf_s.
   double zipf_s = 1.0;
   uint64_t seed = 1;

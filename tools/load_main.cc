@@ -37,6 +37,7 @@ struct LoadArgs {
   uint32_t publish_batch = 100;
   bool event_ids = false;
   double connect_timeout = 10;
+  bool include_seen = false;
   LoadOptions load;
 };
 
@@ -77,6 +78,7 @@ bool Reachable(const std::shared_ptr<grpc::Channel>& channel, double seconds) {
 
 int RunLoad(LoadArgs& a) {
   LoadOptions& o = a.load;
+  o.exclude_seen = !a.include_seen;
   o.rpc = a.rpc == "similar"  ? LoadRpc::kSimilar
           : a.rpc == "health" ? LoadRpc::kHealth
                               : LoadRpc::kRecommend;
@@ -168,6 +170,7 @@ int RunReplay(ReplayArgs& a) {
   if (Status s = MakeChannel(a.train, &channel); !s.ok()) return Fail(s.message());
   ReplaySummary summary;
   Status s = ReplayEvents(channel, o, a.quiet ? nullptr : &std::cerr, &summary);
+  for (const std::string& w : summary.warnings) std::cerr << "plumb-load: warning: " << w << "\n";
   for (const std::string& r : summary.rejections) std::cerr << "rejected: " << r << "\n";
   if (!s.ok()) {
     return Fail(s.message() + (s.code() == Status::Code::kUnavailable && summary.sent == 0
@@ -241,7 +244,8 @@ int main(int argc, char** argv) {
   app.add_option("--count", o.count, "Items per answer (Recommend, SimilarItems)")
       ->check(CLI::Range(1u, 1000000u))
       ->group(q);
-  app.add_flag("--exclude-seen", o.exclude_seen, "Recommend: leave out items the user already had")
+  app.add_flag("--include-seen", a.include_seen,
+               "Recommend: also return items the user already had (default: left out)")
       ->group(q);
   app.add_option("--deadline-ms", o.deadline_ms, "Deadline of each call")
       ->check(CLI::Range(1, 3600000))

@@ -1,7 +1,8 @@
 // plumb-query: one call to a running plumb process, answer printed for people.
 //
 //   plumb-serve (Ranker, health):  recommend, similar, rank, health
-//   plumb-train (ModelControl):    versions, status, activate, auto-activate, retrain
+//   plumb-train (ModelControl):    versions, status, activate, pin, unpin, auto-activate,
+//                                  retrain
 //
 // Exit status: 0 success (health: only when SERVING); 1 the call failed, with one line
 // "plumb-query: <STATUS_CODE>: <message>" on stderr; 2 usage error.
@@ -15,16 +16,17 @@
 #include <memory>
 #include <sstream>
 
+#include "cli/item_names.h"
 #include "grpc/health/v1/health.grpc.pb.h"
 #include "plumb/v1/control.grpc.pb.h"
 #include "plumb/v1/ranker.grpc.pb.h"
 #include "tools/client_channel.h"
-#include "tools/item_names.h"
 
 namespace {
 
 using namespace plumb::tools;
 using plumb::Status;
+using plumb::cli::ItemNames;
 
 struct Connection {
   explicit Connection(std::string target) { spec.target = std::move(target); }
@@ -39,6 +41,20 @@ int Fail(const std::string& message) {
 }
 
 int Fail(const grpc::Status& status) { return Fail(DescribeStatus(status)); }
+
+// A call to the wrong process gets UNIMPLEMENTED from gRPC, with no word of why: say which
+// process answers it. `control`: a ModelControl command (plumb-train), else a Ranker or
+// health command (plumb-serve).
+int Fail(const grpc::Status& status, const std::string& target, bool control) {
+  if (status.error_code() != grpc::StatusCode::UNIMPLEMENTED) return Fail(status);
+  return Fail(DescribeStatus(status) + " (" + target + " does not serve " +
+              (control ? "plumb.v1.ModelControl: versions, status, activate, pin, unpin and "
+                         "auto-activate are answered by plumb-train, at its --listen address "
+                         "(default 127.0.0.1:7601)"
+                       : "plumb.v1.Ranker: recommend, similar and rank are answered by "
+                         "plumb-serve, at its --listen address (default 127.0.0.1:7400)") +
+              "; is this the other process?)");
+}
 
 // Opens the channel and prepares a context with the deadline (and token, if any).
 Status Prepare(const Connection& c, std::shared_ptr<grpc::Channel>* channel,
@@ -59,7 +75,7 @@ struct ListArgs {
   Connection conn{"127.0.0.1:7400"};
   std::string id;  // user or item
   uint32_t count = 10;
-  bool exclude_seen = false;
+  bool include_seen = false;
   std::vector<std::string> recent, exclude, candidates;
   std::string names_file;
   bool fallback = false;
@@ -93,14 +109,14 @@ int Recommend(const ListArgs& a) {
   plumb::v1::RecommendRequest request;
   request.set_user_id(a.id);
   request.set_count(a.count);
-  request.set_exclude_seen(a.exclude_seen);
+  request.set_include_seen(a.include_seen);
   for (const auto& item : a.recent) request.add_recent_item_ids(item);
   for (const auto& item : a.exclude) request.add_exclude_item_ids(item);
   if (a.fallback) request.set_unknown_user(plumb::v1::UNKNOWN_USER_MOST_INTERACTED);
   plumb::v1::RecommendResponse response;
   const grpc::Status status =
       plumb::v1::Ranker::NewStub(channel)->Recommend(&context, request, &response);
-  if (!status.ok()) return Fail(status);
+  if (!status.ok()) return Fail(status, a.conn.spec.target, false);
   std::printf("model version %llu, user %s, %d items%s\n",
               static_cast<unsigned long long>(response.model_version()), a.id.c_str(),
               response.items_size(),
@@ -121,7 +137,7 @@ int Similar(const ListArgs& a) {
   plumb::v1::SimilarItemsResponse response;
   const grpc::Status status =
       plumb::v1::Ranker::NewStub(channel)->SimilarItems(&context, request, &response);
-  if (!status.ok()) return Fail(status);
+  if (!status.ok()) return Fail(status, a.conn.spec.target, false);
   std::printf("model version %llu, items like %s (cosine), %d items\n",
               static_cast<unsigned long long>(response.model_version()), a.id.c_str(),
               response.items_size());
@@ -139,7 +155,7 @@ int Rank(const ListArgs& a) {
   plumb::v1::RankCandidatesResponse response;
   const grpc::Status status =
       plumb::v1::Ranker::NewStub(channel)->RankCandidates(&context, request, &response);
-  if (!status.ok()) return Fail(status);
+  if (!status.ok()) return Fail(status, a.conn.spec.target, false);
   std::printf("model version %llu, user %s, %d of %zu candidates ranked%s\n",
               static_cast<unsigned long long>(response.model_version()), a.id.c_str(),
               response.items_size(), a.candidates.size(),
@@ -264,24 +280,25 @@ int Versions(const Connection& c) {
   plumb::v1::ListVersionsResponse response;
   const grpc::Status status = plumb::v1::ModelControl::NewStub(channel)->ListVersions(
       &context, plumb::v1::ListVersionsRequest(), &response);
-  if (!status.ok()) return Fail(status);
+  if (!status.ok()) return Fail(status, c.spec.target, true);
   if (response.versions().empty()) {
     std::printf("no versions kept\n");
     return 0;
   }
-  std::printf("%-2s %8s  %-20s  %-9s %10s %8s %8s %5s  %-14s %-8s %s\n", "", "version",
+  std::printf("%-2s %8s  %-20s  %-9s %10s %8s %8s %5s  %-14s %-8s %-6s %s\n", "", "version",
               "created (UTC)", "objective", "events", "users", "items", "dim", "val. recall",
-              "gate", "gate reason");
+              "gate", "pinned", "gate reason");
   for (const plumb::v1::VersionInfo& v : response.versions()) {
     char recall[32] = "-";
     if (std::isfinite(v.validation_recall()) && v.validation_k() > 0) {
       std::snprintf(recall, sizeof recall, "%.4f @%u", v.validation_recall(), v.validation_k());
     }
-    std::printf("%-2s %8llu  %-20s  %-9s %10llu %8u %8u %5u  %-14s %-8s %s\n",
+    std::printf("%-2s %8llu  %-20s  %-9s %10llu %8u %8u %5u  %-14s %-8s %-6s %s\n",
                 v.active() ? "*" : "", static_cast<unsigned long long>(v.version()),
                 FormatTime(v.created_ms()).c_str(), v.objective().c_str(),
                 static_cast<unsigned long long>(v.events_seen()), v.num_users(), v.num_items(),
-                v.dim(), recall, GateName(v.gate()), v.gate_reason().c_str());
+                v.dim(), recall, GateName(v.gate()), v.pinned() ? "yes" : "-",
+                v.gate_reason().c_str());
     std::printf("%-2s %8s  trained: %s\n", "", "", FormatTraining(v.training()).c_str());
   }
   return 0;
@@ -310,7 +327,7 @@ int TrainerStatus(const Connection& c) {
   plumb::v1::TrainerStatus response;
   const grpc::Status status = plumb::v1::ModelControl::NewStub(channel)->GetStatus(
       &context, plumb::v1::GetStatusRequest(), &response);
-  if (!status.ok()) return Fail(status);
+  if (!status.ok()) return Fail(status, c.spec.target, true);
   PrintStatus(response);
   return 0;
 }
@@ -324,10 +341,26 @@ int Activate(const Connection& c, uint64_t version) {
   plumb::v1::ActivateResponse response;
   const grpc::Status status =
       plumb::v1::ModelControl::NewStub(channel)->Activate(&context, request, &response);
-  if (!status.ok()) return Fail(status);
+  if (!status.ok()) return Fail(status, c.spec.target, true);
   std::printf("active version %llu (was %llu)\n",
               static_cast<unsigned long long>(response.active_version()),
               static_cast<unsigned long long>(response.previous_version()));
+  return 0;
+}
+
+int Pin(const Connection& c, uint64_t version, bool pinned) {
+  std::shared_ptr<grpc::Channel> channel;
+  grpc::ClientContext context;
+  if (Status s = Prepare(c, &channel, &context); !s.ok()) return Fail(s.message());
+  plumb::v1::SetPinnedRequest request;
+  request.set_version(version);
+  request.set_pinned(pinned);
+  plumb::v1::VersionInfo response;
+  const grpc::Status status =
+      plumb::v1::ModelControl::NewStub(channel)->SetPinned(&context, request, &response);
+  if (!status.ok()) return Fail(status, c.spec.target, true);
+  std::printf("version %llu is %s\n", static_cast<unsigned long long>(response.version()),
+              response.pinned() ? "pinned: never pruned" : "unpinned: pruned by the retention rules");
   return 0;
 }
 
@@ -340,7 +373,7 @@ int AutoActivate(const Connection& c, const std::string& setting) {
   plumb::v1::TrainerStatus response;
   const grpc::Status status =
       plumb::v1::ModelControl::NewStub(channel)->SetAutoActivate(&context, request, &response);
-  if (!status.ok()) return Fail(status);
+  if (!status.ok()) return Fail(status, c.spec.target, true);
   PrintStatus(response);
   return 0;
 }
@@ -382,7 +415,8 @@ int main(int argc, char** argv) {
   AddConnection(recommend, &rec.conn, false);
   recommend->add_option("--user", rec.id, "External user id")->required();
   recommend->add_option("--count", rec.count, "How many items")->check(CLI::Range(1u, 1000000u));
-  recommend->add_flag("--exclude-seen", rec.exclude_seen, "Leave out items the user already had");
+  recommend->add_flag("--include-seen", rec.include_seen,
+                      "Also return items the user already had (default: left out)");
   recommend
       ->add_option("--recent", rec.recent,
                    "For a user the model does not know: recent items, most recent first")
@@ -438,6 +472,16 @@ int main(int argc, char** argv) {
   activate->add_option("--version", version, "Version number")
       ->required()
       ->check(CLI::PositiveNumber);
+  uint64_t pin_version = 0;
+  CLI::App* pin = app.add_subcommand(
+      "pin", "Pin a kept version: never pruned, whatever its age (ModelControl/SetPinned)");
+  AddConnection(pin, &control, true);
+  pin->add_option("--version", pin_version, "Version number")->required()->check(CLI::PositiveNumber);
+  CLI::App* unpin = app.add_subcommand("unpin", "Unpin a version: the retention rules apply again");
+  AddConnection(unpin, &control, true);
+  unpin->add_option("--version", pin_version, "Version number")
+      ->required()
+      ->check(CLI::PositiveNumber);
   std::string setting;
   CLI::App* auto_activate = app.add_subcommand(
       "auto-activate", "Turn automatic activation of gate-passing versions on or off");
@@ -467,5 +511,7 @@ int main(int argc, char** argv) {
   if (*status) return TrainerStatus(control);
   if (*activate) return Activate(control, version);
   if (*retrain) return Retrain(control, retrain_reason);
+  if (*pin) return Pin(control, pin_version, true);
+  if (*unpin) return Pin(control, pin_version, false);
   return AutoActivate(control, setting);
 }

@@ -322,7 +322,7 @@ v1::RecommendRequest RealRequest(uint32_t k) {
   v1::RecommendRequest r;
   r.set_user_id("member-" + std::to_string((k * 7919u) % kUsers));
   r.set_count(kTop);
-  r.set_exclude_seen(true);
+  // include_seen unset: seen items left out (the default).
   return r;
 }
 

@@ -64,16 +64,16 @@ EOF
 echo "== plumb-serve alone"
 start_serve
 for c in 1 4; do run "floor-c$c" --rpc health --concurrency "$c"; done
-for c in 1 2 4 8; do run "recommend-c$c" --rpc recommend --exclude-seen --count 20 --concurrency "$c"; done
+for c in 1 2 4 8; do run "recommend-c$c" --rpc recommend --count 20 --concurrency "$c"; done
 stop_serve
 
 echo "== exposure monitor off vs on (alternated), Recommend at 4 in flight"
 for round in 1 2; do
   start_serve --exposure-monitor false
-  run "monitor-off-$round" --rpc recommend --exclude-seen --count 20 --concurrency 4
+  run "monitor-off-$round" --rpc recommend --count 20 --concurrency 4
   stop_serve
   start_serve --exposure-monitor true
-  run "monitor-on-$round" --rpc recommend --exclude-seen --count 20 --concurrency 4
+  run "monitor-on-$round" --rpc recommend --count 20 --concurrency 4
   stop_serve
 done
 
@@ -85,7 +85,7 @@ pids+=($!)
 for _ in $(seq 150); do "$QUERY" status --target "$T" >/dev/null 2>&1 && break; sleep 0.2; done
 stream=(--publish-rate 10000 --publish-batch 100 --ingest-target "$T" --items-file "$tmp/w/items.csv")
 run "floor-c4-events" --rpc health --concurrency 4 "${stream[@]}"
-run "recommend-c1-events" --rpc recommend --exclude-seen --count 20 --concurrency 1 "${stream[@]}"
-run "recommend-c4-events" --rpc recommend --exclude-seen --count 20 --concurrency 4 "${stream[@]}"
+run "recommend-c1-events" --rpc recommend --count 20 --concurrency 1 "${stream[@]}"
+run "recommend-c4-events" --rpc recommend --count 20 --concurrency 4 "${stream[@]}"
 echo "  versions served by plumb-serve during the run:"
 grep -o "serving version [0-9]*.*" "$tmp/serve.log" | sed 's/^/    /' | tail -5

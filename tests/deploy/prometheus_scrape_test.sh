@@ -265,13 +265,13 @@ for sample in query('plumb_exposure_group_share_ratio{job="plumb-serve"}'):
     group = sample["metric"].get("group")
     share = number(sample, "plumb_exposure_group_share_ratio")
     if group is None or not group.isdigit():
-        fail("plumb_exposure_group_share_ratio has group label %r, expected 0..G-1" % group)
+        fail("plumb_exposure_group_share_ratio has group label %r, expected 1..G" % group)
     if not 0.0 <= share <= 1.0:
         fail("plumb_exposure_group_share_ratio{group=%r} = %r, outside [0, 1]" % (group, share))
     shares.setdefault(instance, {})[int(group)] = share
 for instance, by_group in shares.items():
-    if sorted(by_group) != list(range(len(by_group))) or len(by_group) < 2:
-        fail("plumb_exposure_group_share_ratio groups %s, expected 0..G-1 with G >= 2"
+    if sorted(by_group) != list(range(1, len(by_group) + 1)) or len(by_group) < 2:
+        fail("plumb_exposure_group_share_ratio groups %s, expected 1..G with G >= 2"
              % sorted(by_group))
     total = math.fsum(by_group.values())
     # Shares of one set of served slots over a partition of the catalogue sum to 1.

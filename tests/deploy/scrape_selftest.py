@@ -99,7 +99,7 @@ def main():
             expected.update(served_values(train_text))
             checked = ["plumb_exposure_gini_ratio", "plumb_exposure_popularity_lift_ratio",
                        "plumb_events_accepted_total"] + [
-                       'plumb_exposure_group_share_ratio{group="%d"}' % g for g in range(4)]
+                       'plumb_exposure_group_share_ratio{group="%d"}' % g for g in range(1, 5)]
             for series in checked:
                 if series not in reported:
                     raise SystemExit("selftest: the script did not report %s" % series)
@@ -118,8 +118,8 @@ def main():
                            r"plumb_exposure_gini_ratio = 1\.3, outside \[0, 1\]")
         elif case == "shares-off":
             serve = fake_exporter.serve(replace_once(
-                serve_text, 'plumb_exposure_group_share_ratio{group="3"} 0.5',
-                'plumb_exposure_group_share_ratio{group="3"} 0.3'))
+                serve_text, 'plumb_exposure_group_share_ratio{group="4"} 0.5',
+                'plumb_exposure_group_share_ratio{group="4"} 0.3'))
             train = fake_exporter.serve(train_text)
             exporters += [serve, train]
             expect_failure(run_script(serve.address, train.address, 20),

@@ -42,6 +42,7 @@ TEST(TrainMetrics, NamesAreTheAgreedOnesAndValuesFollowTheTotals) {
   loop.last_loss = 0.42;
   loop.candidates_passed = 2;
   loop.candidates_failed = 1;
+  loop.candidates_skipped = 4;
   loop.active_version = 3;
   loop.active_validation_recall = 0.31;
   loop.candidate_validation_recall = 0.29;
@@ -63,8 +64,9 @@ TEST(TrainMetrics, NamesAreTheAgreedOnesAndValuesFollowTheTotals) {
   EXPECT_EQ(m["plumb_training_samples_total{objective=\"cpr\"}"], 50'000);
   EXPECT_EQ(m["plumb_candidate_versions_total{outcome=\"passed\"}"], 2);
   EXPECT_EQ(m["plumb_candidate_versions_total{outcome=\"failed\"}"], 1);
-  EXPECT_EQ(m["plumb_validation_recall_ratio{version=\"active\"}"], 0.31);
-  EXPECT_EQ(m["plumb_validation_recall_ratio{version=\"candidate\"}"], 0.29);
+  EXPECT_EQ(m["plumb_candidate_versions_total{outcome=\"skipped\"}"], 4);  // not "passed"
+  EXPECT_EQ(m["plumb_validation_recall_ratio{role=\"active\"}"], 0.31);
+  EXPECT_EQ(m["plumb_validation_recall_ratio{role=\"candidate\"}"], 0.29);
   EXPECT_EQ(m["plumb_trainer_active_version"], 3);
   EXPECT_EQ(m["plumb_last_publish_timestamp_seconds"], 1'700'000'000.5);
 

@@ -8,6 +8,7 @@
 #include <cstdlib>
 #include <fstream>
 #include <map>
+#include <set>
 #include <thread>
 
 #include "plumb/v1/ranker.grpc.pb.h"
@@ -129,11 +130,43 @@ TEST_F(RankerServerTest, UnavailableAndNotServingUntilTheFirstSnapshot) {
   EXPECT_EQ(rec.model_version(), 7u);
 }
 
+// Seen items are left out unless the request sets include_seen (the field's zero value is
+// the common case). Asking for the whole catalogue but tool-0 shows it: by default the user's
+// 10 training items are missing; with include_seen they come back, ranked as the scorer
+// ranks them.
+TEST_F(RankerServerTest, IncludeSeenBringsBackTheUsersTrainingItems) {
+  const TestModel m = RandomModel(20, 300, 8, 10, 2, false);
+  Load(m, 3);
+  v1::RecommendResponse response;
+  RankedList direct;
+  std::vector<std::string_view> ex = {"tool-0"};
+  RecommendQuery q;
+  q.user_id = "member-4";
+  q.exclude_item_ids = ex;
+  std::set<std::string> seen;
+  for (uint32_t s : m.seen[4]) seen.insert(m.item_ids[s]);
+  const int all_but_one = 299;
+  const int expected_without = all_but_one - static_cast<int>(seen.size() - seen.count("tool-0"));
+  auto everything = RecommendFor("member-4", all_but_one);
+  everything.add_exclude_item_ids("tool-0");
+  ASSERT_TRUE(Recommend(everything, &response).ok());
+  EXPECT_EQ(response.items_size(), expected_without);
+  for (const auto& item : response.items()) EXPECT_EQ(seen.count(item.item_id()), 0u);
+  everything.set_include_seen(true);
+  ASSERT_TRUE(Recommend(everything, &response).ok());
+  ASSERT_EQ(response.items_size(), all_but_one);
+  q.count = all_but_one;
+  q.exclude_seen = false;
+  ASSERT_TRUE(scorer_.Recommend(*holder_.Get(), q, &direct).ok());
+  for (int r = 0; r < all_but_one; ++r) {
+    EXPECT_EQ(response.items(r).item_id(), m.item_ids[direct.items[r].index]);
+  }
+}
+
 TEST_F(RankerServerTest, ResponsesCarryIdsScoresAndVersionAndAreCounted) {
   const TestModel m = RandomModel(20, 300, 8, 10, 2, false);
   Load(m, 3);
-  auto request = RecommendFor("member-4", 12);
-  request.set_exclude_seen(true);
+  auto request = RecommendFor("member-4", 12);  // include_seen unset: seen items left out
   request.add_exclude_item_ids("tool-0");
   v1::RecommendResponse response;
   ASSERT_TRUE(Recommend(request, &response).ok());

@@ -113,7 +113,7 @@ TEST(HotSwapTest, FourClientsSeeOnlyActiveVersionsInOrderWithoutAFailure) {
       v1::RecommendRequest request;
       request.set_user_id(kUser);
       request.set_count(kTop);
-      request.set_exclude_seen(true);
+      // include_seen unset: seen items left out, the default the expectation assumes.
       while (!stop.load()) {
         grpc::ClientContext context;
         context.set_deadline(std::chrono::system_clock::now() + std::chrono::seconds(10));

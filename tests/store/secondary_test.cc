@@ -119,6 +119,7 @@ TEST_F(SecondaryTest, NoStoreNoSecondary) {
 TEST_F(SecondaryTest, ReadsNeverSeeHalfACatchUp) {
   StoreOptions options = testing::TestOptions();
   options.keep_versions = 2;
+  options.keep_versions_for_ms = 0;  // by count only
   options.rows_per_block = 8;
   Open(options);
   AddIds(64, 64);

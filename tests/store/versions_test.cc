@@ -1,4 +1,5 @@
 // Versions: publish, read back exactly, list, prune, activate.
+#include <chrono>
 #include <cmath>
 #include <cstring>
 
@@ -19,6 +20,7 @@ class VersionsTest : public StoreFixture {
     StoreOptions options = testing::TestOptions();
     options.rows_per_block = 4;  // small blocks: every matrix below spans several
     options.keep_versions = 3;
+    options.keep_versions_for_ms = 0;  // by count only, unless a test says otherwise
     Open(options);
     AddIds(10, 7);
   }
@@ -154,6 +156,64 @@ TEST_F(VersionsTest, PruningKeepsTheNewestAndNeverTheActive) {
   // Numbers are never reused, even for pruned versions and after a reopen.
   Reopen();
   EXPECT_EQ(Publish(2, 8, false), 8u);
+}
+
+// Versions younger than keep_versions_for_ms stay whatever their rank; older ones beyond the
+// newest keep_versions go. Ages are set through created_ms (a manifest may carry its own).
+TEST_F(VersionsTest, PruningKeepsEveryVersionYoungerThanTheAgeRule) {
+  StoreOptions options = testing::TestOptions();
+  options.keep_versions = 2;
+  options.keep_versions_for_ms = 3600 * 1000;  // one hour
+  Open(options);
+  const int64_t now = std::chrono::duration_cast<std::chrono::milliseconds>(
+                          std::chrono::system_clock::now().time_since_epoch())
+                          .count();
+  auto publish_aged = [&](int64_t age_ms, float fill) {
+    auto v = MakeVersion(10, 7, 2, fill);
+    v->write.manifest.created_ms = now - age_ms;
+    StateChange change;
+    change.version = &v->write;
+    uint64_t published = 0;
+    EXPECT_TRUE(store_->Commit(change, &published).ok());
+    return published;
+  };
+  const int64_t hour = 3600 * 1000;
+  publish_aged(3 * hour, 1);  // 1: old
+  publish_aged(2 * hour, 2);  // 2: old
+  publish_aged(hour / 2, 3);  // 3: young
+  publish_aged(hour / 4, 4);  // 4: young
+  // Version 1 and 2 are beyond the newest two and older than an hour: gone; 3 stays by age.
+  EXPECT_EQ(Listed(), (std::vector<uint64_t>{4, 3}));
+  publish_aged(0, 5);
+  publish_aged(0, 6);
+  EXPECT_EQ(Listed(), (std::vector<uint64_t>{6, 5, 4, 3}));
+}
+
+// A pinned version survives any rule; unpinned, it goes at the next publish.
+TEST_F(VersionsTest, PinnedVersionsAreNeverPruned) {
+  ASSERT_EQ(Publish(2, 1, /*activate=*/true), 1u);
+  const uint64_t pinned = Publish(2, 2, false);
+  ASSERT_TRUE(store_->SetPinned(pinned, true).ok());
+  ASSERT_TRUE(store_->SetPinned(pinned, true).ok());  // idempotent
+  for (int k = 3; k <= 7; ++k) Publish(2, static_cast<float>(k), false);
+  // keep_versions = 3 (by count only here): 5..7, the active 1 and the pinned 2.
+  EXPECT_EQ(Listed(), (std::vector<uint64_t>{7, 6, 5, 2, 1}));
+  VersionManifest m;
+  ASSERT_TRUE(store_->ReadManifest(pinned, &m).ok());
+  EXPECT_TRUE(m.pinned);
+  ASSERT_TRUE(store_->ReadManifest(7, &m).ok());
+  EXPECT_FALSE(m.pinned);
+  std::vector<VersionManifest> listed;
+  ASSERT_TRUE(store_->ListVersions(&listed).ok());
+  EXPECT_TRUE(listed[3].pinned);
+  EXPECT_FALSE(listed[4].pinned);
+
+  // Pins survive a reopen; NotFound for a version that is not kept.
+  Reopen();
+  EXPECT_TRUE(store_->SetPinned(4, true).IsNotFound());
+  ASSERT_TRUE(store_->SetPinned(pinned, false).ok());
+  Publish(2, 8, false);
+  EXPECT_EQ(Listed(), (std::vector<uint64_t>{8, 7, 6, 1}));
 }
 
 TEST_F(VersionsTest, ActivatePublishedAndActivateStored) {

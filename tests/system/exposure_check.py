@@ -63,7 +63,7 @@ def main():
     version = None
     for user in users:
         out = subprocess.run([query, "recommend", "--target", serve, "--user", user,
-                              "--count", str(count), "--exclude-seen"],
+                              "--count", str(count)],
                              capture_output=True, text=True, check=True).stdout
         got = re.findall(r"^\s*\d+\s+(\S+)\s", out, re.M)
         assert len(got) == count, out
@@ -93,16 +93,17 @@ def main():
         int_share[group[k]] += d[k] / total
     expected = {
         "plumb_exposure_window_lists": len(users),
-        "plumb_exposure_served_popularity": arp,
-        "plumb_exposure_interaction_popularity": inter,
+        "plumb_exposure_served_popularity_interactions": arp,
+        "plumb_interaction_popularity_interactions": inter,
         "plumb_exposure_popularity_lift_ratio": arp / inter,
         "plumb_exposure_gini_ratio": gini(list(counts.values())),
         "plumb_exposure_coverage_ratio": sum(1 for c in counts.values() if c) / len(items),
-        "plumb_exposure_drift_ratio": js(exp_share, int_share),
+        "plumb_exposure_js_divergence": js(exp_share, int_share),
     }
     for g in range(groups):
-        expected['plumb_exposure_group_share_ratio{group="%d"}' % g] = exp_share[g]
-        expected['plumb_interaction_group_share_ratio{group="%d"}' % g] = int_share[g]
+        # Groups are numbered from 1 (least popular), as plumb eval numbers them.
+        expected['plumb_exposure_group_share_ratio{group="%d"}' % (g + 1)] = exp_share[g]
+        expected['plumb_interaction_group_share_ratio{group="%d"}' % (g + 1)] = int_share[g]
 
     text = urllib.request.urlopen("http://%s/metrics" % metrics, timeout=10).read().decode()
     reported = {}

@@ -51,7 +51,7 @@ swaps_before=$(metric "$SERVE_METRICS" plumb_snapshot_swaps_total)
   >"$tmp/replay.log" 2>&1 &
 replay_pid=$!
 "$LOAD" --target "$SERVE_ADDR" --users-file "$tmp/users.txt" --duration 15 --concurrency 4 \
-  --count 20 --exclude-seen --json "$tmp/swap.json" >"$tmp/load1.log" 2>&1 || fail "plumb-load (hot swap)"
+  --count 20 --json "$tmp/swap.json" >"$tmp/load1.log" 2>&1 || fail "plumb-load (hot swap)"
 wait $replay_pid; replay_pid=
 swaps_after=$(metric "$SERVE_METRICS" plumb_snapshot_swaps_total)
 swaps=$(( ${swaps_after%.*} - ${swaps_before%.*} ))

@@ -76,6 +76,12 @@ TEST(IdFileTest, OneIdPerLineFirstCsvColumnBlankLinesSkipped) {
   EXPECT_EQ(ids, (std::vector<std::string>{"m1", "m2", "t7"}));
 }
 
+TEST(IdFileTest, AByteOrderMarkBeforeTheFirstIdIsIgnored) {
+  std::vector<std::string> ids;
+  ASSERT_TRUE(ReadIdFile(WriteFile("bom_ids.txt", "\xEF\xBB\xBFm1\r\nm2\r\n"), &ids).ok());
+  EXPECT_EQ(ids, (std::vector<std::string>{"m1", "m2"}));
+}
+
 TEST(IdFileTest, RefusesOverlongIdsAndEmptyFiles) {
   std::vector<std::string> ids;
   const Status s = ReadIdFile(WriteFile("long.txt", "ok\n" + std::string(257, 'x') + "\n"), &ids);

@@ -114,6 +114,22 @@ constexpr char kHistory[] =
     "m1,t2,4000,\n"            // 6
     "m2,t3,5000,\n";           // 7
 
+// A spreadsheet's "CSV UTF-8" (byte-order mark EF BB BF first) replays like plain CSV, with
+// the same line-numbered ids.
+TEST_F(EventReplayTest, AFileWithAByteOrderMarkReplaysLikePlainCsv) {
+  ReplayOptions options;
+  options.events_file = WriteFile("history_bom.csv", std::string("\xEF\xBB\xBF") + kHistory);
+  options.id_prefix = "h";
+  ReplaySummary summary;
+  std::ostringstream progress;
+  const Status s = ReplayEvents(channel_, options, &progress, &summary);
+  ASSERT_TRUE(s.ok()) << s.ToString();
+  ASSERT_EQ(ingest_.received.size(), 5u);
+  EXPECT_EQ(ingest_.received[0].user_id(), "m1");
+  EXPECT_EQ(ingest_.received[0].event_id(), "h:2");
+  EXPECT_EQ(ingest_.received[4].event_id(), "h:7");
+}
+
 TEST_F(EventReplayTest, SendsEveryEventInFileOrderWithLineIds) {
   ReplayOptions options;
   options.events_file = WriteFile("history.csv", kHistory);

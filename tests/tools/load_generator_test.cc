@@ -27,7 +27,7 @@ class CountingRanker final : public plumb::v1::Ranker::Service {
       std::lock_guard<std::mutex> lock(mu);
       ++asked[request->user_id()];
       last_count = request->count();
-      last_exclude_seen = request->exclude_seen();
+      last_exclude_seen = !request->include_seen();
     }
     if (request->user_id() == "ghost") {
       return grpc::Status(grpc::StatusCode::NOT_FOUND, "unknown user 'ghost'");
@@ -112,8 +112,7 @@ TEST_F(LoadGeneratorTest, ClosedLoopCountsOkCallsAndErrorsByCode) {
   o.duration_seconds = 0.5;
   o.zipf_s = 0;
   o.count = 7;
-  o.exclude_seen = true;
-  LoadGenerator generator(channels_, &users, o);
+  LoadGenerator generator(channels_, &users, o);  // seen items left out by default
   LoadResult result;
   ASSERT_TRUE(generator.Run(&result).ok());
   const CallTally& t = result.calls;

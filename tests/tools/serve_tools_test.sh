@@ -76,7 +76,7 @@ check "recommend load without ids: exit 1 with a reason" \
 
 # ---- plumb-query recommend, checked against the offline ranking of `plumb top` ------------------
 user=$(sed -n 2p "$tmp/world/events.csv" | cut -d, -f1)
-"$QUERY" recommend --target "$target" --user "$user" --count 5 --exclude-seen \
+"$QUERY" recommend --target "$target" --user "$user" --count 5 \
   --names "$tmp/world/items.csv" >"$tmp/rec.txt" 2>&1
 rc=$?
 cat "$tmp/rec.txt"
@@ -93,7 +93,17 @@ check "recommend shows each item's name from items.csv" '[ $names_ok -eq 1 ]'
 "$PLUMB" top --db "$tmp/db" --user "$user" --count 5 >"$tmp/top.txt" 2>&1
 served=$(awk '/^ +[0-9]+ +t/ {print $2}' "$tmp/rec.txt" | tr '\n' ' ')
 offline=$(awk '/^ +[0-9]+\. / {print $2}' "$tmp/top.txt" | tr '\n' ' ')
-check "served list (exclude-seen) = offline 'plumb top' list [$served]" '[ -n "$served" ] && [ "$served" = "$offline" ]'
+check "served list (seen items left out by default) = offline 'plumb top' list [$served]" '[ -n "$served" ] && [ "$served" = "$offline" ]'
+# Both include seen items only when asked, and then still agree: the whole catalogue (150
+# items) comes back, the user's own items among them.
+"$QUERY" recommend --target "$target" --user "$user" --count 150 --include-seen >"$tmp/rec_seen.txt" 2>&1
+"$PLUMB" top --db "$tmp/db" --user "$user" --count 150 --include-seen >"$tmp/top_seen.txt" 2>&1
+served_seen=$(awk '/^ +[0-9]+ +t/ {print $2}' "$tmp/rec_seen.txt" | tr '\n' ' ')
+offline_seen=$(awk '/^ +[0-9]+\. / {print $2}' "$tmp/top_seen.txt" | tr '\n' ' ')
+check "--include-seen: served = offline (150 items)" '[ "$(echo $served_seen | wc -w)" = 150 ] && [ "$served_seen" = "$offline_seen" ]'
+seen_items=$(awk -F, -v u="$user" '$1 == u {print $2}' "$tmp/world/events.csv" | sort -u)
+overlap=0; for i in $served_seen; do printf '%s\n' "$seen_items" | grep -qx "$i" && overlap=1; done
+check "--include-seen brings back at least one item the user had (else the check proves nothing)" '[ $overlap -eq 1 ]'
 
 "$QUERY" similar --target "$target" --item t0 --count 3 >"$tmp/sim.txt" 2>&1; rc=$?
 check "similar prints 3 items, never the query item" \
@@ -117,6 +127,11 @@ out=$("$QUERY" recommend --target "$target" 2>&1); rc=$?
 check "missing --user: usage error exit 2, one line" '[ $rc -eq 2 ] && [ "$(printf "%s\n" "$out" | wc -l)" -eq 1 ]'
 out=$("$QUERY" recommend --target "$target" --user "$user" --count 0 2>&1); rc=$?
 check "count 0: usage error exit 2" '[ $rc -eq 2 ]'
+
+# A trainer command sent to plumb-serve: UNIMPLEMENTED, and the message says who answers it.
+out=$("$QUERY" status --target "$target" 2>&1); rc=$?
+check "status against plumb-serve: exit 1, names plumb-train [$out]" \
+  '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "^plumb-query: UNIMPLEMENTED.*answered by plumb-train"'
 
 # ---- health ----------------------------------------------------------------------------------------
 out=$("$QUERY" health --target "$target" 2>&1); rc=$?

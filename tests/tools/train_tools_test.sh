@@ -106,6 +106,9 @@ check "activate of a version not kept: NOT_FOUND, exit 1 [$out]" \
   '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "^plumb-query: NOT_FOUND"'
 out=$("$QUERY" activate --target "$train" --token-file "$tmp/token" --version "$active" 2>&1); rc=$?
 check "activate the active version again [$out]" '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "^active version $active (was $active)"'
+out=$("$QUERY" recommend --target "$train" --user m1 2>&1); rc=$?
+check "recommend against plumb-train: exit 1, names plumb-serve [$out]" \
+  '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "UNIMPLEMENTED.*answered by plumb-serve"'
 out=$("$QUERY" auto-activate maybe --target "$train" --token-file "$tmp/token" 2>&1); rc=$?
 check "auto-activate maybe: usage error, exit 2" '[ $rc -eq 2 ]'
 out=$("$QUERY" auto-activate on --target "$train" --token-file "$tmp/token" 2>&1); rc=$?

@@ -4,6 +4,7 @@
 #include <string>
 #include <vector>
 
+#include "rpc/checked_methods.h"
 #include "store/store.h"
 #include "trainer/online/online_loop.h"
 
@@ -44,6 +45,24 @@ void FillTraining(const store::TrainingConfig& c, plumb::v1::TrainingConfig* out
   out->set_refit_pairs(c.refit_pairs);
 }
 
+void FillVersionInfo(const store::VersionManifest& m, uint64_t active, plumb::v1::VersionInfo* v) {
+  v->set_version(m.version);
+  v->set_created_ms(m.created_ms);
+  v->set_objective(m.objective);
+  v->set_events_seen(m.events_seen);
+  v->set_num_users(m.num_users);
+  v->set_num_items(m.num_items);
+  v->set_dim(m.dim);
+  v->set_validation_recall(m.validation_recall);
+  v->set_validation_k(m.validation_k);
+  v->set_gate(WireGate(m.gate));
+  v->set_gate_reason(m.gate_reason);
+  v->set_active(m.version == active);
+  v->set_pinned(m.pinned);
+  v->set_num_interactions(m.num_interactions);
+  FillTraining(m.training, v->mutable_training());
+}
+
 }  // namespace
 
 grpc::Status ToGrpcStatus(const Status& status, const std::string& what) {
@@ -71,8 +90,43 @@ grpc::Status ToGrpcStatus(const Status& status, const std::string& what) {
 }
 
 ControlService::ControlService(store::Store* store, OnlineLoop* loop,
-                               const CallAdmission& admission)
-    : store_(store), loop_(loop), admission_(admission) {}
+                               const CallAdmission& admission, TrainMetrics* metrics)
+    : store_(store), loop_(loop), admission_(admission) {
+  using namespace plumb::v1;
+  auto observer = [metrics](const char* method) -> rpc::CallObserver {
+    if (metrics == nullptr) return {};
+    return [metrics, method](const grpc::Status& status, bool undecodable, double) {
+      if (undecodable) metrics->CountUndecodable(method);
+      metrics->CountCall(method, rpc::GrpcCodeName(status.error_code()));
+    };
+  };
+  const std::string service = ModelControl::service_full_name();
+  MarkMethodStreamed(rpc::MethodIndex(service, "ListVersions"),
+                     rpc::CheckedUnary<ListVersionsRequest, ListVersionsResponse>(
+                         [this](grpc::ServerContext* c, const ListVersionsRequest* q,
+                                ListVersionsResponse* r) { return ListVersions(c, q, r); },
+                         observer("ListVersions")));
+  MarkMethodStreamed(rpc::MethodIndex(service, "GetStatus"),
+                     rpc::CheckedUnary<GetStatusRequest, TrainerStatus>(
+                         [this](grpc::ServerContext* c, const GetStatusRequest* q,
+                                TrainerStatus* r) { return GetStatus(c, q, r); },
+                         observer("GetStatus")));
+  MarkMethodStreamed(rpc::MethodIndex(service, "Activate"),
+                     rpc::CheckedUnary<ActivateRequest, ActivateResponse>(
+                         [this](grpc::ServerContext* c, const ActivateRequest* q,
+                                ActivateResponse* r) { return Activate(c, q, r); },
+                         observer("Activate")));
+  MarkMethodStreamed(rpc::MethodIndex(service, "SetAutoActivate"),
+                     rpc::CheckedUnary<SetAutoActivateRequest, TrainerStatus>(
+                         [this](grpc::ServerContext* c, const SetAutoActivateRequest* q,
+                                TrainerStatus* r) { return SetAutoActivate(c, q, r); },
+                         observer("SetAutoActivate")));
+  MarkMethodStreamed(rpc::MethodIndex(service, "SetPinned"),
+                     rpc::CheckedUnary<SetPinnedRequest, VersionInfo>(
+                         [this](grpc::ServerContext* c, const SetPinnedRequest* q,
+                                VersionInfo* r) { return SetPinned(c, q, r); },
+                         observer("SetPinned")));
+}
 
 grpc::Status ControlService::ListVersions(grpc::ServerContext* context,
                                           const plumb::v1::ListVersionsRequest*,
@@ -88,21 +142,7 @@ grpc::Status ControlService::ListVersions(grpc::ServerContext* context,
     return ToGrpcStatus(s, "cannot read the active version");
   }
   for (const store::VersionManifest& m : manifests) {
-    plumb::v1::VersionInfo* v = response->add_versions();
-    v->set_version(m.version);
-    v->set_created_ms(m.created_ms);
-    v->set_objective(m.objective);
-    v->set_events_seen(m.events_seen);
-    v->set_num_users(m.num_users);
-    v->set_num_items(m.num_items);
-    v->set_dim(m.dim);
-    v->set_validation_recall(m.validation_recall);
-    v->set_validation_k(m.validation_k);
-    v->set_gate(WireGate(m.gate));
-    v->set_gate_reason(m.gate_reason);
-    v->set_active(m.version == active);
-    v->set_num_interactions(m.num_interactions);
-    FillTraining(m.training, v->mutable_training());
+    FillVersionInfo(m, active, response->add_versions());
   }
   return grpc::Status::OK;
 }
@@ -157,6 +197,30 @@ grpc::Status ControlService::Activate(grpc::ServerContext* context,
   }
   response->set_active_version(request->version());
   response->set_previous_version(previous);
+  return grpc::Status::OK;
+}
+
+grpc::Status ControlService::SetPinned(grpc::ServerContext* context,
+                                       const plumb::v1::SetPinnedRequest* request,
+                                       plumb::v1::VersionInfo* response) {
+  InflightCalls::Scope scope;
+  if (grpc::Status s = Admit(admission_, *context, &scope); !s.ok()) return s;
+  const uint64_t version = request->version();
+  if (version == 0) {
+    return grpc::Status(grpc::StatusCode::INVALID_ARGUMENT,
+                        "version is 0; name a kept version (see ListVersions)");
+  }
+  const std::string what =
+      std::string("cannot ") + (request->pinned() ? "pin" : "unpin") + " version " +
+      std::to_string(version);
+  if (Status s = store_->SetPinned(version, request->pinned()); !s.ok()) {
+    return ToGrpcStatus(s, what);
+  }
+  store::VersionManifest manifest;
+  uint64_t active = 0;
+  if (Status s = store_->ReadManifest(version, &manifest); !s.ok()) return ToGrpcStatus(s, what);
+  if (Status s = store_->GetActiveVersion(&active); !s.ok()) return ToGrpcStatus(s, what);
+  FillVersionInfo(manifest, active, response);
   return grpc::Status::OK;
 }
 

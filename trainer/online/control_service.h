@@ -7,6 +7,7 @@
 
 #include "plumb/v1/control.grpc.pb.h"
 #include "trainer/online/auth.h"
+#include "trainer/online/train_metrics.h"
 
 namespace plumb::store {
 class Store;
@@ -18,8 +19,12 @@ class OnlineLoop;
 
 class ControlService final : public plumb::v1::ModelControl::Service {
  public:
-  // `store` and `loop` (and what `admission` points to) must outlive the service.
-  ControlService(store::Store* store, OnlineLoop* loop, const CallAdmission& admission);
+  // `store` and `loop` (and what `admission` points to, and `metrics` if not null) must
+  // outlive the service. Requests are decoded through rpc/checked_methods.h: one that cannot
+  // be decoded gets INVALID_ARGUMENT naming the field. With `metrics`, every call is
+  // counted (plumb_requests_total).
+  ControlService(store::Store* store, OnlineLoop* loop, const CallAdmission& admission,
+                 TrainMetrics* metrics = nullptr);
 
   grpc::Status ListVersions(grpc::ServerContext* context,
                             const plumb::v1::ListVersionsRequest* request,
@@ -36,6 +41,9 @@ class ControlService final : public plumb::v1::ModelControl::Service {
   // INVALID_ARGUMENT for a reason longer than 200 bytes or with control characters.
   grpc::Status Retrain(grpc::ServerContext* context, const plumb::v1::RetrainRequest* request,
                        plumb::v1::TrainerStatus* response) override;
+  // NOT_FOUND for a version that is not kept, INVALID_ARGUMENT for version 0.
+  grpc::Status SetPinned(grpc::ServerContext* context, const plumb::v1::SetPinnedRequest* request,
+                         plumb::v1::VersionInfo* response) override;
 
  private:
   void FillStatus(plumb::v1::TrainerStatus* out) const;

@@ -158,22 +158,66 @@ class IngestService::Call {
 
 IngestService::IngestService(GroupCommitter* committer, TrainMetrics* metrics,
                              const CallAdmission& admission, const IngestLimits& limits)
-    : committer_(committer), metrics_(metrics), admission_(admission), limits_(limits) {}
+    : committer_(committer), metrics_(metrics), admission_(admission), limits_(limits) {
+  // Messages are decoded by plumb, not gRPC: see rpc/checked_methods.h.
+  auto observer = [this](const char* method) {
+    return [this, method](const grpc::Status& status, bool undecodable, double) {
+      if (undecodable) metrics_->CountUndecodable(method);
+      metrics_->CountCall(method, rpc::GrpcCodeName(status.error_code()));
+    };
+  };
+  const std::string service = plumb::v1::EventIngest::service_full_name();
+  MarkMethodStreamed(
+      rpc::MethodIndex(service, "Publish"),
+      rpc::CheckedClientStream<plumb::v1::InteractionEvent, plumb::v1::PublishSummary>(
+          [this](grpc::ServerContext* context,
+                 rpc::MessageReader<plumb::v1::InteractionEvent>* reader,
+                 plumb::v1::PublishSummary* summary) {
+            return PublishStream(context, reader, summary);
+          },
+          observer("Publish")));
+  MarkMethodStreamed(
+      rpc::MethodIndex(service, "PublishBatch"),
+      rpc::CheckedUnary<plumb::v1::PublishBatchRequest, plumb::v1::PublishSummary>(
+          [this](grpc::ServerContext* context, const plumb::v1::PublishBatchRequest* request,
+                 plumb::v1::PublishSummary* summary) {
+            return PublishBatch(context, request, summary);
+          },
+          observer("PublishBatch")));
+}
 
-grpc::Status IngestService::Publish(grpc::ServerContext* context,
-                                    grpc::ServerReader<plumb::v1::InteractionEvent>* reader,
-                                    plumb::v1::PublishSummary* summary) {
+grpc::Status IngestService::PublishStream(grpc::ServerContext* context,
+                                          rpc::MessageReader<plumb::v1::InteractionEvent>* reader,
+                                          plumb::v1::PublishSummary* summary) {
+  using Read = rpc::MessageReader<plumb::v1::InteractionEvent>::Result;
   InflightCalls::Scope scope;
   if (grpc::Status s = Admit(admission_, *context, &scope); !s.ok()) return s;
   Call call(*this, summary);
   plumb::v1::InteractionEvent wire;
   uint64_t index = 0;
-  while (reader->Read(&wire)) {
+  Read result;
+  while ((result = reader->Read(&wire)) == Read::kMessage) {
     call.Add(&wire, index++, NowMs());
     // Checking every event would cost a clock read per event; once per chunk suffices.
     if (index % limits_.chunk_events == 0 && !call.healthy()) break;
   }
   grpc::Status status = call.Finish();
+  if (result == Read::kUndecodable) {
+    // What came before the bad message is stored (or failed above); say so, so that the
+    // client knows a resend is safe and where the stream broke.
+    const std::string stored =
+        status.ok()
+            ? std::to_string(summary->accepted()) + " of the " + std::to_string(index) +
+                  " events before it were appended (" + std::to_string(summary->duplicates()) +
+                  " duplicates, " + std::to_string(summary->rejected()) + " rejected)"
+            : "the events before it could not all be stored (" + status.error_message() + ")";
+    return grpc::Status(grpc::StatusCode::INVALID_ARGUMENT,
+                        "stream message " + std::to_string(index) +
+                            " cannot be decoded: " + reader->error().message() + ". " + stored +
+                            "; nothing after it was read. Fix the message and resend the "
+                            "stream with the same event_ids (stored events come back as "
+                            "duplicates)");
+  }
   if (status.ok() && context->IsCancelled()) {
     // The stream broke off before the client closed it: the client will not see this
     // summary and resends; what was stored comes back as duplicates then.

@@ -12,6 +12,7 @@
 #include <cstdint>
 
 #include "plumb/v1/ingest.grpc.pb.h"
+#include "rpc/checked_methods.h"
 #include "trainer/online/auth.h"
 #include "trainer/online/group_commit.h"
 #include "trainer/online/train_metrics.h"
@@ -39,13 +40,19 @@ grpc::Status AppendErrorToGrpc(const Status& status);
 class IngestService final : public plumb::v1::EventIngest::Service {
  public:
   // `committer` and `metrics` must outlive the service (and so must what `admission`
-  // points to).
+  // points to). Both methods decode their messages through rpc/checked_methods.h and count
+  // every call in `metrics` (plumb_requests_total).
   IngestService(GroupCommitter* committer, TrainMetrics* metrics, const CallAdmission& admission,
                 const IngestLimits& limits = IngestLimits());
 
-  grpc::Status Publish(grpc::ServerContext* context,
-                       grpc::ServerReader<plumb::v1::InteractionEvent>* reader,
-                       plumb::v1::PublishSummary* summary) override;
+  // The Publish stream. A message that cannot be decoded (e.g. invalid UTF-8 in a string
+  // field) ends the call with INVALID_ARGUMENT naming the message's index and the field;
+  // the events before it are stored (the message says how many; resending the stream with
+  // the same event_ids is safe), nothing after it is read. Only the client's half-close
+  // ends the stream with a summary.
+  grpc::Status PublishStream(grpc::ServerContext* context,
+                             rpc::MessageReader<plumb::v1::InteractionEvent>* reader,
+                             plumb::v1::PublishSummary* summary);
 
   grpc::Status PublishBatch(grpc::ServerContext* context,
                             const plumb::v1::PublishBatchRequest* request,

@@ -25,6 +25,7 @@
 #include <mutex>
 #include <thread>
 
+#include "rpc/listen_probe.h"
 #include "store/store.h"
 #include "trainer/online/auth.h"
 #include "trainer/online/control_service.h"
@@ -108,6 +109,16 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
     return 2;
   }
 
+  // ---- both addresses free? Checked before the store is opened (or created) -----------
+  Status probe = plumb::rpc::ProbeListenAddress(config.listen, "gRPC");
+  if (probe.ok() && !config.metrics.empty()) {
+    probe = plumb::rpc::ProbeListenAddress(config.metrics, "metrics");
+  }
+  if (!probe.ok()) {
+    spdlog::critical("{}", probe.message());
+    return 1;
+  }
+
   // ---- metrics endpoint: fails early and cheaply when its port is taken ---------------
   TrainMetrics metrics;
   std::unique_ptr<prometheus::Exposer> exposer;
@@ -115,7 +126,9 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
     try {
       exposer = std::make_unique<prometheus::Exposer>(config.metrics);
     } catch (const std::exception& e) {
-      spdlog::critical("cannot serve metrics on {}: {}", config.metrics, e.what());
+      const Status why = plumb::rpc::ProbeListenAddress(config.metrics, "metrics");
+      spdlog::critical("cannot serve metrics on {}: {}", config.metrics,
+                       why.ok() ? std::string(e.what()) : why.message());
       return 1;
     }
     exposer->RegisterCollectable(metrics.registry());
@@ -126,7 +139,12 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
   store_options.create_if_missing = true;
   store_options.sync = config.sync;
   store_options.keep_versions = config.keep_versions;
-  if (Status s = ParseDuration(config.dedup_window, &store_options.dedup_window_ms); !s.ok()) {
+  if (Status s = plumb::ParseDuration(config.keep_versions_for, &store_options.keep_versions_for_ms);
+      !s.ok()) {
+    spdlog::critical("keep_versions_for: {}", s.message());
+    return 2;
+  }
+  if (Status s = plumb::ParseDuration(config.dedup_window, &store_options.dedup_window_ms); !s.ok()) {
     spdlog::critical("{}", s.message());
     return 2;
   }
@@ -163,12 +181,16 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
   InflightCalls inflight;
   const CallAdmission admission{auth.get(), &inflight};
   IngestService ingest(&committer, &metrics, admission, limits);
-  ControlService control(store.get(), loop.get(), admission);
+  ControlService control(store.get(), loop.get(), admission, &metrics);
 
   grpc::EnableDefaultHealthCheckService(true);
   grpc::reflection::InitProtoReflectionServerBuilderPlugin();
   grpc::ServerBuilder builder;
   int port = 0;
+  // gRPC sets SO_REUSEPORT on its listeners by default: a second trainer on the same port
+  // would then start and take a share of the calls, against another store. One port, one
+  // process.
+  builder.AddChannelArgument(GRPC_ARG_ALLOW_REUSEPORT, 0);
   builder.AddListeningPort(config.listen, credentials, &port);
   builder.RegisterService(&ingest);
   builder.RegisterService(&control);
@@ -177,7 +199,9 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
       static_cast<int>(std::max<uint64_t>(16u << 20, uint64_t{config.max_batch_events} << 10)));
   std::unique_ptr<grpc::Server> server = builder.BuildAndStart();
   if (server == nullptr || port == 0) {
-    spdlog::critical("cannot listen on {} (address in use, or bad TLS files?)", config.listen);
+    const Status why = plumb::rpc::ProbeListenAddress(config.listen, "gRPC");
+    spdlog::critical("cannot listen on {}: {}", config.listen,
+                     why.ok() ? "bad TLS files or address?" : why.message());
     committer.Close();
     loop->Stop();
     return 1;

@@ -83,39 +83,6 @@ bool OneOf(const std::string& value, std::initializer_list<const char*> allowed)
 
 }  // namespace
 
-Status ParseDuration(std::string_view text, int64_t* ms) {
-  if (text == "0") {
-    *ms = 0;
-    return Status::Ok();
-  }
-  double number = 0;
-  const char* begin = text.data();
-  const char* end = text.data() + text.size();
-  auto [rest, ec] = std::from_chars(begin, end, number);
-  if (ec != std::errc() || rest == begin || number < 0) {
-    return Status::InvalidArgument("duration '" + std::string(text) +
-                                   "' is not of the form 250ms, 90s, 30m, 24h, 7d or 0");
-  }
-  const std::string_view unit(rest, static_cast<size_t>(end - rest));
-  double scale;
-  if (unit == "ms") {
-    scale = 1;
-  } else if (unit == "s") {
-    scale = 1e3;
-  } else if (unit == "m") {
-    scale = 60e3;
-  } else if (unit == "h") {
-    scale = 3600e3;
-  } else if (unit == "d") {
-    scale = 86400e3;
-  } else {
-    return Status::InvalidArgument("duration '" + std::string(text) +
-                                   "' needs a unit: ms, s, m, h or d");
-  }
-  *ms = static_cast<int64_t>(number * scale + 0.5);
-  return Status::Ok();
-}
-
 Status CheckTrainConfig(const TrainConfig& c) {
   auto bad = [](const std::string& what) { return Status::InvalidArgument(what); };
   if (c.db.empty()) return bad("no database directory: give --db DIR or db = \"DIR\"");
@@ -130,6 +97,9 @@ Status CheckTrainConfig(const TrainConfig& c) {
   if (c.keep_versions < 1) return bad("keep_versions must be at least 1");
   int64_t ms;
   PLUMB_RETURN_IF_ERROR(ParseDuration(c.dedup_window, &ms));
+  if (Status s = ParseDuration(c.keep_versions_for, &ms); !s.ok()) {
+    return bad("keep_versions_for: " + s.message());
+  }
   if (c.tls_cert.empty() != c.tls_key.empty()) {
     return bad("TLS needs both tls_cert and tls_key (or neither)");
   }
@@ -191,7 +161,11 @@ std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConf
        "Group commit: wait this long for more events before a log write");
   Bind(app, &keys, s, "max_group_events", &c.max_group_events, "Events per log write, at most");
   Bind(app, &keys, s, "max_batch_events", &c.max_batch_events, "PublishBatch size limit");
-  Bind(app, &keys, s, "keep_versions", &c.keep_versions, "Embedding versions kept for rollback");
+  Bind(app, &keys, s, "keep_versions", &c.keep_versions,
+       "Newest embedding versions always kept for rollback");
+  Bind(app, &keys, s, "keep_versions_for", &c.keep_versions_for,
+       "Also keep every version younger than this (250ms, 90s, 30m, 24h, 7d; 0 = by count "
+       "only); active and pinned versions are always kept");
   Bind(app, &keys, s, "dedup_window", &c.dedup_window,
        "event_id de-duplication window (250ms, 90s, 30m, 24h, 7d; 0 = forever)");
   Bind(app, &keys, s, "token_file", &c.token_file,

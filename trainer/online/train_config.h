@@ -9,6 +9,7 @@
 #include <string>
 #include <string_view>
 
+#include "core/duration.h"
 #include "core/status.h"
 #include "trainer/online/online_loop.h"
 
@@ -25,7 +26,8 @@ struct TrainConfig {
   double commit_window_ms = 2.0;           // group commit window
   uint32_t max_group_events = 16384;       // events per log write, at most
   uint32_t max_batch_events = 10000;       // PublishBatch limit
-  uint32_t keep_versions = 5;              // versions kept for rollback
+  uint32_t keep_versions = 5;              // newest versions kept for rollback...
+  std::string keep_versions_for = "2h";    // ...and every version younger than this
   std::string dedup_window = "24h";        // event_id de-duplication window; "0" = forever
   std::string token_file;                  // bearer token file; "" = no token
   std::string tls_cert;                    // PEM certificate chain; "" = no TLS
@@ -46,8 +48,5 @@ std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConf
 // Checks ranges and combinations (required db, known objective, both TLS paths, ...).
 Status CheckTrainConfig(const TrainConfig& config);
 
-// "250ms", "90s", "30m", "24h", "7d" or "0" (forever) -> milliseconds. InvalidArgument
-// otherwise.
-Status ParseDuration(std::string_view text, int64_t* ms);
 
 }  // namespace plumb::online

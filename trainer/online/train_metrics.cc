@@ -44,6 +44,17 @@ TrainMetrics::TrainMetrics() : registry_(std::make_shared<prometheus::Registry>(
     const auto reason = static_cast<RejectReason>(i);
     rejected_[i] = &rejected.Add({{"reason", std::string(RejectReasonLabel(reason))}});
   }
+  calls_ = &BuildCounter()
+                .Name("plumb_requests_total")
+                .Help("Finished EventIngest and ModelControl calls by method and gRPC status code")
+                .Register(r);
+  undecodable_ = &BuildCounter()
+                      .Name("plumb_undecodable_messages_total")
+                      .Help(
+                          "Requests or stream messages that could not be decoded (e.g. invalid "
+                          "UTF-8 in a string field), by method; each failed its call with "
+                          "INVALID_ARGUMENT")
+                      .Register(r);
   trained_.counter = &BuildCounter()
                           .Name("plumb_events_trained_total")
                           .Help("Events folded into the training state by the online loop")
@@ -59,7 +70,8 @@ TrainMetrics::TrainMetrics() : registry_(std::make_shared<prometheus::Registry>(
                       .Register(r);
   auto& candidates = BuildCounter()
                          .Name("plumb_candidate_versions_total")
-                         .Help("Candidate versions built, by gate outcome")
+                         .Help("Candidate versions built, by gate outcome (passed, failed, "
+                               "skipped: not gated, e.g. nothing to compare with)")
                          .Register(r);
   passed_.counter = &candidates.Add({{"outcome", "passed"}});
   failed_.counter = &candidates.Add({{"outcome", "failed"}});
@@ -108,10 +120,11 @@ TrainMetrics::TrainMetrics() : registry_(std::make_shared<prometheus::Registry>(
                       .Add({});
   auto& recall = BuildGauge()
                      .Name("plumb_validation_recall_ratio")
-                     .Help("Recall@K on the held-out validation sample")
+                     .Help("Recall@K on the held-out validation sample, of the active version "
+                           "and of the last candidate (label role)")
                      .Register(r);
-  recall_active_ = &recall.Add({{"version", "active"}});
-  recall_candidate_ = &recall.Add({{"version", "candidate"}});
+  recall_active_ = &recall.Add({{"role", "active"}});
+  recall_candidate_ = &recall.Add({{"role", "candidate"}});
   active_version_ = &BuildGauge()
                          .Name("plumb_trainer_active_version")
                          .Help("Active embedding version (0 = none)")
@@ -128,6 +141,25 @@ TrainMetrics::~TrainMetrics() = default;
 
 void TrainMetrics::CountRejected(RejectReason reason, uint64_t n) {
   rejected_[static_cast<int>(reason)]->Increment(static_cast<double>(n));
+}
+
+void TrainMetrics::CountCall(const std::string& method, const std::string& code) {
+  calls_->Add({{"method", method}, {"code", code}}).Increment();
+}
+
+void TrainMetrics::CountUndecodable(const std::string& method) {
+  undecodable_->Add({{"method", method}}).Increment();
+}
+
+double TrainMetrics::calls(const std::string& method, const std::string& code) const {
+  return calls_->Has({{"method", method}, {"code", code}})
+             ? calls_->Add({{"method", method}, {"code", code}}).Value()
+             : 0.0;
+}
+
+double TrainMetrics::undecodable(const std::string& method) const {
+  return undecodable_->Has({{"method", method}}) ? undecodable_->Add({{"method", method}}).Value()
+                                                 : 0.0;
 }
 
 double TrainMetrics::rejected(RejectReason reason) const {

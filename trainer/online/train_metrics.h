@@ -39,6 +39,13 @@ class TrainMetrics {
   // plumb_events_rejected_total{reason} += n.
   void CountRejected(RejectReason reason, uint64_t n = 1);
 
+  // plumb_requests_total{method, code} += 1: one finished EventIngest or ModelControl call
+  // (`code` as gRPC spells it, e.g. "INVALID_ARGUMENT").
+  void CountCall(const std::string& method, const std::string& code);
+  // plumb_undecodable_messages_total{method} += 1: a request or stream message that could
+  // not be decoded (e.g. a string field holding invalid UTF-8); its call failed.
+  void CountUndecodable(const std::string& method);
+
   // Brings the totals-fed counters and the gauges up to date. `loop` may be null (ingest
   // without a training loop, in tests). Counters only ever increase: a total lower than
   // the last one seen (cannot happen within one process) is ignored.
@@ -48,6 +55,8 @@ class TrainMetrics {
   double rejected(RejectReason reason) const;
   double accepted() const;
   double duplicates() const;
+  double calls(const std::string& method, const std::string& code) const;
+  double undecodable(const std::string& method) const;
 
  private:
   // Adds the increase of a running total to a counter.
@@ -59,6 +68,8 @@ class TrainMetrics {
 
   std::shared_ptr<prometheus::Registry> registry_;
   std::array<prometheus::Counter*, kNumRejectReasons> rejected_{};
+  prometheus::Family<prometheus::Counter>* calls_ = nullptr;        // thread-safe Add
+  prometheus::Family<prometheus::Counter>* undecodable_ = nullptr;  // thread-safe Add
 
   std::mutex mu_;  // guards the feeds and the labelled families below
   TotalFeed accepted_, duplicates_, trained_, passed_, failed_, skipped_;

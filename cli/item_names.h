@@ -7,12 +7,12 @@
 
 #include "core/status.h"
 
-namespace plumb::tools {
+namespace plumb::cli {
 
 class ItemNames {
  public:
   // Reads a CSV whose header names the columns `item` and `name` (others are ignored;
-  // quoting as in cli/csv_reader.h). NotFound when the file cannot be opened;
+  // quoting and the byte-order mark as in cli/csv_reader.h). NotFound when the file cannot be opened;
   // InvalidArgument naming file and line for a malformed line or a missing column.
   static Status Read(const std::string& path, ItemNames* out);
 
@@ -25,4 +25,4 @@ class ItemNames {
   std::unordered_map<std::string, std::string> names_;
 };
 
-}  // namespace plumb::tools
+}  // namespace plumb::cli

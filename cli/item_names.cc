@@ -1,4 +1,4 @@
-#include "tools/item_names.h"
+#include "cli/item_names.h"
 
 #include <fstream>
 #include <optional>
@@ -6,7 +6,7 @@
 
 #include "cli/csv_reader.h"
 
-namespace plumb::tools {
+namespace plumb::cli {
 
 Status ItemNames::Read(const std::string& path, ItemNames* out) {
   std::ifstream in(path);
@@ -15,23 +15,21 @@ Status ItemNames::Read(const std::string& path, ItemNames* out) {
   std::vector<std::string> fields;
   if (!std::getline(in, line))
     return Status::InvalidArgument(path + ": empty file, expected a header line");
-  if (Status s = cli::SplitCsvLine(line, &fields); !s.ok()) {
-    return Status::InvalidArgument(path + ":1: " + s.message());
-  }
+  PLUMB_RETURN_IF_ERROR(SplitCsvHeader(path, line, &fields));
   std::optional<size_t> item_col, name_col;
   for (size_t c = 0; c < fields.size(); ++c) {
     if (fields[c] == "item") item_col = c;
     if (fields[c] == "name") name_col = c;
   }
   if (!item_col || !name_col) {
-    return Status::InvalidArgument(path + ":1: header must name columns 'item' and 'name'");
+    return MissingColumnsError(path, "'item' and 'name'", line);
   }
   ItemNames names;
   uint64_t line_no = 1;
   while (std::getline(in, line)) {
     ++line_no;
     if (line.empty() || line == "\r") continue;
-    if (Status s = cli::SplitCsvLine(line, &fields); !s.ok()) {
+    if (Status s = SplitCsvLine(line, &fields); !s.ok()) {
       return Status::InvalidArgument(path + ":" + std::to_string(line_no) + ": " + s.message());
     }
     if (fields.size() <= std::max(*item_col, *name_col)) {
@@ -51,4 +49,4 @@ const std::string& ItemNames::Find(const std::string& item) const {
   return it == names_.end() ? kNone : it->second;
 }
 
-}  // namespace plumb::tools
+}  // namespace plumb::cli

@@ -1,0 +1,68 @@
+#!/usr/bin/env bash
+# One port, one process: with plumb-train and plumb-serve running on loopback, a second
+# plumb-train or plumb-serve on any of their four addresses (gRPC or metrics) must exit at
+# start, non-zero, saying "address in use", and must not create its store. The first pair
+# keeps answering. (gRPC turns SO_REUSEPORT on by default; before plumb turned it off, a
+# second process started and took a share of the calls.)
+# Usage: address_in_use_test.sh BIN_DIR
+set -u
+BIN=$1
+TRAIN=$BIN/trainer/online/plumb-train; SERVE=$BIN/server/plumb-serve; QUERY=$BIN/tools/plumb-query
+PY=/usr/bin/python3; [ -x $PY ] || PY=python3
+tmp=$(mktemp -d)
+pids=
+cleanup() {
+  for p in $pids; do kill -TERM "$p" 2>/dev/null; done
+  for p in $pids; do  # a clean stop removes plumb-serve's scratch directory
+    for _ in $(seq 50); do kill -0 "$p" 2>/dev/null || break; sleep 0.1; done
+    kill -KILL "$p" 2>/dev/null
+  done
+  rm -rf "$tmp"
+}
+trap cleanup EXIT
+free_port() { $PY -c 'import socket; s=socket.socket(); s.bind(("127.0.0.1",0)); print(s.getsockname()[1])'; }
+fail() { echo "FAIL: $*"; for f in "$tmp"/*.log; do echo "--- $f"; tail -8 "$f"; done; exit 1; }
+
+TRAIN_ADDR=127.0.0.1:$(free_port); TRAIN_METRICS=127.0.0.1:$(free_port)
+SERVE_ADDR=127.0.0.1:$(free_port); SERVE_METRICS=127.0.0.1:$(free_port)
+"$TRAIN" --db "$tmp/db" --listen "$TRAIN_ADDR" --metrics "$TRAIN_METRICS" --no-sync \
+  >"$tmp/train.log" 2>&1 &
+pids="$pids $!"
+for _ in $(seq 150); do grep -q "plumb-train serving" "$tmp/train.log" && break; sleep 0.2; done
+grep -q "plumb-train serving" "$tmp/train.log" || fail "plumb-train did not start"
+"$SERVE" --db "$tmp/db" --listen "$SERVE_ADDR" --metrics "$SERVE_METRICS" >"$tmp/serve.log" 2>&1 &
+pids="$pids $!"
+for _ in $(seq 150); do grep -q "plumb-serve listening" "$tmp/serve.log" && break; sleep 0.2; done
+grep -q "plumb-serve listening" "$tmp/serve.log" || fail "plumb-serve did not start"
+
+# Runs a second process (NAME LOG ARGS...), which must exit non-zero within 20 s with
+# "address in use" in its log.
+expect_refused() {
+  local name=$1 log=$tmp/$2; shift 2
+  timeout 20 "$@" >"$log" 2>&1
+  local rc=$?
+  [ $rc = 124 ] && fail "$name kept running (exit by timeout): $*"
+  [ $rc != 0 ] || fail "$name exited 0: $*"
+  grep -q "address in use" "$log" || fail "$name's log does not say 'address in use': $(tail -3 "$log")"
+  echo "refused, exit $rc: $name $(grep -o 'address in use.*' "$log" | head -1 | cut -c1-90)"
+}
+expect_refused "second plumb-train, same gRPC port" train2.log \
+  "$TRAIN" --db "$tmp/db2" --listen "$TRAIN_ADDR" --metrics "" --no-sync
+[ ! -e "$tmp/db2" ] || fail "the refused plumb-train created its store at $tmp/db2"
+expect_refused "second plumb-train, same metrics port" train3.log \
+  "$TRAIN" --db "$tmp/db3" --listen "127.0.0.1:$(free_port)" --metrics "$TRAIN_METRICS" --no-sync
+[ ! -e "$tmp/db3" ] || fail "the refused plumb-train created its store at $tmp/db3"
+expect_refused "second plumb-serve, same gRPC port" serve2.log \
+  "$SERVE" --db "$tmp/db" --listen "$SERVE_ADDR" --metrics ""
+expect_refused "second plumb-serve, same metrics port" serve3.log \
+  "$SERVE" --db "$tmp/db" --listen "127.0.0.1:$(free_port)" --metrics "$SERVE_METRICS"
+expect_refused "plumb-serve on the trainer's port" serve4.log \
+  "$SERVE" --db "$tmp/db" --listen "$TRAIN_ADDR" --metrics ""
+
+# The first pair still answers, each on its own port, all calls to the same processes.
+for _ in 1 2 3 4 5; do
+  "$QUERY" status --target "$TRAIN_ADDR" >"$tmp/status.out" 2>&1 || fail "trainer status failed"
+done
+curl -sf "http://$TRAIN_METRICS/metrics" | grep -q '^plumb_' || fail "trainer metrics gone"
+curl -sf "http://$SERVE_METRICS/metrics" | grep -q '^plumb_' || fail "server metrics gone"
+echo "address in use: all checks passed"

@@ -106,6 +106,10 @@ std::vector<prometheus::MetricFamily> ServingMetrics::Collect() const {
     families.push_back(Single("plumb_snapshot_load_failures_total",
                               "Active versions that failed to load and were skipped",
                               MetricType::Counter, static_cast<double>(loop_->failed_loads())));
+    families.push_back(Single("plumb_store_damaged",
+                              "1 while the last check of the store's table files found one "
+                              "missing or damaged (the server keeps serving what it loaded)",
+                              MetricType::Gauge, loop_->store_damaged() ? 1.0 : 0.0));
   }
   if (exposure_ != nullptr) {
     families.push_back(Single("plumb_served_lists_total", "Ranked lists served (all methods)",

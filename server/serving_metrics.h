@@ -14,6 +14,8 @@
 //   plumb_model_age_seconds                      gauge    now minus the version's creation
 //   plumb_snapshot_swaps_total                   counter  snapshots swapped in
 //   plumb_snapshot_load_failures_total           counter  versions that failed to load
+//   plumb_store_damaged                          gauge    1 while a table file is missing or
+//                                                 damaged (CatchUpLoop's file check)
 //   plumb_served_lists_total                     counter  lists served (ExposureCounter)
 //   plumb_served_slots_total                     counter  items in those lists
 #pragma once

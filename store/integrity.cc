@@ -118,6 +118,11 @@ Status Store::CheckFiles(const std::string& dir, const std::string& scratch_dir)
   }
 }
 
+Status Store::RecheckFiles() const {
+  if (impl_->primary) return Status::Ok();
+  return CheckFiles(impl_->dir, impl_->scratch_dir);
+}
+
 // ---- Verify -----------------------------------------------------------------------------
 
 namespace {

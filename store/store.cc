@@ -321,6 +321,7 @@ Status Store::OpenSecondary(const std::string& dir, const std::string& scratch_d
   auto impl = std::make_unique<Impl>();
   impl->primary = false;
   impl->dir = dir;
+  impl->scratch_dir = scratch_dir;
   rocksdb::DB* db = nullptr;
   std::vector<rocksdb::ColumnFamilyHandle*> handles;
   PLUMB_RETURN_IF_ERROR(FromRocks(

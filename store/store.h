@@ -82,6 +82,27 @@ struct VerifyReport {
   std::vector<uint64_t> damaged_versions;  // versions that cannot be read in full
 };
 
+// What Store::Repair did.
+struct RepairReport {
+  // A table file RocksDB's repair moved to <dir>/lost/ because it could not be read in full.
+  struct SetAside {
+    std::string file;    // e.g. "000034.sst"
+    std::string family;  // its column family, "" when even that is unreadable
+    std::string why;
+    uint64_t salvaged = 0;  // readable records copied back from it
+    uint64_t unreadable_ranges = 0;
+  };
+  bool rebuilt = false;  // RocksDB's repair rebuilt the set of live files
+  std::string rebuild_reason;
+  std::vector<SetAside> set_aside;
+  uint64_t salvaged_records = 0;
+  std::vector<uint64_t> dropped_versions;  // incomplete or unreadable versions deleted
+  uint64_t active_before = 0, active_after = 0;
+  uint64_t cursor_before = 0, cursor_after = 0;
+  uint64_t degrees_rewritten = 0;      // live item degrees recomputed from interactions
+  std::vector<std::string> remaining;  // problems Verify still finds afterwards
+};
+
 // An event as submitted, already validated by the caller.
 struct EventInput {
   std::string user_id;
@@ -194,6 +215,24 @@ class Store {
   // thousands of files.
   static Status CheckFiles(const std::string& dir, const std::string& scratch_dir);
 
+  // Brings a damaged store at `dir` back to a state that opens and verifies, keeping every
+  // record that can still be read (store/repair.cc):
+  //  1. when CURRENT is missing, a table file is missing or damaged, or any block fails its
+  //     checksum, RocksDB's own repair rebuilds the set of live files: it sets aside into
+  //     <dir>/lost/ every table file it cannot read in full and turns the write-ahead logs
+  //     into table files;
+  //  2. every readable record of a set-aside file is copied back when the store lacks its
+  //     key (events, event ids, ids, interactions, version blocks: records written once);
+  //  3. versions that are not complete are deleted; if the active version is among them, the
+  //     newest complete version that did not fail its gate becomes active (or none);
+  //  4. the cursor is kept within the log; live item degrees are recomputed from the
+  //     interaction sets;
+  //  5. Verify() runs and report->remaining lists what is still wrong.
+  // Unavailable while another process holds the store (stop plumb-train first; restart
+  // plumb-serve afterwards). NotFound without a store. OK when the repair ran, even if
+  // report->remaining is not empty.
+  static Status Repair(const std::string& dir, const StoreOptions& options, RepairReport* report);
+
   Store(const Store&) = delete;
   Store& operator=(const Store&) = delete;
   // Closes the database. Blocks until background work of RocksDB has stopped.
@@ -288,6 +327,11 @@ class Store {
   // error only when they could not run. Reads everything once: minutes for a large store.
   // Thread-safe; on a secondary it sees the state of the last catch-up.
   Status Verify(VerifyReport* report) const;
+
+  // On a secondary: CheckFiles() on this store's directory, for damage that appeared after
+  // the opening (a follower's catch-up steps around it as its opening would). OK on a
+  // primary, whose reads fail on such damage by themselves.
+  Status RecheckFiles() const;
 
  private:
   struct Impl;

@@ -87,6 +87,7 @@ struct Store::Impl {
   bool primary = false;
   StoreOptions options;
   std::string dir;
+  std::string scratch_dir;  // secondary only
 
   // Declared before `db` so that it outlives it: RocksDB holds a raw pointer.
   std::unique_ptr<EventIdExpiry> expiry;

@@ -207,3 +207,135 @@ TEST_F(DamageTest, VerifyStepsOverADamagedEventBlock) {
 
 }  // namespace
 }  // namespace plumb::store
+
+// ---- Repair ------------------------------------------------------------------------------
+
+namespace plumb::store {
+namespace {
+
+class RepairTest : public DamageTest {
+ protected:
+  RepairReport Repair() {
+    RepairReport report;
+    Status s = Store::Repair(dir_, options_, &report);
+    EXPECT_TRUE(s.ok()) << s.ToString();
+    for (const std::string& p : report.remaining) ADD_FAILURE() << "still wrong: " << p;
+    return report;
+  }
+  void ExpectEvents(uint64_t n) {
+    std::vector<Event> events;
+    ASSERT_TRUE(store_->ReadEvents(0, 100000, &events).ok());
+    EXPECT_EQ(events.size(), n);
+  }
+};
+
+TEST_F(RepairTest, RebuildsAStoreThatLostCurrentAndItsLog) {
+  fs::remove(fs::path(dir_) / "CURRENT");
+  for (const auto& e : fs::directory_iterator(dir_)) {
+    if (e.path().extension() == ".log") fs::remove(e.path());
+  }
+  RepairReport report = Repair();
+  EXPECT_TRUE(report.rebuilt);
+  EXPECT_TRUE(report.set_aside.empty());
+  EXPECT_TRUE(report.dropped_versions.empty());
+  EXPECT_EQ(report.active_after, 2u);
+  ExpectHealthy();
+  Reopen();
+  ExpectEvents(10);
+  std::vector<VersionManifest> versions;
+  ASSERT_TRUE(store_->ListVersions(&versions).ok());
+  EXPECT_EQ(versions.size(), 2u);
+}
+
+// The newest version has a damaged block: the trainer's warm start reads it and fails, and
+// the table file holding it cannot be compacted either. Repair sets the file aside, copies
+// back every readable record (here the whole of version 3, which shares the file), drops
+// version 4 and activates version 3.
+TEST_F(RepairTest, DropsTheDamagedVersionAndKeepsItsNeighbours) {
+  Reopen();
+  AddIds(0, 1990);
+  ASSERT_EQ(Publish(3, 3.0f, false), 3u);
+  ASSERT_EQ(Publish(3, 4.0f, true), 4u);
+  Close();
+  const std::string victim = NewestTable(keys::kModelsFamily);
+  FlipByte(victim, 36000);  // among version 4's item rows (2000 x 3 floats per version)
+  Reopen();
+  VerifyReport before;
+  ASSERT_TRUE(store_->Verify(&before).ok());
+  ASSERT_EQ(before.damaged_versions, std::vector<uint64_t>{4});
+  Close();
+
+  RepairReport report = Repair();
+  EXPECT_TRUE(report.rebuilt);
+  ASSERT_EQ(report.set_aside.size(), 1u);
+  EXPECT_EQ(report.set_aside[0].family, keys::kModelsFamily);
+  EXPECT_EQ(report.set_aside[0].unreadable_ranges, 1u);
+  EXPECT_GT(report.salvaged_records, 0u);
+  EXPECT_EQ(report.dropped_versions, std::vector<uint64_t>{4});
+  EXPECT_EQ(report.active_before, 4u);
+  EXPECT_EQ(report.active_after, 3u);
+
+  Reopen();
+  ExpectEvents(10);
+  auto expected = testing::MakeVersion(6, 2000, 3, 3.0f);
+  std::vector<float> items(2000 * 3);
+  ASSERT_TRUE(store_->ReadMatrix(3, MatrixKind::kItems, items).ok());
+  EXPECT_EQ(items, expected->items);
+  // The next version gets a new number, never 4 again.
+  EXPECT_EQ(Publish(3, 5.0f, false), 5u);
+}
+
+TEST_F(RepairTest, MissingMetaTableFileFallsBackToTheOlderMeta) {
+  fs::remove(NewestTable(keys::kMetaFamily));
+  RepairReport report = Repair();
+  EXPECT_TRUE(report.rebuilt);
+  EXPECT_TRUE(report.dropped_versions.empty());
+  EXPECT_EQ(report.active_after, 1u);  // the newer meta value (2) went with the file
+  Reopen();
+  ExpectEvents(10);
+}
+
+TEST_F(RepairTest, RefusesWhileTheStoreIsOpen) {
+  Reopen();
+  RepairReport report;
+  Status s = Store::Repair(dir_, options_, &report);
+  EXPECT_EQ(s.code(), Status::Code::kUnavailable) << s.ToString();
+}
+
+TEST_F(RepairTest, AHealthyStoreIsLeftAsItIs) {
+  RepairReport report = Repair();
+  EXPECT_FALSE(report.rebuilt);
+  EXPECT_TRUE(report.dropped_versions.empty());
+  EXPECT_EQ(report.active_after, 2u);
+  EXPECT_EQ(report.degrees_rewritten, 0u);
+}
+
+}  // namespace
+}  // namespace plumb::store
+
+namespace plumb::store {
+namespace {
+
+// Damage that appears while a follower runs: its catch-up steps around a damaged table file
+// as an opening would, so it stays at the older state without an error. RecheckFiles() is
+// how a follower finds out.
+TEST_F(DamageTest, AFollowerFindsDamageThatAppearsLater) {
+  std::unique_ptr<Store> follower;
+  ASSERT_TRUE(OpenFollower(&follower).ok());
+  EXPECT_TRUE(follower->RecheckFiles().ok());
+  Reopen();
+  ASSERT_EQ(Publish(3, 3.0f, true), 3u);
+  Close();  // flushes version 3 and the meta value naming it into new table files
+  const std::string victim = NewestTable(keys::kMetaFamily);
+  fs::resize_file(victim, fs::file_size(victim) - 7);
+  (void)follower->CatchUp();
+  uint64_t active = 0;
+  ASSERT_TRUE(follower->GetActiveVersion(&active).ok());
+  EXPECT_NE(active, 3u);  // what the follower sees: the older state, no error
+  Status s = follower->RecheckFiles();
+  EXPECT_TRUE(s.IsCorruption()) << s.ToString();
+  EXPECT_TRUE(Mentions(s, fs::path(victim).filename().string())) << s.ToString();
+}
+
+}  // namespace
+}  // namespace plumb::store

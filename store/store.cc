@@ -7,6 +7,7 @@
 #include <rocksdb/snapshot.h>
 #include <rocksdb/table.h>
 #include <rocksdb/write_batch.h>
+#include <sys/statvfs.h>
 
 #include <algorithm>
 #include <atomic>
@@ -192,6 +193,21 @@ Status Store::Impl::DeleteVersion(const rocksdb::ReadOptions& ro, uint64_t versi
     PLUMB_RETURN_IF_ERROR(FromRocks(it->status(), VersionWhat(version, "pruning")));
   }
   return FromRocks(batch->Delete(models, AsSlice(keys::ManifestKey(version))), "pruning");
+}
+
+Status Store::Impl::CheckFreeSpace(uint64_t bytes, const std::string& what) const {
+  if (options.min_free_disk_bytes == 0) return Status::Ok();
+  struct statvfs fs {};
+  if (::statvfs(dir.c_str(), &fs) != 0) return Status::Ok();  // cannot tell: let RocksDB try
+  const uint64_t free = static_cast<uint64_t>(fs.f_bavail) * fs.f_frsize;
+  // The write-ahead log holds the batch once, the table files once more after a flush.
+  if (free >= options.min_free_disk_bytes + 2 * bytes) return Status::Ok();
+  return Status::ResourceExhausted(
+      what + ": No space left for it: the disk holding " + dir + " has " +
+      std::to_string(free >> 20) + " MB free, at or below the " +
+      std::to_string(options.min_free_disk_bytes >> 20) +
+      " MB kept free for the store's own upkeep; nothing was written. Free space (or move the "
+      "store); writing resumes by itself");
 }
 
 // ---- opening --------------------------------------------------------------------------

@@ -70,6 +70,12 @@ struct StoreOptions {
   // A duplicate event_id is recognised if its first copy was received within this window.
   // Longer windows cost disk (one small record per event id). 0 = forever.
   int64_t dedup_window_ms = 24LL * 3600 * 1000;
+  // Free space kept on the store's file system: a write that would leave less is refused
+  // with ResourceExhausted (nothing written) instead of being attempted. RocksDB needs the
+  // room to flush and compact; a write that actually meets a full disk leaves it refusing
+  // writes until its own recovery finds a memtable's worth (64 MB) free again, and can
+  // even abort the process (an assertion the Debian build keeps). 0 = no check.
+  uint64_t min_free_disk_bytes = 128ull << 20;
 };
 
 // What Store::Verify found. Every problem is one sentence naming the record or file.
@@ -249,7 +255,8 @@ class Store {
   // when options.sync). Events whose event_id was seen within the de-duplication window
   // are not appended again (reported in the result); so are repeats of one event_id within
   // the batch. InvalidArgument for an event with an empty user or item id; Corruption if a
-  // stored de-duplication record is unreadable. On error nothing was appended.
+  // stored de-duplication record is unreadable; ResourceExhausted when the write would cut
+  // into min_free_disk_bytes. On error nothing was appended.
   Status AppendEvents(std::span<const EventInput> events, AppendResult* result);
 
   // Replaces *out with up to `max_events` events with sequence > after_seq, in order.

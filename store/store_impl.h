@@ -140,9 +140,17 @@ struct Store::Impl {
     return w;
   }
 
+  // Every write goes through here. A write that meets a full disk leaves RocksDB refusing
+  // writes until its own recovery finds a memtable's worth of space free, and a background
+  // sync of the failed log can trip an assertion of the Debian build (abort). So a write
+  // that would cut into options.min_free_disk_bytes is refused before RocksDB sees it.
   Status Write(rocksdb::WriteBatch* batch, const std::string& what) {
+    PLUMB_RETURN_IF_ERROR(CheckFreeSpace(batch->GetDataSize(), what));
     return internal::FromRocks(db->Write(WriteOpts(), batch), what);
   }
+  // ResourceExhausted when writing `bytes` would leave less than min_free_disk_bytes free
+  // on the store's file system (store.cc).
+  Status CheckFreeSpace(uint64_t bytes, const std::string& what) const;
 
   Status RequirePrimary(std::string_view what) const {
     if (primary) return Status::Ok();

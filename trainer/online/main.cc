@@ -126,6 +126,7 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
   store_options.create_if_missing = true;
   store_options.sync = config.sync;
   store_options.keep_versions = config.keep_versions;
+  store_options.min_free_disk_bytes = config.min_free_disk_mb << 20;
   if (Status s = ParseDuration(config.dedup_window, &store_options.dedup_window_ms); !s.ok()) {
     spdlog::critical("{}", s.message());
     return 2;

@@ -187,6 +187,9 @@ std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConf
   Bind(app, &keys, s, "keep_versions", &c.keep_versions, "Embedding versions kept for rollback");
   Bind(app, &keys, s, "dedup_window", &c.dedup_window,
        "event_id de-duplication window (250ms, 90s, 30m, 24h, 7d; 0 = forever)");
+  Bind(app, &keys, s, "min_free_disk_mb", &c.min_free_disk_mb,
+       "Free space (MB) kept on the store's disk: writes that would cut into it are refused "
+       "(RESOURCE_EXHAUSTED) until space is freed; 0 = no check");
   Bind(app, &keys, s, "token_file", &c.token_file,
        "File holding the bearer token every call must carry; empty = no token");
   Bind(app, &keys, s, "tls_cert", &c.tls_cert, "PEM certificate chain for TLS; empty = no TLS");

@@ -62,6 +62,7 @@ class TrainMetrics {
 
   std::mutex mu_;  // guards the feeds and the labelled families below
   TotalFeed accepted_, duplicates_, trained_, passed_, failed_;
+  TotalFeed write_failures_, failed_events_;
   TotalFeed samples_;  // labelled by objective, attached on the first Refresh with a loop
   prometheus::Family<prometheus::Counter>* samples_family_ = nullptr;
   prometheus::Family<prometheus::Gauge>* loss_family_ = nullptr;

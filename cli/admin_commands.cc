@@ -23,10 +23,14 @@ std::string FormatTime(int64_t ms) {
 
 const char* GateName(store::GateOutcome g) {
   switch (g) {
-    case store::GateOutcome::kPassed: return "passed";
-    case store::GateOutcome::kFailed: return "failed";
-    case store::GateOutcome::kSkipped: return "skipped";
-    default: return "-";
+    case store::GateOutcome::kPassed:
+      return "passed";
+    case store::GateOutcome::kFailed:
+      return "failed";
+    case store::GateOutcome::kSkipped:
+      return "skipped";
+    default:
+      return "-";
   }
 }
 
@@ -40,10 +44,11 @@ Status RunSynth(const trainer::SynthOptions& options, const std::string& out_dir
   trainer::SynthWorld world;
   PLUMB_RETURN_IF_ERROR(trainer::GenerateSynthWorld(options, &world));
   PLUMB_RETURN_IF_ERROR(trainer::WriteSynthCsv(world, out_dir));
-  std::printf("wrote %s/events.csv (%zu borrowings), %s/test.csv (%zu ground-truth pairs), "
-              "%s/items.csv (%zu tools)\n",
-              out_dir.c_str(), world.events.size(), out_dir.c_str(), world.test.size(),
-              out_dir.c_str(), world.item_names.size());
+  std::printf(
+      "wrote %s/events.csv (%zu borrowings), %s/test.csv (%zu ground-truth pairs), "
+      "%s/items.csv (%zu tools)\n",
+      out_dir.c_str(), world.events.size(), out_dir.c_str(), world.test.size(), out_dir.c_str(),
+      world.item_names.size());
   return Status::Ok();
 }
 
@@ -100,8 +105,7 @@ Status RunActivate(const AdminArgs& args) {
   uint64_t before = 0;
   PLUMB_RETURN_IF_ERROR(store->GetActiveVersion(&before));
   PLUMB_RETURN_IF_ERROR(store->Activate(args.version));
-  std::printf("version %llu is active (was %llu)\n",
-              static_cast<unsigned long long>(args.version),
+  std::printf("version %llu is active (was %llu)\n", static_cast<unsigned long long>(args.version),
               static_cast<unsigned long long>(before));
   return Status::Ok();
 }
@@ -139,6 +143,70 @@ Status RunInspect(const AdminArgs& args) {
   if (store->GetMeta("auto_activate", &auto_activate).ok()) {
     std::printf("auto-activate   %s\n", auto_activate == "1" ? "on" : "off (paused)");
   }
+  if (!args.verify) return Status::Ok();
+
+  std::fflush(stdout);
+  store::VerifyReport report;
+  PLUMB_RETURN_IF_ERROR(store->Verify(&report));
+  std::printf(
+      "verified        %llu table files (%.1f MB), %llu events, %llu versions read in "
+      "full\n",
+      static_cast<unsigned long long>(report.table_files), report.table_bytes / 1e6,
+      static_cast<unsigned long long>(report.events),
+      static_cast<unsigned long long>(report.versions));
+  for (const std::string& problem : report.problems) {
+    std::printf("damage          %s\n", problem.c_str());
+  }
+  if (report.problems.empty()) {
+    std::printf("no damage found\n");
+    return Status::Ok();
+  }
+  return Status::Corruption(std::to_string(report.problems.size()) +
+                            " problem(s) found; `plumb repair --db " + args.db +
+                            "` recovers what can be read (stop plumb-train first)");
+}
+
+Status RunRepair(const AdminArgs& args) {
+  store::RepairReport r;
+  PLUMB_RETURN_IF_ERROR(store::Store::Repair(args.db, store::StoreOptions{}, &r));
+  if (r.rebuilt) {
+    std::printf("rebuilt         RocksDB's repair rebuilt the file set (%s)\n",
+                r.rebuild_reason.c_str());
+  } else {
+    std::printf("file set        intact\n");
+  }
+  for (const store::RepairReport::SetAside& a : r.set_aside) {
+    std::printf(
+        "set aside       %s/lost/%s (%s): %s; %llu records copied back, %llu unreadable "
+        "range(s)\n",
+        args.db.c_str(), a.file.c_str(), a.family.empty() ? "?" : a.family.c_str(), a.why.c_str(),
+        static_cast<unsigned long long>(a.salvaged),
+        static_cast<unsigned long long>(a.unreadable_ranges));
+  }
+  for (uint64_t v : r.dropped_versions) {
+    std::printf("dropped         version %llu (incomplete or unreadable)\n",
+                static_cast<unsigned long long>(v));
+  }
+  std::printf("active version  %llu%s\n", static_cast<unsigned long long>(r.active_after),
+              r.active_after == r.active_before
+                  ? ""
+                  : (" (was " + std::to_string(r.active_before) + ")").c_str());
+  std::printf("cursor          %llu%s\n", static_cast<unsigned long long>(r.cursor_after),
+              r.cursor_after == r.cursor_before
+                  ? ""
+                  : (" (was " + std::to_string(r.cursor_before) + ")").c_str());
+  if (r.degrees_rewritten > 0) {
+    std::printf("degrees         %llu item degrees recomputed from the interactions\n",
+                static_cast<unsigned long long>(r.degrees_rewritten));
+  }
+  for (const std::string& problem : r.remaining) {
+    std::printf("still damaged   %s\n", problem.c_str());
+  }
+  if (!r.remaining.empty()) {
+    return Status::Corruption(std::to_string(r.remaining.size()) +
+                              " problem(s) remain after the repair");
+  }
+  std::printf("the store verifies clean; restart plumb-serve so that it reopens the store\n");
   return Status::Ok();
 }
 
@@ -172,11 +240,11 @@ Status RunExport(const AdminArgs& args) {
   };
   PLUMB_RETURN_IF_ERROR(write("users.tsv", loaded.user_ids, loaded.model.users()));
   PLUMB_RETURN_IF_ERROR(write("items.tsv", loaded.item_ids, loaded.model.items()));
-  std::printf("version %llu exported to %s/users.tsv (%zu rows) and %s/items.tsv (%zu rows), "
-              "dim %u\n",
-              static_cast<unsigned long long>(loaded.manifest.version), args.out.c_str(),
-              loaded.user_ids.size(), args.out.c_str(), loaded.item_ids.size(),
-              loaded.manifest.dim);
+  std::printf(
+      "version %llu exported to %s/users.tsv (%zu rows) and %s/items.tsv (%zu rows), "
+      "dim %u\n",
+      static_cast<unsigned long long>(loaded.manifest.version), args.out.c_str(),
+      loaded.user_ids.size(), args.out.c_str(), loaded.item_ids.size(), loaded.manifest.dim);
   return Status::Ok();
 }
 

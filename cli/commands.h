@@ -21,20 +21,20 @@ struct ImportArgs {
 };
 
 struct FitArgs {
-  ImportArgs import;   // import.events may be empty: train on what the store holds
+  ImportArgs import;  // import.events may be empty: train on what the store holds
   std::string objective = "cpr";
   std::string optimizer = "adagrad";
   uint32_t dim = 64;
   uint32_t epochs = 20;
-  uint32_t k = 2;             // CPR sample size
-  double k3_share = 0.0;      // share of k=3 samples mixed in
+  uint32_t k = 2;         // CPR sample size
+  double k3_share = 0.0;  // share of k=3 samples mixed in
   double beta = 3.0;
   double learning_rate = 0.05;
   double l2 = 1e-4;
   uint32_t batch_size = 1024;
   uint32_t threads = 2;
   uint64_t seed = 1;
-  double holdout = 0.0;       // share of pairs held out (stored as the store's holdout)
+  double holdout = 0.0;  // share of pairs held out (stored as the store's holdout)
   bool activate = true;
   uint32_t keep_versions = 5;
   std::string keep_versions_for = "2h";  // also keep every version younger than this
@@ -42,8 +42,8 @@ struct FitArgs {
 
 struct EvalArgs {
   std::string db;
-  std::string test;           // CSV with `user,item`
-  uint64_t version = 0;       // 0: the active version
+  std::string test;      // CSV with `user,item`
+  uint64_t version = 0;  // 0: the active version
   uint32_t k = 20;
   uint32_t groups = 5;
   uint32_t threads = 2;
@@ -73,8 +73,9 @@ struct TopArgs {
 struct AdminArgs {
   std::string db;
   uint64_t version = 0;
-  std::string out;            // export directory
+  std::string out;  // export directory
   bool json = false;
+  bool verify = false;  // inspect: read every block and record, exit non-zero on damage
 };
 
 Status RunSynth(const trainer::SynthOptions& options, const std::string& out_dir);
@@ -87,6 +88,8 @@ Status RunActivate(const AdminArgs& args);
 // Pins (pinned = true) or unpins a kept version: a pinned version is never pruned.
 Status RunPin(const AdminArgs& args, bool pinned);
 Status RunInspect(const AdminArgs& args);
+// Store::Repair with a printed report; Corruption when problems remain afterwards.
+Status RunRepair(const AdminArgs& args);
 Status RunExport(const AdminArgs& args);
 Status RunTop(const TopArgs& args);
 

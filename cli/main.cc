@@ -145,6 +145,12 @@ int main(int argc, char** argv) {
   unpin_cmd->add_option("--version", admin.version, "version number")->required();
   auto* inspect_cmd = app.add_subcommand("inspect", "summarise a store: log, cursor, ids, versions");
   inspect_cmd->add_option("--db", admin.db, "store directory")->required();
+  inspect_cmd->add_flag("--verify", admin.verify,
+                        "read every block and record; exit non-zero when anything is damaged");
+  auto* repair_cmd = app.add_subcommand(
+      "repair", "recover a damaged store: set unreadable files aside, keep every readable record, "
+                "drop incomplete versions (plumb-train must be stopped)");
+  repair_cmd->add_option("--db", admin.db, "store directory")->required();
   auto* export_cmd = app.add_subcommand("export", "write a version as users.tsv and items.tsv");
   export_cmd->add_option("--db", admin.db, "store directory")->required();
   export_cmd->add_option("--out", admin.out, "output directory")->required();
@@ -176,6 +182,7 @@ int main(int argc, char** argv) {
   else if (*pin_cmd) s = RunPin(admin, true);
   else if (*unpin_cmd) s = RunPin(admin, false);
   else if (*inspect_cmd) s = RunInspect(admin);
+  else if (*repair_cmd) s = RunRepair(admin);
   else if (*export_cmd) s = RunExport(admin);
   else if (*top_cmd) s = RunTop(top);
   if (!s.ok()) {

@@ -27,12 +27,30 @@ Status CatchUpLoop::RunOnce() {
     last_catch_up_error_.clear();
   }
 
+  Status damage;
+  const auto now = std::chrono::steady_clock::now();
+  if (now >= next_file_check_) {
+    next_file_check_ = now + options_.file_check_interval;
+    damage = store_->RecheckFiles();
+    store_damaged_.store(!damage.ok(), std::memory_order_relaxed);
+    if (damage.message() != last_damage_) {
+      if (damage.ok()) {
+        spdlog::info("the store's table files check out again");
+      } else {
+        spdlog::error(
+            "{} Still serving {}.", damage.ToString(),
+            holder_->Get() ? "version " + std::to_string(holder_->Get()->version()) : "nothing");
+      }
+      last_damage_ = damage.message();
+    }
+  }
+
   uint64_t active = 0;
   PLUMB_RETURN_IF_ERROR(store_->GetActiveVersion(&active));
-  if (active == 0) return Status::Ok();  // nothing published yet
+  if (active == 0) return damage;  // nothing published yet
   std::shared_ptr<const Snapshot> current = holder_->Get();
-  if (current != nullptr && current->version() == active) return Status::Ok();
-  if (active == failed_version_) return Status::Ok();  // already reported; wait for another
+  if (current != nullptr && current->version() == active) return damage;
+  if (active == failed_version_) return damage;  // already reported; wait for another
 
   const auto start = std::chrono::steady_clock::now();
   loads_.fetch_add(1, std::memory_order_relaxed);
@@ -40,6 +58,15 @@ Status CatchUpLoop::RunOnce() {
   s = LoadSnapshot(*store_, active, &next);
   const double seconds =
       std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+  if (s.IsNotFound()) {
+    // The store names a version active that this follower cannot see: either a table file
+    // is missing or damaged (the catch-up then stops short of the primary's state), or the
+    // version was deleted right after being named. Say which.
+    Status files = store_->RecheckFiles();
+    s = files.ok() ? Status::NotFound("the store names version " + std::to_string(active) +
+                                      " active but holds no such version (" + s.message() + ")")
+                   : files;
+  }
   if (!s.ok()) {
     failed_version_ = active;
     failed_loads_.fetch_add(1, std::memory_order_relaxed);
@@ -61,7 +88,7 @@ Status CatchUpLoop::RunOnce() {
                previous ? "; replaced version " + std::to_string(previous->version()) : "");
   previous.reset();
   if (options_.on_swap) options_.on_swap(*next, seconds);
-  return Status::Ok();
+  return damage;
 }
 
 void CatchUpLoop::Start() {

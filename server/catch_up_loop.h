@@ -33,6 +33,11 @@ struct CatchUpOptions {
   std::function<void(const Snapshot& current, double load_seconds)> on_swap;
   // Called on the loop's thread when a version failed to load. May be empty.
   std::function<void(uint64_t version, const Status& why)> on_load_failure;
+  // How often a round also checks the store's table files (Store::RecheckFiles): a follower
+  // steps around a table file that is missing or damaged and stays at the older state
+  // without an error, so only this check notices. Zero: every round. Costs one read of
+  // the MANIFEST and of each table file's footer and index.
+  std::chrono::milliseconds file_check_interval{60000};
 };
 
 class CatchUpLoop {
@@ -44,10 +49,12 @@ class CatchUpLoop {
   // Stops the thread if it runs.
   ~CatchUpLoop();
 
-  // One round: catch up, read the active version, load and swap if it changed. Returns
-  // the first error of the round (catch-up, version read or load), OK otherwise, including
-  // when there was nothing to do. Not to be called concurrently with itself; main calls it
-  // once before Start() so that a server with a version on disk is ready when it listens.
+  // One round: catch up, check the table files when file_check_interval has passed, read
+  // the active version, load and swap if it changed. Returns the first error of the round
+  // (catch-up, damaged files, version read or load), OK otherwise, including when there was
+  // nothing to do. Damaged files do not stop the round: the current snapshot keeps serving. Not to
+  // be called concurrently with itself; main calls it once before Start() so that a server with a
+  // version on disk is ready when it listens.
   Status RunOnce();
 
   // Starts the background thread, which calls RunOnce every interval. Call at most once.
@@ -60,6 +67,8 @@ class CatchUpLoop {
   uint64_t loads() const { return loads_.load(std::memory_order_relaxed); }
   uint64_t swaps() const { return swaps_.load(std::memory_order_relaxed); }
   uint64_t failed_loads() const { return failed_loads_.load(std::memory_order_relaxed); }
+  // True while the last file check found damage (logged once per distinct finding).
+  bool store_damaged() const { return store_damaged_.load(std::memory_order_relaxed); }
 
  private:
   void Run();
@@ -70,10 +79,13 @@ class CatchUpLoop {
 
   uint64_t failed_version_ = 0;  // last version that failed to load (loop thread only)
   std::string last_catch_up_error_;
+  std::string last_damage_;
+  std::chrono::steady_clock::time_point next_file_check_{};
 
   std::atomic<uint64_t> loads_{0};
   std::atomic<uint64_t> swaps_{0};
   std::atomic<uint64_t> failed_loads_{0};
+  std::atomic<bool> store_damaged_{false};
 
   std::mutex mu_;
   std::condition_variable wake_;

@@ -21,8 +21,7 @@ int64_t SteadyMs() {
 
 struct ExposureWindow::Shard {
   std::mutex mu;
-  uint64_t version = 0;
-  std::vector<uint64_t> counts;  // per item of `version`
+  std::vector<uint64_t> counts;  // per item index, as many as the largest version recorded
   // The lists in this shard's window, oldest first, flattened.
   struct ListRef {
     uint32_t size;
@@ -33,13 +32,6 @@ struct ExposureWindow::Shard {
   std::deque<uint32_t> items;
   uint64_t slots = 0;
 
-  void Reset(uint64_t v, uint32_t num_items) {
-    version = v;
-    counts.assign(num_items, 0);
-    lists.clear();
-    items.clear();
-    slots = 0;
-  }
   void DropOldest() {
     const ListRef& l = lists.front();
     for (uint32_t n = 0; n < l.size; ++n) {
@@ -77,9 +69,8 @@ void ExposureWindow::Record(const Snapshot& snap, std::span<const uint32_t> item
   Shard& shard = ShardForThisThread();
   const int64_t now = options_.window_seconds > 0 ? SteadyMs() : 0;
   std::lock_guard<std::mutex> lock(shard.mu);
-  if (shard.version != snap.version() || shard.counts.size() != snap.num_items()) {
-    shard.Reset(snap.version(), snap.num_items());
-  }
+  // A larger catalogue (a newer version) adds items; what the window holds stays valid.
+  if (shard.counts.size() < snap.num_items()) shard.counts.resize(snap.num_items(), 0);
   uint32_t kept = 0;
   for (uint32_t item : items) {
     if (item >= shard.counts.size()) continue;
@@ -101,10 +92,9 @@ ExposureFigures ExposureWindow::Summarize(const Snapshot& snap) const {
   f.version = snap.version();
   const uint32_t n = snap.num_items();
   std::vector<uint64_t> counts(n, 0);
-  const int64_t cutoff =
-      options_.window_seconds > 0
-          ? SteadyMs() - static_cast<int64_t>(options_.window_seconds * 1000.0)
-          : 0;
+  const int64_t cutoff = options_.window_seconds > 0
+                             ? SteadyMs() - static_cast<int64_t>(options_.window_seconds * 1000.0)
+                             : 0;
   const uint64_t recorded = recorded_.load(std::memory_order_relaxed);
   const uint64_t out_of_window =
       recorded > options_.window_lists ? recorded - options_.window_lists : 0;
@@ -112,11 +102,13 @@ ExposureFigures ExposureWindow::Summarize(const Snapshot& snap) const {
     Shard& shard = *shard_ptr;
     std::lock_guard<std::mutex> lock(shard.mu);
     shard.DropUpTo(out_of_window);
-    if (shard.version != snap.version() || shard.counts.size() != n) continue;
     if (options_.window_seconds > 0) shard.DropOlderThan(cutoff);
-    for (uint32_t i = 0; i < n; ++i) counts[i] += shard.counts[i];
+    const size_t known = std::min<size_t>(n, shard.counts.size());
+    for (size_t i = 0; i < known; ++i) {
+      counts[i] += shard.counts[i];
+      f.slots += shard.counts[i];
+    }
     f.lists += shard.lists.size();
-    f.slots += shard.slots;
   }
 
   std::span<const uint64_t> degrees = snap.item_degrees();

@@ -14,10 +14,13 @@
 // A shard drops what fell out of the window when it records, and Summarize() drops it from
 // every shard, so an idle shard holds no stale lists past the next scrape.
 //
-// Lists are counted against the version that scored them. When the served version changes,
-// each shard drops what it counted for the old version the next time it records (item
-// indexes and degrees belong to one version), and Summarize() only reads shards of the
-// version it is asked about.
+// The window spans version changes: a swap keeps every list already in it. That works
+// because an item index means the same item in every version (the store's item dictionary
+// only grows; a newer version covers at least the indexes of an older one). Summarize()
+// measures the whole window against the version it is asked about (its training degrees
+// and popularity groups); slots of items beyond that version's catalogue (served by a
+// newer version before a rollback to an older one) stay in the window's list count but are
+// left out of the exposure figures, which cover only that version's items.
 //
 // Thread-safe: Record from any number of threads, Summarize concurrently with them.
 #pragma once
@@ -45,12 +48,12 @@ struct ExposureWindowOptions {
 // What Summarize() reports.
 struct ExposureFigures {
   uint64_t version = 0;
-  uint64_t lists = 0;                // lists in the window
-  uint64_t slots = 0;                // served slots in the window
-  double served_popularity = 0.0;    // mean training degree of a served slot (ARP)
+  uint64_t lists = 0;                   // lists in the window (all versions)
+  uint64_t slots = 0;                   // served slots in the window of items the version knows
+  double served_popularity = 0.0;       // mean training degree of a served slot (ARP)
   double interaction_popularity = 0.0;  // Σ d² / Σ d: mean degree over training interactions
-  double lift = 0.0;                 // served / interaction popularity; NaN without data
-  ExposureSummary summary;           // gini, coverage, group shares, drift
+  double lift = 0.0;                    // served / interaction popularity; NaN without data
+  ExposureSummary summary;              // gini, coverage, group shares, drift
 };
 
 class ExposureWindow final : public ExposureSink {

@@ -14,6 +14,7 @@
 #include <memory>
 
 #include "rpc/listen_probe.h"
+#include "server/admission_queue.h"
 #include "server/catch_up_loop.h"
 #include "server/exposure_metrics.h"
 #include "server/exposure_sink.h"
@@ -108,7 +109,10 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   }
 
   auto metrics = std::make_shared<ServingMetrics>(&holder, &loop, &exposure);
+  AdmissionQueue admission(config.admission);
+  metrics->set_admission(&admission);
   RankerService service(&holder, &scorer, config.limits, &exposure_tee, metrics.get());
+  service.set_admission(&admission);
   auto exposure_metrics = std::make_shared<ExposureMetrics>(&holder, &window);
 
   std::unique_ptr<prometheus::Exposer> exposer;
@@ -126,8 +130,16 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
     for (int port : exposer->GetListeningPorts()) spdlog::info("metrics on port {}", port);
   }
 
+  EndpointOptions endpoint_options = config.endpoint;
+  if (endpoint_options.max_threads == 0) {
+    // Room for every running and waiting call, and for health checks and reflection.
+    endpoint_options.max_threads = admission.max_running() + admission.max_waiting() + 16;
+  }
+  endpoint_options.on_transport_rejection = [m = metrics.get()](std::string_view method) {
+    m->ObserveRejection(method, Rejection::kThreadPool);
+  };
   std::unique_ptr<RankingServer> server;
-  s = RankingServer::Start(config.endpoint, &service, &server);
+  s = RankingServer::Start(endpoint_options, &service, &server);
   if (!s.ok()) {
     spdlog::critical("cannot serve gRPC on '{}': {}", config.endpoint.listen, s.message());
     return 1;
@@ -135,9 +147,12 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   endpoint.store(server.get());
   server->SetServing(holder.Get() != nullptr);
   loop.Start();
-  spdlog::info("plumb-serve listening on port {} ({}{}), metrics on {}", server->port(),
-               config.endpoint.listen, config.endpoint.tls_cert_file.empty() ? "" : ", TLS",
-               config.metrics.empty() ? "none" : config.metrics);
+  spdlog::info(
+      "plumb-serve listening on port {} ({}{}), metrics on {}; {} calls score at once, {} more "
+      "wait, {} threads",
+      server->port(), config.endpoint.listen, config.endpoint.tls_cert_file.empty() ? "" : ", TLS",
+      config.metrics.empty() ? "none" : config.metrics, admission.max_running(),
+      admission.max_waiting(), endpoint_options.max_threads);
 
   int signal_number = 0;
   sigwait(&signals, &signal_number);

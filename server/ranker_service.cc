@@ -153,6 +153,20 @@ void RankerService::Finish(RankerMethod method, const grpc::Status& status,
   metrics_->ObserveRequest(method, status.error_code(), seconds);
 }
 
+grpc::Status RankerService::Admit(RankerMethod method, const grpc::ServerContext& context,
+                                  AdmissionQueue::Ticket* ticket) {
+  if (admission_ == nullptr) return grpc::Status::OK;
+  Status s = admission_->Enter(context.deadline(), ticket);
+  if (s.ok()) return grpc::Status::OK;
+  if (metrics_ != nullptr) {
+    static const char* const kNames[] = {"Recommend", "RankCandidates", "SimilarItems"};
+    metrics_->ObserveRejection(kNames[static_cast<int>(method)], s.code() == Status::Code::kAborted
+                                                                     ? Rejection::kDeadlineInQueue
+                                                                     : Rejection::kQueueFull);
+  }
+  return ToGrpc(s);
+}
+
 void RankerService::RecordExposure(const Snapshot& snap, std::span<const ScoredIndex> items) const {
   if (exposure_ == nullptr) return;
   thread_local std::vector<uint32_t> indexes;
@@ -181,6 +195,8 @@ grpc::Status RankerService::Recommend(grpc::ServerContext* context,
     }
     if (!error.empty()) return Invalid(std::move(error));
 
+    AdmissionQueue::Ticket ticket;
+    if (grpc::Status a = Admit(RankerMethod::kRecommend, *context, &ticket); !a.ok()) return a;
     std::shared_ptr<const Snapshot> snap = holder_->Get();
     if (snap == nullptr) return NoSnapshot();
     RecommendQuery query;
@@ -228,6 +244,8 @@ grpc::Status RankerService::RankCandidates(grpc::ServerContext* context,
     }
     if (!error.empty()) return Invalid(std::move(error));
 
+    AdmissionQueue::Ticket ticket;
+    if (grpc::Status a = Admit(RankerMethod::kRankCandidates, *context, &ticket); !a.ok()) return a;
     std::shared_ptr<const Snapshot> snap = holder_->Get();
     if (snap == nullptr) return NoSnapshot();
     CandidatesQuery query;
@@ -265,6 +283,8 @@ grpc::Status RankerService::SimilarItems(grpc::ServerContext* context,
     }
     if (!error.empty()) return Invalid(std::move(error));
 
+    AdmissionQueue::Ticket ticket;
+    if (grpc::Status a = Admit(RankerMethod::kSimilarItems, *context, &ticket); !a.ok()) return a;
     std::shared_ptr<const Snapshot> snap = holder_->Get();
     if (snap == nullptr) return NoSnapshot();
     SimilarQuery query;

@@ -11,6 +11,7 @@
 #include <cstdint>
 
 #include "plumb/v1/ranker.grpc.pb.h"
+#include "server/admission_queue.h"
 #include "server/exposure_sink.h"
 #include "server/scorer.h"
 #include "server/serving_metrics.h"
@@ -34,12 +35,18 @@ class RankerService final : public plumb::v1::Ranker::Service {
   RankerService(const SnapshotHolder* holder, const Scorer* scorer, RankerLimits limits,
                 ExposureSink* exposure, ServingMetrics* metrics);
 
+  // Valid calls wait for a slot in `queue` (borrowed, may be null: no limit) before they
+  // score. Call before the server starts.
+  void set_admission(AdmissionQueue* queue) { admission_ = queue; }
+
   // Status codes: INVALID_ARGUMENT (a field out of its limits), UNAVAILABLE (no version
   // loaded yet), NOT_FOUND (unknown user or item, see ranker.proto), DEADLINE_EXCEEDED
-  // (the call's deadline passed while scoring), FAILED_PRECONDITION (SimilarItems for an
-  // item with a zero vector), INTERNAL (a bug). A request that cannot be decoded (e.g. a
-  // string field holding invalid UTF-8) gets INVALID_ARGUMENT naming the field before any
-  // of these run (see rpc/checked_methods.h), and is counted like any other call.
+  // (the call's deadline passed while it waited for a slot or while scoring),
+  // RESOURCE_EXHAUSTED (every slot taken and the waiting line full), FAILED_PRECONDITION
+  // (SimilarItems for an item with a zero vector), INTERNAL (a bug). A request that cannot be
+  // decoded (e.g. a string field holding invalid UTF-8) gets INVALID_ARGUMENT naming the
+  // field before any of these run (see rpc/checked_methods.h), and is counted like any other
+  // call.
   grpc::Status Recommend(grpc::ServerContext* context, const plumb::v1::RecommendRequest* request,
                          plumb::v1::RecommendResponse* response) override;
   grpc::Status RankCandidates(grpc::ServerContext* context,
@@ -53,12 +60,16 @@ class RankerService final : public plumb::v1::Ranker::Service {
   void Finish(RankerMethod method, const grpc::Status& status,
               std::chrono::steady_clock::time_point start) const;
   void RecordExposure(const Snapshot& snap, std::span<const ScoredIndex> items) const;
+  // OK with *ticket holding a slot, or the status to answer with (counted as a rejection).
+  grpc::Status Admit(RankerMethod method, const grpc::ServerContext& context,
+                     AdmissionQueue::Ticket* ticket);
 
   const SnapshotHolder* const holder_;
   const Scorer* const scorer_;
   const RankerLimits limits_;
   ExposureSink* const exposure_;
   ServingMetrics* const metrics_;
+  AdmissionQueue* admission_ = nullptr;
 };
 
 }  // namespace plumb::server

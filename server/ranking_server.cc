@@ -9,6 +9,7 @@
 #include <thread>
 
 #include "rpc/listen_probe.h"
+#include "server/transport_rejections.h"
 
 namespace plumb::server {
 
@@ -81,6 +82,10 @@ Status RankingServer::Start(const EndpointOptions& options, grpc::Service* ranke
   builder.SetSyncServerOption(grpc::ServerBuilder::SyncServerOption::MIN_POLLERS, 1);
   builder.SetSyncServerOption(grpc::ServerBuilder::SyncServerOption::MAX_POLLERS,
                               std::max(1, max_threads / cores));
+  if (options.on_transport_rejection) {
+    builder.experimental().SetInterceptorCreators(
+        TransportRejectionInterceptors(options.on_transport_rejection));
+  }
   grpc::ResourceQuota quota("plumb-serve");
   quota.SetMaxThreads(max_threads);
   builder.SetResourceQuota(quota);

@@ -8,15 +8,21 @@
 //
 // Threads: the synchronous server runs each call on one pool thread. The pool has one
 // completion queue per core; threads are created as calls need them and then stay (idle
-// ones wait on their queue), up to `max_threads` threads in all; a call arriving when every thread is busy is refused by gRPC with
-// RESOURCE_EXHAUSTED (load shedding) instead of queueing without bound.
+// ones wait on their queue), up to `max_threads` threads in all; a call arriving when every
+// thread is busy is refused by gRPC with RESOURCE_EXHAUSTED ("Server Threadpool
+// Exhausted"). plumb-serve sizes max_threads above its own AdmissionQueue (running +
+// waiting calls + room for health checks), so that overload is met by that queue, which
+// lets calls wait their turn, and gRPC's refusal remains a last resort; when it happens it
+// is reported to on_transport_rejection.
 #pragma once
 
 #include <grpcpp/grpcpp.h>
 
 #include <chrono>
+#include <functional>
 #include <memory>
 #include <string>
+#include <string_view>
 
 #include "core/status.h"
 
@@ -34,6 +40,9 @@ struct EndpointOptions {
   int max_threads = 0;
   // Offer server reflection so that generic tools can call plumb without the .proto files.
   bool reflection = true;
+  // Called (from gRPC's threads) for each call gRPC refuses for want of a thread, with the
+  // full method name. May be empty.
+  std::function<void(std::string_view method)> on_transport_rejection;
 };
 
 class RankingServer {

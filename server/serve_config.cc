@@ -53,10 +53,18 @@ void DefineOptions(CLI::App& app, ServeConfig* c) {
   app.add_option("--fold-in-l2", c->fold_in.l2,
                  "Fold-in: ridge term as a fraction of the item Gram matrix's mean eigenvalue")
       ->check(CLI::Range(0.0, 1e3));
-  app.add_option("--threads", c->endpoint.max_threads,
-                 "Most gRPC server threads (0: 8 per core, at least 16); calls beyond them "
-                 "get RESOURCE_EXHAUSTED")
+  app.add_option("--max-running-calls", c->admission.max_running,
+                 "Ranker calls that score at the same time (0: one per core)")
       ->check(CLI::Range(0, 10'000));
+  app.add_option("--max-waiting-calls", c->admission.max_waiting,
+                 "Ranker calls that wait, first in first out, for a free slot; calls beyond "
+                 "them get RESOURCE_EXHAUSTED, waiting calls whose deadline passes "
+                 "DEADLINE_EXCEEDED")
+      ->check(CLI::Range(0, 100'000));
+  app.add_option("--threads", c->endpoint.max_threads,
+                 "Most gRPC server threads (0: running + waiting calls + 16); calls beyond "
+                 "them get RESOURCE_EXHAUSTED from gRPC itself")
+      ->check(CLI::Range(0, 110'000));
   app.add_option("--reflection", c->endpoint.reflection,
                  "Offer gRPC server reflection (true/false)");
   app.add_option("--tls-cert", c->endpoint.tls_cert_file,

@@ -9,6 +9,7 @@
 #include <iosfwd>
 #include <string>
 
+#include "server/admission_queue.h"
 #include "server/exposure_window.h"
 #include "server/fold_in.h"
 #include "server/ranker_service.h"
@@ -27,6 +28,7 @@ struct ServeConfig {
   int shutdown_grace_ms = 5000;
   std::string log_level = "info";  // trace, debug, info, warn, error, critical, off
   EndpointOptions endpoint;        // listen, TLS, threads, reflection
+  AdmissionOptions admission;      // calls scoring at once, calls waiting for a slot
   RankerLimits limits;
   FoldInOptions fold_in;
   ExposureWindowOptions exposure;

@@ -3,6 +3,8 @@
 #include <chrono>
 #include <string>
 
+#include "server/admission_queue.h"
+
 namespace plumb::server {
 
 namespace {
@@ -44,6 +46,12 @@ ServingMetrics::ServingMetrics(const SnapshotHolder* holder, const CatchUpLoop* 
                    .Name("plumb_requests_total")
                    .Help("Finished Ranker calls by method and gRPC status code")
                    .Register(*registry_);
+  rejections_ = &prometheus::BuildCounter()
+                     .Name("plumb_rejected_calls_total")
+                     .Help(
+                         "Calls refused before scoring, by method and reason (queue_full, "
+                         "deadline_in_queue, thread_pool)")
+                     .Register(*registry_);
   auto& durations = prometheus::BuildHistogram()
                         .Name("plumb_request_duration_seconds")
                         .Help("Server-side time of a Ranker call, from receipt to response")
@@ -77,9 +85,33 @@ void ServingMetrics::ObserveRequest(RankerMethod method, grpc::StatusCode code, 
   durations_[static_cast<int>(method)]->Observe(seconds);
 }
 
+void ServingMetrics::ObserveRejection(std::string_view method, Rejection reason) {
+  static const char* const kReasons[] = {"queue_full", "deadline_in_queue", "thread_pool"};
+  constexpr std::string_view kRankerPrefix = "/plumb.v1.Ranker/";
+  std::string_view name = method;
+  if (name.starts_with(kRankerPrefix)) name.remove_prefix(kRankerPrefix.size());
+  if (name.starts_with("/")) name.remove_prefix(1);
+  rejections_->Add({{"method", std::string(name)}, {"reason", kReasons[static_cast<int>(reason)]}})
+      .Increment();
+  if (reason != Rejection::kThreadPool) return;
+  for (int m = 0; m < kMethods; ++m) {
+    if (name == kMethodNames[m]) {
+      RequestCounter(static_cast<RankerMethod>(m), grpc::StatusCode::RESOURCE_EXHAUSTED)
+          .Increment();
+    }
+  }
+}
+
 std::vector<prometheus::MetricFamily> ServingMetrics::Collect() const {
   std::vector<prometheus::MetricFamily> families = registry_->Collect();
   using prometheus::MetricType;
+  if (admission_ != nullptr) {
+    families.push_back(Single("plumb_requests_running", "Ranker calls scoring now",
+                              MetricType::Gauge, admission_->running()));
+    families.push_back(Single("plumb_requests_waiting",
+                              "Ranker calls waiting for a free slot (first in, first out)",
+                              MetricType::Gauge, admission_->waiting()));
+  }
   if (holder_ != nullptr) {
     std::shared_ptr<const Snapshot> snap = holder_->Get();
     double version = 0, age = 0;
@@ -106,6 +138,10 @@ std::vector<prometheus::MetricFamily> ServingMetrics::Collect() const {
     families.push_back(Single("plumb_snapshot_load_failures_total",
                               "Active versions that failed to load and were skipped",
                               MetricType::Counter, static_cast<double>(loop_->failed_loads())));
+    families.push_back(Single("plumb_store_damaged",
+                              "1 while the last check of the store's table files found one "
+                              "missing or damaged (the server keeps serving what it loaded)",
+                              MetricType::Gauge, loop_->store_damaged() ? 1.0 : 0.0));
   }
   if (exposure_ != nullptr) {
     families.push_back(Single("plumb_served_lists_total", "Ranked lists served (all methods)",

@@ -1,8 +1,10 @@
 #include "store/raw_records.h"
 
 #include <rocksdb/db.h>
+#include <rocksdb/metadata.h>
 #include <rocksdb/options.h>
 
+#include <algorithm>
 #include <functional>
 #include <memory>
 #include <vector>
@@ -67,6 +69,34 @@ Status GetRawRecord(const std::string& dir, std::string_view family, std::string
   return WithFamily(dir, family, [&](rocksdb::DB* db, rocksdb::ColumnFamilyHandle* cf) {
     return db->Get(rocksdb::ReadOptions(), cf, AsSlice(key), value);
   });
+}
+
+Status ListTableFiles(const std::string& dir, std::string_view family,
+                      std::vector<std::string>* paths) {
+  paths->clear();
+  // Read-only, so that looking changes nothing (no flush, no compaction).
+  rocksdb::DBOptions options;
+  std::vector<std::string> names;
+  rocksdb::Status s = rocksdb::DB::ListColumnFamilies(options, dir, &names);
+  if (!s.ok()) return Status::IoError("listing families of " + dir + ": " + s.ToString());
+  std::vector<rocksdb::ColumnFamilyDescriptor> descriptors;
+  for (const std::string& name : names) {
+    descriptors.emplace_back(name, rocksdb::ColumnFamilyOptions());
+  }
+  rocksdb::DB* db = nullptr;
+  std::vector<rocksdb::ColumnFamilyHandle*> handles;
+  s = rocksdb::DB::OpenForReadOnly(options, dir, descriptors, &handles, &db);
+  if (!s.ok()) return Status::IoError("opening " + dir + ": " + s.ToString());
+  std::vector<rocksdb::LiveFileMetaData> files;
+  db->GetLiveFilesMetaData(&files);
+  for (auto* h : handles) db->DestroyColumnFamilyHandle(h);
+  delete db;
+  std::sort(files.begin(), files.end(),
+            [](const auto& a, const auto& b) { return a.file_number > b.file_number; });
+  for (const auto& f : files) {
+    if (f.column_family_name == family) paths->push_back(f.db_path + "/" + f.relative_filename);
+  }
+  return Status::Ok();
 }
 
 }  // namespace plumb::store::testing

@@ -10,6 +10,7 @@
 
 #include <string>
 #include <string_view>
+#include <vector>
 
 #include "core/status.h"
 
@@ -23,5 +24,9 @@ Status DeleteRawRecord(const std::string& dir, std::string_view family, std::str
 // NotFound when the key is absent.
 Status GetRawRecord(const std::string& dir, std::string_view family, std::string_view key,
                     std::string* value);
+
+// Paths of the live table files of `family`, newest (highest file number) first.
+Status ListTableFiles(const std::string& dir, std::string_view family,
+                      std::vector<std::string>* paths);
 
 }  // namespace plumb::store::testing

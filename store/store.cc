@@ -7,6 +7,7 @@
 #include <rocksdb/snapshot.h>
 #include <rocksdb/table.h>
 #include <rocksdb/write_batch.h>
+#include <sys/statvfs.h>
 
 #include <algorithm>
 #include <atomic>
@@ -23,9 +24,11 @@
 #include "store/event_id_expiry.h"
 #include "store/keys.h"
 #include "store/records.h"
+#include "store/store_impl.h"
 
 namespace plumb::store {
 
+<<<<<<< HEAD
 namespace {
 
 int64_t NowMs() {
@@ -173,6 +176,9 @@ struct Store::Impl {
   Status CheckNewIds(IdSpace space, uint32_t count,
                      const std::vector<std::pair<uint32_t, std::string>>& entries) const;
 };
+=======
+using namespace internal;
+>>>>>>> hostile
 
 Status Store::Impl::LoadCounters(const rocksdb::ReadOptions& ro) {
   // Highest event sequence: the last key of the events family, or the recorded value if
@@ -356,6 +362,21 @@ Status Store::Impl::DeleteVersion(const rocksdb::ReadOptions& ro, uint64_t versi
   return FromRocks(batch->Delete(models, AsSlice(keys::ManifestKey(version))), "pruning");
 }
 
+Status Store::Impl::CheckFreeSpace(uint64_t bytes, const std::string& what) const {
+  if (options.min_free_disk_bytes == 0) return Status::Ok();
+  struct statvfs fs {};
+  if (::statvfs(dir.c_str(), &fs) != 0) return Status::Ok();  // cannot tell: let RocksDB try
+  const uint64_t free = static_cast<uint64_t>(fs.f_bavail) * fs.f_frsize;
+  // The write-ahead log holds the batch once, the table files once more after a flush.
+  if (free >= options.min_free_disk_bytes + 2 * bytes) return Status::Ok();
+  return Status::ResourceExhausted(
+      what + ": No space left for it: the disk holding " + dir + " has " +
+      std::to_string(free >> 20) + " MB free, at or below the " +
+      std::to_string(options.min_free_disk_bytes >> 20) +
+      " MB kept free for the store's own upkeep; nothing was written. Free space (or move the "
+      "store); writing resumes by itself");
+}
+
 // ---- opening --------------------------------------------------------------------------
 
 Store::Store(std::unique_ptr<Impl> impl) : impl_(std::move(impl)) {}
@@ -378,6 +399,19 @@ Status Store::OpenPrimary(const std::string& dir, const StoreOptions& options,
   impl->dir = dir;
   if (options.dedup_window_ms > 0) {
     impl->expiry = std::make_unique<EventIdExpiry>(options.dedup_window_ms);
+  }
+
+  if (options.create_if_missing) {
+    // RocksDB takes a directory without CURRENT for a new database, and the new database's
+    // first clean-up deletes every table file it does not know: a store that lost CURRENT
+    // would be wiped. Refuse instead.
+    const std::string files = StoreFilesWithoutCurrent(dir);
+    if (!files.empty()) {
+      return Status::Corruption("store at " + dir + " is damaged: it holds " + files +
+                                " but no CURRENT file; plumb will not create a new store over "
+                                "them." +
+                                DamageAdvice(dir));
+    }
   }
 
   rocksdb::DBOptions db_options;
@@ -444,6 +478,9 @@ Status Store::OpenSecondary(const std::string& dir, const std::string& scratch_d
   std::error_code ec;
   std::filesystem::create_directories(scratch_dir, ec);
   if (ec) return Status::IoError("creating " + scratch_dir + ": " + ec.message());
+  // A secondary opens whatever consistent state it can: with a table file missing it
+  // would show older data as current. Find such damage first.
+  PLUMB_RETURN_IF_ERROR(CheckFiles(dir, scratch_dir));
 
   rocksdb::DBOptions db_options;
   // A secondary must keep every table file open: the primary may delete a file after a
@@ -467,6 +504,7 @@ Status Store::OpenSecondary(const std::string& dir, const std::string& scratch_d
   auto impl = std::make_unique<Impl>();
   impl->primary = false;
   impl->dir = dir;
+  impl->scratch_dir = scratch_dir;
   rocksdb::DB* db = nullptr;
   std::vector<rocksdb::ColumnFamilyHandle*> handles;
   PLUMB_RETURN_IF_ERROR(FromRocks(

@@ -79,6 +79,43 @@ struct StoreOptions {
   // A duplicate event_id is recognised if its first copy was received within this window.
   // Longer windows cost disk (one small record per event id). 0 = forever.
   int64_t dedup_window_ms = 24LL * 3600 * 1000;
+  // Free space kept on the store's file system: a write that would leave less is refused
+  // with ResourceExhausted (nothing written) instead of being attempted. RocksDB needs the
+  // room to flush and compact; a write that actually meets a full disk leaves it refusing
+  // writes until its own recovery finds a memtable's worth (64 MB) free again, and can
+  // even abort the process (an assertion the Debian build keeps). 0 = no check.
+  uint64_t min_free_disk_bytes = 128ull << 20;
+};
+
+// What Store::Verify found. Every problem is one sentence naming the record or file.
+struct VerifyReport {
+  uint64_t table_files = 0;  // table files whose every block was read and checksummed
+  uint64_t table_bytes = 0;
+  uint64_t events = 0;    // events read and decoded
+  uint64_t versions = 0;  // versions read in full
+  std::vector<std::string> problems;
+  std::vector<uint64_t> damaged_versions;  // versions that cannot be read in full
+};
+
+// What Store::Repair did.
+struct RepairReport {
+  // A table file RocksDB's repair moved to <dir>/lost/ because it could not be read in full.
+  struct SetAside {
+    std::string file;    // e.g. "000034.sst"
+    std::string family;  // its column family, "" when even that is unreadable
+    std::string why;
+    uint64_t salvaged = 0;  // readable records copied back from it
+    uint64_t unreadable_ranges = 0;
+  };
+  bool rebuilt = false;  // RocksDB's repair rebuilt the set of live files
+  std::string rebuild_reason;
+  std::vector<SetAside> set_aside;
+  uint64_t salvaged_records = 0;
+  std::vector<uint64_t> dropped_versions;  // incomplete or unreadable versions deleted
+  uint64_t active_before = 0, active_after = 0;
+  uint64_t cursor_before = 0, cursor_after = 0;
+  uint64_t degrees_rewritten = 0;      // live item degrees recomputed from interactions
+  std::vector<std::string> remaining;  // problems Verify still finds afterwards
 };
 
 // An event as submitted, already validated by the caller.
@@ -190,16 +227,52 @@ class Store {
  public:
   // Opens `dir` read-write. Fails with IoError if another process (or another Store in this
   // process) holds it, InvalidArgument for bad options, Corruption if the store's counters
-  // are unreadable. On success *out owns the store; on failure *out is null.
+  // are unreadable or a table file is missing or damaged. With create_if_missing, a new
+  // store is created only in a directory that holds no store files: a directory with table,
+  // log or MANIFEST files but no CURRENT file is a damaged store, and creating a new one
+  // there would delete its files, so that fails with Corruption (pointing at `plumb
+  // repair`). On success *out owns the store; on failure *out is null.
   static Status OpenPrimary(const std::string& dir, const StoreOptions& options,
                             std::unique_ptr<Store>* out);
 
   // Opens `dir` as a read-only follower of the primary. `scratch_dir` is this follower's
   // own directory for RocksDB's info log (created if missing; one per follower process).
-  // The store must exist (NotFound otherwise). Call CatchUp() to see later writes of the
-  // primary; until then the secondary shows the state it opened with.
+  // The store must exist (NotFound otherwise). Runs CheckFiles() first: Corruption naming
+  // the file when a table file is missing or damaged. Call CatchUp() to see later writes of
+  // the primary; until then the secondary shows the state it opened with.
   static Status OpenSecondary(const std::string& dir, const std::string& scratch_dir,
                               std::unique_ptr<Store>* out);
+
+  // Checks that every table file the store's MANIFEST lists is present, as long as
+  // recorded, and has a readable footer and index, by opening `dir` read-only with RocksDB's
+  // paranoid checks and every table file open (the write-ahead log is not read). A RocksDB
+  // secondary steps around such damage without a word: it falls back to the newest state
+  // whose files all exist, which shows older data as if it were current. NotFound when
+  // `dir` holds no store; Corruption naming the file and what is wrong with it otherwise.
+  // `scratch_dir` (created if missing) receives the check's RocksDB info log. Safe while a
+  // primary writes the store: if the MANIFEST changes during the check (a compaction
+  // deleted a file just listed), the check runs again, up to a few times. Reads the footer
+  // and index of every table file: milliseconds for a small store, about a second for
+  // thousands of files.
+  static Status CheckFiles(const std::string& dir, const std::string& scratch_dir);
+
+  // Brings a damaged store at `dir` back to a state that opens and verifies, keeping every
+  // record that can still be read (store/repair.cc):
+  //  1. when CURRENT is missing, a table file is missing or damaged, or any block fails its
+  //     checksum, RocksDB's own repair rebuilds the set of live files: it sets aside into
+  //     <dir>/lost/ every table file it cannot read in full and turns the write-ahead logs
+  //     into table files;
+  //  2. every readable record of a set-aside file is copied back when the store lacks its
+  //     key (events, event ids, ids, interactions, version blocks: records written once);
+  //  3. versions that are not complete are deleted; if the active version is among them, the
+  //     newest complete version that did not fail its gate becomes active (or none);
+  //  4. the cursor is kept within the log; live item degrees are recomputed from the
+  //     interaction sets;
+  //  5. Verify() runs and report->remaining lists what is still wrong.
+  // Unavailable while another process holds the store (stop plumb-train first; restart
+  // plumb-serve afterwards). NotFound without a store. OK when the repair ran, even if
+  // report->remaining is not empty.
+  static Status Repair(const std::string& dir, const StoreOptions& options, RepairReport* report);
 
   Store(const Store&) = delete;
   Store& operator=(const Store&) = delete;
@@ -217,7 +290,8 @@ class Store {
   // when options.sync). Events whose event_id was seen within the de-duplication window
   // are not appended again (reported in the result); so are repeats of one event_id within
   // the batch. InvalidArgument for an event with an empty user or item id; Corruption if a
-  // stored de-duplication record is unreadable. On error nothing was appended.
+  // stored de-duplication record is unreadable; ResourceExhausted when the write would cut
+  // into min_free_disk_bytes. On error nothing was appended.
   Status AppendEvents(std::span<const EventInput> events, AppendResult* result);
 
   // Replaces *out with up to `max_events` events with sequence > after_seq, in order.
@@ -289,6 +363,21 @@ class Store {
 
   // Named meta values set through StateChange::meta. NotFound when unset.
   Status GetMeta(std::string_view key, std::string* value) const;
+
+  // ---- integrity (store/integrity.cc) ---------------------------------------------
+
+  // Reads the whole store and reports every problem found in *report: each table file's
+  // blocks against their checksums (naming the file, its column family and key range),
+  // every event, the id dictionaries, interactions, degrees and meta values, and every kept
+  // version in full. OK when the checks ran (report->problems may still be non-empty); an
+  // error only when they could not run. Reads everything once: minutes for a large store.
+  // Thread-safe; on a secondary it sees the state of the last catch-up.
+  Status Verify(VerifyReport* report) const;
+
+  // On a secondary: CheckFiles() on this store's directory, for damage that appeared after
+  // the opening (a follower's catch-up steps around it as its opening would). OK on a
+  // primary, whose reads fail on such damage by themselves.
+  Status RecheckFiles() const;
 
  private:
   struct Impl;

@@ -11,6 +11,9 @@ namespace {
 // Limits and defaults from the wire contract, proto/plumb/v1/ingest.proto
 // (InteractionEvent field comments).
 
+// A receive time a little after Good()'s timestamp (events arrive after they happen).
+constexpr int64_t kNow = 1'700'000'100'000;
+
 store::EventInput Good() {
   store::EventInput e;
   e.user_id = "member-0017";
@@ -23,7 +26,7 @@ store::EventInput Good() {
 
 RejectReason Reject(store::EventInput e, std::string* detail = nullptr) {
   EventRejection why;
-  EXPECT_FALSE(ValidateEvent(&e, 5, &why));
+  EXPECT_FALSE(ValidateEvent(&e, kNow, &why));
   if (detail) *detail = why.detail;
   return why.reason;
 }
@@ -31,7 +34,7 @@ RejectReason Reject(store::EventInput e, std::string* detail = nullptr) {
 TEST(EventValidation, AcceptsAGoodEventUnchanged) {
   store::EventInput e = Good();
   EventRejection why;
-  ASSERT_TRUE(ValidateEvent(&e, 123, &why));
+  ASSERT_TRUE(ValidateEvent(&e, kNow, &why));
   EXPECT_EQ(e.user_id, "member-0017");
   EXPECT_EQ(e.timestamp_ms, 1'700'000'000'000);
   EXPECT_EQ(e.weight, 2.5f);
@@ -54,13 +57,13 @@ TEST(EventValidation, BoundariesAreInclusiveWhereTheContractSaysSo) {
   e.event_id.assign(kMaxEventIdBytes, 'e');  // exactly 128 bytes: allowed
   e.weight = 1000.0f;                        // (0, 1000]: 1000 is in
   EventRejection why;
-  EXPECT_TRUE(ValidateEvent(&e, 1, &why)) << why.detail;
+  EXPECT_TRUE(ValidateEvent(&e, kNow, &why)) << why.detail;
   e = Good();
   e.weight = std::numeric_limits<float>::denorm_min();  // smallest positive: in
-  EXPECT_TRUE(ValidateEvent(&e, 1, &why)) << why.detail;
+  EXPECT_TRUE(ValidateEvent(&e, kNow, &why)) << why.detail;
   e = Good();
   e.user_id = "Zoë’s ladder";  // multi-byte UTF-8 is fine
-  EXPECT_TRUE(ValidateEvent(&e, 1, &why)) << why.detail;
+  EXPECT_TRUE(ValidateEvent(&e, kNow, &why)) << why.detail;
 }
 
 TEST(EventValidation, RejectsEmptyIds) {
@@ -113,6 +116,31 @@ TEST(EventValidation, RejectsNegativeTimestamps) {
   EXPECT_EQ(Reject(e), RejectReason::kBadTimestamp);
 }
 
+// Year 3000 and int64 max were accepted before; the receive time here is 2023-11-14.
+TEST(EventValidation, RejectsTimestampsBeyondTheAllowedSkewWithTheirOwnReason) {
+  constexpr int64_t kReceived = 1'700'000'000'000;
+  constexpr int64_t kYear3000 = 32'503'680'000'000;  // 3000-01-01T00:00:00Z in ms
+  for (int64_t ts :
+       {kYear3000, std::numeric_limits<int64_t>::max(), kReceived + kDefaultMaxFutureSkewMs + 1}) {
+    store::EventInput e = Good();
+    e.timestamp_ms = ts;
+    EventRejection why;
+    EXPECT_FALSE(ValidateEvent(&e, kReceived, &why)) << ts;
+    EXPECT_EQ(why.reason, RejectReason::kFutureTimestamp) << ts;
+    EXPECT_NE(why.detail.find("3600 s ahead"), std::string::npos) << why.detail;
+  }
+  // Up to the skew is fine, and so is any past time; a configured skew replaces the default.
+  store::EventInput e = Good();
+  e.timestamp_ms = kReceived + kDefaultMaxFutureSkewMs;
+  EventRejection why;
+  EXPECT_TRUE(ValidateEvent(&e, kReceived, &why)) << why.detail;
+  e.timestamp_ms = kReceived + 61'000;
+  EXPECT_FALSE(ValidateEvent(&e, kReceived, &why, /*max_future_skew_ms=*/60'000));
+  EXPECT_EQ(why.reason, RejectReason::kFutureTimestamp);
+  e.timestamp_ms = kYear3000;
+  EXPECT_TRUE(ValidateEvent(&e, kReceived, &why, /*max_future_skew_ms=*/0));  // no limit
+}
+
 TEST(EventValidation, RejectsBadEventIds) {
   store::EventInput e = Good();
   e.event_id.assign(kMaxEventIdBytes + 1, 'e');
@@ -123,7 +151,7 @@ TEST(EventValidation, RejectsBadEventIds) {
   e = Good();
   e.event_id.clear();  // no event_id: allowed, no de-duplication
   EventRejection why;
-  EXPECT_TRUE(ValidateEvent(&e, 1, &why));
+  EXPECT_TRUE(ValidateEvent(&e, kNow, &why));
 }
 
 TEST(EventValidation, ReasonLabelsAreTheAgreedMetricLabels) {
@@ -135,6 +163,7 @@ TEST(EventValidation, ReasonLabelsAreTheAgreedMetricLabels) {
   EXPECT_EQ(RejectReasonLabel(RejectReason::kBadTimestamp), "bad_timestamp");
   EXPECT_EQ(RejectReasonLabel(RejectReason::kBadEventId), "bad_event_id");
   EXPECT_EQ(RejectReasonLabel(RejectReason::kBadId), "bad_id");
+  EXPECT_EQ(RejectReasonLabel(RejectReason::kFutureTimestamp), "future_timestamp");
 }
 
 }  // namespace

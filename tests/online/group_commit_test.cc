@@ -1,9 +1,12 @@
 #include "trainer/online/group_commit.h"
 
 #include <gtest/gtest.h>
+#include <spdlog/sinks/ostream_sink.h>
+#include <spdlog/spdlog.h>
 
 #include <atomic>
 #include <set>
+#include <sstream>
 #include <string>
 #include <thread>
 #include <vector>
@@ -128,6 +131,46 @@ TEST(GroupCommit, AFailedWriteFailsEveryWaitingSubmitterAndStoresNothing) {
   EXPECT_TRUE(o.status.ok());
   EXPECT_EQ(o.appended, 3u);
   EXPECT_EQ(notified.load(), 1);
+}
+
+// A full disk fails every append for a while. The trainer's log gets one error when the
+// episode starts (not one per write) and one line when writes work again; the failures are
+// counted for the metrics.
+TEST(GroupCommit, AFailureEpisodeIsLoggedOnceAndCounted) {
+  std::ostringstream captured;
+  auto sink = std::make_shared<spdlog::sinks::ostream_sink_mt>(captured);
+  auto previous = spdlog::default_logger();
+  spdlog::set_default_logger(std::make_shared<spdlog::logger>("capture", sink));
+
+  MemoryEventLog log;
+  log.set_failure(Status::IoError("While appending to file: No space left on device"));
+  GroupCommitOptions options;
+  options.window = std::chrono::microseconds(0);
+  {
+    GroupCommitter committer(&log, nullptr, options);
+    for (int i = 0; i < 6; ++i) {
+      EXPECT_FALSE(committer.Submit(Events(Name("full", i), 3)).get().status.ok());
+    }
+    log.set_failure(Status::Ok());
+    EXPECT_TRUE(committer.Submit(Events("after", 2)).get().status.ok());
+    log.set_failure(Status::IoError("No space left on device"));  // a second episode
+    EXPECT_FALSE(committer.Submit(Events("again", 1)).get().status.ok());
+    const CommitterStats stats = committer.stats();
+    EXPECT_EQ(stats.failed_groups, 7u);
+    EXPECT_EQ(stats.failed_events, 19u);
+    EXPECT_EQ(stats.appended, 2u);
+  }
+  spdlog::set_default_logger(previous);
+
+  const std::string text = captured.str();
+  auto count = [&](const std::string& what) {
+    size_t n = 0;
+    for (size_t at = text.find(what); at != std::string::npos; at = text.find(what, at + 1)) ++n;
+    return n;
+  };
+  EXPECT_EQ(count("appending events to the log failed"), 2u) << text;  // one per episode
+  EXPECT_EQ(count("No space left on device"), 2u) << text;
+  EXPECT_EQ(count("works again, after 6 failed writes that refused 18 events"), 1u) << text;
 }
 
 TEST(GroupCommit, MaxGroupSizeSplitsGroupsButNeverARequest) {

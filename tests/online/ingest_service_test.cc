@@ -50,6 +50,8 @@ TEST(IngestService, BadEventsAreRejectedWithReasonsAndTheRestAccepted) {
       {WireEvent("m1", "saw", std::string(129, 'e')), plumb::v1::REJECT_BAD_EVENT_ID,
        RejectReason::kBadEventId},
       {WireEvent("m\x01", "saw", "b7"), plumb::v1::REJECT_BAD_ID, RejectReason::kBadId},
+      {WireEvent("m1", "saw", "b8", 1.0f, std::numeric_limits<int64_t>::max()),
+       plumb::v1::REJECT_FUTURE_TIMESTAMP, RejectReason::kFutureTimestamp},
   };
   std::vector<uint64_t> bad_index;
   for (size_t i = 0; i < bad.size(); ++i) {

@@ -32,6 +32,8 @@ TEST(TrainMetrics, NamesAreTheAgreedOnesAndValuesFollowTheTotals) {
   CommitterStats committer;
   committer.appended = 1'000;
   committer.duplicates = 7;
+  committer.failed_groups = 4;
+  committer.failed_events = 90;
   committer.last_seq = 1'000;
   OnlineStatus loop;
   loop.objective = "cpr";
@@ -54,6 +56,8 @@ TEST(TrainMetrics, NamesAreTheAgreedOnesAndValuesFollowTheTotals) {
   // Names and labels as agreed in the project's metric list for plumb-train.
   EXPECT_EQ(m["plumb_events_accepted_total"], 1'000);
   EXPECT_EQ(m["plumb_events_duplicate_total"], 7);
+  EXPECT_EQ(m["plumb_event_log_write_failures_total"], 4);
+  EXPECT_EQ(m["plumb_event_log_failed_events_total"], 90);
   EXPECT_EQ(m["plumb_events_rejected_total{reason=\"bad_weight\"}"], 3);
   EXPECT_EQ(m["plumb_events_rejected_total{reason=\"empty_user_id\"}"], 1);
   EXPECT_EQ(m.count("plumb_events_rejected_total{reason=\"bad_timestamp\"}"), 1u);  // 0, present

@@ -90,11 +90,27 @@ TEST(ServeConfigTest, HelpListsEveryKeyWithItsDefault) {
   ServeConfig c;
   std::string out;
   EXPECT_EQ(Parse({"--help"}, &c, &out), 0);
-  for (const char* key :
-       {"--db", "--config", "--listen", "--metrics", "--scratch-dir", "--catchup-interval-ms",
-        "--max-count", "--max-candidates", "--max-exclusions", "--max-recent",
-        "--fold-in-confidence", "--fold-in-l2", "--threads", "--reflection", "--tls-cert",
-        "--tls-key", "--tls-client-ca", "--shutdown-grace-ms", "--log-level"}) {
+  for (const char* key : {"--db",
+                          "--config",
+                          "--listen",
+                          "--metrics",
+                          "--scratch-dir",
+                          "--catchup-interval-ms",
+                          "--max-count",
+                          "--max-candidates",
+                          "--max-exclusions",
+                          "--max-recent",
+                          "--fold-in-confidence",
+                          "--fold-in-l2",
+                          "--max-running-calls",
+                          "--max-waiting-calls",
+                          "--threads",
+                          "--reflection",
+                          "--tls-cert",
+                          "--tls-key",
+                          "--tls-client-ca",
+                          "--shutdown-grace-ms",
+                          "--log-level"}) {
     EXPECT_NE(out.find(key), std::string::npos) << key;
   }
   EXPECT_NE(out.find("=500"), std::string::npos) << out;   // catch-up interval

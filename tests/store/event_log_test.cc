@@ -207,5 +207,28 @@ TEST_F(EventLogTest, MissingStoreWithoutCreateFails) {
   EXPECT_EQ(other, nullptr);
 }
 
+// A disk that is about full: writes that would cut into the reserve are refused before
+// RocksDB sees them (a write that meets a full disk leaves RocksDB refusing writes, and can
+// abort the process), nothing is written, and writing works again once the reserve allows.
+TEST_F(EventLogTest, WritesThatWouldCutIntoTheDiskReserveAreRefused) {
+  StoreOptions options = testing::TestOptions();
+  options.min_free_disk_bytes = uint64_t{1} << 60;  // more than any disk has free
+  Open(options);
+  AppendResult r;
+  Status s = store_->AppendEvents(Loans(3, 0), &r);
+  EXPECT_EQ(s.code(), Status::Code::kResourceExhausted) << s.ToString();
+  EXPECT_NE(s.message().find("No space left"), std::string::npos) << s.ToString();
+  EXPECT_EQ(store_->LastSequence(), 0u);
+  StateChange change;
+  change.new_users.emplace_back(0, "member-0");
+  EXPECT_EQ(store_->Commit(change).code(), Status::Code::kResourceExhausted);
+  EXPECT_EQ(store_->IdCount(IdSpace::kUser), 0u);
+
+  options.min_free_disk_bytes = 1 << 20;  // 1 MB: any disk the tests run on has that
+  Open(options);
+  ASSERT_TRUE(store_->AppendEvents(Loans(3, 0), &r).ok());
+  EXPECT_EQ(store_->LastSequence(), 3u);
+}
+
 }  // namespace
 }  // namespace plumb::store

@@ -65,11 +65,14 @@ std::string_view RejectReasonLabel(RejectReason reason) {
       return "bad_timestamp";
     case RejectReason::kBadEventId:
       return "bad_event_id";
+    case RejectReason::kFutureTimestamp:
+      return "future_timestamp";
   }
   return "unknown";
 }
 
-bool ValidateEvent(store::EventInput* event, int64_t received_ms, EventRejection* why) {
+bool ValidateEvent(store::EventInput* event, int64_t received_ms, EventRejection* why,
+                   int64_t max_future_skew_ms) {
   if (!CheckId("user_id", event->user_id, RejectReason::kEmptyUserId, why)) return false;
   if (!CheckId("item_id", event->item_id, RejectReason::kEmptyItemId, why)) return false;
 
@@ -101,6 +104,16 @@ bool ValidateEvent(store::EventInput* event, int64_t received_ms, EventRejection
   if (event->timestamp_ms < 0) {
     why->reason = RejectReason::kBadTimestamp;
     why->detail = "timestamp_ms " + std::to_string(event->timestamp_ms) + " is negative";
+    return false;
+  }
+  // Both are non-negative here, so the difference cannot overflow.
+  if (max_future_skew_ms > 0 && event->timestamp_ms > received_ms &&
+      event->timestamp_ms - received_ms > max_future_skew_ms) {
+    why->reason = RejectReason::kFutureTimestamp;
+    why->detail = "timestamp_ms " + std::to_string(event->timestamp_ms) + " is " +
+                  std::to_string((event->timestamp_ms - received_ms) / 1000) +
+                  " s after its receipt; at most " + std::to_string(max_future_skew_ms / 1000) +
+                  " s ahead is accepted (max_future_skew)";
     return false;
   }
   if (event->timestamp_ms == 0) event->timestamp_ms = received_ms;

@@ -1,5 +1,7 @@
 #include "trainer/online/group_commit.h"
 
+#include <spdlog/spdlog.h>
+
 #include <exception>
 #include <string>
 #include <string_view>
@@ -58,6 +60,7 @@ CommitterStats GroupCommitter::stats() const {
   s.duplicates = duplicates_.load(std::memory_order_relaxed);
   s.groups = groups_.load(std::memory_order_relaxed);
   s.failed_groups = failed_groups_.load(std::memory_order_relaxed);
+  s.failed_events = failed_events_.load(std::memory_order_relaxed);
   s.last_seq = last_seq_.load(std::memory_order_relaxed);
   return s;
 }
@@ -140,12 +143,32 @@ void GroupCommitter::CommitGroup(std::vector<Request>* group) {
 
   if (!status.ok()) {
     failed_groups_.fetch_add(1, std::memory_order_relaxed);
+    failed_events_.fetch_add(total, std::memory_order_relaxed);
+    if (episode_groups_++ == 0) {
+      spdlog::error(
+          "appending events to the log failed: {}; the {} events of this write are refused "
+          "(their callers get the error and must retry; nothing is acknowledged). Logged once "
+          "until a write succeeds again; see plumb_event_log_write_failures_total",
+          status.ToString(), total);
+    }
+    episode_events_ += total;
     for (Request& r : *group) {
       CommitOutcome outcome;
       outcome.status = status;
       r.done.set_value(std::move(outcome));
     }
     return;
+  }
+
+  // Only a write that stored something shows the log works again (a group of duplicates
+  // writes nothing).
+  if (episode_groups_ > 0 && result.appended > 0) {
+    spdlog::info(
+        "appending events to the log works again, after {} failed writes that refused {} "
+        "events",
+        episode_groups_, episode_events_);
+    episode_groups_ = 0;
+    episode_events_ = 0;
   }
 
   uint64_t group_appended = 0, group_duplicates = 0;

@@ -6,6 +6,11 @@
 // A submitter is told "stored" only after the append returned OK; when an append fails,
 // every submitter in that group receives the error and nothing of theirs is reported as
 // stored (the store's append is atomic: on error nothing of the group was written).
+//
+// Failed appends (a full disk, a device error) are logged once per episode: an error with
+// the first failure, then nothing while appends keep failing, then one line when an
+// append succeeds again saying how many appends and events the episode refused. They are
+// counted in CommitterStats (failed_groups, failed_events) for the metrics.
 #pragma once
 
 #include <atomic>
@@ -79,6 +84,7 @@ struct CommitterStats {
   uint64_t duplicates = 0;
   uint64_t groups = 0;         // successful appends
   uint64_t failed_groups = 0;  // appends that returned an error
+  uint64_t failed_events = 0;  // events in those appends (none of them acknowledged)
   uint64_t last_seq = 0;
 };
 
@@ -130,7 +136,12 @@ class GroupCommitter {
   std::atomic<uint64_t> duplicates_{0};
   std::atomic<uint64_t> groups_{0};
   std::atomic<uint64_t> failed_groups_{0};
+  std::atomic<uint64_t> failed_events_{0};
   std::atomic<uint64_t> last_seq_{0};
+  // The current failure episode (committer thread only): appends and events refused since
+  // the last successful append.
+  uint64_t episode_groups_ = 0;
+  uint64_t episode_events_ = 0;
 
   std::mutex close_mu_;
   std::thread thread_;

@@ -35,6 +35,8 @@ plumb::v1::RejectReason WireRejectReason(RejectReason reason) {
       return plumb::v1::REJECT_BAD_EVENT_ID;
     case RejectReason::kBadId:
       return plumb::v1::REJECT_BAD_ID;
+    case RejectReason::kFutureTimestamp:
+      return plumb::v1::REJECT_FUTURE_TIMESTAMP;
   }
   return plumb::v1::REJECT_REASON_UNSPECIFIED;
 }
@@ -80,7 +82,7 @@ class IngestService::Call {
     event.timestamp_ms = wire->timestamp_ms();
     event.weight = wire->weight();
     EventRejection why;
-    if (!ValidateEvent(&event, received_ms, &why)) {
+    if (!ValidateEvent(&event, received_ms, &why, service_.limits_.max_future_skew_ms)) {
       Reject(index, why, std::move(event.event_id));
       return;
     }

@@ -30,6 +30,8 @@ struct IngestLimits {
   size_t max_chunks_in_flight = 32;
   // Rejections listed in a summary (the count is not capped).
   size_t max_listed_rejections = 100;
+  // Timestamps more than this after their receipt are rejected; <= 0: no limit.
+  int64_t max_future_skew_ms = kDefaultMaxFutureSkewMs;
 };
 
 // Maps a failed append to the gRPC status the client sees: RESOURCE_EXHAUSTED when the

@@ -144,6 +144,7 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
     spdlog::critical("keep_versions_for: {}", s.message());
     return 2;
   }
+  store_options.min_free_disk_bytes = config.min_free_disk_mb << 20;
   if (Status s = plumb::ParseDuration(config.dedup_window, &store_options.dedup_window_ms); !s.ok()) {
     spdlog::critical("{}", s.message());
     return 2;
@@ -178,6 +179,10 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
       &event_log, [&loop] { loop->NotifyAppended(); }, commit_options);
   IngestLimits limits;
   limits.max_batch_events = config.max_batch_events;
+  if (Status s = ParseDuration(config.max_future_skew, &limits.max_future_skew_ms); !s.ok()) {
+    spdlog::critical("{}", s.message());
+    return 2;
+  }
   InflightCalls inflight;
   const CallAdmission admission{auth.get(), &inflight};
   IngestService ingest(&committer, &metrics, admission, limits);

@@ -100,6 +100,7 @@ Status CheckTrainConfig(const TrainConfig& c) {
   if (Status s = ParseDuration(c.keep_versions_for, &ms); !s.ok()) {
     return bad("keep_versions_for: " + s.message());
   }
+  PLUMB_RETURN_IF_ERROR(ParseDuration(c.max_future_skew, &ms));
   if (c.tls_cert.empty() != c.tls_key.empty()) {
     return bad("TLS needs both tls_cert and tls_key (or neither)");
   }
@@ -168,6 +169,12 @@ std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConf
        "only); active and pinned versions are always kept");
   Bind(app, &keys, s, "dedup_window", &c.dedup_window,
        "event_id de-duplication window (250ms, 90s, 30m, 24h, 7d; 0 = forever)");
+  Bind(app, &keys, s, "max_future_skew", &c.max_future_skew,
+       "Events whose timestamp is more than this after their receipt are rejected "
+       "(REJECT_FUTURE_TIMESTAMP; 90s, 30m, 1h, 1d; 0 = no limit)");
+  Bind(app, &keys, s, "min_free_disk_mb", &c.min_free_disk_mb,
+       "Free space (MB) kept on the store's disk: writes that would cut into it are refused "
+       "(RESOURCE_EXHAUSTED) until space is freed; 0 = no check");
   Bind(app, &keys, s, "token_file", &c.token_file,
        "File holding the bearer token every call must carry; empty = no token");
   Bind(app, &keys, s, "tls_cert", &c.tls_cert, "PEM certificate chain for TLS; empty = no TLS");

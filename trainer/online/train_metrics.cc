@@ -36,6 +36,19 @@ TrainMetrics::TrainMetrics() : registry_(std::make_shared<prometheus::Registry>(
                                  "accepted (acknowledged as duplicates)")
                              .Register(r)
                              .Add({});
+  write_failures_.counter =
+      &BuildCounter()
+           .Name("plumb_event_log_write_failures_total")
+           .Help(
+               "Appends to the event log that failed (full disk, device error); their events "
+               "were refused, none acknowledged")
+           .Register(r)
+           .Add({});
+  failed_events_.counter = &BuildCounter()
+                                .Name("plumb_event_log_failed_events_total")
+                                .Help("Events in failed appends to the event log (refused)")
+                                .Register(r)
+                                .Add({});
   auto& rejected = BuildCounter()
                        .Name("plumb_events_rejected_total")
                        .Help("Events refused by validation, by reason")
@@ -173,6 +186,8 @@ void TrainMetrics::Refresh(const CommitterStats& committer, const OnlineStatus* 
   std::lock_guard<std::mutex> lock(mu_);
   accepted_.Update(committer.appended);
   duplicates_.Update(committer.duplicates);
+  write_failures_.Update(committer.failed_groups);
+  failed_events_.Update(committer.failed_events);
   if (loop == nullptr) return;
 
   if (loss_ == nullptr || loop->objective != objective_) {

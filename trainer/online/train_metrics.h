@@ -73,6 +73,7 @@ class TrainMetrics {
 
   std::mutex mu_;  // guards the feeds and the labelled families below
   TotalFeed accepted_, duplicates_, trained_, passed_, failed_, skipped_;
+  TotalFeed write_failures_, failed_events_;
   TotalFeed refits_done_, refits_failed_;
   prometheus::Gauge* refit_running_ = nullptr;
   prometheus::Gauge* refit_seconds_ = nullptr;

@@ -16,6 +16,7 @@
 #include <mutex>
 #include <optional>
 #include <shared_mutex>
+#include <set>
 #include <string>
 #include <string_view>
 #include <vector>
@@ -193,6 +194,7 @@ struct Store::Impl {
   Status ActiveVersion(const rocksdb::ReadOptions& ro, uint64_t* version) const;
   Status DeleteVersion(const rocksdb::ReadOptions& ro, uint64_t version,
                        rocksdb::WriteBatch* batch) const;
+  Status PinnedVersions(const rocksdb::ReadOptions& ro, std::set<uint64_t>* out) const;
   Status CheckNewIds(IdSpace space, uint32_t count,
                      const std::vector<std::pair<uint32_t, std::string>>& entries) const;
 };

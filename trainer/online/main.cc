@@ -179,7 +179,7 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
       &event_log, [&loop] { loop->NotifyAppended(); }, commit_options);
   IngestLimits limits;
   limits.max_batch_events = config.max_batch_events;
-  if (Status s = ParseDuration(config.max_future_skew, &limits.max_future_skew_ms); !s.ok()) {
+  if (Status s = plumb::ParseDuration(config.max_future_skew, &limits.max_future_skew_ms); !s.ok()) {
     spdlog::critical("{}", s.message());
     return 2;
   }

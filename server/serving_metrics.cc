@@ -36,6 +36,9 @@ prometheus::MetricFamily Single(const char* name, const char* help, prometheus::
 
 }  // namespace
 
+// Label values of plumb_rejected_calls_total, indexed by Rejection.
+constexpr const char* kRejectionReasons[] = {"queue_full", "deadline_in_queue", "thread_pool"};
+
 ServingMetrics::ServingMetrics(const SnapshotHolder* holder, const CatchUpLoop* loop,
                                const ExposureCounter* exposure)
     : holder_(holder),
@@ -60,6 +63,11 @@ ServingMetrics::ServingMetrics(const SnapshotHolder* holder, const CatchUpLoop* 
                                                            0.005,  0.01,   0.02,   0.05,  0.1};
   for (int m = 0; m < kMethods; ++m) {
     durations_[m] = &durations.Add({{"method", kMethodNames[m]}}, buckets);
+    // Every Ranker method and reason exists from the start at 0, so that rate() in the
+    // overload alert has a series before the first refusal.
+    for (const char* reason : kRejectionReasons) {
+      rejections_->Add({{"method", kMethodNames[m]}, {"reason", reason}});
+    }
   }
   for (auto& c : counters_) c.store(nullptr, std::memory_order_relaxed);
 }
@@ -86,12 +94,11 @@ void ServingMetrics::ObserveRequest(RankerMethod method, grpc::StatusCode code, 
 }
 
 void ServingMetrics::ObserveRejection(std::string_view method, Rejection reason) {
-  static const char* const kReasons[] = {"queue_full", "deadline_in_queue", "thread_pool"};
   constexpr std::string_view kRankerPrefix = "/plumb.v1.Ranker/";
   std::string_view name = method;
   if (name.starts_with(kRankerPrefix)) name.remove_prefix(kRankerPrefix.size());
   if (name.starts_with("/")) name.remove_prefix(1);
-  rejections_->Add({{"method", std::string(name)}, {"reason", kReasons[static_cast<int>(reason)]}})
+  rejections_->Add({{"method", std::string(name)}, {"reason", kRejectionReasons[static_cast<int>(reason)]}})
       .Increment();
   if (reason != Rejection::kThreadPool) return;
   for (int m = 0; m < kMethods; ++m) {

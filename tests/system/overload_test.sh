@@ -48,7 +48,7 @@ start_serve() {
 stop_serve() { kill -TERM "$serve_pid"; wait "$serve_pid" 2>/dev/null; serve_pid=; }
 load() {  # name concurrency
   "$LOAD" --target "$ADDR" --users-file "$tmp/users.txt" --duration 4 --warmup 0 \
-    --concurrency "$2" --count 20 --exclude-seen --deadline-ms 5000 --json "$tmp/$1.json" \
+    --concurrency "$2" --count 20 --deadline-ms 5000 --json "$tmp/$1.json" \
     >"$tmp/$1.log" 2>&1 || fail "plumb-load $1"
 }
 

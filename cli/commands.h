@@ -59,6 +59,11 @@ struct CompareArgs {
   uint32_t groups = 5;
   double beta = 3.0;
   bool json = false;
+  // Also fit "cpr tuned": beta chosen by trainer::Tune on a debiased validation split of
+  // tune_holdout of the pairs, then refitted on all of them.
+  bool tune = true;
+  double tune_holdout = 0.1;
+  std::vector<double> tune_betas = {1.0, 2.0, 3.0, 5.0};
 };
 
 struct TopArgs {

@@ -5,11 +5,15 @@
 #include <fstream>
 #include <unordered_map>
 
+#include <limits>
+
 #include "cli/commands.h"
 #include "cli/csv_reader.h"
 #include "cli/report_format.h"
 #include "cli/store_access.h"
 #include "trainer/evaluate.h"
+#include "trainer/rng.h"
+#include "trainer/tuner.h"
 
 namespace plumb::cli {
 
@@ -88,7 +92,77 @@ Status RunCompare(const CompareArgs& args) {
       {"bce", "bce", 1.0},
   };
   std::vector<LabelledReport> reports;
-  for (const Run& run : runs) {
+  std::vector<Run> all_runs = runs;
+  std::string tune_json;
+  if (args.tune) {
+    // Hold out a random share of the pairs, choose beta on them, refit on everything.
+    trainer::Rng rng(trainer::mix_seed(args.world.seed, 0x74756e65));
+    std::vector<trainer::Pair> kept, held;
+    for (const trainer::Pair& p : train.pairs()) {
+      (rng.UniformDouble() < args.tune_holdout ? held : kept).push_back(p);
+    }
+    trainer::Interactions part;
+    PLUMB_RETURN_IF_ERROR(
+        trainer::Interactions::Build(kept, train.num_users(), train.num_items(), &part));
+    const trainer::ValidationSample sample =
+        trainer::BuildValidationSample(part, held, std::numeric_limits<size_t>::max());
+    FitArgs fa;
+    fa.dim = args.dim;
+    fa.epochs = args.epochs;
+    fa.threads = args.threads;
+    fa.seed = args.world.seed;
+    trainer::TrainOptions base;
+    PLUMB_RETURN_IF_ERROR(MakeTrainOptions(fa, &base));
+    std::vector<trainer::TuneCandidate> candidates;
+    for (double b : args.tune_betas) candidates.push_back({b, 0.0});
+    trainer::TuneOptions topt;
+    topt.dim = args.dim;
+    topt.epochs = args.epochs;
+    topt.k = args.k;
+    topt.groups = args.groups;
+    trainer::TuneResult tuned;
+    // Each candidate (fitted on the training part) is also scored against the truth: what
+    // validation could not see, for judging the choice.
+    tune_json = "\"tune\":[";
+    auto score_truth = [&](const trainer::TuneRow& row, const trainer::Embeddings& model) {
+      RankingReport r;
+      if (!trainer::EvaluateModel(model, part, world.test, eval, &r).ok()) return false;
+      char buf[512];
+      std::snprintf(buf, sizeof buf,
+                    "%s{\"beta\":%g,\"validation_recall\":%.6f,\"validation_shift\":%.6f,"
+                    "\"validation_distance\":%.6f,\"validation_hits\":\"%s\","
+                    "\"truth_test_recall\":%.6f,"
+                    "\"truth_test_arp\":%.3f,\"group_shares\":[",
+                    tune_json.back() == '[' ? "" : ",", row.candidate.beta, row.scores.recall,
+                    row.scores.shift.shift, row.scores.shift.distance, "HITS", r.recall, r.arp);
+      std::string text = buf;
+      std::string hits;
+      for (uint8_t h : row.scores.hits) hits += h ? '1' : '0';
+      text.replace(text.find("HITS"), 4, hits);
+      tune_json += text;
+      for (size_t g = 0; g < r.rec_group_shares.size(); ++g) {
+        std::snprintf(buf, sizeof buf, "%s%.6f", g ? "," : "", r.rec_group_shares[g]);
+        tune_json += buf;
+      }
+      tune_json += "]}";
+      return true;
+    };
+    PLUMB_RETURN_IF_ERROR(
+        trainer::Tune(part, sample, base, candidates, topt, score_truth, &tuned));
+    char chosen[64];
+    std::snprintf(chosen, sizeof chosen, "],\"tune_chosen_beta\":%g,\"validation_weights\":[",
+                  tuned.report.rows[tuned.report.chosen].candidate.beta);
+    tune_json += chosen;
+    for (size_t p = 0; p < sample.weights.size(); ++p) {
+      std::snprintf(chosen, sizeof chosen, "%s%.6g", p ? "," : "", sample.weights[p]);
+      tune_json += chosen;
+    }
+    tune_json += "]";
+    std::fputs(FormatTuneTable(tuned.report, args.k).c_str(), stderr);
+    const double beta = tuned.report.rows[tuned.report.chosen].candidate.beta;
+    all_runs.push_back({"cpr tuned", "cpr", beta});
+  }
+  for (const Run& run : all_runs) {
     FitArgs fa;
     fa.objective = run.objective;
     fa.beta = run.beta;
@@ -108,8 +182,8 @@ Status RunCompare(const CompareArgs& args) {
     const double s = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
     RankingReport r;
     PLUMB_RETURN_IF_ERROR(trainer::EvaluateModel(model, train, world.test, eval, &r));
-    std::fprintf(stderr, "compare: %-8s fitted in %5.1f s, Recall@%u %.4f\n", run.label.c_str(),
-                 s, args.k, r.recall);
+    std::fprintf(stderr, "compare: %-9s (beta %g) fitted in %5.1f s, Recall@%u %.4f\n",
+                 run.label.c_str(), run.beta, s, args.k, r.recall);
     reports.emplace_back(run.label, std::move(r));
   }
   RankingReport truth;
@@ -117,7 +191,8 @@ Status RunCompare(const CompareArgs& args) {
       [&world](uint32_t u, std::span<float> scores) { world.TrueScores(u, scores); },
       train.num_items(), train, world.test, eval, &truth));
   reports.emplace_back("truth", std::move(truth));
-  std::fputs(args.json ? FormatReportJson(reports).c_str() : FormatReportTable(reports).c_str(),
+  std::fputs(args.json ? FormatReportJson(reports, tune_json).c_str()
+                       : FormatReportTable(reports).c_str(),
              stdout);
   return Status::Ok();
 }

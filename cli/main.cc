@@ -39,6 +39,16 @@ void AddWorldOptions(CLI::App* cmd, trainer::SynthOptions* w) {
                   "tastes drift: how far tastes move (0 none .. 1 a fresh draw)")
       ->check(CLI::Range(0.0, 1.0))
       ->capture_default_str();
+  cmd->add_option("--appeal-spread", w->appeal_sigma,
+                  "spread (standard deviation) of tools' genuine appeal, a logit added to every "
+                  "member's relevance")
+      ->check(CLI::Range(0.0, 5.0))
+      ->capture_default_str();
+  cmd->add_option("--appeal-visibility", w->appeal_visibility,
+                  "correlation between a tool's appeal and its visibility (0: none, the truly "
+                  "relevant tools sit in the tail; 1: the most appealing are shown most)")
+      ->check(CLI::Range(-1.0, 1.0))
+      ->capture_default_str();
   cmd->add_option("--arrival-span", w->arrival_span,
                   "members and tools join during this first share of the window (0 = all at "
                   "the start)")

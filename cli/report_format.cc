@@ -65,6 +65,13 @@ std::string FormatReportTable(const std::vector<LabelledReport>& reports) {
     });
   }
   add("JS(rec, test shares)", [](const RankingReport& r) { return Fixed(r.group_share_js, 3); });
+  // Over/under-correction against the test's own shares (core/metrics.h group_share_shift).
+  add("shift vs test (+ head)", [](const RankingReport& r) {
+    const double v = r.group_shift.shift;
+    return std::isnan(v) ? std::string("-") : (v > 0 ? "+" : "") + Fixed(v, 3);
+  });
+  add("distance to test shares",
+      [](const RankingReport& r) { return Fixed(r.group_shift.distance, 3); });
   add("users evaluated",
       [](const RankingReport& r) { return std::to_string(r.users_evaluated); });
 
@@ -94,7 +101,8 @@ std::string FormatReportTable(const std::vector<LabelledReport>& reports) {
   return out;
 }
 
-std::string FormatReportJson(const std::vector<LabelledReport>& reports) {
+std::string FormatReportJson(const std::vector<LabelledReport>& reports,
+                             const std::string& extra) {
   std::string out = "{";
   if (!reports.empty()) {
     out += "\"k\":" + std::to_string(reports.front().second.k) + ",";
@@ -112,10 +120,39 @@ std::string FormatReportJson(const std::vector<LabelledReport>& reports) {
     out += ",\"coverage\":" + JsonNumber(r.coverage);
     out += ",\"group_shares\":" + JsonArray(r.rec_group_shares);
     out += ",\"group_share_js\":" + JsonNumber(r.group_share_js);
+    out += ",\"shift\":" + JsonNumber(r.group_shift.shift);
+    out += ",\"shift_distance\":" + JsonNumber(r.group_shift.distance);
     out += ",\"users_evaluated\":" + std::to_string(r.users_evaluated);
     out += "}";
   }
-  return out + "}}\n";
+  out += "}";
+  if (!extra.empty()) out += "," + extra;
+  return out + "}\n";
+}
+
+std::string FormatTuneTable(const trainer::TuneReport& report, uint32_t k) {
+  std::string out;
+  char line[256];
+  std::snprintf(line, sizeof line, "%-6s %-7s %10s %10s %8s %9s %9s %9s  %s\n", "beta", "k3",
+                ("recall@" + std::to_string(k)).c_str(), ("ndcg@" + std::to_string(k)).c_str(),
+                "ARP", "shift", "distance", "std.err", "");
+  out += line;
+  for (const trainer::TuneRow& row : report.rows) {
+    const auto& s = row.scores;
+    std::snprintf(line, sizeof line, "%-6g %-7g %10.4f %10.4f %8.1f %+9.3f %9.3f %9.4f  %s%s\n",
+                  row.candidate.beta, row.candidate.cpr_mix_share, s.recall, s.ndcg, s.arp,
+                  s.shift.shift, s.shift.distance, row.standard_error,
+                  row.chosen ? "chosen" : "", !row.chosen && row.near_tie ? "near-tie" : "");
+    out += line;
+  }
+  out += "validation split's group shares (tail .. head):";
+  for (double v : report.target_group_shares) {
+    std::snprintf(line, sizeof line, " %.3f", v);
+    out += line;
+  }
+  out += "\nshift: + toward the head (under-corrected), - toward the tail (over-corrected)\n";
+  out += "chosen: " + report.reason + "\n";
+  return out;
 }
 
 }  // namespace plumb::cli

@@ -6,6 +6,7 @@
 #include <vector>
 
 #include "core/metrics.h"
+#include "trainer/tuner.h"
 
 namespace plumb::cli {
 
@@ -17,6 +18,15 @@ using LabelledReport = std::pair<std::string, RankingReport>;
 std::string FormatReportTable(const std::vector<LabelledReport>& reports);
 
 // {"k":..,"reports":{"cpr":{"recall":..,...}}, "test_group_shares":[...]}
-std::string FormatReportJson(const std::vector<LabelledReport>& reports);
+// `extra` (optional) is appended as further members of the top-level object, e.g.
+// "\"tune\":[...]".
+std::string FormatReportJson(const std::vector<LabelledReport>& reports,
+                             const std::string& extra = "");
+
+// The tuner's table: one row per candidate (beta, k-mix share, debiased validation recall
+// and NDCG at k, ARP, shift and distance of its group shares against the validation split's,
+// the standard error against the best, near-tie and chosen marks), the validation split's own
+// group shares, and the reason for the choice.
+std::string FormatTuneTable(const trainer::TuneReport& report, uint32_t k);
 
 }  // namespace plumb::cli

@@ -203,6 +203,34 @@ double js_divergence(std::span<const double> p, std::span<const double> q) {
   return std::clamp(js, 0.0, 1.0);
 }
 
+GroupShift group_share_shift(std::span<const double> p, std::span<const double> q) {
+  const double nan = std::numeric_limits<double>::quiet_NaN();
+  GroupShift out{nan, nan};
+  const std::size_t G = p.size();
+  if (q.size() != G || G < 2) return out;
+  double sp = 0.0, sq = 0.0;
+  for (std::size_t g = 0; g < G; ++g) {
+    if (!(std::isfinite(p[g]) && std::isfinite(q[g]) && p[g] >= 0.0 && q[g] >= 0.0)) return out;
+    sp += p[g];
+    sq += q[g];
+  }
+  if (!(sp > 0.0 && sq > 0.0)) return out;
+  double mean_p = 0.0, mean_q = 0.0, cp = 0.0, cq = 0.0, dist = 0.0;
+  for (std::size_t g = 0; g < G; ++g) {
+    mean_p += static_cast<double>(g) * p[g] / sp;
+    mean_q += static_cast<double>(g) * q[g] / sq;
+    if (g + 1 < G) {
+      cp += p[g] / sp;
+      cq += q[g] / sq;
+      dist += std::abs(cp - cq);
+    }
+  }
+  const double range = static_cast<double>(G - 1);
+  out.shift = (mean_p - mean_q) / range;
+  out.distance = dist / range;
+  return out;
+}
+
 Status build_ranking_report(const ItemLists& top_k, const ItemLists& relevant,
                             std::span<const uint64_t> degrees, std::size_t k,
                             std::size_t num_groups, RankingReport* out) {
@@ -270,6 +298,7 @@ Status build_ranking_report(const ItemLists& top_k, const ItemLists& relevant,
   report.rec_group_shares = group_shares(exposure, group_of_item, num_groups);
   report.test_group_shares = group_shares(test_counts, group_of_item, num_groups);
   report.group_share_js = js_divergence(report.rec_group_shares, report.test_group_shares);
+  report.group_shift = group_share_shift(report.rec_group_shares, report.test_group_shares);
   *out = std::move(report);
   return Status::Ok();
 }

@@ -117,6 +117,26 @@ std::vector<double> group_shares(std::span<const uint64_t> counts,
 // sizes differ, a weight is negative or not finite, or either sum is zero.
 double js_divergence(std::span<const double> p, std::span<const double> q);
 
+// Over- and under-correction: how far one distribution over popularity groups (e.g. served or
+// recommended slots) sits toward the head or the tail of another (the target, e.g. the
+// debiased validation split's or test's shares). Groups are ordered tail (0) to head (G-1).
+//   shift    = (E_p[g] - E_q[g]) / (G - 1), in [-1, 1]: the difference of the mean group
+//              index, as a share of the whole range. Positive: p leans toward the head more than
+//              the target (under-corrected: popularity still pulls); negative: toward the tail
+//              (over-corrected). 0 when the means agree.
+//   distance = (1 / (G - 1)) Σ_{g<G-1} |P(g) - Q(g)|, P and Q the cumulative shares: the
+//              earth mover's distance between the two over the ordered groups, in the same
+//              unit, in [0, 1]. |shift| <= distance, with equality when the cumulative curves
+//              do not cross (one is more head-heavy at every cut).
+// The identity shift = (1 / (G-1)) Σ_g (Q(g) - P(g)) links the two (summation by parts).
+// p and q are normalised by their own sums first. NaN for both when the sizes differ, G < 2,
+// a weight is negative or not finite, or a sum is zero.
+struct GroupShift {
+  double shift = 0.0;
+  double distance = 0.0;
+};
+GroupShift group_share_shift(std::span<const double> p, std::span<const double> q);
+
 // ---- The evaluation report ---------------------------------------------------------------
 
 // Aggregate figures at cut-off k over the evaluated users.
@@ -132,6 +152,9 @@ struct RankingReport {
   std::vector<double> test_group_shares;  // share of test interactions per popularity group
   double group_share_js = 0.0;  // js_divergence(rec_group_shares, test_group_shares); NaN if
                                 // either is all zero
+  // group_share_shift(rec_group_shares, test_group_shares): > 0 under-corrected (toward the
+  // head), < 0 over-corrected (toward the tail); NaN as group_share_js.
+  GroupShift group_shift;
 };
 
 // Builds the report from per-user top-k lists (top_k[u], best first, at least k long where

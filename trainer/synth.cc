@@ -106,6 +106,9 @@ Status ValidateSynthOptions(const SynthOptions& o) {
   if (!(o.arrival_span >= 0.0 && o.arrival_span < 1.0)) {
     return bad("arrival_span must be in [0, 1)");
   }
+  if (!(o.appeal_visibility >= -1.0 && o.appeal_visibility <= 1.0)) {
+    return bad("appeal_visibility must be in [-1, 1]");
+  }
   return Status::Ok();
 }
 
@@ -136,11 +139,26 @@ double Overlap(const Phase& phase, int64_t ju, int64_t ji, int64_t* from) {
          static_cast<double>(phase.end_ms - phase.begin_ms);
 }
 
-std::vector<uint32_t> ShelfOrder(uint64_t seed, uint64_t stream, uint32_t items) {
+// The tools in shelf order (rank 0 is the most visible). Without a correlation a uniform
+// random permutation (Fisher-Yates); with one, tools sorted by rho z_i + sqrt(1 - rho^2) e_i,
+// descending, with z_i the standardised appeal and e_i standard normal noise.
+std::vector<uint32_t> ShelfOrder(uint64_t seed, uint64_t stream, uint32_t items, double rho,
+                                 const std::vector<double>& appeal, double appeal_sigma) {
   std::vector<uint32_t> by_rank(items);
   std::iota(by_rank.begin(), by_rank.end(), 0u);
   Rng rng(mix_seed(seed, stream));
-  for (uint32_t n = items - 1; n > 0; --n) std::swap(by_rank[n], by_rank[rng.Uniform(n + 1)]);
+  if (rho == 0.0 || appeal_sigma <= 0.0) {
+    for (uint32_t n = items - 1; n > 0; --n) std::swap(by_rank[n], by_rank[rng.Uniform(n + 1)]);
+    return by_rank;
+  }
+  std::vector<double> key(items);
+  const double noise = std::sqrt(1.0 - rho * rho);
+  for (uint32_t i = 0; i < items; ++i) {
+    key[i] = rho * appeal[i] / appeal_sigma + noise * rng.Normal();
+  }
+  std::sort(by_rank.begin(), by_rank.end(), [&](uint32_t a, uint32_t b) {
+    return key[a] != key[b] ? key[a] > key[b] : a < b;
+  });
   return by_rank;
 }
 
@@ -219,7 +237,8 @@ Status GenerateSynthWorld(const SynthOptions& o, SynthWorld* out) {
   const int64_t window_ms = static_cast<int64_t>(o.days) * 86'400'000;
   std::vector<Phase> phases(1);
   phases[0].end_ms = window_ms;
-  phases[0].by_rank = ShelfOrder(o.seed, kVisibilityStream, I);
+  phases[0].by_rank =
+      ShelfOrder(o.seed, kVisibilityStream, I, o.appeal_visibility, w.item_appeal, o.appeal_sigma);
   phases[0].taste = &w.user_taste;
   if (o.drift != SynthDrift::kNone) {
     const int64_t cut = static_cast<int64_t>(o.drift_at * static_cast<double>(window_ms));
@@ -228,7 +247,8 @@ Status GenerateSynthWorld(const SynthOptions& o, SynthWorld* out) {
     phases[0].share = static_cast<double>(cut) / static_cast<double>(window_ms);
     phases[1].share = 1.0 - phases[0].share;
     if (o.drift == SynthDrift::kPopularity) {
-      phases[1].by_rank = ShelfOrder(o.seed, kLateVisibilityStream, I);
+      phases[1].by_rank = ShelfOrder(o.seed, kLateVisibilityStream, I, o.appeal_visibility,
+                                     w.item_appeal, o.appeal_sigma);
     } else {
       phases[1].taste = &w.user_taste_late;
     }

@@ -84,6 +84,12 @@ struct SynthOptions {
   double drift_at = 0.5;
   double drift_strength = 1.0;
   double arrival_span = 0.0;
+  // Correlation in [-1, 1] between a tool's genuine appeal and its place on the shelf: 0 (the
+  // default) puts the shelf in random order, so visibility says nothing about appeal and the
+  // truly relevant tools sit in the long tail of borrowings; positive values put the more
+  // appealing tools where they are seen most, as in shops whose popular items are popular for a
+  // reason (then less debiasing is right).
+  double appeal_visibility = 0.0;
 };
 
 // Checks ranges. Errors: InvalidArgument naming the option.

@@ -189,6 +189,67 @@ TEST(PopularityGroupsTest, GroupsAreMonotoneInDegreeAndBalancedOnSkewedData) {
   }
 }
 
+// Hand-worked, five groups (tail 0 .. head 4). Served p = (0.1, 0.1, 0.2, 0.3, 0.3), target
+// q = (0.4, 0.3, 0.2, 0.1, 0.0). Mean group index: E_p = 0.1*0 + 0.1*1 + 0.2*2 + 0.3*3 + 0.3*4
+// = 2.6; E_q = 0.3 + 0.4 + 0.3 = 1.0; shift = (2.6 - 1.0) / 4 = 0.4 (toward the head:
+// under-corrected). Cumulative P = 0.1, 0.2, 0.4, 0.7; Q = 0.4, 0.7, 0.9, 1.0; the differences
+// 0.3 + 0.5 + 0.5 + 0.3 = 1.6, / 4 = 0.4: the curves do not cross, so distance = |shift|.
+TEST(GroupShareShiftTest, HandWorkedFiveGroups) {
+  const std::vector<double> p = {0.1, 0.1, 0.2, 0.3, 0.3}, q = {0.4, 0.3, 0.2, 0.1, 0.0};
+  GroupShift s = group_share_shift(p, q);
+  EXPECT_NEAR(s.shift, 0.4, 1e-12);
+  EXPECT_NEAR(s.distance, 0.4, 1e-12);
+  // Swapped: the same distance, the opposite sign (over-corrected toward the tail).
+  s = group_share_shift(q, p);
+  EXPECT_NEAR(s.shift, -0.4, 1e-12);
+  EXPECT_NEAR(s.distance, 0.4, 1e-12);
+  // Unnormalised weights give the same figures (counts instead of shares).
+  const std::vector<double> counts = {10, 10, 20, 30, 30};
+  EXPECT_NEAR(group_share_shift(counts, q).shift, 0.4, 1e-12);
+}
+
+// Crossing curves: p = (0.5, 0, 0, 0, 0.5) against q uniform (0.2 each). The means agree
+// (2.0 each), so shift = 0, but the distributions differ: P = 0.5, 0.5, 0.5, 0.5; Q = 0.2, 0.4,
+// 0.6, 0.8; |P - Q| = 0.3 + 0.1 + 0.1 + 0.3 = 0.8, / 4 = 0.2.
+TEST(GroupShareShiftTest, CrossingCurvesHaveZeroShiftButADistance) {
+  const std::vector<double> p = {0.5, 0, 0, 0, 0.5}, q(5, 0.2);
+  const GroupShift s = group_share_shift(p, q);
+  EXPECT_NEAR(s.shift, 0.0, 1e-12);
+  EXPECT_NEAR(s.distance, 0.2, 1e-12);
+  EXPECT_EQ(group_share_shift(q, q).distance, 0.0);
+}
+
+TEST(GroupShareShiftTest, UndefinedInputsGiveNaN) {
+  const std::vector<double> a = {0.5, 0.5}, b = {1.0, 0.0, 0.0}, zero = {0.0, 0.0};
+  EXPECT_TRUE(std::isnan(group_share_shift(a, b).shift));
+  EXPECT_TRUE(std::isnan(group_share_shift(a, zero).distance));
+  EXPECT_TRUE(std::isnan(group_share_shift(std::vector<double>{1.0}, std::vector<double>{1.0})
+                             .shift));
+  EXPECT_TRUE(std::isnan(group_share_shift(std::vector<double>{-1.0, 2.0}, a).shift));
+}
+
+// Random distributions: |shift| <= distance always, and shift equals the summation-by-parts
+// form (1 / (G-1)) sum_g (Q(g) - P(g)).
+TEST(GroupShareShiftTest, ShiftIsBoundedByDistanceOnRandomInputs) {
+  std::mt19937 rng(7);
+  std::uniform_real_distribution<double> u(0.0, 1.0);
+  for (int trial = 0; trial < 200; ++trial) {
+    const size_t G = 2 + trial % 7;
+    std::vector<double> p(G), q(G);
+    for (size_t g = 0; g < G; ++g) p[g] = u(rng), q[g] = u(rng);
+    const GroupShift s = group_share_shift(p, q);
+    EXPECT_LE(std::abs(s.shift), s.distance + 1e-12);
+    double sp = 0, sq = 0, cp = 0, cq = 0, by_parts = 0;
+    for (size_t g = 0; g < G; ++g) sp += p[g], sq += q[g];
+    for (size_t g = 0; g + 1 < G; ++g) {
+      cp += p[g] / sp;
+      cq += q[g] / sq;
+      by_parts += cq - cp;
+    }
+    EXPECT_NEAR(s.shift, by_parts / static_cast<double>(G - 1), 1e-12);
+  }
+}
+
 TEST(RankingReportTest, HandWorkedReport) {
   // Catalogue: degrees [1, 1, 2, 4] (S = 8). G = 2: running sums 1, 2, 4 -> group 0,
   // 8 -> group 1. So group 0 = {0, 1, 2}, group 1 = {3}. k = 2.

@@ -87,7 +87,7 @@ TEST(GateMath, WeightedRecallAndEffectiveSizeByHand) {
   s.relevant.Append(b);
   s.weights = {1.0, 0.5, 0.25, 0.25};
   const uint8_t hits[] = {1, 0, 1, 0};
-  EXPECT_DOUBLE_EQ(GateRecall(s, hits), 0.625);
+  EXPECT_DOUBLE_EQ(trainer::WeightedRecall(s, hits), 0.625);
   const double sum = 2.0, sum_sq = 1.0 + 0.25 + 0.0625 + 0.0625;
   EXPECT_NEAR(sum * sum / sum_sq, 2.909090909, 1e-8);
 }

@@ -28,32 +28,17 @@
 #include "store/store.h"
 #include "trainer/embeddings.h"
 #include "trainer/interactions.h"
+#include "trainer/validation.h"
 
 namespace plumb::online {
 
 class TrainingState;
 
-// The users scored by the gate, their held-out items and each pair's weight.
-struct GateSample {
-  std::vector<uint32_t> users;
-  ItemLists relevant;            // one sorted list per entry of users
-  std::vector<double> weights;   // one per pair, in the order of the lists: 1 / pop(item)
-  double effective_pairs = 0.0;  // Kish effective sample size of the weights
-};
+// The gate's sample is a debiased validation sample (trainer/validation.h).
+using GateSample = trainer::ValidationSample;
 
-// The held-out validation pairs of `state`, grouped by user, each weighted 1 / pop(item);
-// users without training pairs are left out; at most max_users users, chosen by a fixed
-// hash of the user index (not the first indexes, which are the oldest users).
+// The held-out validation pairs of `state` as a validation sample (at most max_users users).
 GateSample BuildGateSample(const TrainingState& state, size_t max_users);
-
-// Whether each pair of the sample is a hit of `model` at k (its item among the user's top k
-// of all the model's items, training items excluded), in sample order. Users or items
-// outside the model are misses.
-std::vector<uint8_t> GateHits(const GateSample& sample, const trainer::Embeddings& model,
-                              const trainer::Interactions& train, uint32_t k);
-
-// The weighted hit share of `hits` (debiased validation recall); NaN for an empty sample.
-double GateRecall(const GateSample& sample, std::span<const uint8_t> hits);
 
 struct GateOptions {
   uint32_t k = 20;

@@ -77,7 +77,7 @@ Status RunVersions(const AdminArgs& args) {
 }
 
 Status RunPin(const AdminArgs& args, bool pinned) {
-  if (args.version == 0) return Status::InvalidArgument("--version is required");
+  if (args.version == 0) return Status::InvalidArgument("--model-version must be at least 1");
   std::unique_ptr<store::Store> store;
   store::StoreOptions existing;
   existing.create_if_missing = false;  // activating or pinning never creates a store
@@ -89,7 +89,7 @@ Status RunPin(const AdminArgs& args, bool pinned) {
 }
 
 Status RunActivate(const AdminArgs& args) {
-  if (args.version == 0) return Status::InvalidArgument("--version is required");
+  if (args.version == 0) return Status::InvalidArgument("--model-version must be at least 1");
   std::unique_ptr<store::Store> store;
   store::StoreOptions existing;
   existing.create_if_missing = false;  // activating or pinning never creates a store

@@ -100,8 +100,8 @@ Status MakeTrainOptions(const FitArgs& args, trainer::TrainOptions* out) {
 Status RunFit(const FitArgs& args) {
   trainer::TrainOptions train_options;
   PLUMB_RETURN_IF_ERROR(MakeTrainOptions(args, &train_options));
-  if (args.holdout < 0.0 || args.holdout >= 1.0) {
-    return Status::InvalidArgument("--holdout must be in [0, 1)");
+  if (args.holdout < 0.0 || args.holdout > 0.5) {
+    return Status::InvalidArgument("--holdout-fraction must be in [0, 0.5]");
   }
   store::StoreOptions so;
   so.sync = args.import.sync;

@@ -33,11 +33,11 @@ check "eval with a byte-order mark" '"$PLUMB" eval --db "$tmp/bomfit" --test "$t
 user=$(awk -F, 'NR==2 {print $1}' "$tmp/w/events.csv")
 check "top --names with a byte-order mark shows names" \
   '"$PLUMB" top --db "$tmp/bomfit" --user "$user" --count 3 --names "$tmp/w/bom_items.csv" | grep -q "#"'
-out=$("$PLUMB" pin --db "$tmp/bomfit" --version 1 2>&1); rc=$?
+out=$("$PLUMB" pin --db "$tmp/bomfit" --model-version 1 2>&1); rc=$?
 check "pin: exit 0" '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "version 1 is pinned"'
 check "versions marks the active pinned version '*p'" '"$PLUMB" versions --db "$tmp/bomfit" | grep -qE "^\*p +1 "'
-check "unpin" '"$PLUMB" unpin --db "$tmp/bomfit" --version 1 >/dev/null && "$PLUMB" versions --db "$tmp/bomfit" | grep -qE "^\* +1 "'
-out=$("$PLUMB" pin --db "$tmp/bomfit" --version 9 2>&1); rc=$?
+check "unpin" '"$PLUMB" unpin --db "$tmp/bomfit" --model-version 1 >/dev/null && "$PLUMB" versions --db "$tmp/bomfit" | grep -qE "^\* +1 "'
+out=$("$PLUMB" pin --db "$tmp/bomfit" --model-version 9 2>&1); rc=$?
 check "pin of a version not kept: non-zero exit, says so" '[ $rc -ne 0 ] && printf "%s" "$out" | grep -q "version 9 is not stored"'
 check "inspect says what the versions take" '"$PLUMB" inspect --db "$tmp/bomfit" | grep -q "MB before compression"'
 tr , '\t' < "$tmp/w/events.csv" > "$tmp/w/events.tsv"
@@ -53,7 +53,7 @@ mkdir -p "$tmp/mine" && echo "notes" > "$tmp/mine/notes.txt"
 out=$("$PLUMB" import --events "$tmp/w/events.csv" --db "$tmp/mine" 2>&1); rc=$?
 check "import into a directory of other files: refused, directory untouched" \
   '[ $rc -ne 0 ] && printf "%s" "$out" | grep -q "holds other files and no plumb store" && [ "$(ls "$tmp/mine")" = notes.txt ]'
-out=$("$PLUMB" activate --db "$tmp/nothing" --version 1 2>&1); rc=$?
+out=$("$PLUMB" activate --db "$tmp/nothing" --model-version 1 2>&1); rc=$?
 check "activate on a missing store: refused, nothing created" '[ $rc -ne 0 ] && [ ! -e "$tmp/nothing" ]'
 # ts in seconds: a warning on stderr, and the import still happens.
 printf 'user,item,ts\nm1,t1,1700000000\nm2,t2,1700000100\n' > "$tmp/seconds.csv"

@@ -1,7 +1,7 @@
 // plumb-train: the sidecar trainer. Owns the store as its primary, ingests events over gRPC
 // (plumb.v1.EventIngest), trains online (OnlineLoop), serves version control
 // (plumb.v1.ModelControl) and Prometheus metrics. SIGTERM/SIGINT: stop accepting, let calls
-// in flight finish (up to shutdown_grace_seconds), write what is queued, stop the loop
+// in flight finish (up to shutdown_grace), write what is queued, stop the loop
 // (it publishes nothing half-done), close the store, exit 0.
 #include <grpc/grpc.h>
 #include <grpcpp/ext/proto_server_reflection_plugin.h>

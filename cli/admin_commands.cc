@@ -148,18 +148,30 @@ Status RunExport(const AdminArgs& args) {
   std::error_code ec;
   std::filesystem::create_directories(args.out, ec);
   if (ec) return Status::IoError("cannot create " + args.out + ": " + ec.message());
-  auto write = [&](const std::string& name, const std::vector<std::string>& ids,
-                   const trainer::RowMatrix& m) -> Status {
+  // Tab-separated values (IANA text/tab-separated-values): a header line `user` (or
+  // `item`) then d0 .. d<dim-1>, and one line per id with the id and dim float32 values,
+  // each printed with 9 significant digits (enough to read back the exact float32). TSV has
+  // no quoting, so an id holding a tab or a line break cannot be written: refused.
+  auto write = [&](const std::string& name, const char* id_column,
+                   const std::vector<std::string>& ids, const trainer::RowMatrix& m) -> Status {
+    for (const std::string& id : ids) {
+      if (id.find_first_of("\t\r\n") != std::string::npos) {
+        return Status::InvalidArgument("cannot export " + std::string(id_column) + " id '" + id +
+                                       "' as TSV: it holds a tab or a line break");
+      }
+    }
     const std::string path = (std::filesystem::path(args.out) / name).string();
     std::ofstream out(path);
     if (!out) return Status::IoError("cannot write " + path);
+    out << id_column;
+    for (Eigen::Index c = 0; c < m.cols(); ++c) out << "\td" << c;
+    out << '\n';
     char buf[32];
     for (size_t r = 0; r < ids.size(); ++r) {
-      out << ids[r] << '\t';
+      out << ids[r];
       for (Eigen::Index c = 0; c < m.cols(); ++c) {
         std::snprintf(buf, sizeof buf, "%.9g", static_cast<double>(m(r, c)));
-        if (c) out << ' ';
-        out << buf;
+        out << '\t' << buf;
       }
       out << '\n';
     }
@@ -167,8 +179,8 @@ Status RunExport(const AdminArgs& args) {
     if (!out) return Status::IoError("write failed: " + path);
     return Status::Ok();
   };
-  PLUMB_RETURN_IF_ERROR(write("users.tsv", loaded.user_ids, loaded.model.users()));
-  PLUMB_RETURN_IF_ERROR(write("items.tsv", loaded.item_ids, loaded.model.items()));
+  PLUMB_RETURN_IF_ERROR(write("users.tsv", "user", loaded.user_ids, loaded.model.users()));
+  PLUMB_RETURN_IF_ERROR(write("items.tsv", "item", loaded.item_ids, loaded.model.items()));
   std::printf("version %llu exported to %s/users.tsv (%zu rows) and %s/items.tsv (%zu rows), "
               "dim %u\n",
               static_cast<unsigned long long>(loaded.manifest.version), args.out.c_str(),

@@ -149,7 +149,8 @@ int main(int argc, char** argv) {
   unpin_cmd->add_option("--model-version", admin.version, "version number")->required();
   auto* inspect_cmd = app.add_subcommand("inspect", "summarise a store: log, cursor, ids, versions");
   inspect_cmd->add_option("--db", admin.db, "store directory")->required();
-  auto* export_cmd = app.add_subcommand("export", "write a version as users.tsv and items.tsv");
+  auto* export_cmd = app.add_subcommand(
+      "export", "write a version as users.tsv and items.tsv (tab-separated, header user|item, d0..)");
   export_cmd->add_option("--db", admin.db, "store directory")->required();
   export_cmd->add_option("--out", admin.out, "output directory")->required();
   export_cmd->add_option("--model-version", admin.version, "version (default: the active one)");

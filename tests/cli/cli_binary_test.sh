@@ -40,6 +40,18 @@ check "unpin" '"$PLUMB" unpin --db "$tmp/bomfit" --model-version 1 >/dev/null &&
 out=$("$PLUMB" pin --db "$tmp/bomfit" --model-version 9 2>&1); rc=$?
 check "pin of a version not kept: non-zero exit, says so" '[ $rc -ne 0 ] && printf "%s" "$out" | grep -q "version 9 is not stored"'
 check "inspect says what the versions take" '"$PLUMB" inspect --db "$tmp/bomfit" | grep -q "MB before compression"'
+# export: real TSV, as Python's csv module and numpy read it.
+"$PLUMB" export --db "$tmp/bomfit" --out "$tmp/export" >/dev/null 2>&1
+check "export: a TSV with a header that csv and numpy read back" \
+  '/usr/bin/python3 -c "
+import csv, sys, numpy
+rows = list(csv.reader(open(sys.argv[1]), delimiter=\"\t\"))
+assert rows[0] == [\"item\"] + [\"d%d\" % c for c in range(8)], rows[0]
+assert len(rows) > 1 and all(len(r) == 9 for r in rows)
+values = numpy.loadtxt(sys.argv[1], delimiter=\"\t\", skiprows=1, usecols=range(1, 9))
+assert values.shape == (len(rows) - 1, 8) and numpy.isfinite(values).all()
+" "$tmp/export/items.tsv"'
+check "top says what the number is" '"$PLUMB" top --db "$tmp/bomfit" --user "$user" --count 2 | grep -q "users in training)"'
 tr , '\t' < "$tmp/w/events.csv" > "$tmp/w/events.tsv"
 out=$("$PLUMB" import --events "$tmp/w/events.tsv" --db "$tmp/tsvdb" 2>&1); rc=$?
 check "tab-separated file: non-zero exit, told to use commas" '[ $rc -ne 0 ] && printf "%s" "$out" | grep -q "use commas"'

@@ -66,10 +66,9 @@ Status RunVersions(const AdminArgs& args) {
     }
     const std::string mark = std::string(m.version == active ? "*" : "") + (m.pinned ? "p" : "");
     std::printf("%-3s %8llu  %-20s  %-4s %9llu %8u %8u %4u  %-10s %s%s%s\n", mark.c_str(),
-                static_cast<unsigned long long>(m.version),
-                FormatTime(m.created_ms).c_str(), m.objective.c_str(),
-                static_cast<unsigned long long>(m.events_seen), m.num_users, m.num_items, m.dim,
-                recall, GateName(m.gate), m.gate_reason.empty() ? "" : ": ",
+                static_cast<unsigned long long>(m.version), FormatTime(m.created_ms).c_str(),
+                m.objective.c_str(), static_cast<unsigned long long>(m.events_seen), m.num_users,
+                m.num_items, m.dim, recall, GateName(m.gate), m.gate_reason.empty() ? "" : ": ",
                 m.gate_reason.c_str());
   }
   std::printf("(* active, p pinned: kept whatever the retention rules say)\n");
@@ -128,10 +127,11 @@ Status RunInspect(const AdminArgs& args) {
     version_bytes += (uint64_t{m.num_users} + m.num_items) * m.dim * sizeof(float) +
                      uint64_t{m.num_items} * sizeof(uint32_t);
   }
-  std::printf("versions kept   %zu, active %llu; their embeddings take %.1f MB before "
-              "compression\n",
-              versions.size(), static_cast<unsigned long long>(active),
-              static_cast<double>(version_bytes) / 1e6);
+  std::printf(
+      "versions kept   %zu, active %llu; their embeddings take %.1f MB before "
+      "compression\n",
+      versions.size(), static_cast<unsigned long long>(active),
+      static_cast<double>(version_bytes) / 1e6);
   std::string auto_activate;
   if (store->GetMeta("auto_activate", &auto_activate).ok()) {
     std::printf("auto-activate   %s\n", auto_activate == "1" ? "on" : "off (paused)");

@@ -34,7 +34,8 @@ Status ReadForImport(const ImportArgs& args, std::vector<store::EventInput>* eve
                  static_cast<unsigned long long>(report.skipped),
                  report.first_skip_reason.c_str());
   }
-  for (const std::string& w : report.warnings) std::fprintf(stderr, "import: warning: %s\n", w.c_str());
+  for (const std::string& w : report.warnings)
+    std::fprintf(stderr, "import: warning: %s\n", w.c_str());
   events->clear();
   events->reserve(rows.size());
   const int64_t now = NowMs();

@@ -44,7 +44,8 @@ void AddTrainOptions(CLI::App* cmd, FitArgs* a) {
   cmd->add_option("--cpr-k3-share", a->k3_share, "CPR: share of 3-interaction samples mixed in")
       ->check(CLI::Range(0.0, 1.0))
       ->capture_default_str();
-  cmd->add_option("--beta", a->beta, "dynamic sampling: candidates drawn per kept sample (1 = plain)")
+  cmd->add_option("--beta", a->beta,
+                  "dynamic sampling: candidates drawn per kept sample (1 = plain)")
       ->check(CLI::Range(1.0, 1000.0))
       ->capture_default_str();
   cmd->add_option("--learning-rate", a->learning_rate, "step size")
@@ -68,9 +69,10 @@ void AddTrainOptions(CLI::App* cmd, FitArgs* a) {
 }  // namespace
 
 int main(int argc, char** argv) {
-  CLI::App app{"plumb: fit, evaluate and manage embedding versions offline.\n"
-               "Exit status: 0 done, 1 failed (reason on stderr), 2 usage error.",
-               "plumb"};
+  CLI::App app{
+      "plumb: fit, evaluate and manage embedding versions offline.\n"
+      "Exit status: 0 done, 1 failed (reason on stderr), 2 usage error.",
+      "plumb"};
   app.require_subcommand(1);
   app.set_version_flag("--version", std::string("plumb ") + PLUMB_VERSION);
 
@@ -102,7 +104,8 @@ int main(int argc, char** argv) {
                    "share of pairs held out for validation (first fit only)")
       ->check(CLI::Range(0.0, 0.5))
       ->capture_default_str();
-  fit_cmd->add_option("--keep-versions", fit.keep_versions, "newest versions always kept in the store")
+  fit_cmd
+      ->add_option("--keep-versions", fit.keep_versions, "newest versions always kept in the store")
       ->capture_default_str();
   fit_cmd
       ->add_option("--keep-versions-for", fit.keep_versions_for,
@@ -150,7 +153,8 @@ int main(int argc, char** argv) {
   auto* inspect_cmd = app.add_subcommand("inspect", "summarise a store: log, cursor, ids, versions");
   inspect_cmd->add_option("--db", admin.db, "store directory")->required();
   auto* export_cmd = app.add_subcommand(
-      "export", "write a version as users.tsv and items.tsv (tab-separated, header user|item, d0..)");
+      "export",
+      "write a version as users.tsv and items.tsv (tab-separated, header user|item, d0..)");
   export_cmd->add_option("--db", admin.db, "store directory")->required();
   export_cmd->add_option("--out", admin.out, "output directory")->required();
   export_cmd->add_option("--model-version", admin.version, "version (default: the active one)");
@@ -176,13 +180,17 @@ int main(int argc, char** argv) {
   Status s;
   if (*synth_cmd) s = RunSynth(synth, synth_out);
   else if (*import_cmd) s = RunImport(import);
-  else if (*fit_cmd) s = RunFit(fit);
-  else if (*eval_cmd) s = RunEval(eval);
+  else if (*fit_cmd)
+    s = RunFit(fit);
+  else if (*eval_cmd)
+    s = RunEval(eval);
   else if (*compare_cmd) s = RunCompare(compare);
   else if (*versions_cmd) s = RunVersions(admin);
   else if (*activate_cmd) s = RunActivate(admin);
-  else if (*pin_cmd) s = RunPin(admin, true);
-  else if (*unpin_cmd) s = RunPin(admin, false);
+  else if (*pin_cmd)
+    s = RunPin(admin, true);
+  else if (*unpin_cmd)
+    s = RunPin(admin, false);
   else if (*inspect_cmd) s = RunInspect(admin);
   else if (*export_cmd) s = RunExport(admin);
   else if (*top_cmd) s = RunTop(top);

@@ -38,8 +38,8 @@ void DefineOptions(CLI::App& app, ServeConfig* c, DurationTexts* d) {
   app.add_option("--exposure-window-lists", c->exposure.window_lists,
                  "Exposure monitor: the last this many served lists form the window")
       ->check(CLI::Range(1, 10'000'000));
-  d->exposure_window_max_age = FormatDuration(
-      static_cast<int64_t>(c->exposure.window_seconds * 1000.0 + 0.5));
+  d->exposure_window_max_age =
+      FormatDuration(static_cast<int64_t>(c->exposure.window_seconds * 1000.0 + 0.5));
   app.add_option("--exposure-window-max-age", d->exposure_window_max_age,
                  "Exposure monitor: also drop lists older than this (0 = by count only)");
   app.add_option("--exposure-groups", c->exposure.groups,
@@ -170,7 +170,8 @@ int ParseServeConfig(int argc, const char* const* argv, ServeConfig* config, std
   if (!ConvertDuration("--catchup-interval", durations.catchup_interval, 10, 3'600'000, &ms, err))
     return 2;
   config->catchup_interval_ms = static_cast<int>(ms);
-  if (!ConvertDuration("--shutdown-grace", durations.shutdown_grace, 0, 600'000, &ms, err)) return 2;
+  if (!ConvertDuration("--shutdown-grace", durations.shutdown_grace, 0, 600'000, &ms, err))
+    return 2;
   config->shutdown_grace_ms = static_cast<int>(ms);
   if (!ConvertDuration("--exposure-window-max-age", durations.exposure_window_max_age, 0,
                        30LL * 86'400'000, &ms, err))

@@ -25,7 +25,7 @@ struct ServeConfig {
   // The RocksDB secondary's own directory; empty = a fresh temporary directory per process,
   // removed at exit.
   std::string scratch_dir;
-  int catchup_interval_ms = 500;  // --catchup-interval
+  int catchup_interval_ms = 500;   // --catchup-interval
   int shutdown_grace_ms = 5000;    // --shutdown-grace
   std::string log_level = "info";  // trace, debug, info, warn, error, critical, off
   EndpointOptions endpoint;        // listen, TLS, threads, reflection

@@ -13,12 +13,11 @@
 // 3 replay finished but the trainer rejected some events (listed on stderr).
 #include <CLI/CLI.hpp>
 #include <chrono>
-
-#include "core/duration.h"
 #include <fstream>
 #include <iostream>
 #include <thread>
 
+#include "core/duration.h"
 #include "tools/client_channel.h"
 #include "tools/event_publisher.h"
 #include "tools/event_replay.h"
@@ -122,8 +121,7 @@ int RunLoad(LoadArgs& a) {
     std::shared_ptr<grpc::Channel> channel;
     if (Status s = MakeChannel(a.serve, &channel); !s.ok()) return Fail(s.message());
     if (!Reachable(channel, a.connect_timeout_ms)) {
-      return Fail("cannot reach plumb-serve at " + a.serve.target + " within " +
-                  a.connect_timeout);
+      return Fail("cannot reach plumb-serve at " + a.serve.target + " within " + a.connect_timeout);
     }
     channels.push_back(std::move(channel));
   }
@@ -147,8 +145,7 @@ int RunLoad(LoadArgs& a) {
     std::shared_ptr<grpc::Channel> channel;
     if (Status s = MakeChannel(a.train, &channel); !s.ok()) return Fail(s.message());
     if (!Reachable(channel, a.connect_timeout_ms)) {
-      return Fail("cannot reach plumb-train at " + a.train.target + " within " +
-                  a.connect_timeout);
+      return Fail("cannot reach plumb-train at " + a.train.target + " within " + a.connect_timeout);
     }
     report.published = true;
     report.ingest_target = a.train.target;

@@ -60,7 +60,8 @@ int Fail(const grpc::Status& status, const std::string& target, bool control) {
 Status Prepare(const Connection& c, std::shared_ptr<grpc::Channel>* channel,
                grpc::ClientContext* context) {
   int64_t deadline_ms = 0;
-  PLUMB_RETURN_IF_ERROR(plumb::ParseDurationIn("--deadline", c.deadline, 1, 3'600'000, &deadline_ms));
+  PLUMB_RETURN_IF_ERROR(
+      plumb::ParseDurationIn("--deadline", c.deadline, 1, 3'600'000, &deadline_ms));
   PLUMB_RETURN_IF_ERROR(MakeChannel(c.spec, channel));
   context->set_deadline(std::chrono::system_clock::now() + std::chrono::milliseconds(deadline_ms));
   if (!c.token_file.empty()) {
@@ -296,8 +297,9 @@ int Pin(const Connection& c, uint64_t version, bool pinned) {
   const grpc::Status status =
       plumb::v1::ModelControl::NewStub(channel)->SetPinned(&context, request, &response);
   if (!status.ok()) return Fail(status, c.spec.target, true);
-  std::printf("version %llu is %s\n", static_cast<unsigned long long>(response.version()),
-              response.pinned() ? "pinned: never pruned" : "unpinned: pruned by the retention rules");
+  std::printf(
+      "version %llu is %s\n", static_cast<unsigned long long>(response.version()),
+      response.pinned() ? "pinned: never pruned" : "unpinned: pruned by the retention rules");
   return 0;
 }
 

@@ -17,8 +17,7 @@ inline std::vector<std::string> HelpKeys(const std::string& help) {
   for (std::string line; std::getline(lines, line);) {
     const size_t at = line.find("  --");
     if (at == std::string::npos || line.find("--help") != std::string::npos ||
-        line.find("--config") != std::string::npos ||
-        line.compare(at, 11, "  --version") == 0) {
+        line.find("--config") != std::string::npos || line.compare(at, 11, "  --version") == 0) {
       continue;
     }
     std::string key;

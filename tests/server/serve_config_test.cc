@@ -68,8 +68,7 @@ TEST(ServeConfigTest, DurationsNeedAUnitAndBooleansAreFlagPairs) {
   ServeConfig c;
   std::string err;
   EXPECT_EQ(Parse({"--db", "x", "--catchup-interval", "250"}, &c, nullptr, &err), 2);
-  EXPECT_NE(err.find("--catchup-interval: duration '250' needs a unit"), std::string::npos)
-      << err;
+  EXPECT_NE(err.find("--catchup-interval: duration '250' needs a unit"), std::string::npos) << err;
   EXPECT_EQ(Parse({"--db", "x", "--catchup-interval", "2h"}, &c, nullptr, &err), 2);
   EXPECT_NE(err.find("outside [10ms, 1h]"), std::string::npos) << err;
   ASSERT_EQ(Parse({"--db", "x", "--no-reflection", "--no-exposure-monitor"}, &c), -1);
@@ -112,11 +111,26 @@ TEST(ServeConfigTest, HelpListsEveryKeyWithItsDefault) {
   ServeConfig c;
   std::string out;
   EXPECT_EQ(Parse({"--help"}, &c, &out), 0);
-  for (const char* key :
-       {"--db", "--config", "--listen", "--metrics", "--scratch-dir", "--catchup-interval",
-        "--max-count", "--max-candidates", "--max-exclusions", "--max-recent",
-        "--fold-in-confidence", "--fold-in-l2", "--rpc-threads", "--reflection", "--tls-cert",
-        "--tls-key", "--tls-client-ca", "--shutdown-grace", "--log-level", "--version"}) {
+  for (const char* key : {"--db",
+                          "--config",
+                          "--listen",
+                          "--metrics",
+                          "--scratch-dir",
+                          "--catchup-interval",
+                          "--max-count",
+                          "--max-candidates",
+                          "--max-exclusions",
+                          "--max-recent",
+                          "--fold-in-confidence",
+                          "--fold-in-l2",
+                          "--rpc-threads",
+                          "--reflection",
+                          "--tls-cert",
+                          "--tls-key",
+                          "--tls-client-ca",
+                          "--shutdown-grace",
+                          "--log-level",
+                          "--version"}) {
     EXPECT_NE(out.find(key), std::string::npos) << key;
   }
   EXPECT_NE(out.find("=500ms"), std::string::npos) << out;  // catch-up interval

@@ -139,12 +139,14 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
   store_options.create_if_missing = true;
   store_options.sync = config.sync;
   store_options.keep_versions = config.keep_versions;
-  if (Status s = plumb::ParseDuration(config.keep_versions_for, &store_options.keep_versions_for_ms);
+  if (Status s =
+          plumb::ParseDuration(config.keep_versions_for, &store_options.keep_versions_for_ms);
       !s.ok()) {
     spdlog::critical("keep_versions_for: {}", s.message());
     return 2;
   }
-  if (Status s = plumb::ParseDuration(config.dedup_window, &store_options.dedup_window_ms); !s.ok()) {
+  if (Status s = plumb::ParseDuration(config.dedup_window, &store_options.dedup_window_ms);
+      !s.ok()) {
     spdlog::critical("{}", s.message());
     return 2;
   }

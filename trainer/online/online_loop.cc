@@ -443,7 +443,8 @@ Status OnlineLoop::Impl::Publish() {
     status.candidate_validation_recall = candidate_recall;
     status.last_publish_ms = m.created_ms;
     if (gate == store::GateOutcome::kFailed) ++status.candidates_failed;
-    else if (gate == store::GateOutcome::kSkipped) ++status.candidates_skipped;
+    else if (gate == store::GateOutcome::kSkipped)
+      ++status.candidates_skipped;
     else ++status.candidates_passed;
     if (activate) {
       active_model = std::move(copy);

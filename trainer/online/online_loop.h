@@ -64,7 +64,7 @@ struct OnlineStatus {
   double candidate_validation_recall = 0.0;
   uint64_t candidates_passed = 0;
   uint64_t candidates_failed = 0;
-  uint64_t candidates_skipped = 0;  // not gated (nothing to compare with); not "passed"
+  uint64_t candidates_skipped = 0;           // not gated (nothing to compare with); not "passed"
   int64_t oldest_untrained_received_ms = 0;  // 0 when caught up
   int64_t last_publish_ms = 0;
   // Caught up with the log, idle replay spent, and everything learned is published.

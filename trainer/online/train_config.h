@@ -59,5 +59,4 @@ Status ResolveDurations(TrainConfig* config);
 // ResolveDurations.
 Status CheckTrainConfig(const TrainConfig& config);
 
-
 }  // namespace plumb::online

@@ -128,9 +128,9 @@ sleep 1  # one catch-up interval of plumb-serve, so it serves that version
 
 say "For contrast: offline fits of the same borrowings, CPR (what the trainer runs) and plain BPR"
 "$PLUMB" fit --events "$DEMO/world/events.csv" --db "$DEMO/cpr-db" --objective cpr --dim 32 \
-  --epochs 20 --holdout 0.02 2>"$DEMO/cpr-fit.log"
+  --epochs 20 --holdout-fraction 0.02 2>"$DEMO/cpr-fit.log"
 "$PLUMB" fit --events "$DEMO/world/events.csv" --db "$DEMO/bpr-db" --objective bpr --dim 32 \
-  --epochs 20 --holdout 0.02 2>"$DEMO/bpr-fit.log"
+  --epochs 20 --holdout-fraction 0.02 2>"$DEMO/bpr-fit.log"
 
 MEMBERS=$(awk -F, 'NR>1 {print $1}' "$DEMO/world/events.csv" | sort | uniq -c | sort -rn \
   | awk 'NR==40 || NR==400 || NR==1200 {print $2}')

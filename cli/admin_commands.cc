@@ -72,10 +72,9 @@ Status RunVersions(const AdminArgs& args) {
     }
     const std::string mark = std::string(m.version == active ? "*" : "") + (m.pinned ? "p" : "");
     std::printf("%-3s %8llu  %-20s  %-4s %9llu %8u %8u %4u  %-10s %s%s%s\n", mark.c_str(),
-                static_cast<unsigned long long>(m.version),
-                FormatTime(m.created_ms).c_str(), m.objective.c_str(),
-                static_cast<unsigned long long>(m.events_seen), m.num_users, m.num_items, m.dim,
-                recall, GateName(m.gate), m.gate_reason.empty() ? "" : ": ",
+                static_cast<unsigned long long>(m.version), FormatTime(m.created_ms).c_str(),
+                m.objective.c_str(), static_cast<unsigned long long>(m.events_seen), m.num_users,
+                m.num_items, m.dim, recall, GateName(m.gate), m.gate_reason.empty() ? "" : ": ",
                 m.gate_reason.c_str());
     std::printf("%-3s %8s  trained: %s\n", "", "",
                 online::FormatTrainingConfig(m.training).c_str());
@@ -85,7 +84,7 @@ Status RunVersions(const AdminArgs& args) {
 }
 
 Status RunPin(const AdminArgs& args, bool pinned) {
-  if (args.version == 0) return Status::InvalidArgument("--version is required");
+  if (args.version == 0) return Status::InvalidArgument("--model-version must be at least 1");
   std::unique_ptr<store::Store> store;
   store::StoreOptions existing;
   existing.create_if_missing = false;  // activating or pinning never creates a store
@@ -97,7 +96,7 @@ Status RunPin(const AdminArgs& args, bool pinned) {
 }
 
 Status RunActivate(const AdminArgs& args) {
-  if (args.version == 0) return Status::InvalidArgument("--version is required");
+  if (args.version == 0) return Status::InvalidArgument("--model-version must be at least 1");
   std::unique_ptr<store::Store> store;
   store::StoreOptions existing;
   existing.create_if_missing = false;  // activating or pinning never creates a store
@@ -135,10 +134,11 @@ Status RunInspect(const AdminArgs& args) {
     version_bytes += (uint64_t{m.num_users} + m.num_items) * m.dim * sizeof(float) +
                      uint64_t{m.num_items} * sizeof(uint32_t);
   }
-  std::printf("versions kept   %zu, active %llu; their embeddings take %.1f MB before "
-              "compression\n",
-              versions.size(), static_cast<unsigned long long>(active),
-              static_cast<double>(version_bytes) / 1e6);
+  std::printf(
+      "versions kept   %zu, active %llu; their embeddings take %.1f MB before "
+      "compression\n",
+      versions.size(), static_cast<unsigned long long>(active),
+      static_cast<double>(version_bytes) / 1e6);
   std::string auto_activate;
   if (store->GetMeta("auto_activate", &auto_activate).ok()) {
     std::printf("auto-activate   %s\n", auto_activate == "1" ? "on" : "off (paused)");
@@ -219,18 +219,30 @@ Status RunExport(const AdminArgs& args) {
   std::error_code ec;
   std::filesystem::create_directories(args.out, ec);
   if (ec) return Status::IoError("cannot create " + args.out + ": " + ec.message());
-  auto write = [&](const std::string& name, const std::vector<std::string>& ids,
-                   const trainer::RowMatrix& m) -> Status {
+  // Tab-separated values (IANA text/tab-separated-values): a header line `user` (or
+  // `item`) then d0 .. d<dim-1>, and one line per id with the id and dim float32 values,
+  // each printed with 9 significant digits (enough to read back the exact float32). TSV has
+  // no quoting, so an id holding a tab or a line break cannot be written: refused.
+  auto write = [&](const std::string& name, const char* id_column,
+                   const std::vector<std::string>& ids, const trainer::RowMatrix& m) -> Status {
+    for (const std::string& id : ids) {
+      if (id.find_first_of("\t\r\n") != std::string::npos) {
+        return Status::InvalidArgument("cannot export " + std::string(id_column) + " id '" + id +
+                                       "' as TSV: it holds a tab or a line break");
+      }
+    }
     const std::string path = (std::filesystem::path(args.out) / name).string();
     std::ofstream out(path);
     if (!out) return Status::IoError("cannot write " + path);
+    out << id_column;
+    for (Eigen::Index c = 0; c < m.cols(); ++c) out << "\td" << c;
+    out << '\n';
     char buf[32];
     for (size_t r = 0; r < ids.size(); ++r) {
-      out << ids[r] << '\t';
+      out << ids[r];
       for (Eigen::Index c = 0; c < m.cols(); ++c) {
         std::snprintf(buf, sizeof buf, "%.9g", static_cast<double>(m(r, c)));
-        if (c) out << ' ';
-        out << buf;
+        out << '\t' << buf;
       }
       out << '\n';
     }
@@ -238,13 +250,13 @@ Status RunExport(const AdminArgs& args) {
     if (!out) return Status::IoError("write failed: " + path);
     return Status::Ok();
   };
-  PLUMB_RETURN_IF_ERROR(write("users.tsv", loaded.user_ids, loaded.model.users()));
-  PLUMB_RETURN_IF_ERROR(write("items.tsv", loaded.item_ids, loaded.model.items()));
-  std::printf(
-      "version %llu exported to %s/users.tsv (%zu rows) and %s/items.tsv (%zu rows), "
-      "dim %u\n",
-      static_cast<unsigned long long>(loaded.manifest.version), args.out.c_str(),
-      loaded.user_ids.size(), args.out.c_str(), loaded.item_ids.size(), loaded.manifest.dim);
+  PLUMB_RETURN_IF_ERROR(write("users.tsv", "user", loaded.user_ids, loaded.model.users()));
+  PLUMB_RETURN_IF_ERROR(write("items.tsv", "item", loaded.item_ids, loaded.model.items()));
+  std::printf("version %llu exported to %s/users.tsv (%zu rows) and %s/items.tsv (%zu rows), "
+              "dim %u\n",
+              static_cast<unsigned long long>(loaded.manifest.version), args.out.c_str(),
+              loaded.user_ids.size(), args.out.c_str(), loaded.item_ids.size(),
+              loaded.manifest.dim);
   return Status::Ok();
 }
 

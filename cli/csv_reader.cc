@@ -85,15 +85,17 @@ Status MissingColumnsError(const std::string& path, std::string_view required,
                            std::string_view header_line) {
   std::string_view shown = StripUtf8Bom(header_line);
   while (!shown.empty() && (shown.back() == '\r' || shown.back() == '\n')) shown.remove_suffix(1);
-  std::string message = path + ":1: header must name columns " + std::string(required) +
-                        " (got '" + std::string(shown) + "')";
+  std::string message = path + ":1: header must name columns " + std::string(required) + " (got '" +
+                        std::string(shown) + "')";
   if (shown.find(',') == std::string_view::npos) {
     if (shown.find('\t') != std::string_view::npos) {
-      message += "; the columns are separated by tabs: plumb reads comma-separated files, "
-                 "use commas";
+      message +=
+          "; the columns are separated by tabs: plumb reads comma-separated files, "
+          "use commas";
     } else if (shown.find(';') != std::string_view::npos) {
-      message += "; the columns are separated by semicolons: plumb reads comma-separated "
-                 "files, use commas";
+      message +=
+          "; the columns are separated by semicolons: plumb reads comma-separated "
+          "files, use commas";
     }
   }
   return Status::InvalidArgument(message);
@@ -181,8 +183,8 @@ Status ReadEventCsv(const std::string& path, const CsvReadOptions& options,
       auto [p, ec] = std::from_chars(w->data(), w->data() + w->size(), weight);
       if (ec != std::errc() || p != w->data() + w->size() || !std::isfinite(weight) ||
           weight < 0.0f || weight > 1000.0f) {
-        PLUMB_RETURN_IF_ERROR(fail_or_skip("weight '" + *w +
-                                           "' is not a number in [0, 1000] (0 means 1)"));
+        PLUMB_RETURN_IF_ERROR(
+            fail_or_skip("weight '" + *w + "' is not a number in [0, 1000] (0 means 1)"));
         continue;
       }
       // One rule with the wire, where an unset weight reads as 0: 0 means the default 1.

@@ -35,7 +35,8 @@ Status ReadForImport(const ImportArgs& args, std::vector<store::EventInput>* eve
                  static_cast<unsigned long long>(report.skipped),
                  report.first_skip_reason.c_str());
   }
-  for (const std::string& w : report.warnings) std::fprintf(stderr, "import: warning: %s\n", w.c_str());
+  for (const std::string& w : report.warnings)
+    std::fprintf(stderr, "import: warning: %s\n", w.c_str());
   events->clear();
   events->reserve(rows.size());
   const int64_t now = NowMs();
@@ -101,8 +102,8 @@ Status MakeTrainOptions(const FitArgs& args, trainer::TrainOptions* out) {
 Status RunFit(const FitArgs& args) {
   trainer::TrainOptions train_options;
   PLUMB_RETURN_IF_ERROR(MakeTrainOptions(args, &train_options));
-  if (args.holdout < 0.0 || args.holdout >= 1.0) {
-    return Status::InvalidArgument("--holdout must be in [0, 1)");
+  if (args.holdout < 0.0 || args.holdout > 0.5) {
+    return Status::InvalidArgument("--holdout-fraction must be in [0, 0.5]");
   }
   store::StoreOptions so;
   so.sync = args.import.sync;

@@ -12,8 +12,8 @@ namespace plumb::cli {
 class ItemNames {
  public:
   // Reads a CSV whose header names the columns `item` and `name` (others are ignored;
-  // quoting and the byte-order mark as in cli/csv_reader.h). NotFound when the file cannot be opened;
-  // InvalidArgument naming file and line for a malformed line or a missing column.
+  // quoting and the byte-order mark as in cli/csv_reader.h). NotFound when the file cannot be
+  // opened; InvalidArgument naming file and line for a malformed line or a missing column.
   static Status Read(const std::string& path, ItemNames* out);
 
   // The name of `item`, or "" when the file did not list it.

@@ -56,33 +56,55 @@ void AddWorldOptions(CLI::App* cmd, trainer::SynthOptions* w) {
       ->capture_default_str();
 }
 
+// The training flags, named and ranged as plumb-train's keys of the same meaning (the ranges
+// are the trainer's own limits, so a bad value is refused here, naming the flag typed).
 void AddTrainOptions(CLI::App* cmd, FitArgs* a) {
   cmd->add_option("--objective", a->objective, "cpr, bpr or bce")
       ->check(CLI::IsMember({"cpr", "bpr", "bce"}))
       ->capture_default_str();
-  cmd->add_option("--dim", a->dim, "embedding dimension")->capture_default_str();
-  cmd->add_option("--epochs", a->epochs, "passes over the training pairs")->capture_default_str();
-  cmd->add_option("--k", a->k, "CPR: interactions per sample")->capture_default_str();
-  cmd->add_option("--k3-share", a->k3_share, "CPR: share of 3-interaction samples mixed in")
+  cmd->add_option("--dim", a->dim, "embedding dimension")
+      ->check(CLI::Range(1u, 4096u))
       ->capture_default_str();
-  cmd->add_option("--beta", a->beta, "dynamic sampling: candidates drawn per kept sample (1 = plain)")
+  cmd->add_option("--epochs", a->epochs, "passes over the training pairs")
+      ->check(CLI::Range(1u, 100000u))
       ->capture_default_str();
-  cmd->add_option("--learning-rate", a->learning_rate, "step size")->capture_default_str();
-  cmd->add_option("--l2", a->l2, "L2 regularisation of touched rows")->capture_default_str();
+  cmd->add_option("--cpr-k", a->k, "CPR sample size: interactions crossed per sample")
+      ->check(CLI::Range(2u, 8u))
+      ->capture_default_str();
+  cmd->add_option("--cpr-k3-share", a->k3_share, "CPR: share of 3-interaction samples mixed in")
+      ->check(CLI::Range(0.0, 1.0))
+      ->capture_default_str();
+  cmd->add_option("--beta", a->beta,
+                  "dynamic sampling: candidates drawn per kept sample (1 = plain)")
+      ->check(CLI::Range(1.0, 1000.0))
+      ->capture_default_str();
+  cmd->add_option("--learning-rate", a->learning_rate, "step size")
+      ->check(CLI::PositiveNumber)
+      ->capture_default_str();
+  cmd->add_option("--l2", a->l2, "L2 regularisation of touched rows")
+      ->check(CLI::NonNegativeNumber)
+      ->capture_default_str();
   cmd->add_option("--optimizer", a->optimizer, "sgd or adagrad")
       ->check(CLI::IsMember({"sgd", "adagrad"}))
       ->capture_default_str();
-  cmd->add_option("--batch-size", a->batch_size, "samples per mini-batch")->capture_default_str();
-  cmd->add_option("--threads", a->threads, "training threads")->capture_default_str();
+  cmd->add_option("--batch-size", a->batch_size, "samples per mini-batch")
+      ->check(CLI::Range(1u, 1u << 24))
+      ->capture_default_str();
+  cmd->add_option("--threads", a->threads, "training threads")
+      ->check(CLI::Range(1u, 256u))
+      ->capture_default_str();
   cmd->add_option("--seed", a->seed, "random seed")->capture_default_str();
 }
 
 }  // namespace
 
 int main(int argc, char** argv) {
-  CLI::App app{"plumb: fit, evaluate and manage embedding versions offline"};
+  CLI::App app{
+      "plumb: fit, evaluate and manage embedding versions offline.\n"
+      "Exit status: 0 done, 1 failed (reason on stderr), 2 usage error.",
+      "plumb"};
   app.require_subcommand(1);
-  app.set_version_flag("--version", "plumb 0.1.0");
+  app.set_version_flag("--version", std::string("plumb ") + PLUMB_VERSION);
 
   trainer::SynthOptions synth;
   synth.users = 5000;
@@ -107,22 +129,27 @@ int main(int argc, char** argv) {
   fit_cmd->add_option("--db", fit.import.db, "store directory (created if missing)")->required();
   fit_cmd->add_flag("--skip-bad", fit.import.skip_bad, "skip and count malformed CSV lines");
   AddTrainOptions(fit_cmd, &fit);
-  fit_cmd->add_option("--holdout", fit.holdout, "share of pairs held out for validation (first fit only)")
+  fit_cmd
+      ->add_option("--holdout-fraction", fit.holdout,
+                   "share of pairs held out for validation (first fit only)")
+      ->check(CLI::Range(0.0, 0.5))
       ->capture_default_str();
-  fit_cmd->add_option("--keep-versions", fit.keep_versions, "newest versions always kept in the store")
+  fit_cmd
+      ->add_option("--keep-versions", fit.keep_versions, "newest versions always kept in the store")
       ->capture_default_str();
   fit_cmd
       ->add_option("--keep-versions-for", fit.keep_versions_for,
                    "also keep every version younger than this (30m, 2h, 7d; 0 = by count only)")
       ->capture_default_str();
-  bool no_activate = false;
-  fit_cmd->add_flag("--no-activate", no_activate, "publish without activating");
+  fit_cmd->add_flag("--activate,!--no-activate", fit.activate,
+                    "activate the published version (--no-activate: publish only)");
 
   EvalArgs eval;
   auto* eval_cmd = app.add_subcommand("eval", "Recall, NDCG, ARP, Gini, coverage, group shares on a test file");
   eval_cmd->add_option("--db", eval.db, "store directory")->required();
   eval_cmd->add_option("--test", eval.test, "CSV with columns user,item")->required()->check(CLI::ExistingFile);
-  eval_cmd->add_option("--version", eval.version, "version to evaluate (default: the active one)");
+  eval_cmd->add_option("--model-version", eval.version,
+                       "version to evaluate (default: the active one)");
   eval_cmd->add_option("--k", eval.k, "cut-off K")->capture_default_str();
   eval_cmd->add_option("--groups", eval.groups, "popularity groups")->capture_default_str();
   eval_cmd->add_option("--threads", eval.threads, "scoring threads")->capture_default_str();
@@ -146,13 +173,13 @@ int main(int argc, char** argv) {
   versions_cmd->add_option("--db", admin.db, "store directory")->required();
   auto* activate_cmd = app.add_subcommand("activate", "make a kept version active (promote or roll back)");
   activate_cmd->add_option("--db", admin.db, "store directory")->required();
-  activate_cmd->add_option("--version", admin.version, "version number")->required();
+  activate_cmd->add_option("--model-version", admin.version, "version number")->required();
   auto* pin_cmd = app.add_subcommand("pin", "pin a kept version: never pruned, whatever its age");
   pin_cmd->add_option("--db", admin.db, "store directory")->required();
-  pin_cmd->add_option("--version", admin.version, "version number")->required();
+  pin_cmd->add_option("--model-version", admin.version, "version number")->required();
   auto* unpin_cmd = app.add_subcommand("unpin", "unpin a version: the retention rules apply again");
   unpin_cmd->add_option("--db", admin.db, "store directory")->required();
-  unpin_cmd->add_option("--version", admin.version, "version number")->required();
+  unpin_cmd->add_option("--model-version", admin.version, "version number")->required();
   auto* inspect_cmd = app.add_subcommand("inspect", "summarise a store: log, cursor, ids, versions");
   inspect_cmd->add_option("--db", admin.db, "store directory")->required();
   inspect_cmd->add_flag("--verify", admin.verify,
@@ -161,36 +188,45 @@ int main(int argc, char** argv) {
       "repair", "recover a damaged store: set unreadable files aside, keep every readable record, "
                 "drop incomplete versions (plumb-train must be stopped)");
   repair_cmd->add_option("--db", admin.db, "store directory")->required();
-  auto* export_cmd = app.add_subcommand("export", "write a version as users.tsv and items.tsv");
+  auto* export_cmd = app.add_subcommand(
+      "export",
+      "write a version as users.tsv and items.tsv (tab-separated, header user|item, d0..)");
   export_cmd->add_option("--db", admin.db, "store directory")->required();
   export_cmd->add_option("--out", admin.out, "output directory")->required();
-  export_cmd->add_option("--version", admin.version, "version (default: the active one)");
+  export_cmd->add_option("--model-version", admin.version, "version (default: the active one)");
 
   TopArgs top;
   auto* top_cmd = app.add_subcommand("top", "a user's top-N list from a stored version, offline");
   top_cmd->add_option("--db", top.db, "store directory")->required();
   top_cmd->add_option("--user", top.users, "external user id (repeatable)")->required();
   top_cmd->add_option("--count", top.count, "list length")->capture_default_str();
-  top_cmd->add_option("--version", top.version, "version (default: the active one)");
+  top_cmd->add_option("--model-version", top.version, "version (default: the active one)");
   top_cmd->add_option("--names", top.names, "CSV `item,name` to show item names")
       ->check(CLI::ExistingFile);
   top_cmd->add_flag("--include-seen", top.include_seen,
                     "also list items the user already had (default: left out)");
 
-  CLI11_PARSE(app, argc, argv);
+  try {
+    app.parse(argc, argv);
+  } catch (const CLI::ParseError& e) {
+    // --help and --version exit 0; every other parse error is a usage error: exit 2.
+    return app.exit(e) == 0 ? 0 : 2;
+  }
 
   Status s;
   if (*synth_cmd) s = RunSynth(synth, synth_out);
   else if (*import_cmd) s = RunImport(import);
-  else if (*fit_cmd) {
-    fit.activate = !no_activate;
+  else if (*fit_cmd)
     s = RunFit(fit);
-  } else if (*eval_cmd) s = RunEval(eval);
+  else if (*eval_cmd)
+    s = RunEval(eval);
   else if (*compare_cmd) s = RunCompare(compare);
   else if (*versions_cmd) s = RunVersions(admin);
   else if (*activate_cmd) s = RunActivate(admin);
-  else if (*pin_cmd) s = RunPin(admin, true);
-  else if (*unpin_cmd) s = RunPin(admin, false);
+  else if (*pin_cmd)
+    s = RunPin(admin, true);
+  else if (*unpin_cmd)
+    s = RunPin(admin, false);
   else if (*inspect_cmd) s = RunInspect(admin);
   else if (*repair_cmd) s = RunRepair(admin);
   else if (*export_cmd) s = RunExport(admin);

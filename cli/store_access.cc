@@ -20,8 +20,9 @@ Status OpenForWrite(const std::string& db, const store::StoreOptions& options,
     if (!fs::exists(fs::path(db) / "CURRENT", ec) && !fs::is_empty(db, ec)) {
       if (!options.create_if_missing) return Status::NotFound("no store at " + db);
       return Status::InvalidArgument(
-          db + " is a directory that holds other files and no plumb store; give a new or an "
-               "empty directory for the store");
+          db +
+          " is a directory that holds other files and no plumb store; give a new or an "
+          "empty directory for the store");
     }
   } else if (!options.create_if_missing) {
     return Status::NotFound("no store at " + db);

@@ -45,7 +45,9 @@ Status RunTop(const TopArgs& args) {
     int rank = 0;
     for (const ScoredIndex& s : selector.SortedResult()) {
       const std::string& id = m.item_ids[s.index];
-      std::printf("  %2d. %-8s %-36s %8.4f  (borrowed by %u)\n", ++rank, id.c_str(),
+      // The item's training degree: how many users interacted with it in the training data
+      // (popularity), whatever the data is about.
+      std::printf("  %2d. %-8s %-36s %8.4f  (%u users in training)\n", ++rank, id.c_str(),
                   names.Find(id).c_str(), s.score, m.train.item_degree(s.index));
     }
   }

@@ -37,6 +37,18 @@ Status ParseDuration(std::string_view text, int64_t* ms) {
   return Status::Ok();
 }
 
+Status ParseDurationIn(std::string_view name, std::string_view text, int64_t min_ms, int64_t max_ms,
+                       int64_t* ms) {
+  if (Status s = ParseDuration(text, ms); !s.ok()) {
+    return Status::InvalidArgument(std::string(name) + ": " + s.message());
+  }
+  if (*ms < min_ms || *ms > max_ms) {
+    return Status::InvalidArgument(std::string(name) + ": " + std::string(text) + " is outside [" +
+                                   FormatDuration(min_ms) + ", " + FormatDuration(max_ms) + "]");
+  }
+  return Status::Ok();
+}
+
 std::string FormatDuration(int64_t ms) {
   if (ms == 0) return "0";
   struct Unit {

@@ -96,7 +96,7 @@ say "Generating the lending library (members borrow what the shelf by the door s
 
 say "Starting plumb-train ($TRAIN_ADDR, metrics $TRAIN_METRICS) and plumb-serve ($SERVE_ADDR, metrics $SERVE_METRICS)"
 "$BIN/trainer/online/plumb-train" --db "$DEMO/db" --listen "$TRAIN_ADDR" --metrics "$TRAIN_METRICS" \
-  --dim 32 --publish-every-events 40000 --publish-every-seconds 5 --holdout-fraction 0.02 \
+  --dim 32 --publish-every-events 40000 --publish-interval 5s --holdout-fraction 0.02 \
   > "$DEMO/plumb-train.log" 2>&1 &
 echo $! > "$DEMO/plumb-train.pid"
 wait_started plumb-train "plumb-train serving"
@@ -106,16 +106,16 @@ echo $! > "$DEMO/plumb-serve.pid"
 wait_started plumb-serve "plumb-serve listening"
 
 say "Streaming $(($(wc -l < "$DEMO/world/events.csv") - 1)) borrowings through EventIngest in time order"
-"$LOAD" replay --events "$DEMO/world/events.csv" --ingest-target "$TRAIN_ADDR"
+"$LOAD" replay --events "$DEMO/world/events.csv" --trainer "$TRAIN_ADDR"
 
 say "Waiting for the trainer to train on every event (plus its idle replay passes) and activate the result"
 ok=0
 for _ in $(seq 360); do
-  last=$("$QUERY" status --target "$TRAIN_ADDR" 2>/dev/null | awk '/^last sequence/ {print $3}')
-  idle=$("$QUERY" status --target "$TRAIN_ADDR" 2>/dev/null | awk '/^idle/ {print $2}')
-  seen=$("$QUERY" versions --target "$TRAIN_ADDR" 2>/dev/null | awk '$1 == "*" {print $6}')
+  last=$("$QUERY" status --trainer "$TRAIN_ADDR" 2>/dev/null | awk '/^last sequence/ {print $3}')
+  idle=$("$QUERY" status --trainer "$TRAIN_ADDR" 2>/dev/null | awk '/^idle/ {print $2}')
+  seen=$("$QUERY" versions --trainer "$TRAIN_ADDR" 2>/dev/null | awk '$1 == "*" {print $6}')
   if [ -n "$last" ] && [ "$last" != 0 ] && [ -n "$seen" ] && [ "$idle" = yes ] \
-     && "$QUERY" health --target "$SERVE_ADDR" >/dev/null 2>&1; then
+     && "$QUERY" health --server "$SERVE_ADDR" >/dev/null 2>&1; then
     ok=1
     break
   fi
@@ -123,28 +123,28 @@ for _ in $(seq 360); do
 done
 [ $ok = 1 ] || { echo "no active version covering all events after 180 s; see $DEMO/plumb-train.log" >&2; exit 1; }
 sleep 1  # one catch-up interval of plumb-serve, so it serves that version
-"$QUERY" status --target "$TRAIN_ADDR"
-"$QUERY" versions --target "$TRAIN_ADDR"
+"$QUERY" status --trainer "$TRAIN_ADDR"
+"$QUERY" versions --trainer "$TRAIN_ADDR"
 
 say "For contrast: offline fits of the same borrowings, CPR (what the trainer runs) and plain BPR"
 "$PLUMB" fit --events "$DEMO/world/events.csv" --db "$DEMO/cpr-db" --objective cpr --dim 32 \
-  --epochs 20 --holdout 0.02 2>"$DEMO/cpr-fit.log"
+  --epochs 20 --holdout-fraction 0.02 2>"$DEMO/cpr-fit.log"
 "$PLUMB" fit --events "$DEMO/world/events.csv" --db "$DEMO/bpr-db" --objective bpr --dim 32 \
-  --epochs 20 --holdout 0.02 2>"$DEMO/bpr-fit.log"
+  --epochs 20 --holdout-fraction 0.02 2>"$DEMO/bpr-fit.log"
 
 MEMBERS=$(awk -F, 'NR>1 {print $1}' "$DEMO/world/events.csv" | sort | uniq -c | sort -rn \
   | awk 'NR==40 || NR==400 || NR==1200 {print $2}')
 for m in $MEMBERS; do
   say "Member $m"
   echo "-- served by plumb-serve (online CPR):"
-  "$QUERY" recommend --target "$SERVE_ADDR" --user "$m" --count 10 --names "$DEMO/world/items.csv"
+  "$QUERY" recommend --server "$SERVE_ADDR" --user "$m" --count 10 --names "$DEMO/world/items.csv"
   echo "-- the offline BPR model:"
   "$PLUMB" top --db "$DEMO/bpr-db" --user "$m" --count 10 --names "$DEMO/world/items.csv"
 done
 
 say "Sending Recommend traffic for 5 s to fill the exposure window"
 awk -F, 'NR>1 {print $1}' "$DEMO/world/events.csv" | sort -u > "$DEMO/users.txt"
-"$LOAD" --target "$SERVE_ADDR" --users-file "$DEMO/users.txt" --duration 5 --concurrency 4 --count 20
+"$LOAD" --server "$SERVE_ADDR" --users-file "$DEMO/users.txt" --duration 5s --concurrency 4 --count 20
 
 say "Exposure gauges from http://$SERVE_METRICS/metrics"
 curl -s "http://$SERVE_METRICS/metrics" | grep -E '^plumb_(exposure|interaction)_' || true
@@ -159,7 +159,7 @@ echo "-- an offline BPR fit of the same borrowings:"
 
 say "Done in $(( $(date +%s) - started )) s"
 cat <<INFO
-  ranking endpoint  $SERVE_ADDR   (plumb.v1.Ranker; try: $QUERY recommend --target $SERVE_ADDR --user m1)
+  ranking endpoint  $SERVE_ADDR   (plumb.v1.Ranker; try: $QUERY recommend --server $SERVE_ADDR --user m1)
   event ingest      $TRAIN_ADDR   (plumb.v1.EventIngest, plumb.v1.ModelControl)
   metrics           http://$SERVE_METRICS/metrics  http://$TRAIN_METRICS/metrics
   logs              $DEMO/plumb-serve.log  $DEMO/plumb-train.log

@@ -8,12 +8,20 @@
 #include <ostream>
 #include <sstream>
 
+#include "core/duration.h"
+
 namespace plumb::server {
 
 namespace {
 
-void DefineOptions(CLI::App& app, ServeConfig* c) {
+// The duration flags are texts with a unit; ParseServeConfig converts them afterwards.
+struct DurationTexts {
+  std::string catchup_interval, exposure_window_max_age, shutdown_grace;
+};
+
+void DefineOptions(CLI::App& app, ServeConfig* c, DurationTexts* d) {
   app.option_defaults()->always_capture_default();
+  app.set_version_flag("--version", std::string("plumb-serve ") + PLUMB_VERSION);
   app.add_option("--db", c->db, "Store directory written by plumb-train (required)");
   app.add_option("--config", c->config_file,
                  "TOML file whose top-level keys are any of these flags' names");
@@ -23,20 +31,23 @@ void DefineOptions(CLI::App& app, ServeConfig* c) {
   app.add_option("--scratch-dir", c->scratch_dir,
                  "Directory for the RocksDB secondary's own files (default: a temporary "
                  "directory unique to this process)");
-  app.add_option("--catchup-interval-ms", c->catchup_interval_ms,
-                 "How often to catch up with the trainer and look for a new active version")
-      ->check(CLI::Range(10, 3'600'000));
+  d->catchup_interval = FormatDuration(c->catchup_interval_ms);
+  app.add_option("--catchup-interval", d->catchup_interval,
+                 "How often to catch up with the trainer and look for a new active version "
+                 "(10ms .. 1h)");
   app.add_option("--exposure-window-lists", c->exposure.window_lists,
-                 "Exposure monitor: served lists kept in the sliding window")
+                 "Exposure monitor: the last this many served lists form the window")
       ->check(CLI::Range(1, 10'000'000));
-  app.add_option("--exposure-window-seconds", c->exposure.window_seconds,
-                 "Exposure monitor: also drop lists older than this (0 = by count only)")
-      ->check(CLI::Range(0.0, 86400.0 * 30));
+  d->exposure_window_max_age =
+      FormatDuration(static_cast<int64_t>(c->exposure.window_seconds * 1000.0 + 0.5));
+  app.add_option("--exposure-window-max-age", d->exposure_window_max_age,
+                 "Exposure monitor: also drop lists older than this (0 = by count only)");
   app.add_option("--exposure-groups", c->exposure.groups,
                  "Exposure monitor: popularity groups of equal interaction mass")
       ->check(CLI::Range(1, 100));
-  app.add_option("--exposure-monitor", c->exposure_monitor,
-                 "Count served lists into the exposure window (false: no exposure gauges)");
+  app.add_flag("--exposure-monitor,!--no-exposure-monitor", c->exposure_monitor,
+               "Count served lists into the exposure window (--no-exposure-monitor: no "
+               "exposure gauges)");
   app.add_option("--max-count", c->limits.max_count, "Largest count a request may ask for")
       ->check(CLI::Range(1, 1'000'000));
   app.add_option("--max-candidates", c->limits.max_candidates,
@@ -61,22 +72,31 @@ void DefineOptions(CLI::App& app, ServeConfig* c) {
                  "them get RESOURCE_EXHAUSTED, waiting calls whose deadline passes "
                  "DEADLINE_EXCEEDED")
       ->check(CLI::Range(0, 100'000));
-  app.add_option("--threads", c->endpoint.max_threads,
+  app.add_option("--rpc-threads", c->endpoint.max_threads,
                  "Most gRPC server threads (0: running + waiting calls + 16); calls beyond "
                  "them get RESOURCE_EXHAUSTED from gRPC itself")
       ->check(CLI::Range(0, 110'000));
-  app.add_option("--reflection", c->endpoint.reflection,
-                 "Offer gRPC server reflection (true/false)");
+  app.add_flag("--reflection,!--no-reflection", c->endpoint.reflection,
+               "Offer gRPC server reflection");
   app.add_option("--tls-cert", c->endpoint.tls_cert_file,
                  "PEM certificate chain; with --tls-key, serve over TLS");
   app.add_option("--tls-key", c->endpoint.tls_key_file, "PEM private key for --tls-cert");
   app.add_option("--tls-client-ca", c->endpoint.tls_client_ca_file,
                  "PEM CA bundle; when set, clients must present a certificate it signed");
-  app.add_option("--shutdown-grace-ms", c->shutdown_grace_ms,
-                 "On SIGTERM/SIGINT, how long in-flight calls may take to finish")
-      ->check(CLI::Range(0, 600'000));
+  d->shutdown_grace = FormatDuration(c->shutdown_grace_ms);
+  app.add_option("--shutdown-grace", d->shutdown_grace,
+                 "On SIGTERM/SIGINT, how long in-flight calls may take to finish (up to 10m)");
   app.add_option("--log-level", c->log_level, "trace, debug, info, warn, error, critical, off")
       ->check(CLI::IsMember({"trace", "debug", "info", "warn", "error", "critical", "off"}));
+}
+
+// Converts a duration flag's text; false (with the message on `err`) when it is not a
+// duration or lies outside [min_ms, max_ms].
+bool ConvertDuration(const char* flag, const std::string& text, int64_t min_ms, int64_t max_ms,
+                     int64_t* ms, std::ostream& err) {
+  Status s = ParseDurationIn(flag, text, min_ms, max_ms, ms);
+  if (!s.ok()) err << s.message() << "\n";
+  return s.ok();
 }
 
 // A TOML value as the text a flag would carry, or empty with *error set.
@@ -108,7 +128,9 @@ bool ApplyConfigFile(CLI::App& app, const std::string& path, std::ostream& err) 
   for (const auto& [raw_key, node] : table) {
     std::string key(raw_key.str());
     std::replace(key.begin(), key.end(), '_', '-');
-    CLI::Option* option = key == "config" ? nullptr : app.get_option_no_throw("--" + key);
+    CLI::Option* option = key == "config" || key == "version" || key == "help"
+                              ? nullptr
+                              : app.get_option_no_throw("--" + key);
     if (option == nullptr) {
       err << "config file '" << path << "': unknown key '" << raw_key.str() << "'\n";
       return false;
@@ -139,17 +161,30 @@ int ParseServeConfig(int argc, const char* const* argv, ServeConfig* config, std
       "plumb-serve: answers plumb.v1.Ranker calls from the active embedding version in a "
       "plumb store, following the trainer as a RocksDB secondary.",
       "plumb-serve");
-  DefineOptions(app, config);
+  DurationTexts durations;
+  DefineOptions(app, config, &durations);
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {
-    return app.exit(e, out, err);
+    // --help and --version exit 0; every other parse error is a usage error: exit 2.
+    return app.exit(e, out, err) == 0 ? 0 : 2;
   }
   if (!config->config_file.empty() && !ApplyConfigFile(app, config->config_file, err)) return 2;
   if (config->db.empty()) {
     err << "--db is required (as a flag or as 'db' in the config file)\n";
     return 2;
   }
+  int64_t ms = 0;
+  if (!ConvertDuration("--catchup-interval", durations.catchup_interval, 10, 3'600'000, &ms, err))
+    return 2;
+  config->catchup_interval_ms = static_cast<int>(ms);
+  if (!ConvertDuration("--shutdown-grace", durations.shutdown_grace, 0, 600'000, &ms, err))
+    return 2;
+  config->shutdown_grace_ms = static_cast<int>(ms);
+  if (!ConvertDuration("--exposure-window-max-age", durations.exposure_window_max_age, 0,
+                       30LL * 86'400'000, &ms, err))
+    return 2;
+  config->exposure.window_seconds = static_cast<double>(ms) / 1000.0;
   return -1;
 }
 

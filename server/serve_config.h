@@ -1,8 +1,10 @@
 // ServeConfig: plumb-serve's settings, from command-line flags and an optional TOML file.
 //
 // Every setting is a flag (`--max-count 500`) and, under the same name, a top-level key of
-// the file given with --config (`max-count = 500`; `max_count` is accepted too). A flag on
-// the command line wins over the file; the file wins over the built-in default.
+// the file given with --config (`max_count = 500`; `max-count` is accepted too). A flag on
+// the command line wins over the file; the file wins over the built-in default. Flag names
+// follow the vocabulary in DEVELOPERS.md: durations take a unit ("500ms", "5s"), booleans
+// are --x / --no-x (true / false in the file).
 #pragma once
 
 #include <cstdint>
@@ -24,8 +26,8 @@ struct ServeConfig {
   // The RocksDB secondary's own directory; empty = a fresh temporary directory per process,
   // removed at exit.
   std::string scratch_dir;
-  int catchup_interval_ms = 500;
-  int shutdown_grace_ms = 5000;
+  int catchup_interval_ms = 500;   // --catchup-interval
+  int shutdown_grace_ms = 5000;    // --shutdown-grace
   std::string log_level = "info";  // trace, debug, info, warn, error, critical, off
   EndpointOptions endpoint;        // listen, TLS, threads, reflection
   AdmissionOptions admission;      // calls scoring at once, calls waiting for a slot
@@ -37,7 +39,7 @@ struct ServeConfig {
 
 // Parses argv (and the --config file it names) into *config.
 // Returns -1 when the program should go on, or the exit code when it should stop now: 0
-// after --help (usage printed to `out`), non-zero after an error (message printed to
+// after --help or --version (printed to `out`), 2 after a usage error (message printed to
 // `err`). Errors: unknown flags or file keys, values of the wrong type, an unreadable or
 // malformed file, a missing --db. Not thread-safe (CLI11 parsing state is local, but the
 // streams are shared).

@@ -120,8 +120,7 @@ Status Store::Impl::ActiveVersion(const rocksdb::ReadOptions& ro, uint64_t* vers
   return Status::Ok();
 }
 
-Status Store::Impl::PinnedVersions(const rocksdb::ReadOptions& ro,
-                                   std::set<uint64_t>* out) const {
+Status Store::Impl::PinnedVersions(const rocksdb::ReadOptions& ro, std::set<uint64_t>* out) const {
   out->clear();
   std::string value;
   Status s = Get(ro, meta, keys::kMetaPinnedVersions, &value, "meta: pinned versions");

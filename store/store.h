@@ -326,12 +326,12 @@ class Store {
   // Applies `change` atomically and durably. With a version, assigns its number (when
   // manifest.version is 0; an explicit number must be higher than any published before),
   // sets created_ms to now when 0, writes manifest and all blocks, then deletes the versions
-  // that StoreOptions' keep rules no longer keep (never the active or a pinned one). `published` receives the version number
-  // (0 when none). Everything is checked before anything is written: InvalidArgument for
-  // inconsistent input (index gaps, known or repeated external ids, interactions or
-  // degrees naming unknown indexes, a cursor beyond LastSequence(), matrix or degree sizes
-  // that differ from the manifest, more rows than the dictionaries hold, reserved or empty
-  // meta keys); `activate` of a version not kept gives NotFound, of an incomplete one
+  // that StoreOptions' keep rules no longer keep (never the active or a pinned one). `published`
+  // receives the version number (0 when none). Everything is checked before anything is written:
+  // InvalidArgument for inconsistent input (index gaps, known or repeated external ids,
+  // interactions or degrees naming unknown indexes, a cursor beyond LastSequence(), matrix or
+  // degree sizes that differ from the manifest, more rows than the dictionaries hold, reserved or
+  // empty meta keys); `activate` of a version not kept gives NotFound, of an incomplete one
   // FailedPrecondition. Nothing is written then.
   Status Commit(const StateChange& change, uint64_t* published = nullptr);
 

@@ -2,10 +2,12 @@
 //
 //   plumb-load [--rpc recommend|similar|health] [--concurrency N | --rate R] ...
 //       asynchronous calls for a while, then requests/s, errors by status and latency
-//       percentiles (text, and JSON with --json FILE); optionally publishes events to the
+//       percentiles (text, or JSON with --json); optionally publishes events to the
 //       trainer at the same time (--publish-rate).
-//   plumb-load replay --events FILE.csv [--rate E] [--batch N] [--stream]
+//   plumb-load replay --events FILE.csv [--rate E] [--events-per-call N] [--stream]
 //       streams a history file through EventIngest in file order.
+// Flag names follow the vocabulary in DEVELOPERS.md (--server / --trainer, durations with a
+// unit).
 //
 // Exit status: 0 done; 1 the run or replay could not be done (reason on stderr); 2 usage;
 // 3 replay finished but the trainer rejected some events (listed on stderr).
@@ -15,6 +17,7 @@
 #include <iostream>
 #include <thread>
 
+#include "core/duration.h"
 #include "tools/client_channel.h"
 #include "tools/event_publisher.h"
 #include "tools/event_replay.h"
@@ -25,6 +28,7 @@
 namespace {
 
 using namespace plumb::tools;
+using plumb::ParseDurationIn;
 using plumb::Status;
 
 struct LoadArgs {
@@ -32,11 +36,13 @@ struct LoadArgs {
   ChannelSpec train{"127.0.0.1:7601", "", ""};
   std::string rpc = "recommend";
   uint32_t channels = 1;
-  std::string users_file, items_file, db, json_file, token_file;
+  std::string users_file, items_file, db, token_file;
+  bool json = false;
   double publish_rate = 0;
   uint32_t publish_batch = 100;
   bool event_ids = false;
-  double connect_timeout = 10;
+  std::string connect_timeout = "10s", duration = "10s", warmup = "1s", deadline = "1s";
+  int64_t connect_timeout_ms = 10'000;
   bool include_seen = false;
   LoadOptions load;
 };
@@ -44,6 +50,12 @@ struct LoadArgs {
 int Fail(const std::string& message) {
   std::cerr << "plumb-load: " << message << "\n";
   return 1;
+}
+
+// A flag's value that parsed but cannot be used (e.g. a duration without a unit): exit 2.
+int Usage(const std::string& message) {
+  std::cerr << "plumb-load: " << message << " (see --help)\n";
+  return 2;
 }
 
 Status LoadIds(const LoadArgs& a, bool need_users, bool need_items, std::vector<std::string>* users,
@@ -71,14 +83,28 @@ Status LoadIds(const LoadArgs& a, bool need_users, bool need_items, std::vector<
   return Status::Ok();
 }
 
-bool Reachable(const std::shared_ptr<grpc::Channel>& channel, double seconds) {
+bool Reachable(const std::shared_ptr<grpc::Channel>& channel, int64_t ms) {
   return channel->WaitForConnected(std::chrono::system_clock::now() +
-                                   std::chrono::milliseconds(static_cast<int64_t>(seconds * 1000)));
+                                   std::chrono::milliseconds(ms));
 }
 
 int RunLoad(LoadArgs& a) {
   LoadOptions& o = a.load;
   o.exclude_seen = !a.include_seen;
+  int64_t ms = 0;
+  if (Status s = ParseDurationIn("--duration", a.duration, 1, 86'400'000, &ms); !s.ok())
+    return Usage(s.message());
+  o.duration_seconds = static_cast<double>(ms) / 1000.0;
+  if (Status s = ParseDurationIn("--warmup", a.warmup, 0, 3'600'000, &ms); !s.ok())
+    return Usage(s.message());
+  o.warmup_seconds = static_cast<double>(ms) / 1000.0;
+  if (Status s = ParseDurationIn("--deadline", a.deadline, 1, 3'600'000, &ms); !s.ok())
+    return Usage(s.message());
+  o.deadline_ms = static_cast<int>(ms);
+  if (Status s = ParseDurationIn("--connect-timeout", a.connect_timeout, 100, 3'600'000,
+                                 &a.connect_timeout_ms);
+      !s.ok())
+    return Usage(s.message());
   o.rpc = a.rpc == "similar"  ? LoadRpc::kSimilar
           : a.rpc == "health" ? LoadRpc::kHealth
                               : LoadRpc::kRecommend;
@@ -94,9 +120,8 @@ int RunLoad(LoadArgs& a) {
   for (uint32_t i = 0; i < a.channels; ++i) {
     std::shared_ptr<grpc::Channel> channel;
     if (Status s = MakeChannel(a.serve, &channel); !s.ok()) return Fail(s.message());
-    if (!Reachable(channel, a.connect_timeout)) {
-      return Fail("cannot reach plumb-serve at " + a.serve.target + " within " +
-                  std::to_string(static_cast<int>(a.connect_timeout)) + " s");
+    if (!Reachable(channel, a.connect_timeout_ms)) {
+      return Fail("cannot reach plumb-serve at " + a.serve.target + " within " + a.connect_timeout);
     }
     channels.push_back(std::move(channel));
   }
@@ -119,9 +144,8 @@ int RunLoad(LoadArgs& a) {
     }
     std::shared_ptr<grpc::Channel> channel;
     if (Status s = MakeChannel(a.train, &channel); !s.ok()) return Fail(s.message());
-    if (!Reachable(channel, a.connect_timeout)) {
-      return Fail("cannot reach plumb-train at " + a.train.target + " within " +
-                  std::to_string(static_cast<int>(a.connect_timeout)) + " s");
+    if (!Reachable(channel, a.connect_timeout_ms)) {
+      return Fail("cannot reach plumb-train at " + a.train.target + " within " + a.connect_timeout);
     }
     report.published = true;
     report.ingest_target = a.train.target;
@@ -141,12 +165,10 @@ int RunLoad(LoadArgs& a) {
   if (!s.ok()) return Fail(s.message());
   if (!publish_status.ok()) return Fail(publish_status.message());
 
-  PrintLoadReport(report, std::cout);
-  if (!a.json_file.empty()) {
-    std::ofstream json(a.json_file, std::ios::trunc);
-    json << LoadReportJson(report);
-    json.flush();
-    if (!json) return Fail("cannot write " + a.json_file);
+  if (a.json) {
+    std::cout << LoadReportJson(report);
+  } else {
+    PrintLoadReport(report, std::cout);
   }
   return 0;
 }
@@ -155,13 +177,20 @@ struct ReplayArgs {
   ChannelSpec train{"127.0.0.1:7601", "", ""};
   std::string token_file;
   bool quiet = false;
-  double connect_timeout = 30;
+  std::string connect_timeout = "30s", deadline = "30s";
   ReplayOptions replay;
 };
 
 int RunReplay(ReplayArgs& a) {
   ReplayOptions& o = a.replay;
-  o.connect_timeout_ms = static_cast<int>(a.connect_timeout * 1000);
+  int64_t ms = 0;
+  if (Status s = ParseDurationIn("--connect-timeout", a.connect_timeout, 100, 3'600'000, &ms);
+      !s.ok())
+    return Usage(s.message());
+  o.connect_timeout_ms = static_cast<int>(ms);
+  if (Status s = ParseDurationIn("--deadline", a.deadline, 1, 3'600'000, &ms); !s.ok())
+    return Usage(s.message());
+  o.deadline_ms = static_cast<int>(ms);
   if (!a.token_file.empty()) {
     if (Status s = ReadBearerToken(a.token_file, &o.bearer_token); !s.ok())
       return Fail(s.message());
@@ -213,11 +242,12 @@ int main(int argc, char** argv) {
       "plumb-load");
   app.option_defaults()->always_capture_default();
   app.get_formatter()->column_width(36);
+  app.set_version_flag("--version", std::string("plumb-load ") + PLUMB_VERSION);
 
   LoadArgs a;
   LoadOptions& o = a.load;
   const std::string q = "Queries";
-  app.add_option("--target", a.serve.target, "plumb-serve address HOST:PORT")->group(q);
+  app.add_option("--server", a.serve.target, "plumb-serve address HOST:PORT")->group(q);
   app.add_option("--rpc", a.rpc,
                  "recommend, similar (SimilarItems) or health (the empty-RPC floor)")
       ->check(CLI::IsMember({"recommend", "similar", "health"}))
@@ -228,13 +258,9 @@ int main(int argc, char** argv) {
   app.add_option("--rate", o.rate, "Open loop: calls started per second (0: closed loop)")
       ->check(CLI::Range(0.0, 1e7))
       ->group(q);
-  app.add_option("--duration", o.duration_seconds, "Seconds measured")
-      ->check(CLI::Range(0.001, 86400.0))
-      ->group(q);
-  app.add_option("--warmup", o.warmup_seconds, "Seconds of calls before measuring")
-      ->check(CLI::Range(0.0, 3600.0))
-      ->group(q);
-  app.add_option("--threads", o.threads,
+  app.add_option("--duration", a.duration, "How long to measure (1ms .. 1d)")->group(q);
+  app.add_option("--warmup", a.warmup, "How long to call before measuring (0 .. 1h)")->group(q);
+  app.add_option("--rpc-threads", o.threads,
                  "Completion-queue threads (open loop: each with its own dispatcher thread)")
       ->check(CLI::Range(1u, 64u))
       ->group(q);
@@ -247,9 +273,7 @@ int main(int argc, char** argv) {
   app.add_flag("--include-seen", a.include_seen,
                "Recommend: also return items the user already had (default: left out)")
       ->group(q);
-  app.add_option("--deadline-ms", o.deadline_ms, "Deadline of each call")
-      ->check(CLI::Range(1, 3600000))
-      ->group(q);
+  app.add_option("--deadline", a.deadline, "Deadline of each call (1ms .. 1h)")->group(q);
   app.add_option("--max-outstanding", o.max_outstanding,
                  "Open loop: calls in flight at most; later ones wait (latency counts from "
                  "their scheduled start)")
@@ -263,14 +287,13 @@ int main(int argc, char** argv) {
       ->check(CLI::Range(size_t{1000}, size_t{1} << 30))
       ->group(q);
   app.add_option("--connect-timeout", a.connect_timeout,
-                 "Seconds to wait for the servers to be reachable")
-      ->check(CLI::Range(0.1, 3600.0))
+                 "How long to wait for the servers to be reachable (100ms .. 1h)")
       ->group(q);
-  AddTlsOptions(&app, &a.serve, "--target-tls-ca", "plumb-serve");
+  AddTlsOptions(&app, &a.serve, "--tls-ca", "plumb-serve")->group(q);
   app.add_option("--tls-server-name", a.serve.tls_server_name,
-                 "Name to expect in the server certificates instead of the host")
-      ->each([&a](const std::string& name) { a.train.tls_server_name = name; });
-  app.add_option("--json", a.json_file, "Also write the report as JSON to this file");
+                 "Name to expect in plumb-serve's certificate instead of the host")
+      ->group(q);
+  app.add_flag("--json", a.json, "Print the report as JSON instead of text");
 
   const std::string ids = "Who is asked about";
   app.add_option("--users-file", a.users_file, "User ids, one per line")
@@ -293,15 +316,18 @@ int main(int argc, char** argv) {
   app.add_option("--publish-rate", a.publish_rate, "Events per second to plumb-train (0: none)")
       ->check(CLI::Range(0.0, 1e7))
       ->group(pub);
-  app.add_option("--publish-batch", a.publish_batch, "Events per PublishBatch call")
+  app.add_option("--publish-events-per-call", a.publish_batch, "Events per PublishBatch call")
       ->check(CLI::Range(1u, 100000u))
       ->group(pub);
   app.add_flag("--event-ids", a.event_ids, "Give published events unique event ids")->group(pub);
-  app.add_option("--ingest-target", a.train.target, "plumb-train address HOST:PORT")->group(pub);
-  app.add_option("--token-file", a.token_file, "File with plumb-train's bearer token")
+  app.add_option("--trainer", a.train.target, "plumb-train address HOST:PORT")->group(pub);
+  app.add_option("--trainer-token-file", a.token_file, "File with plumb-train's bearer token")
       ->check(CLI::ExistingFile)
       ->group(pub);
-  AddTlsOptions(&app, &a.train, "--tls-ca", "plumb-train")->group(pub);
+  AddTlsOptions(&app, &a.train, "--trainer-tls-ca", "plumb-train")->group(pub);
+  app.add_option("--trainer-tls-server-name", a.train.tls_server_name,
+                 "Name to expect in plumb-train's certificate instead of the host")
+      ->group(pub);
 
   ReplayArgs r;
   CLI::App* replay = app.add_subcommand(
@@ -315,13 +341,13 @@ int main(int argc, char** argv) {
   replay->add_option("--events", r.replay.events_file, "The CSV file")
       ->required()
       ->check(CLI::ExistingFile);
-  replay->add_option("--ingest-target,--target", r.train.target, "plumb-train address HOST:PORT");
+  replay->add_option("--trainer", r.train.target, "plumb-train address HOST:PORT");
   replay
       ->add_option("--rate", r.replay.events_per_second,
                    "Events per second (0: as fast as acknowledged)")
       ->check(CLI::Range(0.0, 1e8));
   replay
-      ->add_option("--batch", r.replay.batch,
+      ->add_option("--events-per-call", r.replay.batch,
                    "Events per call (PublishBatch) or per stream (--stream)")
       ->check(CLI::Range(1u, 100000u));
   replay->add_flag("--stream", r.replay.stream, "Use the client-streaming Publish call");
@@ -332,12 +358,9 @@ int main(int argc, char** argv) {
                    "Resends of a call that failed with UNAVAILABLE, RESOURCE_EXHAUSTED, "
                    "DEADLINE_EXCEEDED or ABORTED")
       ->check(CLI::Range(0u, 1000u));
-  replay->add_option("--deadline-ms", r.replay.deadline_ms, "Deadline of each call")
-      ->check(CLI::Range(1, 3600000));
-  replay
-      ->add_option("--connect-timeout", r.connect_timeout,
-                   "Seconds to wait for plumb-train to be reachable")
-      ->check(CLI::Range(0.1, 3600.0));
+  replay->add_option("--deadline", r.deadline, "Deadline of each call (1ms .. 1h)");
+  replay->add_option("--connect-timeout", r.connect_timeout,
+                     "How long to wait for plumb-train to be reachable (100ms .. 1h)");
   replay->add_option("--token-file", r.token_file, "File with plumb-train's bearer token")
       ->check(CLI::ExistingFile);
   AddTlsOptions(replay, &r.train, "--tls-ca", "plumb-train");
@@ -348,7 +371,7 @@ int main(int argc, char** argv) {
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {
-    if (e.get_exit_code() == 0) return app.exit(e);  // --help
+    if (e.get_exit_code() == 0) return app.exit(e);  // --help, --version
     std::cerr << "plumb-load: " << e.what() << " (see --help)\n";
     return 2;
   }

@@ -17,6 +17,7 @@
 #include <sstream>
 
 #include "cli/item_names.h"
+#include "core/duration.h"
 #include "grpc/health/v1/health.grpc.pb.h"
 #include "plumb/v1/control.grpc.pb.h"
 #include "plumb/v1/ranker.grpc.pb.h"
@@ -31,8 +32,8 @@ using plumb::cli::ItemNames;
 struct Connection {
   explicit Connection(std::string target) { spec.target = std::move(target); }
   ChannelSpec spec;
-  int timeout_ms = 5000;
-  std::string token_file;  // control commands only
+  std::string deadline = "5s";  // --deadline, checked when the command runs
+  std::string token_file;       // control commands only
 };
 
 int Fail(const std::string& message) {
@@ -59,8 +60,11 @@ int Fail(const grpc::Status& status, const std::string& target, bool control) {
 // Opens the channel and prepares a context with the deadline (and token, if any).
 Status Prepare(const Connection& c, std::shared_ptr<grpc::Channel>* channel,
                grpc::ClientContext* context) {
+  int64_t deadline_ms = 0;
+  PLUMB_RETURN_IF_ERROR(
+      plumb::ParseDurationIn("--deadline", c.deadline, 1, 3'600'000, &deadline_ms));
   PLUMB_RETURN_IF_ERROR(MakeChannel(c.spec, channel));
-  context->set_deadline(std::chrono::system_clock::now() + std::chrono::milliseconds(c.timeout_ms));
+  context->set_deadline(std::chrono::system_clock::now() + std::chrono::milliseconds(deadline_ms));
   if (!c.token_file.empty()) {
     std::string token;
     PLUMB_RETURN_IF_ERROR(ReadBearerToken(c.token_file, &token));
@@ -359,8 +363,9 @@ int Pin(const Connection& c, uint64_t version, bool pinned) {
   const grpc::Status status =
       plumb::v1::ModelControl::NewStub(channel)->SetPinned(&context, request, &response);
   if (!status.ok()) return Fail(status, c.spec.target, true);
-  std::printf("version %llu is %s\n", static_cast<unsigned long long>(response.version()),
-              response.pinned() ? "pinned: never pruned" : "unpinned: pruned by the retention rules");
+  std::printf(
+      "version %llu is %s\n", static_cast<unsigned long long>(response.version()),
+      response.pinned() ? "pinned: never pruned" : "unpinned: pruned by the retention rules");
   return 0;
 }
 
@@ -381,10 +386,12 @@ int AutoActivate(const Connection& c, const std::string& setting) {
 // ---- command line --------------------------------------------------------------------------
 
 void AddConnection(CLI::App* cmd, Connection* c, bool control) {
-  cmd->add_option("--target", c->spec.target,
-                  control ? "plumb-train address HOST:PORT" : "plumb-serve address HOST:PORT");
-  cmd->add_option("--timeout-ms", c->timeout_ms, "Deadline of the call")
-      ->check(CLI::Range(1, 3600000));
+  if (control) {
+    cmd->add_option("--trainer", c->spec.target, "plumb-train address HOST:PORT");
+  } else {
+    cmd->add_option("--server", c->spec.target, "plumb-serve address HOST:PORT");
+  }
+  cmd->add_option("--deadline", c->deadline, "Deadline of the call (1ms .. 1h)");
   cmd->add_option("--tls-ca", c->spec.tls_ca_file, "PEM CA bundle to trust: connect with TLS")
       ->check(CLI::ExistingFile);
   cmd->add_option("--tls-server-name", c->spec.tls_server_name,
@@ -407,13 +414,14 @@ int main(int argc, char** argv) {
       "plumb-query");
   app.option_defaults()->always_capture_default();
   app.require_subcommand(1);
+  app.set_version_flag("--version", std::string("plumb-query ") + PLUMB_VERSION);
   app.get_formatter()->column_width(34);
 
   ListArgs rec;
   CLI::App* recommend =
       app.add_subcommand("recommend", "Top-N items for a user (Ranker/Recommend)");
   AddConnection(recommend, &rec.conn, false);
-  recommend->add_option("--user", rec.id, "External user id")->required();
+  recommend->add_option("--user", rec.id, "External user id")->required()->default_str("");
   recommend->add_option("--count", rec.count, "How many items")->check(CLI::Range(1u, 1000000u));
   recommend->add_flag("--include-seen", rec.include_seen,
                       "Also return items the user already had (default: left out)");
@@ -432,7 +440,7 @@ int main(int argc, char** argv) {
   CLI::App* similar =
       app.add_subcommand("similar", "Items most like an item (Ranker/SimilarItems)");
   AddConnection(similar, &sim.conn, false);
-  similar->add_option("--item", sim.id, "External item id")->required();
+  similar->add_option("--item", sim.id, "External item id")->required()->default_str("");
   similar->add_option("--count", sim.count, "How many items")->check(CLI::Range(1u, 1000000u));
   similar->add_option("--exclude", sim.exclude, "Items never to return")->delimiter(',');
   similar->add_option("--names", sim.names_file, "item,name CSV to show names")
@@ -442,10 +450,11 @@ int main(int argc, char** argv) {
   CLI::App* rank =
       app.add_subcommand("rank", "Order candidate items for a user (Ranker/RankCandidates)");
   AddConnection(rank, &rk.conn, false);
-  rank->add_option("--user", rk.id, "External user id")->required();
+  rank->add_option("--user", rk.id, "External user id")->required()->default_str("");
   rank->add_option("--candidates", rk.candidates, "Candidate item ids, comma-separated")
       ->delimiter(',')
-      ->required();
+      ->required()
+      ->default_str("");
   rank->add_option("--recent", rk.recent, "For a user the model does not know: recent items")
       ->delimiter(',');
   rank->add_option("--names", rk.names_file, "item,name CSV to show names")
@@ -456,7 +465,8 @@ int main(int argc, char** argv) {
   CLI::App* health = app.add_subcommand(
       "health", "Ask grpc.health.v1.Health/Check; exit 0 only when the answer is SERVING");
   AddConnection(health, &health_conn, false);
-  health->add_option("--service", health_service, "Service to ask about ('' = the server)");
+  health->add_option("--health-service", health_service,
+                     "Service to ask about ('' = the server as a whole)");
 
   Connection control{"127.0.0.1:7601"};
   CLI::App* versions =
@@ -469,18 +479,23 @@ int main(int argc, char** argv) {
   CLI::App* activate =
       app.add_subcommand("activate", "Make a kept version the active one (promote or roll back)");
   AddConnection(activate, &control, true);
-  activate->add_option("--version", version, "Version number")
+  activate->add_option("--model-version", version, "Version number")
       ->required()
+      ->default_str("")
       ->check(CLI::PositiveNumber);
   uint64_t pin_version = 0;
   CLI::App* pin = app.add_subcommand(
       "pin", "Pin a kept version: never pruned, whatever its age (ModelControl/SetPinned)");
   AddConnection(pin, &control, true);
-  pin->add_option("--version", pin_version, "Version number")->required()->check(CLI::PositiveNumber);
+  pin->add_option("--model-version", pin_version, "Version number")
+      ->required()
+      ->default_str("")
+      ->check(CLI::PositiveNumber);
   CLI::App* unpin = app.add_subcommand("unpin", "Unpin a version: the retention rules apply again");
   AddConnection(unpin, &control, true);
-  unpin->add_option("--version", pin_version, "Version number")
+  unpin->add_option("--model-version", pin_version, "Version number")
       ->required()
+      ->default_str("")
       ->check(CLI::PositiveNumber);
   std::string setting;
   CLI::App* auto_activate = app.add_subcommand(
@@ -499,9 +514,18 @@ int main(int argc, char** argv) {
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {
-    if (e.get_exit_code() == 0) return app.exit(e);  // --help
+    if (e.get_exit_code() == 0) return app.exit(e);  // --help, --version
     std::cerr << "plumb-query: " << e.what() << " (see --help)\n";
     return 2;
+  }
+  // A --deadline that is not a duration is a usage error (every other connection keeps its
+  // valid default).
+  for (const Connection* c : {&rec.conn, &sim.conn, &rk.conn, &health_conn, &control}) {
+    int64_t ms = 0;
+    if (Status s = plumb::ParseDurationIn("--deadline", c->deadline, 1, 3'600'000, &ms); !s.ok()) {
+      std::cerr << "plumb-query: " << s.message() << " (see --help)\n";
+      return 2;
+    }
   }
   if (*recommend) return Recommend(rec);
   if (*similar) return Similar(sim);

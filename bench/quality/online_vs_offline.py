@@ -104,11 +104,11 @@ def evaluate(bin_dir, db, test):
 
 def fit(bin_dir, events, db, dim, extra):
     run([f"{bin_dir}/cli/plumb", "fit", "--events", events, "--db", db, "--dim", str(dim),
-         "--holdout", str(HOLDOUT)] + extra)
+         "--holdout-fraction", str(HOLDOUT)] + extra)
 
 
 def query_status(bin_dir, target):
-    r = subprocess.run([f"{bin_dir}/tools/plumb-query", "status", "--target", target],
+    r = subprocess.run([f"{bin_dir}/tools/plumb-query", "status", "--trainer", target],
                        stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True)
     if r.returncode != 0:
         return None
@@ -126,11 +126,11 @@ def online(bin_dir, events, db, dim, train_flags, log_path, rate=0, test=None, t
     log = open(log_path, "w")
     proc = subprocess.Popen([f"{bin_dir}/trainer/online/plumb-train", "--db", db, "--listen",
                              target, "--metrics", "", "--dim", str(dim), "--no-sync",
-                             "--holdout-fraction", str(HOLDOUT), "--publish-every-seconds", "5"]
+                             "--holdout-fraction", str(HOLDOUT), "--publish-interval", "5s"]
                             + train_flags, stdout=log, stderr=subprocess.STDOUT)
     try:
         t0 = time.time()
-        run([f"{bin_dir}/tools/plumb-load", "replay", "--events", events, "--target", target,
+        run([f"{bin_dir}/tools/plumb-load", "replay", "--events", events, "--trainer", target,
              "--quiet", "--rate", str(rate)])
         streamed = time.time() - t0
         at_end = None

@@ -14,20 +14,20 @@ trap 'for p in "${pids[@]}"; do kill "$p" 2>/dev/null; done; sleep 0.3; rm -rf "
 port() { $PY -c 'import socket; s=socket.socket(); s.bind(("127.0.0.1",0)); print(s.getsockname()[1])'; }
 T=127.0.0.1:$(port); S=127.0.0.1:$(port)
 "$PLUMB" synth --out "$tmp/w" --users 1000 --items 500 --interactions 20000 --seed 2 >/dev/null 2>&1
-"$TRAIN" --db "$tmp/db" --listen "$T" --metrics "" --dim 32 --publish-every-seconds "$EVERY" \
+"$TRAIN" --db "$tmp/db" --listen "$T" --metrics "" --dim 32 --publish-interval "${EVERY}s" \
   --idle-replay-passes 0 >"$tmp/train.log" 2>&1 & pids+=($!)
 sleep 1
-"$LOAD" replay --events "$tmp/w/events.csv" --ingest-target "$T" --quiet >/dev/null 2>&1
-"$SERVE" --db "$tmp/db" --listen "$S" --metrics "" --catchup-interval-ms 100 >"$tmp/serve.log" 2>&1 & pids+=($!)
-for _ in $(seq 100); do "$QUERY" health --target "$S" >/dev/null 2>&1 && break; sleep 0.2; done
+"$LOAD" replay --events "$tmp/w/events.csv" --trainer "$T" --quiet >/dev/null 2>&1
+"$SERVE" --db "$tmp/db" --listen "$S" --metrics "" --catchup-interval 100ms >"$tmp/serve.log" 2>&1 & pids+=($!)
+for _ in $(seq 100); do "$QUERY" health --server "$S" >/dev/null 2>&1 && break; sleep 0.2; done
 results=()
 for r in $(seq "$ROUNDS"); do
   printf 'user,item\nfresh%s,t%s\n' "$r" "$((r % 50))" > "$tmp/e.csv"
   start=$(date +%s.%N)
-  "$LOAD" replay --events "$tmp/e.csv" --ingest-target "$T" --quiet >/dev/null 2>&1
+  "$LOAD" replay --events "$tmp/e.csv" --trainer "$T" --quiet >/dev/null 2>&1
   acked=$(date +%s.%N)
   give_up=$(( $(date +%s) + 30 ))
-  until "$QUERY" recommend --target "$S" --user "fresh$r" --count 1 >/dev/null 2>&1; do
+  until "$QUERY" recommend --server "$S" --user "fresh$r" --count 1 >/dev/null 2>&1; do
     [ "$(date +%s)" -lt "$give_up" ] || { echo "round $r: not served within 30 s (see $tmp/train.log)"; exit 1; }
     sleep 0.02
   done

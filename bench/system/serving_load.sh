@@ -35,18 +35,18 @@ echo "== world: 200,000 users x 110,000 tools, ~2.4 M interactions; one-epoch BP
 cut -d, -f1 "$tmp/w/events.csv" | tail -n +2 | sort -u >"$tmp/users.txt"
 
 start_serve() {  # extra flags for plumb-serve
-  "$SERVE" --db "$tmp/db" --listen "$S" --metrics "" --catchup-interval-ms 500 "$@" \
+  "$SERVE" --db "$tmp/db" --listen "$S" --metrics "" --catchup-interval 500ms "$@" \
     >>"$tmp/serve.log" 2>&1 &
   serve_pid=$!; pids+=($serve_pid)
-  for _ in $(seq 300); do "$QUERY" health --target "$S" >/dev/null 2>&1 && return 0; sleep 0.2; done
+  for _ in $(seq 300); do "$QUERY" health --server "$S" >/dev/null 2>&1 && return 0; sleep 0.2; done
   echo "plumb-serve did not become healthy; log:"; cat "$tmp/serve.log"; exit 1
 }
 stop_serve() { kill "$serve_pid"; wait "$serve_pid" 2>/dev/null; }
 
 run() {  # name, then plumb-load flags
   local name=$1; shift
-  "$LOAD" --target "$S" --users-file "$tmp/users.txt" --duration "$SECS" --warmup 1 \
-    --json "$tmp/$name.json" "$@" >/dev/null 2>"$tmp/$name.err" ||
+  "$LOAD" --server "$S" --users-file "$tmp/users.txt" --duration "${SECS}s" --warmup 1s \
+    --json "$@" >"$tmp/$name.json" 2>"$tmp/$name.err" ||
     { echo "run $name failed:"; cat "$tmp/$name.err"; exit 1; }
   $PY - "$tmp/$name.json" "$name" <<'EOF'
 import json, sys
@@ -69,10 +69,10 @@ stop_serve
 
 echo "== exposure monitor off vs on (alternated), Recommend at 4 in flight"
 for round in 1 2; do
-  start_serve --exposure-monitor false
+  start_serve --no-exposure-monitor
   run "monitor-off-$round" --rpc recommend --count 20 --concurrency 4
   stop_serve
-  start_serve --exposure-monitor true
+  start_serve --exposure-monitor
   run "monitor-on-$round" --rpc recommend --count 20 --concurrency 4
   stop_serve
 done
@@ -80,10 +80,10 @@ done
 echo "== under 10,000 events/s to plumb-train on the same store (trainer trains and publishes)"
 start_serve
 "$TRAIN" --db "$tmp/db" --listen "$T" --metrics "" --objective bpr --dim 64 --threads 1 \
-  --publish-every-seconds 10 --idle-replay-passes 0 >"$tmp/train.log" 2>&1 &
+  --publish-interval 10s --idle-replay-passes 0 >"$tmp/train.log" 2>&1 &
 pids+=($!)
-for _ in $(seq 150); do "$QUERY" status --target "$T" >/dev/null 2>&1 && break; sleep 0.2; done
-stream=(--publish-rate 10000 --publish-batch 100 --ingest-target "$T" --items-file "$tmp/w/items.csv")
+for _ in $(seq 150); do "$QUERY" status --trainer "$T" >/dev/null 2>&1 && break; sleep 0.2; done
+stream=(--publish-rate 10000 --publish-events-per-call 100 --trainer "$T" --items-file "$tmp/w/items.csv")
 run "floor-c4-events" --rpc health --concurrency 4 "${stream[@]}"
 run "recommend-c1-events" --rpc recommend --count 20 --concurrency 1 "${stream[@]}"
 run "recommend-c4-events" --rpc recommend --count 20 --concurrency 4 "${stream[@]}"

@@ -33,13 +33,25 @@ check "eval with a byte-order mark" '"$PLUMB" eval --db "$tmp/bomfit" --test "$t
 user=$(awk -F, 'NR==2 {print $1}' "$tmp/w/events.csv")
 check "top --names with a byte-order mark shows names" \
   '"$PLUMB" top --db "$tmp/bomfit" --user "$user" --count 3 --names "$tmp/w/bom_items.csv" | grep -q "#"'
-out=$("$PLUMB" pin --db "$tmp/bomfit" --version 1 2>&1); rc=$?
+out=$("$PLUMB" pin --db "$tmp/bomfit" --model-version 1 2>&1); rc=$?
 check "pin: exit 0" '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "version 1 is pinned"'
 check "versions marks the active pinned version '*p'" '"$PLUMB" versions --db "$tmp/bomfit" | grep -qE "^\*p +1 "'
-check "unpin" '"$PLUMB" unpin --db "$tmp/bomfit" --version 1 >/dev/null && "$PLUMB" versions --db "$tmp/bomfit" | grep -qE "^\* +1 "'
-out=$("$PLUMB" pin --db "$tmp/bomfit" --version 9 2>&1); rc=$?
+check "unpin" '"$PLUMB" unpin --db "$tmp/bomfit" --model-version 1 >/dev/null && "$PLUMB" versions --db "$tmp/bomfit" | grep -qE "^\* +1 "'
+out=$("$PLUMB" pin --db "$tmp/bomfit" --model-version 9 2>&1); rc=$?
 check "pin of a version not kept: non-zero exit, says so" '[ $rc -ne 0 ] && printf "%s" "$out" | grep -q "version 9 is not stored"'
 check "inspect says what the versions take" '"$PLUMB" inspect --db "$tmp/bomfit" | grep -q "MB before compression"'
+# export: real TSV, as Python's csv module and numpy read it.
+"$PLUMB" export --db "$tmp/bomfit" --out "$tmp/export" >/dev/null 2>&1
+check "export: a TSV with a header that csv and numpy read back" \
+  '/usr/bin/python3 -c "
+import csv, sys, numpy
+rows = list(csv.reader(open(sys.argv[1]), delimiter=\"\t\"))
+assert rows[0] == [\"item\"] + [\"d%d\" % c for c in range(8)], rows[0]
+assert len(rows) > 1 and all(len(r) == 9 for r in rows)
+values = numpy.loadtxt(sys.argv[1], delimiter=\"\t\", skiprows=1, usecols=range(1, 9))
+assert values.shape == (len(rows) - 1, 8) and numpy.isfinite(values).all()
+" "$tmp/export/items.tsv"'
+check "top says what the number is" '"$PLUMB" top --db "$tmp/bomfit" --user "$user" --count 2 | grep -q "users in training)"'
 tr , '\t' < "$tmp/w/events.csv" > "$tmp/w/events.tsv"
 out=$("$PLUMB" import --events "$tmp/w/events.tsv" --db "$tmp/tsvdb" 2>&1); rc=$?
 check "tab-separated file: non-zero exit, told to use commas" '[ $rc -ne 0 ] && printf "%s" "$out" | grep -q "use commas"'
@@ -53,7 +65,7 @@ mkdir -p "$tmp/mine" && echo "notes" > "$tmp/mine/notes.txt"
 out=$("$PLUMB" import --events "$tmp/w/events.csv" --db "$tmp/mine" 2>&1); rc=$?
 check "import into a directory of other files: refused, directory untouched" \
   '[ $rc -ne 0 ] && printf "%s" "$out" | grep -q "holds other files and no plumb store" && [ "$(ls "$tmp/mine")" = notes.txt ]'
-out=$("$PLUMB" activate --db "$tmp/nothing" --version 1 2>&1); rc=$?
+out=$("$PLUMB" activate --db "$tmp/nothing" --model-version 1 2>&1); rc=$?
 check "activate on a missing store: refused, nothing created" '[ $rc -ne 0 ] && [ ! -e "$tmp/nothing" ]'
 # ts in seconds: a warning on stderr, and the import still happens.
 printf 'user,item,ts\nm1,t1,1700000000\nm2,t2,1700000100\n' > "$tmp/seconds.csv"

@@ -118,21 +118,22 @@ TEST_F(CommandsTest, ExportWritesOneLinePerIdWithDimFloats) {
   ASSERT_TRUE(LoadModel(*store, 0, &m).ok());
   std::ifstream in(dir_ / "export" / "items.tsv");
   std::string line;
+  // A header naming the columns, then one line per item; every field separated by one tab.
+  ASSERT_TRUE(std::getline(in, line));
+  std::string header = "item";
+  for (int c = 0; c < 16; ++c) header += "\td" + std::to_string(c);
+  EXPECT_EQ(line, header);
   size_t row = 0;
   while (std::getline(in, line)) {
-    const size_t tab = line.find('\t');
-    ASSERT_NE(tab, std::string::npos);
-    EXPECT_EQ(line.substr(0, tab), m.item_ids[row]);
-    std::istringstream fields(line.substr(tab + 1));
-    float v;
-    size_t c = 0;
-    while (fields >> v) {
-      ASSERT_LT(c, 16u);
+    std::vector<std::string> fields;
+    std::stringstream split(line);
+    for (std::string f; std::getline(split, f, '\t');) fields.push_back(f);
+    ASSERT_EQ(fields.size(), 17u) << line;
+    EXPECT_EQ(fields[0], m.item_ids[row]);
+    for (size_t c = 0; c < 16; ++c) {
       // %.9g round-trips float32 exactly (9 significant digits suffice for binary32).
-      EXPECT_EQ(v, m.model.items()(row, c)) << "row " << row << " col " << c;
-      ++c;
+      EXPECT_EQ(std::stof(fields[c + 1]), m.model.items()(row, c)) << "row " << row << " col " << c;
     }
-    EXPECT_EQ(c, 16u);
     ++row;
   }
   EXPECT_EQ(row, m.item_ids.size());

@@ -1,11 +1,11 @@
 #include "cli/csv_reader.h"
 
-#include "cli/item_names.h"
+#include <gtest/gtest.h>
 
 #include <filesystem>
 #include <fstream>
 
-#include <gtest/gtest.h>
+#include "cli/item_names.h"
 
 namespace plumb::cli {
 namespace {
@@ -115,10 +115,9 @@ TEST(ReadEventCsv, ATabOrSemicolonSeparatedFileIsToldToUseCommas) {
 TEST(ReadEventCsv, WeightZeroMeansOneAsOnTheWire) {
   std::vector<CsvEvent> ev;
   CsvReadReport rep;
-  ASSERT_TRUE(
-      ReadEventCsv(WriteTemp("w0.csv", "user,item,weight\nm1,t1,0\nm2,t2,\nm3,t3,2.5\n"), {},
-                   &ev, &rep)
-          .ok());
+  ASSERT_TRUE(ReadEventCsv(WriteTemp("w0.csv", "user,item,weight\nm1,t1,0\nm2,t2,\nm3,t3,2.5\n"),
+                           {}, &ev, &rep)
+                  .ok());
   ASSERT_EQ(ev.size(), 3u);
   EXPECT_FLOAT_EQ(ev[0].weight, 1.0f);
   EXPECT_FLOAT_EQ(ev[1].weight, 1.0f);
@@ -150,8 +149,8 @@ TEST(ReadEventCsv, WarnsWhenEveryTimestampLooksLikeSeconds) {
 
 TEST(ItemNames, AByteOrderMarkIsIgnoredAndAMissingNameColumnIsAnError) {
   ItemNames names;
-  Status s = ItemNames::Read(WriteTemp("names_bom.csv", "\xEF\xBB\xBFitem,name\nt1,spade\n"),
-                             &names);
+  Status s =
+      ItemNames::Read(WriteTemp("names_bom.csv", "\xEF\xBB\xBFitem,name\nt1,spade\n"), &names);
   ASSERT_TRUE(s.ok()) << s.ToString();
   EXPECT_EQ(names.Find("t1"), "spade");
   s = ItemNames::Read(WriteTemp("names_none.csv", "item,label\nt1,spade\n"), &names);

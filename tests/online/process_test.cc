@@ -37,7 +37,7 @@ std::vector<std::string> TrainArgs(const std::string& db, int port) {
           // Small and frequent training work, so that kills also land while the loop
           // trains and publishes.
           "--dim", "8", "--batch-size", "256", "--publish-every-events", "4000",
-          "--publish-every-seconds", "1", "--min-train-pairs", "50", "--commit-window-ms", "1"};
+          "--publish-interval", "1s", "--min-train-pairs", "50", "--commit-window", "1ms"};
 }
 
 std::shared_ptr<grpc::Channel> Channel(int port) {

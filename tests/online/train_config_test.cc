@@ -43,12 +43,13 @@ TEST(TrainConfig, FileSetsKeysAndFlagsWin) {
 db = "/var/lib/plumb"
 listen = "127.0.0.1:7700"
 sync = false
-commit_window_ms = 10
+commit_window = "10ms"
 dedup_window = "7d"
 objective = "bpr"
 dim = 32
 learning_rate = 0.1
-publish_every_seconds = 5
+publish_interval = "5s"
+shutdown_grace = "1.5s"
 auto_activate = false
 )";
   TrainConfig c;
@@ -56,7 +57,8 @@ auto_activate = false
   EXPECT_EQ(c.db, "/var/lib/plumb");
   EXPECT_EQ(c.listen, "127.0.0.1:7700");
   EXPECT_TRUE(c.sync);                  // flag wins
-  EXPECT_EQ(c.commit_window_ms, 10.0);  // an integer is fine for a float key
+  EXPECT_EQ(c.commit_window_ms, 10.0);
+  EXPECT_EQ(c.shutdown_grace_seconds, 1.5);
   EXPECT_EQ(c.dedup_window, "7d");
   EXPECT_EQ(c.online.objective, "bpr");
   EXPECT_EQ(c.online.dim, 48u);  // flag wins
@@ -85,10 +87,23 @@ TEST(TrainConfig, BadFilesAndValuesAreRefused) {
   EXPECT_EQ(parse_file("db = \"/x\"\ndedup_window = \"3 weeks\"\n"), 2);
   EXPECT_EQ(parse_file("db = \"/x\"\ntls_cert = \"c.pem\"\n"), 2);  // key missing
   EXPECT_EQ(parse_file("db = [\n"), 2);                             // not TOML
-  EXPECT_EQ(parse_file("db = \"/x\"\ncommit_window_ms = 2.5\n"), std::nullopt);
+  EXPECT_EQ(parse_file("db = \"/x\"\ncommit_window = \"3ms\"\n"), std::nullopt);
+  EXPECT_EQ(parse_file("db = \"/x\"\ncommit_window = 3\n"), 2);         // a duration is a text
+  EXPECT_EQ(parse_file("db = \"/x\"\ncommit_window = \"3\"\n"), 2);     // ... with a unit
+  EXPECT_EQ(parse_file("db = \"/x\"\npublish_interval = \"0\"\n"), 2);  // must be positive
+  EXPECT_EQ(parse_file("db = \"/x\"\nversion = \"1\"\n"), 2);           // not a key
   TrainConfig c;
   EXPECT_EQ(Parse({"--db", "/x", "--no-such-flag"}, &c), 2);
   EXPECT_EQ(Parse({"--db", "/x", "--holdout-fraction", "0.9"}, &c), 2);
+  EXPECT_EQ(Parse({"--db", "/x", "--shutdown-grace", "5"}, &c), 2);
+}
+
+TEST(TrainConfig, VersionPrintsTheProgramAndExitsZero) {
+  TrainConfig c;
+  ::testing::internal::CaptureStdout();
+  EXPECT_EQ(Parse({"--version"}, &c), 0);
+  EXPECT_EQ(::testing::internal::GetCapturedStdout(),
+            std::string("plumb-train ") + PLUMB_VERSION + "\n");
 }
 
 TEST(TrainConfig, HelpExitsZero) {
@@ -98,7 +113,7 @@ TEST(TrainConfig, HelpExitsZero) {
   const std::string help = ::testing::internal::GetCapturedStdout();
   // Every key is listed, with its default.
   for (const char* flag :
-       {"--db", "--listen", "--metrics", "--sync", "--commit-window-ms", "--keep-versions",
+       {"--db", "--listen", "--metrics", "--sync", "--commit-window", "--keep-versions",
         "--dedup-window", "--token-file", "--tls-cert", "--tls-key", "--allow-insecure-remote",
         "--objective", "--dim", "--publish-every-events", "--gate-tolerance", "--auto-activate"}) {
     EXPECT_NE(help.find(flag), std::string::npos) << flag;

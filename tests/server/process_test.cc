@@ -157,7 +157,7 @@ v1::RecommendResponse RecommendOnce(const std::shared_ptr<grpc::Channel>& channe
 TEST(PlumbServeProcessTest, ServesFromDiskWithoutATrainerAndStopsOnSigterm) {
   TempDir dir;
   const uint64_t v1 = CommitVersion(dir.Sub("db"), 1);
-  std::ofstream(dir.Sub("serve.toml")) << "catchup-interval-ms = 50\nlog-level = 'info'\n";
+  std::ofstream(dir.Sub("serve.toml")) << "catchup-interval = '50ms'\nlog-level = 'info'\n";
   ServeProcess serve({"--db", dir.Sub("db"), "--listen", "127.0.0.1:0", "--metrics", "127.0.0.1:0",
                       "--config", dir.Sub("serve.toml")});
   const std::string metrics_port = serve.WaitForLog("metrics on port ");
@@ -202,7 +202,7 @@ TEST(PlumbServeProcessTest, WithoutAVersionItIsUnavailableUntilOneIsPublished) {
     ASSERT_TRUE(store::Store::OpenPrimary(dir.Sub("db"), store::StoreOptions(), &primary).ok());
   }
   ServeProcess serve({"--db", dir.Sub("db"), "--listen", "127.0.0.1:0", "--metrics", "",
-                      "--catchup-interval-ms", "50"});
+                      "--catchup-interval", "50ms"});
   const std::string port = serve.WaitForLog("listening on port ");
   ASSERT_FALSE(port.empty()) << serve.log();
   auto channel = grpc::CreateChannel("127.0.0.1:" + port, grpc::InsecureChannelCredentials());

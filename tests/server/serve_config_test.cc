@@ -47,7 +47,9 @@ TEST(ServeConfigTest, FileKeysSetOptionsAndFlagsWinOverTheFile) {
                          "max_recent = 50\n"
                          "fold-in-l2 = 0.25\n"
                          "reflection = false\n"
-                         "catchup-interval-ms = 250\n";
+                         "catchup-interval = '250ms'\n"
+                         "exposure_window_max_age = '2m'\n"
+                         "shutdown_grace = '1.5s'\n";
   ServeConfig c;
   ASSERT_EQ(Parse({"--config", path, "--max-count", "300"}, &c), -1);
   EXPECT_EQ(c.db, "/var/lib/plumb");
@@ -57,6 +59,25 @@ TEST(ServeConfigTest, FileKeysSetOptionsAndFlagsWinOverTheFile) {
   EXPECT_FLOAT_EQ(c.fold_in.l2, 0.25f);
   EXPECT_FALSE(c.endpoint.reflection);
   EXPECT_EQ(c.catchup_interval_ms, 250);
+  EXPECT_DOUBLE_EQ(c.exposure.window_seconds, 120.0);
+  EXPECT_EQ(c.shutdown_grace_ms, 1500);
+}
+
+// Durations take a unit (the vocabulary in DEVELOPERS.md); booleans are --x / --no-x.
+TEST(ServeConfigTest, DurationsNeedAUnitAndBooleansAreFlagPairs) {
+  ServeConfig c;
+  std::string err;
+  EXPECT_EQ(Parse({"--db", "x", "--catchup-interval", "250"}, &c, nullptr, &err), 2);
+  EXPECT_NE(err.find("--catchup-interval: duration '250' needs a unit"), std::string::npos) << err;
+  EXPECT_EQ(Parse({"--db", "x", "--catchup-interval", "2h"}, &c, nullptr, &err), 2);
+  EXPECT_NE(err.find("outside [10ms, 1h]"), std::string::npos) << err;
+  ASSERT_EQ(Parse({"--db", "x", "--no-reflection", "--no-exposure-monitor"}, &c), -1);
+  EXPECT_FALSE(c.endpoint.reflection);
+  EXPECT_FALSE(c.exposure_monitor);
+  std::string out;
+  EXPECT_EQ(Parse({"--version"}, &c, &out), 0);
+  EXPECT_EQ(out, std::string("plumb-serve ") + PLUMB_VERSION + "\n");
+  EXPECT_EQ(Parse({"--db", "x", "--reflection", "false"}, &c, nullptr, &err), 2);  // a flag
 }
 
 TEST(ServeConfigTest, BadFilesAndFlagsAreRefusedWithAMessage) {
@@ -95,7 +116,7 @@ TEST(ServeConfigTest, HelpListsEveryKeyWithItsDefault) {
                           "--listen",
                           "--metrics",
                           "--scratch-dir",
-                          "--catchup-interval-ms",
+                          "--catchup-interval",
                           "--max-count",
                           "--max-candidates",
                           "--max-exclusions",
@@ -104,16 +125,17 @@ TEST(ServeConfigTest, HelpListsEveryKeyWithItsDefault) {
                           "--fold-in-l2",
                           "--max-running-calls",
                           "--max-waiting-calls",
-                          "--threads",
+                          "--rpc-threads",
                           "--reflection",
                           "--tls-cert",
                           "--tls-key",
                           "--tls-client-ca",
-                          "--shutdown-grace-ms",
-                          "--log-level"}) {
+                          "--shutdown-grace",
+                          "--log-level",
+                          "--version"}) {
     EXPECT_NE(out.find(key), std::string::npos) << key;
   }
-  EXPECT_NE(out.find("=500"), std::string::npos) << out;   // catch-up interval
+  EXPECT_NE(out.find("=500ms"), std::string::npos) << out;  // catch-up interval
   EXPECT_NE(out.find("=1000"), std::string::npos) << out;  // max count
 }
 

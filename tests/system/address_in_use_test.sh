@@ -61,7 +61,7 @@ expect_refused "plumb-serve on the trainer's port" serve4.log \
 
 # The first pair still answers, each on its own port, all calls to the same processes.
 for _ in 1 2 3 4 5; do
-  "$QUERY" status --target "$TRAIN_ADDR" >"$tmp/status.out" 2>&1 || fail "trainer status failed"
+  "$QUERY" status --trainer "$TRAIN_ADDR" >"$tmp/status.out" 2>&1 || fail "trainer status failed"
 done
 curl -sf "http://$TRAIN_METRICS/metrics" | grep -q '^plumb_' || fail "trainer metrics gone"
 curl -sf "http://$SERVE_METRICS/metrics" | grep -q '^plumb_' || fail "server metrics gone"

@@ -42,9 +42,9 @@ events=$(( $(wc -l < "$tmp/world/events.csv") - 1 ))
 ADDR=127.0.0.1:$(free_port); METRICS=127.0.0.1:$(free_port)
 start_trainer() {
   "$TRAIN" --db "$tmp/small/db" --listen "$ADDR" --metrics "$METRICS" --dim 8 \
-    --publish-every-seconds 100000 --publish-every-events 1000000000 >>"$tmp/train.log" 2>&1 &
+    --publish-interval 100000s --publish-every-events 1000000000 >>"$tmp/train.log" 2>&1 &
   train_pid=$!
-  for _ in $(seq 150); do "$QUERY" status --target "$ADDR" >/dev/null 2>&1 && return 0; sleep 0.2; done
+  for _ in $(seq 150); do "$QUERY" status --trainer "$ADDR" >/dev/null 2>&1 && return 0; sleep 0.2; done
   fail "plumb-train did not come up"
 }
 start_trainer
@@ -54,14 +54,14 @@ avail=$(df -m --output=avail "$tmp/small" | tail -1)
 dd if=/dev/zero of="$tmp/small/filler" bs=1M count=$(( avail - 130 )) 2>/dev/null
 
 # ---- 1. the disk fills --------------------------------------------------------------------
-"$LOAD" replay --events "$tmp/world/events.csv" --ingest-target "$ADDR" --retries 0 --quiet \
+"$LOAD" replay --events "$tmp/world/events.csv" --trainer "$ADDR" --retries 0 --quiet \
   >"$tmp/replay1.log" 2>&1 && fail "replaying $events events onto a full disk succeeded"
 acked=$(grep -o '([0-9]* events before it are acknowledged' "$tmp/replay1.log" | grep -o '[0-9]*')
 [ -n "$acked" ] || fail "no acknowledged count in: $(cat "$tmp/replay1.log")"
 grep -q "RESOURCE_EXHAUSTED.*No space left" "$tmp/replay1.log" || fail "the caller was not told: $(cat "$tmp/replay1.log")"
 # Two more attempts within the same episode: still one error line in the log.
 for _ in 1 2; do
-  "$LOAD" replay --events "$tmp/world/events.csv" --ingest-target "$ADDR" --retries 0 --quiet \
+  "$LOAD" replay --events "$tmp/world/events.csv" --trainer "$ADDR" --retries 0 --quiet \
     >/dev/null 2>&1 && fail "a write succeeded on a full disk"
 done
 sleep 1.5  # the metrics are refreshed once a second
@@ -75,7 +75,7 @@ echo "disk full: $acked events acknowledged before it; $failures failed writes c
 rm -f "$tmp/small/filler"
 ok=0
 for _ in $(seq 30); do
-  if "$LOAD" replay --events "$tmp/world/events.csv" --ingest-target "$ADDR" --retries 0 --quiet \
+  if "$LOAD" replay --events "$tmp/world/events.csv" --trainer "$ADDR" --retries 0 --quiet \
        >"$tmp/replay2.log" 2>&1; then ok=1; break; fi
   sleep 1
 done
@@ -86,7 +86,7 @@ echo "space freed: the whole file is acknowledged on resend"
 # ---- 3. a clean restart: the log holds every acknowledged event once ------------------------
 kill -TERM "$train_pid"; wait "$train_pid" 2>/dev/null; train_pid=
 start_trainer
-last=$("$QUERY" status --target "$ADDR" | awk '/^last sequence/ {print $3}')
+last=$("$QUERY" status --trainer "$ADDR" | awk '/^last sequence/ {print $3}')
 echo "after restart the log ends at $last (file: $events events)"
 [ "$last" = "$events" ] || fail "log ends at $last, expected $events (each event once)"
 echo "disk full: all checks passed"

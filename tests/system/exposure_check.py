@@ -62,7 +62,7 @@ def main():
     served = []
     version = None
     for user in users:
-        out = subprocess.run([query, "recommend", "--target", serve, "--user", user,
+        out = subprocess.run([query, "recommend", "--server", serve, "--user", user,
                               "--count", str(count)],
                              capture_output=True, text=True, check=True).stdout
         got = re.findall(r"^\s*\d+\s+(\S+)\s", out, re.M)

@@ -32,24 +32,24 @@ fail() { echo "FAIL: $*"; for f in "$tmp"/*.log; do echo "--- $f"; tail -8 "$f";
 TRAIN_ADDR=127.0.0.1:$(free_port); TRAIN_METRICS=127.0.0.1:$(free_port)
 SERVE_ADDR=127.0.0.1:$(free_port); SERVE_METRICS=127.0.0.1:$(free_port)
 "$TRAIN" --db "$tmp/db" --listen "$TRAIN_ADDR" --metrics "$TRAIN_METRICS" --no-sync --dim 8 \
-  --publish-every-seconds 1 --holdout-fraction 0.05 >"$tmp/train.log" 2>&1 &
+  --publish-interval 1s --holdout-fraction 0.05 >"$tmp/train.log" 2>&1 &
 pids="$pids $!"
 for _ in $(seq 150); do grep -q "plumb-train serving" "$tmp/train.log" && break; sleep 0.2; done
-"$LOAD" replay --events "$tmp/world/events.csv" --ingest-target "$TRAIN_ADDR" --quiet \
+"$LOAD" replay --events "$tmp/world/events.csv" --trainer "$TRAIN_ADDR" --quiet \
   >/dev/null 2>&1 || fail "replay"
 "$SERVE" --db "$tmp/db" --listen "$SERVE_ADDR" --metrics "$SERVE_METRICS" \
-  --catchup-interval-ms 100 >"$tmp/serve.log" 2>&1 &
+  --catchup-interval 100ms >"$tmp/serve.log" 2>&1 &
 pids="$pids $!"
-for _ in $(seq 300); do "$QUERY" health --target "$SERVE_ADDR" >/dev/null 2>&1 && break; sleep 0.2; done
-"$QUERY" health --target "$SERVE_ADDR" >/dev/null 2>&1 || fail "plumb-serve never became healthy"
+for _ in $(seq 300); do "$QUERY" health --server "$SERVE_ADDR" >/dev/null 2>&1 && break; sleep 0.2; done
+"$QUERY" health --server "$SERVE_ADDR" >/dev/null 2>&1 || fail "plumb-serve never became healthy"
 
 awk -F, 'NR > 1 {print $1}' "$tmp/world/events.csv" | sort -u > "$tmp/users.txt"
-"$LOAD" --target "$SERVE_ADDR" --users-file "$tmp/users.txt" --duration 1 --concurrency 2 \
+"$LOAD" --server "$SERVE_ADDR" --users-file "$tmp/users.txt" --duration 1s --concurrency 2 \
   >/dev/null 2>&1 || fail "plumb-load"
-"$QUERY" similar --target "$SERVE_ADDR" --item t1 >/dev/null 2>&1 || fail "similar"
+"$QUERY" similar --server "$SERVE_ADDR" --item t1 >/dev/null 2>&1 || fail "similar"
 user=$(head -1 "$tmp/users.txt")
-"$QUERY" rank --target "$SERVE_ADDR" --user "$user" --candidates t1,t2 >/dev/null 2>&1 || fail "rank"
-"$QUERY" versions --target "$TRAIN_ADDR" >/dev/null 2>&1 || fail "versions"
+"$QUERY" rank --server "$SERVE_ADDR" --user "$user" --candidates t1,t2 >/dev/null 2>&1 || fail "rank"
+"$QUERY" versions --trainer "$TRAIN_ADDR" >/dev/null 2>&1 || fail "versions"
 $PY "$SRC/tests/system/undecodable_messages.py" "$TRAIN_ADDR" "$SERVE_ADDR" >/dev/null \
   || fail "undecodable messages"
 

@@ -31,10 +31,10 @@ pids+=($!)
 "$SERVE" --db "$tmp/db" --listen "$SERVE_ADDR" --metrics "$SERVE_METRICS" >"$tmp/serve.log" 2>&1 &
 pids+=($!)
 for _ in $(seq 150); do
-  "$QUERY" health --target "$SERVE_ADDR" >/dev/null 2>&1 && "$QUERY" status --target "$TRAIN_ADDR" >/dev/null 2>&1 && break
+  "$QUERY" health --server "$SERVE_ADDR" >/dev/null 2>&1 && "$QUERY" status --trainer "$TRAIN_ADDR" >/dev/null 2>&1 && break
   sleep 0.2
 done
-"$QUERY" health --target "$SERVE_ADDR" >/dev/null 2>&1 || fail "plumb-serve not healthy in 30 s"
+"$QUERY" health --server "$SERVE_ADDR" >/dev/null 2>&1 || fail "plumb-serve not healthy in 30 s"
 
 users=$(awk -F, 'NR>1 {print $1}' "$tmp/world/events.csv" | sort -u | head -300 | paste -sd, -)
 $PY "$SRC/tests/system/exposure_check.py" "$QUERY" "$SERVE_ADDR" "$SERVE_METRICS" \

@@ -6,7 +6,7 @@
 #  2. a tiny waiting line (--max-running-calls 1 --max-waiting-calls 4): the calls it refuses
 #     get RESOURCE_EXHAUSTED and each one is counted, in plumb_requests_total and in
 #     plumb_rejected_calls_total{reason="queue_full"};
-#  3. fewer gRPC threads than calls (--threads 4): gRPC itself refuses calls before any
+#  3. fewer gRPC threads than calls (--rpc-threads 4): gRPC itself refuses calls before any
 #     handler runs, and those are counted too (reason="thread_pool").
 # Usage: overload_test.sh BIN_DIR
 set -u
@@ -42,14 +42,14 @@ ADDR=127.0.0.1:$(free_port); METRICS=127.0.0.1:$(free_port)
 start_serve() {
   "$SERVE" --db "$tmp/db" --listen "$ADDR" --metrics "$METRICS" "$@" >>"$tmp/serve.log" 2>&1 &
   serve_pid=$!
-  for _ in $(seq 300); do "$QUERY" health --target "$ADDR" >/dev/null 2>&1 && return 0; sleep 0.2; done
+  for _ in $(seq 300); do "$QUERY" health --server "$ADDR" >/dev/null 2>&1 && return 0; sleep 0.2; done
   fail "plumb-serve never became healthy"
 }
 stop_serve() { kill -TERM "$serve_pid"; wait "$serve_pid" 2>/dev/null; serve_pid=; }
 load() {  # name concurrency
-  "$LOAD" --target "$ADDR" --users-file "$tmp/users.txt" --duration 4 --warmup 0 \
-    --concurrency "$2" --count 20 --deadline-ms 5000 --json "$tmp/$1.json" \
-    >"$tmp/$1.log" 2>&1 || fail "plumb-load $1"
+  "$LOAD" --server "$ADDR" --users-file "$tmp/users.txt" --duration 4s --warmup 0s \
+    --concurrency "$2" --count 20 --deadline 5s --json \
+    >"$tmp/$1.json" 2>"$tmp/$1.log" || fail "plumb-load $1"
 }
 
 # ---- 1. defaults: 32 and 64 in flight queue, none fails -------------------------------------
@@ -87,7 +87,7 @@ echo "1 running + 4 waiting, 64 in flight: $refused refused; counted $counted" \
 stop_serve
 
 # ---- 3. gRPC's own thread limit: refused before any handler, still counted -------------------
-start_serve --threads 4
+start_serve --rpc-threads 4
 load few-threads 32
 refused=$(json "$tmp/few-threads.json" errors_by_code.RESOURCE_EXHAUSTED)
 pool=$(metric "$METRICS" plumb_rejected_calls_total 'reason="thread_pool"' 'method="Recommend"')

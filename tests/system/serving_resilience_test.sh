@@ -31,27 +31,27 @@ awk -F, 'NR>1 && NR<=20001 {print $1}' "$tmp/world/events.csv" | sort -u > "$tmp
 
 TRAIN_ADDR=127.0.0.1:$(free_port); SERVE_ADDR=127.0.0.1:$(free_port); SERVE_METRICS=127.0.0.1:$(free_port)
 start_trainer() {
-  "$TRAIN" --db "$tmp/db" --listen "$TRAIN_ADDR" --metrics "" --dim 16 --publish-every-seconds 1 \
+  "$TRAIN" --db "$tmp/db" --listen "$TRAIN_ADDR" --metrics "" --dim 16 --publish-interval 1s \
     --publish-every-events 1000000 --no-sync >>"$tmp/train.log" 2>&1 &
   train_pid=$!
-  for _ in $(seq 150); do "$QUERY" status --target "$TRAIN_ADDR" >/dev/null 2>&1 && return 0; sleep 0.2; done
+  for _ in $(seq 150); do "$QUERY" status --trainer "$TRAIN_ADDR" >/dev/null 2>&1 && return 0; sleep 0.2; done
   fail "plumb-train did not come up"
 }
 start_trainer
-"$LOAD" replay --events "$tmp/first.csv" --ingest-target "$TRAIN_ADDR" --quiet >/dev/null 2>&1 || fail "first replay"
-"$SERVE" --db "$tmp/db" --listen "$SERVE_ADDR" --metrics "$SERVE_METRICS" --catchup-interval-ms 100 \
+"$LOAD" replay --events "$tmp/first.csv" --trainer "$TRAIN_ADDR" --quiet >/dev/null 2>&1 || fail "first replay"
+"$SERVE" --db "$tmp/db" --listen "$SERVE_ADDR" --metrics "$SERVE_METRICS" --catchup-interval 100ms \
   >"$tmp/serve.log" 2>&1 &
 serve_pid=$!
-for _ in $(seq 300); do "$QUERY" health --target "$SERVE_ADDR" >/dev/null 2>&1 && break; sleep 0.2; done
-"$QUERY" health --target "$SERVE_ADDR" >/dev/null 2>&1 || fail "plumb-serve never became healthy"
+for _ in $(seq 300); do "$QUERY" health --server "$SERVE_ADDR" >/dev/null 2>&1 && break; sleep 0.2; done
+"$QUERY" health --server "$SERVE_ADDR" >/dev/null 2>&1 || fail "plumb-serve never became healthy"
 
 # ---- 1. hot swap under load ---------------------------------------------------------------
 swaps_before=$(metric "$SERVE_METRICS" plumb_snapshot_swaps_total)
-"$LOAD" replay --events "$tmp/rest.csv" --ingest-target "$TRAIN_ADDR" --rate 2000 --quiet \
+"$LOAD" replay --events "$tmp/rest.csv" --trainer "$TRAIN_ADDR" --rate 2000 --quiet \
   >"$tmp/replay.log" 2>&1 &
 replay_pid=$!
-"$LOAD" --target "$SERVE_ADDR" --users-file "$tmp/users.txt" --duration 15 --concurrency 4 \
-  --count 20 --json "$tmp/swap.json" >"$tmp/load1.log" 2>&1 || fail "plumb-load (hot swap)"
+"$LOAD" --server "$SERVE_ADDR" --users-file "$tmp/users.txt" --duration 15s --concurrency 4 \
+  --count 20 --json >"$tmp/swap.json" 2>"$tmp/load1.log" || fail "plumb-load (hot swap)"
 wait $replay_pid; replay_pid=
 swaps_after=$(metric "$SERVE_METRICS" plumb_snapshot_swaps_total)
 swaps=$(( ${swaps_after%.*} - ${swaps_before%.*} ))
@@ -62,8 +62,8 @@ echo "hot swap: $requests Recommend calls, $errors errors, $swaps versions swapp
 [ "$swaps" -ge 10 ] || fail "only $swaps swaps during the run (want >= 10)"
 
 # ---- 2. trainer SIGKILL and restart while the server answers --------------------------------
-"$LOAD" --target "$SERVE_ADDR" --users-file "$tmp/users.txt" --duration 8 --concurrency 4 \
-  --count 20 --json "$tmp/outage.json" >"$tmp/load2.log" 2>&1 &
+"$LOAD" --server "$SERVE_ADDR" --users-file "$tmp/users.txt" --duration 8s --concurrency 4 \
+  --count 20 --json >"$tmp/outage.json" 2>"$tmp/load2.log" &
 load_pid=$!
 sleep 2
 kill -KILL "$train_pid"; wait "$train_pid" 2>/dev/null
@@ -76,6 +76,6 @@ requests=$(json "$tmp/outage.json" requests); errors=$(json "$tmp/outage.json" e
 echo "trainer outage: $requests Recommend calls, $errors errors"
 [ "$errors" = 0 ] || fail "Recommend calls failed while the trainer was down: $(json "$tmp/outage.json" errors_by_code)"
 [ "$requests" -gt 100 ] || fail "too few calls ($requests)"
-last=$("$QUERY" status --target "$TRAIN_ADDR" | awk '/^last sequence/ {print $3}')
+last=$("$QUERY" status --trainer "$TRAIN_ADDR" | awk '/^last sequence/ {print $3}')
 [ "$last" = "$(( $(wc -l < "$tmp/world/events.csv") - 1 ))" ] || fail "restarted trainer's log ends at $last"
 echo "serving resilience: all checks passed"

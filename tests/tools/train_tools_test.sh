@@ -32,7 +32,7 @@ events=$(($(wc -l <"$tmp/world/events.csv") - 1))
 umask 077
 echo "tool-shed-key-42" >"$tmp/token"
 "$TRAIN" --db "$tmp/db" --listen 127.0.0.1:0 --metrics "" --token-file "$tmp/token" --dim 16 \
-  --publish-every-events 2000 --publish-every-seconds 1 --no-sync 2>"$tmp/train.log" &
+  --publish-every-events 2000 --publish-interval 1s --no-sync 2>"$tmp/train.log" &
 pids+=($!)
 port=$(wait_port "$tmp/train.log" "(port" "${pids[0]}")
 if [ -z "$port" ]; then echo "FAIL: plumb-train did not start"; cat "$tmp/train.log"; exit 1; fi
@@ -40,12 +40,12 @@ train=127.0.0.1:$port
 echo "plumb-train on $train"
 
 # ---- replay ------------------------------------------------------------------------------------------
-out=$("$LOAD" replay --events "$tmp/world/events.csv" --ingest-target "$train" 2>&1); rc=$?
+out=$("$LOAD" replay --events "$tmp/world/events.csv" --trainer "$train" 2>&1); rc=$?
 check "replay without the token: exit 1, UNAUTHENTICATED, nothing sent [$out]" \
   '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "UNAUTHENTICATED" && printf "%s" "$out" | grep -q "0 events before it are acknowledged"'
 
-"$LOAD" replay --events "$tmp/world/events.csv" --ingest-target "$train" --token-file "$tmp/token" \
-  --batch 1000 >"$tmp/replay.txt" 2>"$tmp/replay.err"
+"$LOAD" replay --events "$tmp/world/events.csv" --trainer "$train" --token-file "$tmp/token" \
+  --events-per-call 1000 >"$tmp/replay.txt" 2>"$tmp/replay.err"
 rc=$?
 cat "$tmp/replay.txt"
 check "replay exits 0" '[ $rc -eq 0 ]'
@@ -56,21 +56,21 @@ check "replay: throughput printed" 'grep -qE "\([0-9]+ events/s\)" "$tmp/replay.
 check "replay: progress on stderr" 'grep -q "replay: $events/$events events (100.0%)" "$tmp/replay.err"'
 
 # The same file again, streamed: the generated event ids make every event a duplicate.
-"$LOAD" replay --events "$tmp/world/events.csv" --ingest-target "$train" --token-file "$tmp/token" \
-  --stream --batch 2500 --quiet >"$tmp/again.txt" 2>&1
+"$LOAD" replay --events "$tmp/world/events.csv" --trainer "$train" --token-file "$tmp/token" \
+  --stream --events-per-call 2500 --quiet >"$tmp/again.txt" 2>&1
 rc=$?
 streams=$(((events + 2499) / 2500))
 check "streamed resend of the same file: all duplicates in $streams streams, log unchanged" \
   '[ $rc -eq 0 ] && grep -q ": 0 accepted, $events duplicates, 0 rejected; $streams calls" "$tmp/again.txt" && grep -q "log at sequence $events;" "$tmp/again.txt"'
 
 printf 'user,item\nm1,t1\nm2\n' >"$tmp/broken.csv"
-out=$("$LOAD" replay --events "$tmp/broken.csv" --ingest-target "$train" --token-file "$tmp/token" 2>&1); rc=$?
+out=$("$LOAD" replay --events "$tmp/broken.csv" --trainer "$train" --token-file "$tmp/token" 2>&1); rc=$?
 check "malformed file: exit 1 naming the line" '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "broken.csv:3"'
 
 # ---- model control -------------------------------------------------------------------------------------
 active=""
 for _ in $(seq 300); do  # the trainer publishes within seconds; wait up to 30 s
-  active=$("$QUERY" status --target "$train" --token-file "$tmp/token" 2>/dev/null |
+  active=$("$QUERY" status --trainer "$train" --token-file "$tmp/token" 2>/dev/null |
            sed -n 's/^active version: *\([1-9][0-9]*\).*/\1/p')
   [ -n "$active" ] && break
   sleep 0.1
@@ -78,13 +78,13 @@ done
 check "status shows an active version after the replay" '[ -n "$active" ]'
 # From here on the trainer keeps publishing candidates but activates none, so the active
 # version only changes when this script says so.
-out=$("$QUERY" auto-activate off --target "$train" --token-file "$tmp/token" 2>&1); rc=$?
+out=$("$QUERY" auto-activate off --trainer "$train" --token-file "$tmp/token" 2>&1); rc=$?
 check "auto-activate off" '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "^auto-activate: *off"'
 # A publish that began before the switch may still activate its candidate (the trainer
 # reads the setting when a publish starts): wait until two reads half a second apart agree.
 previous=""
 for _ in $(seq 60); do
-  "$QUERY" status --target "$train" --token-file "$tmp/token" >"$tmp/status.txt" 2>&1
+  "$QUERY" status --trainer "$train" --token-file "$tmp/token" >"$tmp/status.txt" 2>&1
   active=$(sed -n 's/^active version: *\([0-9]*\).*/\1/p' "$tmp/status.txt")
   [ -n "$active" ] && [ "$active" = "$previous" ] && break
   previous=$active
@@ -94,29 +94,29 @@ cat "$tmp/status.txt"
 check "status: last sequence $events" 'grep -q "^last sequence: *$events$" "$tmp/status.txt"'
 check "status: objective and sizes" 'grep -q "^objective: *cpr" "$tmp/status.txt" && grep -q "^users: *[1-9]" "$tmp/status.txt"'
 check "status: auto-activate off" 'grep -q "^auto-activate: *off" "$tmp/status.txt"'
-"$QUERY" versions --target "$train" --token-file "$tmp/token" >"$tmp/versions.txt" 2>&1; rc=$?
+"$QUERY" versions --trainer "$train" --token-file "$tmp/token" >"$tmp/versions.txt" 2>&1; rc=$?
 cat "$tmp/versions.txt"
 check "versions: exit 0, exactly the active version $active starred" \
   '[ $rc -eq 0 ] && [ "$(grep -c "^\*" "$tmp/versions.txt")" = 1 ] && grep -qE "^\* +${active:-x} .* cpr " "$tmp/versions.txt"'
-out=$("$QUERY" versions --target "$train" 2>&1); rc=$?
+out=$("$QUERY" versions --trainer "$train" 2>&1); rc=$?
 check "versions without the token: UNAUTHENTICATED, exit 1" \
   '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "^plumb-query: UNAUTHENTICATED"'
-out=$("$QUERY" activate --target "$train" --token-file "$tmp/token" --version 987654 2>&1); rc=$?
+out=$("$QUERY" activate --trainer "$train" --token-file "$tmp/token" --model-version 987654 2>&1); rc=$?
 check "activate of a version not kept: NOT_FOUND, exit 1 [$out]" \
   '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "^plumb-query: NOT_FOUND"'
-out=$("$QUERY" activate --target "$train" --token-file "$tmp/token" --version "$active" 2>&1); rc=$?
+out=$("$QUERY" activate --trainer "$train" --token-file "$tmp/token" --model-version "$active" 2>&1); rc=$?
 check "activate the active version again [$out]" '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "^active version $active (was $active)"'
-out=$("$QUERY" recommend --target "$train" --user m1 2>&1); rc=$?
+out=$("$QUERY" recommend --server "$train" --user m1 2>&1); rc=$?
 check "recommend against plumb-train: exit 1, names plumb-serve [$out]" \
   '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "UNIMPLEMENTED.*answered by plumb-serve"'
-out=$("$QUERY" auto-activate maybe --target "$train" --token-file "$tmp/token" 2>&1); rc=$?
+out=$("$QUERY" auto-activate maybe --trainer "$train" --token-file "$tmp/token" 2>&1); rc=$?
 check "auto-activate maybe: usage error, exit 2" '[ $rc -eq 2 ]'
-out=$("$QUERY" auto-activate on --target "$train" --token-file "$tmp/token" 2>&1); rc=$?
+out=$("$QUERY" auto-activate on --trainer "$train" --token-file "$tmp/token" 2>&1); rc=$?
 check "auto-activate on" '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "^auto-activate: *on"'
 check "versions say how they were trained" 'grep -qE "^ +trained: cpr k=2 beta=3 dim=" "$tmp/versions.txt"'
 check "status shows the training configuration and refits" \
   'grep -qE "^training: *cpr k=2 beta=3" "$tmp/status.txt" && grep -qE "^refits: *[0-9]+ done" "$tmp/status.txt"'
-out=$("$QUERY" retrain --target "$train" --token-file "$tmp/token" --reason "tools test" 2>&1); rc=$?
+out=$("$QUERY" retrain --trainer "$train" --token-file "$tmp/token" --reason "tools test" 2>&1); rc=$?
 check "retrain: exit 0 and says what it does [$out]" \
   '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "rebuild from the whole event log requested"'
 
@@ -125,9 +125,9 @@ check "retrain: exit 0 and says what it does [$out]" \
 pids+=($!)
 sport=$(wait_port "$tmp/serve.log" "listening on port" "${pids[1]}")
 if [ -z "$sport" ]; then echo "FAIL: plumb-serve did not start"; cat "$tmp/serve.log"; exit 1; fi
-"$LOAD" --target "127.0.0.1:$sport" --db "$tmp/db" --duration 2 --warmup 0.5 --concurrency 4 \
-  --publish-rate 2000 --ingest-target "$train" --token-file "$tmp/token" --event-ids \
-  --json "$tmp/mixed.json" >"$tmp/mixed.txt" 2>&1
+"$LOAD" --server "127.0.0.1:$sport" --db "$tmp/db" --duration 2s --warmup 0.5s --concurrency 4 \
+  --publish-rate 2000 --trainer "$train" --trainer-token-file "$tmp/token" --event-ids \
+  --json >"$tmp/mixed.json" 2>"$tmp/mixed.txt"
 rc=$?
 cat "$tmp/mixed.txt"
 check "load with publishing exits 0" '[ $rc -eq 0 ]'
@@ -136,7 +136,7 @@ check "load with publishing: queries OK, zero errors" \
 check "published events acknowledged, zero errors" \
   '[ "$(json "$tmp/mixed.json" "(lambda p: p[\"acknowledged\"] > 0 and p[\"acknowledged\"] == p[\"accepted\"] == p[\"events_sent\"] and p[\"errors\"] == 0)(d[\"publish\"])")" = True ]'
 acked=$(json "$tmp/mixed.json" 'd["publish"]["accepted"]')
-last=$("$QUERY" status --target "$train" --token-file "$tmp/token" | sed -n 's/^last sequence: *\([0-9]*\).*/\1/p')
+last=$("$QUERY" status --trainer "$train" --token-file "$tmp/token" | sed -n 's/^last sequence: *\([0-9]*\).*/\1/p')
 check "the trainer's log grew by exactly the acknowledged events ($events + $acked = $last)" \
   '[ "$last" = "$((events + acked))" ]'
 exit $fail

@@ -123,8 +123,9 @@ ControlService::ControlService(store::Store* store, OnlineLoop* loop,
                          observer("SetAutoActivate")));
   MarkMethodStreamed(rpc::MethodIndex(service, "SetPinned"),
                      rpc::CheckedUnary<SetPinnedRequest, VersionInfo>(
-                         [this](grpc::ServerContext* c, const SetPinnedRequest* q,
-                                VersionInfo* r) { return SetPinned(c, q, r); },
+                         [this](grpc::ServerContext* c, const SetPinnedRequest* q, VersionInfo* r) {
+                           return SetPinned(c, q, r);
+                         },
                          observer("SetPinned")));
 }
 
@@ -210,9 +211,8 @@ grpc::Status ControlService::SetPinned(grpc::ServerContext* context,
     return grpc::Status(grpc::StatusCode::INVALID_ARGUMENT,
                         "version is 0; name a kept version (see ListVersions)");
   }
-  const std::string what =
-      std::string("cannot ") + (request->pinned() ? "pin" : "unpin") + " version " +
-      std::to_string(version);
+  const std::string what = std::string("cannot ") + (request->pinned() ? "pin" : "unpin") +
+                           " version " + std::to_string(version);
   if (Status s = store_->SetPinned(version, request->pinned()); !s.ok()) {
     return ToGrpcStatus(s, what);
   }

@@ -1,7 +1,7 @@
 // plumb-train: the sidecar trainer. Owns the store as its primary, ingests events over gRPC
 // (plumb.v1.EventIngest), trains online (OnlineLoop), serves version control
 // (plumb.v1.ModelControl) and Prometheus metrics. SIGTERM/SIGINT: stop accepting, let calls
-// in flight finish (up to shutdown_grace_seconds), write what is queued, stop the loop
+// in flight finish (up to shutdown_grace), write what is queued, stop the loop
 // (it publishes nothing half-done), close the store, exit 0.
 #include <grpc/grpc.h>
 #include <grpcpp/ext/proto_server_reflection_plugin.h>
@@ -139,13 +139,15 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
   store_options.create_if_missing = true;
   store_options.sync = config.sync;
   store_options.keep_versions = config.keep_versions;
-  if (Status s = plumb::ParseDuration(config.keep_versions_for, &store_options.keep_versions_for_ms);
+  if (Status s =
+          plumb::ParseDuration(config.keep_versions_for, &store_options.keep_versions_for_ms);
       !s.ok()) {
     spdlog::critical("keep_versions_for: {}", s.message());
     return 2;
   }
   store_options.min_free_disk_bytes = config.min_free_disk_mb << 20;
-  if (Status s = plumb::ParseDuration(config.dedup_window, &store_options.dedup_window_ms); !s.ok()) {
+  if (Status s = plumb::ParseDuration(config.dedup_window, &store_options.dedup_window_ms);
+      !s.ok()) {
     spdlog::critical("{}", s.message());
     return 2;
   }

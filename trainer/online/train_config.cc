@@ -83,12 +83,27 @@ bool OneOf(const std::string& value, std::initializer_list<const char*> allowed)
 
 }  // namespace
 
+Status ResolveDurations(TrainConfig* c) {
+  int64_t ms = 0;
+  auto resolve = [&](const char* key, const std::string& text) {
+    Status s = ParseDuration(text, &ms);
+    return s.ok() ? s : Status::InvalidArgument(std::string(key) + ": " + s.message());
+  };
+  PLUMB_RETURN_IF_ERROR(resolve("commit_window", c->commit_window));
+  c->commit_window_ms = static_cast<double>(ms);
+  PLUMB_RETURN_IF_ERROR(resolve("shutdown_grace", c->shutdown_grace));
+  c->shutdown_grace_seconds = static_cast<double>(ms) / 1000.0;
+  PLUMB_RETURN_IF_ERROR(resolve("publish_interval", c->publish_interval));
+  c->online.publish_every_seconds = static_cast<double>(ms) / 1000.0;
+  return Status::Ok();
+}
+
 Status CheckTrainConfig(const TrainConfig& c) {
   auto bad = [](const std::string& what) { return Status::InvalidArgument(what); };
   if (c.db.empty()) return bad("no database directory: give --db DIR or db = \"DIR\"");
   if (c.listen.empty()) return bad("listen is empty");
   if (!(c.commit_window_ms >= 0 && c.commit_window_ms <= 1000)) {
-    return bad("commit_window_ms must be within [0, 1000]");
+    return bad("commit_window must be within [0, 1s]");
   }
   if (c.max_group_events < 1) return bad("max_group_events must be at least 1");
   if (c.max_batch_events < 1 || c.max_batch_events > 100000) {
@@ -104,7 +119,9 @@ Status CheckTrainConfig(const TrainConfig& c) {
   if (c.tls_cert.empty() != c.tls_key.empty()) {
     return bad("TLS needs both tls_cert and tls_key (or neither)");
   }
-  if (!(c.shutdown_grace_seconds >= 0)) return bad("shutdown_grace_seconds must be >= 0");
+  if (!(c.shutdown_grace_seconds >= 0 && c.shutdown_grace_seconds <= 600)) {
+    return bad("shutdown_grace must be within [0, 10m]");
+  }
   if (!OneOf(c.log_level, {"trace", "debug", "info", "warn", "error", "critical", "off"})) {
     return bad("log_level must be trace, debug, info, warn, error, critical or off");
   }
@@ -132,7 +149,7 @@ Status CheckTrainConfig(const TrainConfig& c) {
     return bad("holdout_fraction must be within [0, 0.5]");
   }
   if (o.publish_every_events < 1) return bad("publish_every_events must be at least 1");
-  if (!(o.publish_every_seconds > 0)) return bad("publish_every_seconds must be positive");
+  if (!(o.publish_every_seconds > 0)) return bad("publish_interval must be positive");
   if (o.gate_k < 1) return bad("gate_k must be at least 1");
   if (!(o.gate_tolerance >= 0)) return bad("gate_tolerance must not be negative");
   if (!(o.gate_max_row_norm > 0)) return bad("gate_max_row_norm must be positive");
@@ -152,14 +169,16 @@ std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConf
   OnlineOptions& o = c.online;
 
   app.add_option("--config", c.config, "TOML configuration file")->check(CLI::ExistingFile);
+  app.set_version_flag("--version", std::string("plumb-train ") + PLUMB_VERSION);
 
   const std::string s = "Store and transport";
   Bind(app, &keys, s, "db", &c.db, "Database directory (opened as the primary; required)");
   Bind(app, &keys, s, "listen", &c.listen, "gRPC address HOST:PORT (or unix:PATH)");
   Bind(app, &keys, s, "metrics", &c.metrics, "Prometheus /metrics address HOST:PORT; empty = off");
   Bind(app, &keys, s, "sync", &c.sync, "fsync the event log before acknowledging");
-  Bind(app, &keys, s, "commit_window_ms", &c.commit_window_ms,
-       "Group commit: wait this long for more events before a log write");
+  Bind(app, &keys, s, "commit_window", &c.commit_window,
+       "Group commit: wait this long for more events before a log write (0 = none; at most "
+       "1s)");
   Bind(app, &keys, s, "max_group_events", &c.max_group_events, "Events per log write, at most");
   Bind(app, &keys, s, "max_batch_events", &c.max_batch_events, "PublishBatch size limit");
   Bind(app, &keys, s, "keep_versions", &c.keep_versions,
@@ -181,8 +200,8 @@ std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConf
   Bind(app, &keys, s, "tls_key", &c.tls_key, "PEM private key for TLS");
   Bind(app, &keys, s, "allow_insecure_remote", &c.allow_insecure_remote,
        "Serve a non-loopback address without a token");
-  Bind(app, &keys, s, "shutdown_grace_seconds", &c.shutdown_grace_seconds,
-       "At SIGTERM/SIGINT, how long in-flight calls may finish");
+  Bind(app, &keys, s, "shutdown_grace", &c.shutdown_grace,
+       "At SIGTERM/SIGINT, how long in-flight calls may finish (at most 10m)");
   Bind(app, &keys, s, "log_level", &c.log_level,
        "trace, debug, info, warn, error, critical or off");
 
@@ -213,8 +232,8 @@ std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConf
        "Share of (user, item) pairs held out for validation");
   Bind(app, &keys, t, "publish_every_events", &o.publish_every_events,
        "Publish a candidate after this many new events...");
-  Bind(app, &keys, t, "publish_every_seconds", &o.publish_every_seconds,
-       "...or after this many seconds, whichever comes first");
+  Bind(app, &keys, t, "publish_interval", &c.publish_interval,
+       "...or after this long, whichever comes first");
   Bind(app, &keys, t, "min_train_pairs", &o.min_train_pairs,
        "No version before this many training pairs");
   Bind(app, &keys, t, "gate_k", &o.gate_k, "Gate: K of validation Recall@K");
@@ -264,6 +283,10 @@ std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConf
     }
   }
 
+  if (Status s = ResolveDurations(&c); !s.ok()) {
+    std::fprintf(stderr, "plumb-train: %s\n", s.message().c_str());
+    return 2;
+  }
   if (Status s = CheckTrainConfig(c); !s.ok()) {
     std::fprintf(stderr, "plumb-train: %s\n", s.message().c_str());
     return 2;

@@ -1,7 +1,8 @@
 // plumb-train's configuration: a TOML file (--config) whose every key is also a command-line
-// flag of the same name with dashes (key commit_window_ms, flag --commit-window-ms). A flag
+// flag of the same name with dashes (key commit_window, flag --commit-window). A flag
 // given on the command line wins over the file; the file wins over the built-in default.
-// deploy/plumb-train.toml documents every key.
+// deploy/plumb-train.toml documents every key. Names follow the vocabulary in
+// DEVELOPERS.md: durations are texts with a unit ("2ms", "30s", "24h"), booleans --x/--no-x.
 #pragma once
 
 #include <cstdint>
@@ -23,7 +24,7 @@ struct TrainConfig {
   std::string listen = "127.0.0.1:7601";   // gRPC address
   std::string metrics = "127.0.0.1:9465";  // Prometheus /metrics address; "" = off
   bool sync = true;                        // fsync the log before acknowledging
-  double commit_window_ms = 2.0;           // group commit window
+  std::string commit_window = "2ms";       // group commit window ("0": none)
   uint32_t max_group_events = 16384;       // events per log write, at most
   uint32_t max_batch_events = 10000;       // PublishBatch limit
   uint32_t keep_versions = 5;              // newest versions kept for rollback...
@@ -35,11 +36,16 @@ struct TrainConfig {
   std::string tls_cert;                    // PEM certificate chain; "" = no TLS
   std::string tls_key;                     // PEM private key
   bool allow_insecure_remote = false;      // serve a non-loopback address without a token
-  double shutdown_grace_seconds = 5.0;     // how long in-flight calls get at shutdown
+  std::string shutdown_grace = "5s";       // how long in-flight calls get at shutdown
   std::string log_level = "info";          // trace|debug|info|warn|error|critical|off
 
-  // The training loop.
+  // The training loop. Its publish_every_seconds is set from publish_interval.
   OnlineOptions online;
+  std::string publish_interval = "30s";  // publish a candidate at least this often
+
+  // Filled by ParseTrainConfig from the duration texts above.
+  double commit_window_ms = 2.0;
+  double shutdown_grace_seconds = 5.0;
 };
 
 // Parses the command line (and the TOML file it names), then checks the result. Returns
@@ -47,8 +53,12 @@ struct TrainConfig {
 // printing the help text (0) or an error message (2) to stdout / stderr.
 std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConfig* config);
 
-// Checks ranges and combinations (required db, known objective, both TLS paths, ...).
-Status CheckTrainConfig(const TrainConfig& config);
+// Converts the duration texts (commit_window, shutdown_grace, publish_interval) into the
+// numeric fields; InvalidArgument naming the key for a text that is not a duration.
+Status ResolveDurations(TrainConfig* config);
 
+// Checks ranges and combinations (required db, known objective, both TLS paths, ...), after
+// ResolveDurations.
+Status CheckTrainConfig(const TrainConfig& config);
 
 }  // namespace plumb::online

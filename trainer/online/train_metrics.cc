@@ -83,8 +83,9 @@ TrainMetrics::TrainMetrics() : registry_(std::make_shared<prometheus::Registry>(
                       .Register(r);
   auto& candidates = BuildCounter()
                          .Name("plumb_candidate_versions_total")
-                         .Help("Candidate versions built, by gate outcome (passed, failed, "
-                               "skipped: not gated, e.g. nothing to compare with)")
+                         .Help(
+                             "Candidate versions built, by gate outcome (passed, failed, "
+                             "skipped: not gated, e.g. nothing to compare with)")
                          .Register(r);
   passed_.counter = &candidates.Add({{"outcome", "passed"}});
   failed_.counter = &candidates.Add({{"outcome", "failed"}});
@@ -133,8 +134,9 @@ TrainMetrics::TrainMetrics() : registry_(std::make_shared<prometheus::Registry>(
                       .Add({});
   auto& recall = BuildGauge()
                      .Name("plumb_validation_recall_ratio")
-                     .Help("Recall@K on the held-out validation sample, of the active version "
-                           "and of the last candidate (label role)")
+                     .Help(
+                         "Recall@K on the held-out validation sample, of the active version "
+                         "and of the last candidate (label role)")
                      .Register(r);
   recall_active_ = &recall.Add({{"role", "active"}});
   recall_candidate_ = &recall.Add({{"role", "candidate"}});

@@ -1,5 +1,7 @@
 #include "store/records.h"
 
+#include <cmath>
+
 #include <google/protobuf/io/coded_stream.h>
 #include <google/protobuf/io/zero_copy_stream_impl_lite.h>
 
@@ -81,7 +83,26 @@ std::string EncodeManifest(const VersionManifest& manifest, uint32_t rows_per_bl
     c->set_holdout_fraction(t.holdout_fraction);
     c->set_seed(t.seed);
     c->set_refit_pairs(t.refit_pairs);
+    for (double b : t.tune_betas) c->add_tune_betas(b);
   }
+  for (double v : manifest.target_group_shares) stored.add_target_group_shares(v);
+  for (double v : manifest.validation_group_shares) stored.add_validation_group_shares(v);
+  stored.set_validation_shift(manifest.validation_shift);
+  stored.set_validation_shift_distance(manifest.validation_shift_distance);
+  for (const TuneRecord& r : manifest.tune) {
+    auto* row = stored.add_tune();
+    row->set_beta(r.beta);
+    row->set_cpr_mix_share(r.cpr_mix_share);
+    row->set_recall(r.recall);
+    row->set_ndcg(r.ndcg);
+    row->set_arp(r.arp);
+    row->set_shift(r.shift);
+    row->set_shift_distance(r.shift_distance);
+    row->set_standard_error(r.standard_error);
+    row->set_near_tie(r.near_tie);
+    row->set_chosen(r.chosen);
+  }
+  stored.set_tune_reason(manifest.tune_reason);
   std::string out;
   // Deterministic so that the same manifest always yields the same bytes (map order).
   {
@@ -155,7 +176,32 @@ bool DecodeManifest(std::string_view value, uint64_t version, VersionManifest* o
     t.holdout_fraction = c.holdout_fraction();
     t.seed = c.seed();
     t.refit_pairs = c.refit_pairs();
+    t.tune_betas.assign(c.tune_betas().begin(), c.tune_betas().end());
   }
+  out->target_group_shares.assign(stored.target_group_shares().begin(),
+                                  stored.target_group_shares().end());
+  out->validation_group_shares.assign(stored.validation_group_shares().begin(),
+                                      stored.validation_group_shares().end());
+  // Written before the field existed: 0 on the wire means "not measured".
+  const bool measured = !out->validation_group_shares.empty();
+  out->validation_shift = measured ? stored.validation_shift() : std::nan("");
+  out->validation_shift_distance = measured ? stored.validation_shift_distance() : std::nan("");
+  out->tune.clear();
+  for (const auto& row : stored.tune()) {
+    TuneRecord r;
+    r.beta = row.beta();
+    r.cpr_mix_share = row.cpr_mix_share();
+    r.recall = row.recall();
+    r.ndcg = row.ndcg();
+    r.arp = row.arp();
+    r.shift = row.shift();
+    r.shift_distance = row.shift_distance();
+    r.standard_error = row.standard_error();
+    r.near_tie = row.near_tie();
+    r.chosen = row.chosen();
+    out->tune.push_back(r);
+  }
+  out->tune_reason = stored.tune_reason();
   *rows_per_block = stored.rows_per_block();
   return true;
 }

@@ -32,6 +32,7 @@
 
 #include <cstdint>
 #include <functional>
+#include <limits>
 #include <map>
 #include <memory>
 #include <optional>
@@ -163,7 +164,22 @@ struct TrainingConfig {
   double holdout_fraction = 0.0;
   uint64_t seed = 0;
   uint64_t refit_pairs = 0;
+  std::vector<double> tune_betas;
   bool known() const { return !origin.empty(); }
+};
+
+// One candidate of a tuning run (storage.proto StoredTuneRow).
+struct TuneRecord {
+  double beta = 0.0;
+  double cpr_mix_share = 0.0;
+  double recall = 0.0;
+  double ndcg = 0.0;
+  double arp = 0.0;
+  double shift = 0.0;
+  double shift_distance = 0.0;
+  double standard_error = 0.0;
+  bool near_tie = false;
+  bool chosen = false;
 };
 
 struct VersionManifest {
@@ -181,6 +197,14 @@ struct VersionManifest {
   std::string gate_reason;
   std::map<std::string, double> figures;
   TrainingConfig training;
+  // Debiased validation at publish (storage.proto has the meaning); empty / NaN when not
+  // measured.
+  std::vector<double> target_group_shares;
+  std::vector<double> validation_group_shares;
+  double validation_shift = std::numeric_limits<double>::quiet_NaN();
+  double validation_shift_distance = std::numeric_limits<double>::quiet_NaN();
+  std::vector<TuneRecord> tune;
+  std::string tune_reason;
   // Pinned versions are never pruned (SetPinned). Filled by ReadManifest and ListVersions;
   // ignored by Commit.
   bool pinned = false;

@@ -10,6 +10,47 @@ std::vector<TuneCandidate> DefaultTuneCandidates() {
   return {{1.0, 0.0}, {2.0, 0.0}, {3.0, 0.0}, {5.0, 0.0}};
 }
 
+size_t ChooseCandidate(const ValidationSample& validation, double tie_standard_errors,
+                       std::vector<TuneRow>* rows_in, std::string* reason) {
+  std::vector<TuneRow>& rows = *rows_in;
+  if (rows.empty()) return 0;
+  size_t best = 0;
+  for (size_t c = 1; c < rows.size(); ++c) {
+    if (rows[c].scores.recall > rows[best].scores.recall) best = c;
+  }
+  size_t chosen = best;
+  for (size_t c = 0; c < rows.size(); ++c) {
+    TuneRow& row = rows[c];
+    row.chosen = false;
+    row.standard_error =
+        c == best ? 0.0 : PairedStandardError(validation, rows[best].scores.hits, row.scores.hits);
+    const double gap = rows[best].scores.recall - row.scores.recall;
+    row.near_tie = c == best || gap <= tie_standard_errors * row.standard_error;
+    if (!row.near_tie) continue;
+    const double d = row.scores.shift.distance, dc = rows[chosen].scores.shift.distance;
+    if (d < dc || (d == dc && row.scores.recall > rows[chosen].scores.recall)) chosen = c;
+  }
+  rows[chosen].chosen = true;
+  if (reason != nullptr) {
+    char buf[320];
+    if (chosen == best) {
+      std::snprintf(buf, sizeof buf, "beta %g has the best debiased validation recall (%.4f)%s",
+                    rows[chosen].candidate.beta, rows[chosen].scores.recall,
+                    rows.size() > 1 ? " and no near-tie is closer to the validation shares" : "");
+    } else {
+      std::snprintf(buf, sizeof buf,
+                    "beta %g: its recall (%.4f) is within %g standard errors of the best (beta "
+                    "%g, %.4f) and its group shares are closer to the validation split's "
+                    "(distance %.3f vs %.3f)",
+                    rows[chosen].candidate.beta, rows[chosen].scores.recall, tie_standard_errors,
+                    rows[best].candidate.beta, rows[best].scores.recall,
+                    rows[chosen].scores.shift.distance, rows[best].scores.shift.distance);
+    }
+    *reason = buf;
+  }
+  return chosen;
+}
+
 Status Tune(const Interactions& train, const ValidationSample& validation,
             const TrainOptions& base, std::span<const TuneCandidate> candidates,
             const TuneOptions& options, const TuneProgress& progress, TuneResult* out) {
@@ -50,41 +91,9 @@ Status Tune(const Interactions& train, const ValidationSample& validation,
     }
   }
 
-  size_t best = 0;
-  for (size_t c = 1; c < report.rows.size(); ++c) {
-    if (report.rows[c].scores.recall > report.rows[best].scores.recall) best = c;
-  }
-  size_t chosen = best;
-  for (size_t c = 0; c < report.rows.size(); ++c) {
-    TuneRow& row = report.rows[c];
-    row.standard_error =
-        c == best ? 0.0
-                  : PairedStandardError(validation, report.rows[best].scores.hits, row.scores.hits);
-    const double gap = report.rows[best].scores.recall - row.scores.recall;
-    row.near_tie = c == best || gap <= options.tie_standard_errors * row.standard_error;
-    if (!row.near_tie) continue;
-    const double d = row.scores.shift.distance, dc = report.rows[chosen].scores.shift.distance;
-    if (d < dc || (d == dc && row.scores.recall > report.rows[chosen].scores.recall)) chosen = c;
-  }
-  report.rows[chosen].chosen = true;
-  report.chosen = chosen;
-  char buf[256];
-  if (chosen == best) {
-    std::snprintf(buf, sizeof buf,
-                  "beta %g has the best debiased validation recall (%.4f)%s",
-                  report.rows[chosen].candidate.beta, report.rows[chosen].scores.recall,
-                  report.rows.size() > 1 ? " and no closer near-tie" : "");
-  } else {
-    std::snprintf(buf, sizeof buf,
-                  "beta %g: its recall (%.4f) is within %.0f standard error of the best (beta "
-                  "%g, %.4f) and its group shares are closer to the validation split's "
-                  "(distance %.3f vs %.3f)",
-                  report.rows[chosen].candidate.beta, report.rows[chosen].scores.recall,
-                  options.tie_standard_errors, report.rows[best].candidate.beta,
-                  report.rows[best].scores.recall, report.rows[chosen].scores.shift.distance,
-                  report.rows[best].scores.shift.distance);
-  }
-  report.reason = buf;
+  report.chosen =
+      ChooseCandidate(validation, options.tie_standard_errors, &report.rows, &report.reason);
+  const size_t chosen = report.chosen;
   out->report = std::move(report);
   out->model = std::move(models[chosen]);
   out->optimizer = std::move(optimizers[chosen]);

@@ -7,6 +7,7 @@
 #include <unistd.h>
 
 #include <chrono>
+#include <cmath>
 #include <filesystem>
 #include <fstream>
 #include <set>
@@ -62,6 +63,7 @@ class OnlineLoopTest : public ::testing::Test {
     o.publish_every_events = 1u << 30;  // publishes only when the test asks
     o.publish_every_seconds = 1e9;
     o.min_train_pairs = 100;
+    o.tune = false;  // a fixed beta: most tests compare versions or configurations
     return o;
   }
 
@@ -456,6 +458,48 @@ TEST_F(OnlineLoopTest, SkippedCandidatesAreCountedAsSkippedAndCanBeRefused) {
   uint64_t active = 0;
   ASSERT_TRUE(store_->GetActiveVersion(&active).ok());
   EXPECT_EQ(active, 0u) << "no version passed a real comparison, so none was activated";
+}
+
+// With tuning on, a rebuild chooses beta on the debiased validation split and records the
+// table in the version; the loop then trains incrementally with the chosen beta, and a restart
+// with the same configuration keeps it (no rebuild, no configuration change).
+TEST_F(OnlineLoopTest, RebuildsChooseBetaAndVersionsRecordTheChoice) {
+  OnlineOptions o = Options();
+  o.tune = true;
+  o.tune_betas = {1.0, 3.0};
+  o.holdout_fraction = 0.1;
+  std::unique_ptr<OnlineLoop> loop;
+  ASSERT_TRUE(OnlineLoop::Create(store_.get(), o, &loop).ok());
+  loop->Start();
+  Append(0, world_->events.size());
+  loop->NotifyAppended();
+  WaitIdle(*loop, *store_);
+  std::vector<store::VersionManifest> kept;
+  ASSERT_TRUE(store_->ListVersions(&kept).ok());
+  ASSERT_FALSE(kept.empty());
+  const store::VersionManifest& v = kept.front();
+  ASSERT_EQ(v.tune.size(), 2u);
+  int chosen = 0;
+  double chosen_beta = 0.0;
+  for (const store::TuneRecord& r : v.tune) {
+    if (r.chosen) ++chosen, chosen_beta = r.beta;
+    EXPECT_TRUE(r.beta == 1.0 || r.beta == 3.0);
+  }
+  EXPECT_EQ(chosen, 1);
+  EXPECT_EQ(v.training.beta, chosen_beta);
+  EXPECT_EQ(v.training.tune_betas, (std::vector<double>{1.0, 3.0}));
+  EXPECT_FALSE(v.tune_reason.empty());
+  ASSERT_EQ(v.target_group_shares.size(), 5u);
+  ASSERT_EQ(v.validation_group_shares.size(), 5u);
+  EXPECT_FALSE(std::isnan(v.validation_shift));
+  EXPECT_EQ(loop->status().tuned_beta, chosen_beta);
+  loop->Stop();
+  loop.reset();
+
+  ASSERT_TRUE(OnlineLoop::Create(store_.get(), o, &loop).ok());
+  EXPECT_TRUE(loop->status().pending_config_change.empty())
+      << loop->status().pending_config_change;
+  EXPECT_EQ(loop->status().training.beta, chosen_beta);
 }
 
 }  // namespace

@@ -54,6 +54,7 @@ class RepairRestartTest : public ::testing::Test {
     OnlineOptions o;
     o.dim = 8;
     o.refit_epochs = 1;  // the fits' configuration: the loop warm-starts from their newest version
+    o.tune = false;
     std::unique_ptr<OnlineLoop> loop;
     Status s = OnlineLoop::Create(store.get(), o, &loop);
     if (s.ok()) active_ = loop->status().active_version;

@@ -47,6 +47,7 @@ class ControlServiceTest : public ::testing::Test {
     options.publish_every_seconds = 1e6;
     // Refits publish on their own when they land; most tests here count versions exactly.
     options.refit = refit_;
+    options.tune = false;
     ASSERT_TRUE(OnlineLoop::Create(store_.get(), options, &loop_).ok());
     loop_->Start();
     log_ = std::make_unique<StoreEventLog>(store_.get());

@@ -26,7 +26,7 @@ TRAIN_ADDR=127.0.0.1:$(free_port); TRAIN_METRICS=127.0.0.1:$(free_port)
 SERVE_ADDR=127.0.0.1:$(free_port); SERVE_METRICS=127.0.0.1:$(free_port)
 # --refit-epochs 5: the same training configuration as the fit above, so the trainer keeps its
 # version instead of rebuilding (a changed configuration would publish a new one mid-check).
-"$TRAIN" --db "$tmp/db" --dim 16 --refit-epochs 5 --listen "$TRAIN_ADDR" --metrics "$TRAIN_METRICS" >"$tmp/train.log" 2>&1 &
+"$TRAIN" --db "$tmp/db" --dim 16 --refit-epochs 5 --no-tune --listen "$TRAIN_ADDR" --metrics "$TRAIN_METRICS" >"$tmp/train.log" 2>&1 &
 pids+=($!)
 "$SERVE" --db "$tmp/db" --listen "$SERVE_ADDR" --metrics "$SERVE_METRICS" >"$tmp/serve.log" 2>&1 &
 pids+=($!)

@@ -40,13 +40,16 @@ GateVerdict JudgeCandidate(const trainer::Embeddings& candidate, const trainer::
     return v;
   }
   trainer::ValidationScores cand;
-  if (Status s = trainer::ScoreOnValidation(sample, candidate, train, options.k, 5, &cand);
+  if (Status s = trainer::ScoreOnValidation(sample, candidate, train, options.k, options.groups, &cand);
       !s.ok()) {
     v.outcome = store::GateOutcome::kFailed;
     v.reason = "validation failed: " + s.message();
     return v;
   }
   v.candidate_recall = cand.recall;
+  v.candidate_group_shares = cand.group_shares;
+  v.candidate_shift = cand.shift;
+  v.target_group_shares = trainer::ValidationGroupShares(sample, train, options.groups);
   if (sample.effective_pairs < options.min_effective_pairs) {
     v.outcome = store::GateOutcome::kSkipped;
     v.reason = "validation sample has an effective size of " +
@@ -61,7 +64,7 @@ GateVerdict JudgeCandidate(const trainer::Embeddings& candidate, const trainer::
     return v;
   }
   trainer::ValidationScores act;
-  if (Status s = trainer::ScoreOnValidation(sample, *active, train, options.k, 5, &act);
+  if (Status s = trainer::ScoreOnValidation(sample, *active, train, options.k, options.groups, &act);
       !s.ok()) {
     v.outcome = store::GateOutcome::kFailed;
     v.reason = "validation of the active version failed: " + s.message();

@@ -19,6 +19,7 @@
 // the comparison is skipped.
 #pragma once
 
+#include <cmath>
 #include <cstdint>
 #include <span>
 #include <string>
@@ -46,6 +47,7 @@ struct GateOptions {
   double max_row_norm = 100.0;
   // Below this effective sample size the comparison is skipped (not failed).
   double min_effective_pairs = 30.0;
+  size_t groups = 5;  // popularity groups of the over/under-correction figures
 };
 
 struct GateVerdict {
@@ -55,6 +57,11 @@ struct GateVerdict {
   double active_recall = 0.0;     // NaN when there is no active version
   double standard_error = 0.0;    // of candidate - active; NaN when not compared
   double effective_pairs = 0.0;
+  // Over/under-correction of the candidate on the validation users (trainer/validation.h);
+  // empty / NaN when not measured.
+  std::vector<double> target_group_shares;
+  std::vector<double> candidate_group_shares;
+  GroupShift candidate_shift{std::nan(""), std::nan("")};
 };
 
 // `active` may be null (no version active yet: the outcome is then skipped, not failed,

@@ -89,6 +89,10 @@ struct OnlineLoop::Impl {
   uint64_t refit_pairs = 0;
   Clock::time_point next_refit_allowed = Clock::now();
   std::string refit_forced_reason;  // non-empty: start one regardless of growth and cool-down
+  // The tuner's last choice (options.tune_betas): the pairs it saw, its table and reason.
+  uint64_t tuned_pairs = 0;
+  std::vector<store::TuneRecord> tune_rows;
+  std::string tune_reason;
   // Non-empty while the published versions were trained with another configuration than
   // `config`: nothing is published until a refit with `config` lands.
   std::string pending_config_change;
@@ -184,8 +188,10 @@ Status OnlineLoop::Create(store::Store* store, const OnlineOptions& options,
   } else if (!hs.IsNotFound()) {
     return hs;
   }
+  if (!options.tune) impl.options.tune_betas.clear();
   impl.config = MakeTrainingConfig("online", t, options.dim, options.refit_epochs,
-                                   options.replay_ratio, impl.options.holdout_fraction);
+                                   options.replay_ratio, impl.options.holdout_fraction,
+                                   impl.options.tune_betas);
   PLUMB_RETURN_IF_ERROR(
       TrainingState::Load(*store, impl.options.holdout_fraction, &impl.state, &impl.cursor));
 
@@ -213,6 +219,14 @@ Status OnlineLoop::Create(store::Store* store, const OnlineOptions& options,
     if (m.gate == store::GateOutcome::kFailed && m.version != active) continue;
     PLUMB_RETURN_IF_ERROR(LoadEmbeddings(*store, m, options.seed, &impl.model));
     impl.refit_pairs = m.training.refit_pairs;
+    if (!impl.options.tune_betas.empty() && !m.tune.empty()) {
+      // Continue with the beta the tuner chose for this lineage.
+      t.beta = m.training.beta;
+      impl.config.beta = t.beta;
+      impl.tuned_pairs = m.training.refit_pairs;
+      impl.tune_rows = m.tune;
+      impl.tune_reason = m.tune_reason;
+    }
     spdlog::info("warm start from version {} ({} users, {} items, last refit covered {} pairs)",
                  m.version, m.num_users, m.num_items, impl.refit_pairs);
     warm = true;
@@ -262,6 +276,8 @@ Status OnlineLoop::Create(store::Store* store, const OnlineOptions& options,
   s.pending_config_change = impl.pending_config_change;
   s.refit_pairs = impl.refit_pairs;
   s.train_pairs = impl.state.train().size();
+  s.tuned_beta = impl.tune_rows.empty() ? 0.0 : t.beta;
+  s.tune_reason = impl.tune_reason;
   spdlog::info(
       "training state: cursor {}, {} users, {} items, {} training pairs, {} held out; "
       "training {}",
@@ -472,6 +488,14 @@ void OnlineLoop::Impl::MaybeStartRefit() {
   job.dim = options.dim;
   job.epochs = options.refit_epochs;
   job.cursor = cursor;
+  // Choose beta again when asked for a rebuild, when never chosen, or once the data doubled.
+  const bool tune = !options.tune_betas.empty() &&
+                    (forced || tune_rows.empty() || pairs.size() >= 2 * tuned_pairs);
+  if (tune) {
+    job.tune_betas = options.tune_betas;
+    job.validation = state.validation();
+    job.validation_k = options.gate_k;
+  }
   job.reason =
       forced ? refit_forced_reason
              : (refit_pairs == 0 ? std::string("first fit")
@@ -484,7 +508,8 @@ void OnlineLoop::Impl::MaybeStartRefit() {
     return;
   }
   refit_forced_reason.clear();
-  spdlog::info("refit started on {} training pairs (events up to {}): {}", n, cursor, reason);
+  spdlog::info("refit started on {} training pairs (events up to {}){}: {}", n, cursor,
+               tune ? ", choosing beta" : "", reason);
   SetStatus([&](OnlineStatus& st) {
     st.refit_running = true;
     st.refit_reason = reason;
@@ -510,6 +535,38 @@ bool OnlineLoop::Impl::AdoptFinishedRefit() {
   }
   // Continue from the refit: its embeddings and optimiser state, grown to today's rows, then
   // the pairs that arrived while it ran, as incremental steps.
+  if (r.tuned) {
+    if (r.beta != train_options.beta) {
+      trainer::TrainOptions t = train_options;
+      t.beta = r.beta;
+      std::unique_ptr<trainer::FitLoop> next;
+      if (Status s = trainer::FitLoop::Create(t, &model, &state.train(), &next); !s.ok()) {
+        spdlog::error("refit result not adopted: {}", s.ToString());
+        return false;
+      }
+      fit = std::move(next);
+      train_options = t;
+    }
+    config.beta = r.beta;
+    tuned_pairs = r.snapshot_pairs;
+    tune_reason = r.tune.reason;
+    tune_rows.clear();
+    for (const trainer::TuneRow& row : r.tune.rows) {
+      store::TuneRecord rec;
+      rec.beta = row.candidate.beta;
+      rec.cpr_mix_share = row.candidate.cpr_mix_share;
+      rec.recall = row.scores.recall;
+      rec.ndcg = row.scores.ndcg;
+      rec.arp = row.scores.arp;
+      rec.shift = row.scores.shift.shift;
+      rec.shift_distance = row.scores.shift.distance;
+      rec.standard_error = row.standard_error;
+      rec.near_tie = row.near_tie;
+      rec.chosen = row.chosen;
+      tune_rows.push_back(rec);
+    }
+    spdlog::info("tuner: {}", tune_reason);
+  }
   model = std::move(r.model);
   if (Status s = fit->ReplaceOptimizer(std::move(r.optimizer)); !s.ok()) {
     spdlog::error("refit result not adopted: {}", s.ToString());
@@ -549,6 +606,11 @@ bool OnlineLoop::Impl::AdoptFinishedRefit() {
     st.last_refit_seconds = r.seconds;
     st.refit_pairs = refit_pairs;
     st.pending_config_change.clear();
+    st.training = config;
+    if (r.tuned) {
+      st.tuned_beta = r.beta;
+      st.tune_reason = tune_reason;
+    }
   });
   return true;  // Run publishes it at once
 }
@@ -644,6 +706,12 @@ Status OnlineLoop::Impl::Publish() {
   m.figures["beta"] = options.beta;
   m.training = config;
   m.training.refit_pairs = refit_pairs;
+  m.target_group_shares = verdict.target_group_shares;
+  m.validation_group_shares = verdict.candidate_group_shares;
+  m.validation_shift = verdict.candidate_shift.shift;
+  m.validation_shift_distance = verdict.candidate_shift.distance;
+  m.tune = tune_rows;
+  m.tune_reason = tune_reason;
   write.users = {model.users().data(), model.num_users(), model.dim()};
   write.items = {model.items().data(), model.num_items(), model.dim()};
   write.item_degrees = state.train().item_degrees();

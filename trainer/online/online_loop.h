@@ -23,6 +23,7 @@
 #include <cstdint>
 #include <memory>
 #include <string>
+#include <vector>
 
 #include "core/status.h"
 #include "store/store.h"
@@ -51,6 +52,12 @@ struct OnlineOptions {
   uint32_t refit_epochs = 20;      // epochs of a refit, as `plumb fit --epochs`
   double refit_min_growth = 0.01;  // new training pairs, as a share of the last refit's
   double refit_max_duty = 0.5;     // share of time refits may run on average, in (0, 1]
+  // Rebuilds choose beta from these on a debiased validation split (trainer/tuner.h): the
+  // first refit with enough validation data, every requested or configuration-change
+  // rebuild, and a refit once the training pairs doubled since the last choice. Refits in
+  // between keep the chosen beta. tune = false (or an empty list): beta is fixed.
+  bool tune = true;
+  std::vector<double> tune_betas = {1.0, 2.0, 3.0, 5.0};
   uint64_t seed = 1;
   double holdout_fraction = 0.02;  // share of (user,item) pairs held out for validation
   uint64_t publish_every_events = 20000;
@@ -95,6 +102,9 @@ struct OnlineStatus {
   double last_refit_seconds = 0.0;
   uint64_t refit_pairs = 0;                  // training pairs covered by the model's last refit
   uint64_t train_pairs = 0;                  // training pairs now
+  // The last choice of beta by the tuner (empty reason: never tuned).
+  double tuned_beta = 0.0;
+  std::string tune_reason;
   int64_t oldest_untrained_received_ms = 0;  // 0 when caught up
   int64_t last_publish_ms = 0;
   // Caught up with the log, idle replay spent, and everything learned is published.

@@ -8,6 +8,7 @@
 #include <algorithm>
 #include <cerrno>
 #include <chrono>
+#include <limits>
 
 namespace plumb::online {
 namespace {
@@ -69,6 +70,32 @@ void Refitter::Run(RefitJob job) {
   job.pairs.clear();
   job.pairs.shrink_to_fit();
   if (!s.ok()) return finish(s);
+  r.beta = job.options.beta;
+  if (!job.tune_betas.empty()) {
+    const trainer::ValidationSample sample = trainer::BuildValidationSample(
+        data, job.validation, std::numeric_limits<size_t>::max());
+    if (sample.effective_pairs >= job.min_effective_pairs) {
+      std::vector<trainer::TuneCandidate> candidates;
+      for (double b : job.tune_betas) candidates.push_back({b, job.options.cpr_mix_share});
+      trainer::TuneOptions topt;
+      topt.dim = job.dim;
+      topt.epochs = job.epochs;
+      topt.k = job.validation_k;
+      trainer::TuneResult tuned;
+      s = trainer::Tune(data, sample, job.options, candidates, topt,
+                        [this](const trainer::TuneRow&, const trainer::Embeddings&) {
+                          return !cancel_.load(std::memory_order_relaxed);
+                        },
+                        &tuned);
+      if (!s.ok()) return finish(s);
+      r.tuned = true;
+      r.tune = std::move(tuned.report);
+      r.beta = r.tune.rows[r.tune.chosen].candidate.beta;
+      r.model = std::move(tuned.model);
+      r.optimizer = std::move(tuned.optimizer);
+      return finish(Status::Ok());
+    }
+  }
   s = trainer::Embeddings::Create(job.dim, data.num_users(), data.num_items(), job.options.seed,
                                   &r.model);
   if (!s.ok()) return finish(s);

@@ -32,6 +32,7 @@
 #include "trainer/interactions.h"
 #include "trainer/optimizer.h"
 #include "trainer/trainer.h"
+#include "trainer/tuner.h"
 
 namespace plumb::online {
 
@@ -44,6 +45,13 @@ struct RefitJob {
   uint32_t epochs = 20;
   uint64_t cursor = 0;  // log sequence the pairs cover (for the manifest)
   std::string reason;   // why it was started (status, logs, manifest)
+  // Non-empty: choose beta among these on a debiased validation sample of `validation`
+  // (trainer/tuner.h) instead of fitting options.beta; falls back to options.beta when the
+  // sample is too small (effective size below min_effective_pairs).
+  std::vector<double> tune_betas;
+  std::vector<trainer::Pair> validation;
+  uint32_t validation_k = 20;
+  double min_effective_pairs = 30.0;
 };
 
 struct RefitResult {
@@ -55,6 +63,9 @@ struct RefitResult {
   std::string reason;
   double seconds = 0.0;
   double last_loss = 0.0;
+  bool tuned = false;  // the tuner chose beta (then `tune` holds its table)
+  double beta = 0.0;   // the beta the model was fitted with
+  trainer::TuneReport tune;
 };
 
 class Refitter {

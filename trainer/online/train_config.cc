@@ -41,6 +41,17 @@ std::string AssignFromToml(const toml::node& node, T* field) {
       return {};
     }
     return "expects a string";
+  } else if constexpr (std::is_same_v<T, std::vector<double>>) {
+    const toml::array* array = node.as_array();
+    if (array == nullptr) return "expects an array of numbers, e.g. [1, 2, 3]";
+    std::vector<double> values;
+    for (const toml::node& element : *array) {
+      auto v = element.value<double>();
+      if (!v) return "expects an array of numbers, e.g. [1, 2, 3]";
+      values.push_back(*v);
+    }
+    *field = std::move(values);
+    return {};
   } else if constexpr (std::is_integral_v<T>) {
     auto v = node.value_exact<int64_t>();
     if (!v) return "expects an integer";
@@ -66,6 +77,16 @@ void Bind(CLI::App& app, std::vector<Key>* keys, const std::string& group, const
     const std::string flag = FlagName(name);
     option = app.add_flag(flag + ",!--no-" + flag.substr(2), *field,
                           help + " [default: " + (*field ? "on" : "off") + "]");
+  } else if constexpr (std::is_same_v<T, std::vector<double>>) {
+    std::string shown;
+    for (double v : *field) {
+      char buf[32];
+      std::snprintf(buf, sizeof buf, "%s%g", shown.empty() ? "" : ",", v);
+      shown += buf;
+    }
+    option = app.add_option(FlagName(name), *field, help)
+                 ->delimiter(',')
+                 ->default_str(shown.empty() ? "none" : shown);
   } else {
     option = app.add_option(FlagName(name), *field, help)->capture_default_str();
   }
@@ -142,6 +163,10 @@ Status CheckTrainConfig(const TrainConfig& c) {
     return bad("refit_epochs must be within [1, 10000]");
   }
   if (!(o.refit_min_growth >= 0)) return bad("refit_min_growth must not be negative");
+  if (o.tune && o.tune_betas.empty()) return bad("tune needs at least one of tune_betas");
+  for (double b : o.tune_betas) {
+    if (!(b >= 1 && b <= 100)) return bad("tune_betas must each be within [1, 100]");
+  }
   if (!(o.refit_max_duty > 0 && o.refit_max_duty <= 1)) {
     return bad("refit_max_duty must be within (0, 1]");
   }
@@ -225,6 +250,10 @@ std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConf
   Bind(app, &keys, t, "refit_epochs", &o.refit_epochs, "Epochs of a refit (as plumb fit --epochs)");
   Bind(app, &keys, t, "refit_min_growth", &o.refit_min_growth,
        "Refit once training pairs grew by this share since the last refit");
+  Bind(app, &keys, t, "tune", &o.tune,
+       "Rebuilds choose beta from tune_betas on a debiased validation split");
+  Bind(app, &keys, t, "tune_betas", &o.tune_betas,
+       "Betas a rebuild chooses from (comma-separated)");
   Bind(app, &keys, t, "refit_max_duty", &o.refit_max_duty,
        "Share of time refits may run on average (a refit of T s waits T(1/duty-1) s)");
   Bind(app, &keys, t, "seed", &o.seed, "Random seed");

@@ -16,11 +16,18 @@ std::string Num(double v) {
   return buf;
 }
 
+std::string List(const std::vector<double>& values) {
+  if (values.empty()) return "none";
+  std::string out;
+  for (double v : values) out += (out.empty() ? "" : ",") + Num(v);
+  return out;
+}
+
 }  // namespace
 
 store::TrainingConfig MakeTrainingConfig(std::string origin, const trainer::TrainOptions& o,
                                          uint32_t dim, uint32_t epochs, double replay_ratio,
-                                         double holdout_fraction) {
+                                         double holdout_fraction, std::vector<double> tune_betas) {
   store::TrainingConfig c;
   c.origin = std::move(origin);
   c.objective = std::string(trainer::ObjectiveName(o.objective));
@@ -38,6 +45,7 @@ store::TrainingConfig MakeTrainingConfig(std::string origin, const trainer::Trai
   c.replay_ratio = replay_ratio;
   c.holdout_fraction = holdout_fraction;
   c.seed = o.seed;
+  c.tune_betas = std::move(tune_betas);
   return c;
 }
 
@@ -63,7 +71,11 @@ std::string DescribeConfigChange(const store::VersionManifest& before,
     num("k", was.cpr_k, now.cpr_k);
     num("k-mix size", was.cpr_mix_k, now.cpr_mix_k);
     num("k-mix share", was.cpr_mix_share, now.cpr_mix_share);
-    num("beta", was.beta, now.beta);
+    if (was.tune_betas.empty() && now.tune_betas.empty()) {
+      num("beta", was.beta, now.beta);
+    } else {
+      text("tuned betas", List(was.tune_betas), List(now.tune_betas));
+    }
     text("optimizer", was.optimizer, now.optimizer);
     num("learning rate", was.learning_rate, now.learning_rate);
     num("l2", was.l2, now.l2);
@@ -85,7 +97,9 @@ std::string FormatTrainingConfig(const store::TrainingConfig& c) {
       s += " k" + std::to_string(c.cpr_mix_k) + "-share=" + Num(c.cpr_mix_share);
     }
   }
-  s += " beta=" + Num(c.beta) + " dim=" + std::to_string(c.dim) + " " + c.optimizer +
+  s += " beta=" + Num(c.beta);
+  if (!c.tune_betas.empty()) s += " (tuned from " + List(c.tune_betas) + ")";
+  s += " dim=" + std::to_string(c.dim) + " " + c.optimizer +
        " lr=" + Num(c.learning_rate) + " l2=" + Num(c.l2) +
        " batch=" + std::to_string(c.batch_size) + " epochs=" + std::to_string(c.epochs) +
        " seed=" + std::to_string(c.seed);

@@ -5,6 +5,7 @@
 
 #include <cstdint>
 #include <string>
+#include <vector>
 
 #include "store/store.h"
 #include "trainer/trainer.h"
@@ -13,14 +14,17 @@ namespace plumb::online {
 
 // What a fit with `options` at `dim` for `epochs` epochs records. replay_ratio is the online
 // loop's (0 for an offline fit).
+// tune_betas: the search space when beta is chosen by the tuner (empty: fixed beta).
 store::TrainingConfig MakeTrainingConfig(std::string origin, const trainer::TrainOptions& options,
                                          uint32_t dim, uint32_t epochs, double replay_ratio,
-                                         double holdout_fraction);
+                                         double holdout_fraction,
+                                         std::vector<double> tune_betas = {});
 
 // How `now` differs from what produced `before`, in the settings that decide what the
 // embeddings learn (objective, dim, CPR k and k-mix, beta, optimiser, learning rate, l2,
 // batch size, epochs, seed), e.g. "beta 3 -> 6, dim 32 -> 64"; empty when none differs. A
 // version from before configurations were recorded is compared on its dim and objective only.
+// When beta is tuned (on either side), the search spaces are compared instead of beta.
 std::string DescribeConfigChange(const store::VersionManifest& before,
                                  const store::TrainingConfig& now);
 

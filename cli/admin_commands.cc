@@ -78,6 +78,14 @@ Status RunVersions(const AdminArgs& args) {
                 m.gate_reason.c_str());
     std::printf("%-3s %8s  trained: %s\n", "", "",
                 online::FormatTrainingConfig(m.training).c_str());
+    if (std::isfinite(m.validation_shift)) {
+      std::printf("%-3s %8s  popularity shift on validation %+.3f (%s), distance %.3f\n", "", "",
+                  m.validation_shift,
+                  m.validation_shift > 0 ? "toward the head: under-corrected"
+                                         : "toward the tail: over-corrected",
+                  m.validation_shift_distance);
+    }
+    if (!m.tune_reason.empty()) std::printf("%-3s %8s  tuned: %s\n", "", "", m.tune_reason.c_str());
   }
   std::printf("(* active, p pinned: kept whatever the retention rules say)\n");
   return Status::Ok();

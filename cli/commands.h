@@ -40,6 +40,17 @@ struct FitArgs {
   std::string keep_versions_for = "2h";  // also keep every version younger than this
 };
 
+// plumb tune: the fit arguments (store, import, objective cpr, dim, epochs, ...) plus the
+// search and whether to publish the chosen candidate.
+struct TuneArgs {
+  FitArgs fit;
+  std::vector<double> betas = {1.0, 2.0, 3.0, 5.0};
+  std::vector<double> k3_shares = {0.0};
+  uint32_t k = 20;
+  uint32_t groups = 5;
+  bool publish = false;
+};
+
 struct EvalArgs {
   std::string db;
   std::string test;      // CSV with `user,item`
@@ -87,6 +98,7 @@ Status RunSynth(const trainer::SynthOptions& options, const std::string& out_dir
 Status RunImport(const ImportArgs& args);
 Status RunFit(const FitArgs& args);
 Status RunEval(const EvalArgs& args);
+Status RunTune(const TuneArgs& args);
 Status RunCompare(const CompareArgs& args);
 Status RunVersions(const AdminArgs& args);
 Status RunActivate(const AdminArgs& args);

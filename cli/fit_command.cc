@@ -1,14 +1,20 @@
 // plumb import / plumb fit: events from a CSV file into the store's log, and an offline
 // training run over everything the log holds, published as a new version.
 #include <chrono>
+#include <cmath>
 #include <cstdio>
+#include <cstdlib>
+#include <limits>
 
 #include "cli/commands.h"
+#include "cli/report_format.h"
 #include "cli/csv_reader.h"
 #include "cli/store_access.h"
 #include "trainer/online/training_config.h"
 #include "core/duration.h"
 #include "trainer/online/training_state.h"
+#include "trainer/tuner.h"
+#include "trainer/validation.h"
 
 namespace plumb::cli {
 namespace {
@@ -99,9 +105,20 @@ Status MakeTrainOptions(const FitArgs& args, trainer::TrainOptions* out) {
   return Status::Ok();
 }
 
-Status RunFit(const FitArgs& args) {
+namespace {
+
+// What fit and tune share: options checked, the store opened (and the events imported), the
+// hold-out share settled, and the whole log folded into a training state.
+struct Prepared {
+  std::unique_ptr<store::Store> store;
+  online::TrainingState state;
+  uint64_t cursor = 0;
+  double holdout = 0.0;
   trainer::TrainOptions train_options;
-  PLUMB_RETURN_IF_ERROR(MakeTrainOptions(args, &train_options));
+};
+
+Status Prepare(const FitArgs& args, const char* who, Prepared* p) {
+  PLUMB_RETURN_IF_ERROR(MakeTrainOptions(args, &p->train_options));
   if (args.holdout < 0.0 || args.holdout > 0.5) {
     return Status::InvalidArgument("--holdout-fraction must be in [0, 0.5]");
   }
@@ -113,13 +130,12 @@ Status RunFit(const FitArgs& args) {
   }
   std::vector<store::EventInput> events;
   if (!args.import.events.empty()) PLUMB_RETURN_IF_ERROR(ReadForImport(args.import, &events));
-  std::unique_ptr<store::Store> store;
   bool created = false;
-  PLUMB_RETURN_IF_ERROR(OpenForWrite(args.import.db, so, &store, &created));
+  PLUMB_RETURN_IF_ERROR(OpenForWrite(args.import.db, so, &p->store, &created));
   if (!args.import.events.empty()) {
-    if (Status s = AppendImported(store.get(), events); !s.ok()) {
+    if (Status s = AppendImported(p->store.get(), events); !s.ok()) {
       if (created) {
-        store.reset();
+        p->store.reset();
         RemoveCreatedStore(args.import.db);
       }
       return s;
@@ -128,48 +144,100 @@ Status RunFit(const FitArgs& args) {
 
   // The hold-out share is a property of the store: replaying the log with another share
   // would disagree with the interaction sets already written.
-  double holdout = args.holdout;
+  p->holdout = args.holdout;
   std::string stored;
-  if (Status s = store->GetMeta(kHoldoutKey, &stored); s.ok()) {
-    holdout = std::stod(stored);
-    if (holdout != args.holdout) {
-      std::fprintf(stderr, "fit: this store holds out %g of pairs; using that, not %g\n", holdout,
-                   args.holdout);
+  if (Status s = p->store->GetMeta(kHoldoutKey, &stored); s.ok()) {
+    char* end = nullptr;
+    const double value = std::strtod(stored.c_str(), &end);
+    if (end == stored.c_str() || *end != '\0' || !(value >= 0.0 && value < 1.0)) {
+      return Status::Corruption("meta holdout_fraction holds '" + stored + "'");
     }
+    if (value != args.holdout) {
+      std::fprintf(stderr, "%s: this store holds out %g of pairs; using that, not %g\n", who,
+                   value, args.holdout);
+    }
+    p->holdout = value;
   } else if (!s.IsNotFound()) {
     return s;
   }
 
-  online::TrainingState state;
-  uint64_t cursor = 0;
-  PLUMB_RETURN_IF_ERROR(online::TrainingState::Load(*store, holdout, &state, &cursor));
+  PLUMB_RETURN_IF_ERROR(online::TrainingState::Load(*p->store, p->holdout, &p->state, &p->cursor));
   std::vector<store::Event> batch;
   while (true) {
-    PLUMB_RETURN_IF_ERROR(store->ReadEvents(cursor, 65536, &batch));
+    PLUMB_RETURN_IF_ERROR(p->store->ReadEvents(p->cursor, 65536, &batch));
     if (batch.empty()) break;
     for (const store::Event& ev : batch) {
-      PLUMB_RETURN_IF_ERROR(state.Apply(ev, nullptr));
-      cursor = ev.seq;
+      PLUMB_RETURN_IF_ERROR(p->state.Apply(ev, nullptr));
+      p->cursor = ev.seq;
     }
   }
-  const trainer::Interactions& train = state.train();
-  if (train.empty()) return Status::FailedPrecondition("the store holds no training events");
+  if (p->state.train().empty()) {
+    return Status::FailedPrecondition("the store holds no training events");
+  }
+  return Status::Ok();
+}
+
+// Writes `model` as a new version with the state and the cursor, in one commit. The caller
+// fills the manifest's objective, gate, figures, training and validation fields.
+Status PublishModel(Prepared* p, const trainer::Embeddings& model, store::VersionManifest m,
+                    bool activate, uint64_t* version) {
+  const trainer::Interactions& train = p->state.train();
+  store::VersionWrite write;
+  m.created_ms = NowMs();
+  m.events_seen = p->cursor;
+  m.num_interactions = train.size();
+  m.num_users = model.num_users();
+  m.num_items = model.num_items();
+  m.dim = model.dim();
+  write.manifest = std::move(m);
+  write.users = {model.users().data(), model.num_users(), model.dim()};
+  write.items = {model.items().data(), model.num_items(), model.dim()};
+  write.item_degrees = train.item_degrees();
+  store::StateChange change;
+  p->state.CollectChanges(&change);
+  change.cursor = p->cursor;
+  change.version = &write;
+  change.activate_published = activate;
+  char holdout_text[32];
+  std::snprintf(holdout_text, sizeof holdout_text, "%.17g", p->holdout);
+  change.meta.emplace_back(kHoldoutKey, holdout_text);
+  PLUMB_RETURN_IF_ERROR(p->store->Commit(change, version));
+  p->state.MarkPersisted();
+  return Status::Ok();
+}
+
+std::string Shares(const std::vector<double>& v) {
+  std::string out;
+  char buf[16];
+  for (double x : v) {
+    std::snprintf(buf, sizeof buf, " %.3f", x);
+    out += buf;
+  }
+  return out;
+}
+
+}  // namespace
+
+Status RunFit(const FitArgs& args) {
+  Prepared p;
+  PLUMB_RETURN_IF_ERROR(Prepare(args, "fit", &p));
+  const trainer::Interactions& train = p.state.train();
   std::fprintf(stderr, "fit: %u users, %u items, %zu training pairs, %zu held out; %s, dim %u, "
                "%u epochs on %u threads\n",
-               train.num_users(), train.num_items(), train.size(), state.validation().size(),
+               train.num_users(), train.num_items(), train.size(), p.state.validation().size(),
                args.objective.c_str(), args.dim, args.epochs, args.threads);
 
   trainer::Embeddings model;
   PLUMB_RETURN_IF_ERROR(trainer::Embeddings::Create(args.dim, train.num_users(),
                                                     train.num_items(), args.seed, &model));
   std::unique_ptr<trainer::FitLoop> fit;
-  PLUMB_RETURN_IF_ERROR(trainer::FitLoop::Create(train_options, &model, &train, &fit));
+  PLUMB_RETURN_IF_ERROR(trainer::FitLoop::Create(p.train_options, &model, &train, &fit));
   const auto started = std::chrono::steady_clock::now();
   double last_loss = 0.0;
-  PLUMB_RETURN_IF_ERROR(fit->RunEpochs(args.epochs, [&](const trainer::FitProgress& p) {
-    std::fprintf(stderr, "  epoch %3u/%u  loss %.4f  %.2fM positives/s  %.2f s\n", p.epoch,
-                 p.epochs, p.mean_loss, p.positives_per_second / 1e6, p.seconds);
-    last_loss = p.mean_loss;
+  PLUMB_RETURN_IF_ERROR(fit->RunEpochs(args.epochs, [&](const trainer::FitProgress& pr) {
+    std::fprintf(stderr, "  epoch %3u/%u  loss %.4f  %.2fM positives/s  %.2f s\n", pr.epoch,
+                 pr.epochs, pr.mean_loss, pr.positives_per_second / 1e6, pr.seconds);
+    last_loss = pr.mean_loss;
     return true;
   }));
   const double seconds =
@@ -179,15 +247,8 @@ Status RunFit(const FitArgs& args) {
                            "try a smaller --learning-rate");
   }
 
-  store::VersionWrite write;
-  store::VersionManifest& m = write.manifest;
-  m.created_ms = NowMs();
+  store::VersionManifest m;
   m.objective = args.objective;
-  m.events_seen = cursor;
-  m.num_interactions = train.size();
-  m.num_users = model.num_users();
-  m.num_items = model.num_items();
-  m.dim = model.dim();
   m.validation_recall = std::nan("");
   m.gate = store::GateOutcome::kSkipped;
   m.gate_reason = "offline fit";
@@ -195,27 +256,123 @@ Status RunFit(const FitArgs& args) {
   m.figures["epochs"] = args.epochs;
   m.figures["beta"] = args.beta;
   m.figures["fit_seconds"] = seconds;
-  m.training = online::MakeTrainingConfig("fit", train_options, args.dim, args.epochs, 0.0,
-                                          holdout);
+  m.training = online::MakeTrainingConfig("fit", p.train_options, args.dim, args.epochs, 0.0,
+                                          p.holdout);
   m.training.refit_pairs = train.size();
-  write.users = {model.users().data(), model.num_users(), model.dim()};
-  write.items = {model.items().data(), model.num_items(), model.dim()};
-  write.item_degrees = train.item_degrees();
-
-  store::StateChange change;
-  state.CollectChanges(&change);
-  change.cursor = cursor;
-  change.version = &write;
-  change.activate_published = args.activate;
-  char holdout_text[32];
-  std::snprintf(holdout_text, sizeof holdout_text, "%.17g", holdout);
-  change.meta.emplace_back(kHoldoutKey, holdout_text);
+  // With a hold-out, the debiased validation figures of what was just fitted.
+  const trainer::ValidationSample sample = trainer::BuildValidationSample(
+      train, p.state.validation(), std::numeric_limits<size_t>::max());
+  if (!sample.weights.empty()) {
+    trainer::ValidationScores v;
+    PLUMB_RETURN_IF_ERROR(trainer::ScoreOnValidation(sample, model, train, 20, 5, &v));
+    m.validation_recall = v.recall;
+    m.validation_k = 20;
+    m.validation_group_shares = v.group_shares;
+    m.target_group_shares = trainer::ValidationGroupShares(sample, train, 5);
+    m.validation_shift = v.shift.shift;
+    m.validation_shift_distance = v.shift.distance;
+    std::fprintf(stderr,
+                 "fit: debiased validation on %zu held-out pairs (effective size %.0f): "
+                 "Recall@20 %.4f, NDCG@20 %.4f, ARP@20 %.1f\n"
+                 "fit: group shares (tail .. head):%s; the validation split's:%s\n"
+                 "fit: popularity shift %+.3f (%s), distance %.3f\n",
+                 sample.weights.size(), sample.effective_pairs, v.recall, v.ndcg, v.arp,
+                 Shares(v.group_shares).c_str(), Shares(m.target_group_shares).c_str(),
+                 v.shift.shift,
+                 v.shift.shift > 0 ? "toward the head: under-corrected"
+                                   : "toward the tail: over-corrected",
+                 v.shift.distance);
+  }
   uint64_t version = 0;
-  PLUMB_RETURN_IF_ERROR(store->Commit(change, &version));
-  state.MarkPersisted();
+  PLUMB_RETURN_IF_ERROR(PublishModel(&p, model, std::move(m), args.activate, &version));
   std::printf("version %llu published%s: %s, %u users, %u items, dim %u, %u epochs in %.1f s\n",
               static_cast<unsigned long long>(version), args.activate ? " and activated" : "",
-              args.objective.c_str(), m.num_users, m.num_items, m.dim, args.epochs, seconds);
+              args.objective.c_str(), model.num_users(), model.num_items(), model.dim(),
+              args.epochs, seconds);
+  return Status::Ok();
+}
+
+Status RunTune(const TuneArgs& args) {
+  if (args.fit.objective != "cpr") {
+    return Status::InvalidArgument("tune chooses CPR's beta: --objective must be cpr");
+  }
+  if (args.betas.empty()) return Status::InvalidArgument("--tune-betas: give at least one beta");
+  Prepared p;
+  PLUMB_RETURN_IF_ERROR(Prepare(args.fit, "tune", &p));
+  const trainer::Interactions& train = p.state.train();
+  const trainer::ValidationSample sample = trainer::BuildValidationSample(
+      train, p.state.validation(), std::numeric_limits<size_t>::max());
+  if (sample.weights.empty()) {
+    return Status::FailedPrecondition(
+        "this store holds no validation pairs: tune needs a hold-out (--holdout-fraction, "
+        "e.g. 0.1, on a new store)");
+  }
+  std::fprintf(stderr, "tune: %u users, %u items, %zu training pairs; debiased validation on "
+               "%zu held-out pairs (effective size %.0f); %zu candidates, dim %u, %u epochs "
+               "each\n",
+               train.num_users(), train.num_items(), train.size(), sample.weights.size(),
+               sample.effective_pairs, args.betas.size() * args.k3_shares.size(), args.fit.dim,
+               args.fit.epochs);
+  std::vector<trainer::TuneCandidate> candidates;
+  for (double share : args.k3_shares) {
+    for (double b : args.betas) candidates.push_back({b, share});
+  }
+  trainer::TuneOptions o;
+  o.dim = args.fit.dim;
+  o.epochs = args.fit.epochs;
+  o.k = args.k;
+  o.groups = args.groups;
+  trainer::TuneResult r;
+  PLUMB_RETURN_IF_ERROR(trainer::Tune(
+      train, sample, p.train_options, candidates, o,
+      [&args](const trainer::TuneRow& row, const trainer::Embeddings&) {
+        std::fprintf(stderr, "  beta %g, k3 share %g: validation Recall@%u %.4f in %.1f s\n",
+                     row.candidate.beta, row.candidate.cpr_mix_share, args.k, row.scores.recall,
+                     row.seconds);
+        return true;
+      },
+      &r));
+  std::fputs(FormatTuneTable(r.report, args.k).c_str(), stdout);
+  if (!args.publish) return Status::Ok();
+
+  const trainer::TuneRow& chosen = r.report.rows[r.report.chosen];
+  trainer::TrainOptions t = p.train_options;
+  t.beta = chosen.candidate.beta;
+  t.cpr_mix_share = chosen.candidate.cpr_mix_share;
+  store::VersionManifest m;
+  m.objective = "cpr";
+  m.validation_recall = chosen.scores.recall;
+  m.validation_k = args.k;
+  m.gate = store::GateOutcome::kSkipped;
+  m.gate_reason = "offline tune";
+  m.training = online::MakeTrainingConfig("tune", t, args.fit.dim, args.fit.epochs, 0.0,
+                                          p.holdout, args.betas);
+  m.training.refit_pairs = train.size();
+  m.target_group_shares = r.report.target_group_shares;
+  m.validation_group_shares = chosen.scores.group_shares;
+  m.validation_shift = chosen.scores.shift.shift;
+  m.validation_shift_distance = chosen.scores.shift.distance;
+  for (const trainer::TuneRow& row : r.report.rows) {
+    store::TuneRecord rec;
+    rec.beta = row.candidate.beta;
+    rec.cpr_mix_share = row.candidate.cpr_mix_share;
+    rec.recall = row.scores.recall;
+    rec.ndcg = row.scores.ndcg;
+    rec.arp = row.scores.arp;
+    rec.shift = row.scores.shift.shift;
+    rec.shift_distance = row.scores.shift.distance;
+    rec.standard_error = row.standard_error;
+    rec.near_tie = row.near_tie;
+    rec.chosen = row.chosen;
+    m.tune.push_back(rec);
+  }
+  m.tune_reason = r.report.reason;
+  uint64_t version = 0;
+  PLUMB_RETURN_IF_ERROR(PublishModel(&p, r.model, std::move(m), args.fit.activate, &version));
+  std::printf("version %llu published%s: the chosen candidate (beta %g), fitted on the training "
+              "pairs (the hold-out stays out)\n",
+              static_cast<unsigned long long>(version),
+              args.fit.activate ? " and activated" : "", chosen.candidate.beta);
   return Status::Ok();
 }
 

@@ -144,6 +144,39 @@ int main(int argc, char** argv) {
   fit_cmd->add_flag("--activate,!--no-activate", fit.activate,
                     "activate the published version (--no-activate: publish only)");
 
+  TuneArgs tune;
+  tune.fit.holdout = 0.1;
+  auto* tune_cmd = app.add_subcommand(
+      "tune", "choose CPR's debiasing strength (beta) on a debiased validation split");
+  tune_cmd->add_option("--events", tune.fit.import.events,
+                       "CSV to import first (columns user,item[,ts])")
+      ->check(CLI::ExistingFile);
+  tune_cmd->add_option("--db", tune.fit.import.db, "store directory (created if missing)")
+      ->required();
+  tune_cmd->add_flag("--skip-bad", tune.fit.import.skip_bad, "skip and count malformed CSV lines");
+  AddTrainOptions(tune_cmd, &tune.fit);
+  tune_cmd
+      ->add_option("--holdout-fraction", tune.fit.holdout,
+                   "share of pairs held out for validation (a new store; an existing store "
+                   "keeps its own)")
+      ->check(CLI::Range(0.01, 0.5))
+      ->capture_default_str();
+  tune_cmd->add_option("--tune-betas", tune.betas, "betas to try (comma-separated)")
+      ->delimiter(',')
+      ->check(CLI::Range(1.0, 100.0))
+      ->default_str("1,2,3,5");
+  tune_cmd->add_option("--tune-k3-shares", tune.k3_shares,
+                       "shares of k = 3 samples to try with each beta (comma-separated)")
+      ->delimiter(',')
+      ->check(CLI::Range(0.0, 1.0))
+      ->default_str("0");
+  tune_cmd->add_option("--k", tune.k, "cut-off K of the validation figures")->capture_default_str();
+  tune_cmd->add_option("--groups", tune.groups, "popularity groups")->capture_default_str();
+  tune_cmd->add_flag("--publish,!--no-publish", tune.publish,
+                     "publish the chosen candidate as a version (default: print the table only)");
+  tune_cmd->add_flag("--activate,!--no-activate", tune.fit.activate,
+                     "activate what --publish writes");
+
   EvalArgs eval;
   auto* eval_cmd = app.add_subcommand("eval", "Recall, NDCG, ARP, Gini, coverage, group shares on a test file");
   eval_cmd->add_option("--db", eval.db, "store directory")->required();
@@ -221,6 +254,7 @@ int main(int argc, char** argv) {
   else if (*eval_cmd)
     s = RunEval(eval);
   else if (*compare_cmd) s = RunCompare(compare);
+  else if (*tune_cmd) s = RunTune(tune);
   else if (*versions_cmd) s = RunVersions(admin);
   else if (*activate_cmd) s = RunActivate(admin);
   else if (*pin_cmd)

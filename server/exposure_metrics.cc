@@ -2,6 +2,8 @@
 
 #include <string>
 
+#include "core/metrics.h"
+
 namespace plumb::server {
 namespace {
 
@@ -71,6 +73,29 @@ std::vector<prometheus::MetricFamily> ExposureMetrics::Collect() const {
     single("plumb_interaction_head_share_ratio",
            "Share of training interactions in the most popular group",
            s.interaction_group_shares.back());
+  }
+  // Over/under-correction against the served version's validation target (its debiased
+  // validation split's shares), when the trainer recorded one with as many groups.
+  const std::span<const double> target = snap->target_group_shares();
+  if (!target.empty() && target.size() == s.exposure_group_shares.size() && fig.slots > 0) {
+    prometheus::MetricFamily t = Gauge(
+        "plumb_validation_target_group_share_ratio",
+        "The served version's debiased validation split: share of held-out interactions per "
+        "popularity group (group 1 = least popular), the target of served exposure");
+    for (size_t g = 0; g < target.size(); ++g) {
+      Add(&t, target[g], {{"group", std::to_string(g + 1)}});
+    }
+    out.push_back(std::move(t));
+    const GroupShift shift = group_share_shift(s.exposure_group_shares, target);
+    single("plumb_exposure_shift_ratio",
+           "Popularity shift of served exposure against the validation target, share of the "
+           "group range: > 0 toward the head (under-corrected), < 0 toward the tail "
+           "(over-corrected)",
+           shift.shift);
+    single("plumb_exposure_shift_distance_ratio",
+           "Earth mover's distance between served and target group shares over the ordered "
+           "groups, share of the group range (0 .. 1)",
+           shift.distance);
   }
   single("plumb_exposure_js_divergence",
          "Jensen-Shannon divergence in bits (0 identical .. 1 disjoint) between the exposure and "

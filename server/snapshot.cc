@@ -168,6 +168,7 @@ Status Snapshot::Build(SnapshotParts parts, std::shared_ptr<const Snapshot>* out
   snap->item_degrees_ = std::move(parts.item_degrees);
   snap->seen_offsets_ = std::move(parts.seen_offsets);
   snap->seen_items_ = std::move(parts.seen_items);
+  snap->target_group_shares_ = std::move(parts.target_group_shares);
   snap->loaded_ms_ = NowMs();
   *out = std::move(snap);
   return Status::Ok();
@@ -195,6 +196,7 @@ Status LoadSnapshot(const store::Store& store, uint64_t version,
   SnapshotParts parts;
   parts.version = version;
   parts.created_ms = manifest.created_ms;
+  parts.target_group_shares = manifest.target_group_shares;
   PLUMB_RETURN_IF_ERROR(ItemMatrix::Create(manifest.num_items, manifest.dim, &parts.items));
   PLUMB_RETURN_IF_ERROR(ItemMatrix::Create(manifest.num_users, manifest.dim, &parts.users));
   // ReadMatrix checks every block against the manifest's rows and dim (Corruption when a

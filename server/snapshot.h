@@ -43,6 +43,9 @@ struct SnapshotParts {
   // seen_offsets is empty (nobody has seen anything) or has num_users + 1 entries.
   std::vector<uint64_t> seen_offsets;
   std::vector<uint32_t> seen_items;
+  // The version's debiased validation split's share per popularity group (tail first), the
+  // target the served exposure is compared with; empty when the trainer did not measure it.
+  std::vector<double> target_group_shares;
 };
 
 class Snapshot {
@@ -96,6 +99,9 @@ class Snapshot {
   // UNKNOWN_USER_MOST_INTERACTED fallback.
   std::span<const uint32_t> items_by_degree() const { return items_by_degree_; }
 
+  // The validation target's popularity-group shares (SnapshotParts); may be empty.
+  std::span<const double> target_group_shares() const { return target_group_shares_; }
+
   // Approximate heap bytes held, for logs and the memory benchmark.
   size_t memory_bytes() const;
 
@@ -116,6 +122,7 @@ class Snapshot {
   std::vector<uint32_t> items_by_degree_;
   std::vector<uint64_t> seen_offsets_;
   std::vector<uint32_t> seen_items_;
+  std::vector<double> target_group_shares_;
 };
 
 // Reads version `version` from `store` (manifest, both matrices, degrees, the id

@@ -231,6 +231,17 @@ std::string FormatTraining(const plumb::v1::TrainingConfig& c) {
                 c.learning_rate(), c.l2(), c.batch_size(), c.epochs(),
                 static_cast<unsigned long long>(c.seed()));
   std::string out = buf;
+  if (c.tune_betas_size() > 0) {
+    out.replace(out.find(" dim="), 0, " (tuned from " + [&] {
+      std::string l;
+      char b[32];
+      for (double x : c.tune_betas()) {
+        std::snprintf(b, sizeof b, "%s%g", l.empty() ? "" : ",", x);
+        l += b;
+      }
+      return l;
+    }() + ")");
+  }
   if (c.origin() == "online") {
     std::snprintf(buf, sizeof buf, " replay=%g", c.replay_ratio());
     out += buf;
@@ -268,6 +279,9 @@ void PrintStatus(const plumb::v1::TrainerStatus& s) {
               s.refit_running() ? s.refit_reason().c_str() : "", s.last_refit_seconds(),
               static_cast<unsigned long long>(s.refit_pairs()),
               static_cast<unsigned long long>(s.train_pairs()));
+  if (s.tuned_beta() > 0) {
+    std::printf("tuned beta:        %g - %s\n", s.tuned_beta(), s.tune_reason().c_str());
+  }
   std::printf("candidates:        %llu passed, %llu failed, %llu skipped (since start)\n",
               static_cast<unsigned long long>(s.candidates_passed()),
               static_cast<unsigned long long>(s.candidates_failed()),
@@ -304,6 +318,16 @@ int Versions(const Connection& c) {
                 v.dim(), recall, GateName(v.gate()), v.pinned() ? "yes" : "-",
                 v.gate_reason().c_str());
     std::printf("%-2s %8s  trained: %s\n", "", "", FormatTraining(v.training()).c_str());
+    if (std::isfinite(v.validation_shift())) {
+      std::printf("%-2s %8s  popularity shift on validation %+.3f (%s), distance %.3f\n", "", "",
+                  v.validation_shift(),
+                  v.validation_shift() > 0 ? "toward the head: under-corrected"
+                                           : "toward the tail: over-corrected",
+                  v.validation_shift_distance());
+    }
+    if (!v.tune_reason().empty()) {
+      std::printf("%-2s %8s  tuned: %s\n", "", "", v.tune_reason().c_str());
+    }
   }
   return 0;
 }

@@ -51,9 +51,9 @@ size_t ChooseCandidate(const ValidationSample& validation, double tie_standard_e
   return chosen;
 }
 
-Status Tune(const Interactions& train, const ValidationSample& validation,
-            const TrainOptions& base, std::span<const TuneCandidate> candidates,
-            const TuneOptions& options, const TuneProgress& progress, TuneResult* out) {
+Status Tune(const Interactions& train, const ValidationSample& validation, const TrainOptions& base,
+            std::span<const TuneCandidate> candidates, const TuneOptions& options,
+            const TuneProgress& progress, TuneResult* out) {
   if (candidates.empty()) return Status::InvalidArgument("tune: no candidates to try");
   if (validation.weights.empty()) {
     return Status::FailedPrecondition(
@@ -69,8 +69,8 @@ Status Tune(const Interactions& train, const ValidationSample& validation,
     t.cpr_mix_share = candidates[c].cpr_mix_share;
     PLUMB_RETURN_IF_ERROR(ValidateTrainOptions(t));
     const auto started = std::chrono::steady_clock::now();
-    PLUMB_RETURN_IF_ERROR(Embeddings::Create(options.dim, train.num_users(), train.num_items(),
-                                             t.seed, &models[c]));
+    PLUMB_RETURN_IF_ERROR(
+        Embeddings::Create(options.dim, train.num_users(), train.num_items(), t.seed, &models[c]));
     std::unique_ptr<FitLoop> fit;
     PLUMB_RETURN_IF_ERROR(FitLoop::Create(t, &models[c], &train, &fit));
     PLUMB_RETURN_IF_ERROR(fit->RunEpochs(options.epochs));
@@ -83,8 +83,7 @@ Status Tune(const Interactions& train, const ValidationSample& validation,
     row.candidate = candidates[c];
     PLUMB_RETURN_IF_ERROR(
         ScoreOnValidation(validation, models[c], train, options.k, options.groups, &row.scores));
-    row.seconds =
-        std::chrono::duration<double>(std::chrono::steady_clock::now() - started).count();
+    row.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - started).count();
     report.rows.push_back(std::move(row));
     if (progress && !progress(report.rows.back(), models[c])) {
       return Status::Aborted("tune: stopped");

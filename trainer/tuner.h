@@ -47,8 +47,8 @@ std::vector<TuneCandidate> DefaultTuneCandidates();
 struct TuneOptions {
   uint32_t dim = 64;
   uint32_t epochs = 20;
-  uint32_t k = 20;          // Recall@K on validation
-  size_t groups = 5;        // popularity groups
+  uint32_t k = 20;    // Recall@K on validation
+  size_t groups = 5;  // popularity groups
   // Within this many standard errors of the paired difference to the best recall: a near-tie.
   // Two (a 95 % band for a normal difference) was measured best against ground truth on
   // synthetic worlds (bench/quality/tune_choice.py; README "Choosing the debiasing strength").
@@ -91,8 +91,8 @@ using TuneProgress = std::function<bool(const TuneRow&, const Embeddings&)>;
 // one as described above. Errors: InvalidArgument for no candidates or bad options (as
 // ValidateTrainOptions); FailedPrecondition when the validation sample is empty; the fit's
 // errors; Aborted when progress returns false or a fit diverges.
-Status Tune(const Interactions& train, const ValidationSample& validation,
-            const TrainOptions& base, std::span<const TuneCandidate> candidates,
-            const TuneOptions& options, const TuneProgress& progress, TuneResult* out);
+Status Tune(const Interactions& train, const ValidationSample& validation, const TrainOptions& base,
+            std::span<const TuneCandidate> candidates, const TuneOptions& options,
+            const TuneProgress& progress, TuneResult* out);
 
 }  // namespace plumb::trainer

@@ -60,8 +60,8 @@ ValidationSample BuildValidationSample(const Interactions& train, std::span<cons
   return sample;
 }
 
-std::vector<double> ValidationGroupShares(const ValidationSample& sample,
-                                          const Interactions& train, size_t num_groups) {
+std::vector<double> ValidationGroupShares(const ValidationSample& sample, const Interactions& train,
+                                          size_t num_groups) {
   std::vector<double> shares(num_groups, 0.0);
   std::vector<uint32_t> group_of;
   if (num_groups == 0 || !popularity_groups(Degrees(train), num_groups, &group_of).ok()) {

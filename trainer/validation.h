@@ -44,8 +44,8 @@ ValidationSample BuildValidationSample(const Interactions& train, std::span<cons
 
 // The sample's weighted share of pairs per popularity group (groups from popularity_groups over
 // train's item degrees): the debiased split's own group shares.
-std::vector<double> ValidationGroupShares(const ValidationSample& sample,
-                                          const Interactions& train, size_t num_groups);
+std::vector<double> ValidationGroupShares(const ValidationSample& sample, const Interactions& train,
+                                          size_t num_groups);
 
 struct ValidationScores {
   std::vector<uint8_t> hits;  // per pair, in sample order
@@ -53,7 +53,7 @@ struct ValidationScores {
   double ndcg = 0.0;          // mean NDCG@k over the sample's users (binary gains, unweighted)
   double arp = 0.0;           // ARP@k of the users' top-k lists (training degrees)
   std::vector<double> group_shares;  // share of recommended slots per popularity group
-  GroupShift shift;  // group_share_shift(group_shares, ValidationGroupShares(...))
+  GroupShift shift;                  // group_share_shift(group_shares, ValidationGroupShares(...))
 };
 
 // Scores `model` on the sample at cut-off k with num_groups popularity groups. Users or items

@@ -126,7 +126,9 @@ def online(bin_dir, events, db, dim, train_flags, log_path, rate=0, test=None, t
     log = open(log_path, "w")
     proc = subprocess.Popen([f"{bin_dir}/trainer/online/plumb-train", "--db", db, "--listen",
                              target, "--metrics", "", "--dim", str(dim), "--no-sync",
-                             "--holdout-fraction", str(HOLDOUT), "--publish-interval", "5s"]
+                             "--holdout-fraction", str(HOLDOUT), "--publish-interval", "5s",
+                             # The same fixed beta as plumb fit (plumb-train would tune it).
+                             "--no-tune"]
                             + train_flags, stdout=log, stderr=subprocess.STDOUT)
     try:
         t0 = time.time()

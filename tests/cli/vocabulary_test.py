@@ -107,6 +107,8 @@ def check_help(program, binary, sub):
             ok = type_text.startswith(("UINT", "INT"))
         elif kind == "X":
             ok = type_text.startswith("FLOAT")
+        elif kind == "LIST":  # comma-separated values of any type
+            ok = type_text.startswith(("TEXT", "FLOAT", "UINT", "INT"))
         else:
             ok = type_text.startswith("TEXT")
         if not ok:

@@ -95,12 +95,13 @@ TEST(Tuner, TuneReturnsTheChosenModel) {
   const std::vector<TuneCandidate> candidates = {{1.0, 0.0}, {3.0, 0.0}};
   int seen = 0;
   TuneResult r;
-  ASSERT_TRUE(Tune(train, sample, base, candidates, o,
-                   [&](const TuneRow&, const Embeddings& m) {
-                     EXPECT_EQ(m.dim(), 16u);
-                     return ++seen > 0;
-                   },
-                   &r)
+  ASSERT_TRUE(Tune(
+                  train, sample, base, candidates, o,
+                  [&](const TuneRow&, const Embeddings& m) {
+                    EXPECT_EQ(m.dim(), 16u);
+                    return ++seen > 0;
+                  },
+                  &r)
                   .ok());
   EXPECT_EQ(seen, 2);
   ASSERT_EQ(r.report.rows.size(), 2u);

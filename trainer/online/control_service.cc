@@ -43,6 +43,7 @@ void FillTraining(const store::TrainingConfig& c, plumb::v1::TrainingConfig* out
   out->set_holdout_fraction(c.holdout_fraction);
   out->set_seed(c.seed);
   out->set_refit_pairs(c.refit_pairs);
+  for (double b : c.tune_betas) out->add_tune_betas(b);
 }
 
 void FillVersionInfo(const store::VersionManifest& m, uint64_t active, plumb::v1::VersionInfo* v) {
@@ -61,6 +62,11 @@ void FillVersionInfo(const store::VersionManifest& m, uint64_t active, plumb::v1
   v->set_pinned(m.pinned);
   v->set_num_interactions(m.num_interactions);
   FillTraining(m.training, v->mutable_training());
+  v->set_validation_shift(m.validation_shift);
+  v->set_validation_shift_distance(m.validation_shift_distance);
+  for (double x : m.target_group_shares) v->add_target_group_shares(x);
+  for (double x : m.validation_group_shares) v->add_validation_group_shares(x);
+  v->set_tune_reason(m.tune_reason);
 }
 
 }  // namespace
@@ -172,6 +178,8 @@ void ControlService::FillStatus(plumb::v1::TrainerStatus* out) const {
   out->set_candidates_passed(s.candidates_passed);
   out->set_candidates_failed(s.candidates_failed);
   out->set_candidates_skipped(s.candidates_skipped);
+  out->set_tuned_beta(s.tuned_beta);
+  out->set_tune_reason(s.tune_reason);
 }
 
 grpc::Status ControlService::GetStatus(grpc::ServerContext* context,

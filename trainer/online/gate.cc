@@ -40,7 +40,8 @@ GateVerdict JudgeCandidate(const trainer::Embeddings& candidate, const trainer::
     return v;
   }
   trainer::ValidationScores cand;
-  if (Status s = trainer::ScoreOnValidation(sample, candidate, train, options.k, options.groups, &cand);
+  if (Status s =
+          trainer::ScoreOnValidation(sample, candidate, train, options.k, options.groups, &cand);
       !s.ok()) {
     v.outcome = store::GateOutcome::kFailed;
     v.reason = "validation failed: " + s.message();
@@ -64,7 +65,8 @@ GateVerdict JudgeCandidate(const trainer::Embeddings& candidate, const trainer::
     return v;
   }
   trainer::ValidationScores act;
-  if (Status s = trainer::ScoreOnValidation(sample, *active, train, options.k, options.groups, &act);
+  if (Status s =
+          trainer::ScoreOnValidation(sample, *active, train, options.k, options.groups, &act);
       !s.ok()) {
     v.outcome = store::GateOutcome::kFailed;
     v.reason = "validation of the active version failed: " + s.message();

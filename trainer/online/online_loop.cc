@@ -189,9 +189,9 @@ Status OnlineLoop::Create(store::Store* store, const OnlineOptions& options,
     return hs;
   }
   if (!options.tune) impl.options.tune_betas.clear();
-  impl.config = MakeTrainingConfig("online", t, options.dim, options.refit_epochs,
-                                   options.replay_ratio, impl.options.holdout_fraction,
-                                   impl.options.tune_betas);
+  impl.config =
+      MakeTrainingConfig("online", t, options.dim, options.refit_epochs, options.replay_ratio,
+                         impl.options.holdout_fraction, impl.options.tune_betas);
   PLUMB_RETURN_IF_ERROR(
       TrainingState::Load(*store, impl.options.holdout_fraction, &impl.state, &impl.cursor));
 

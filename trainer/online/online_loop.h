@@ -100,8 +100,8 @@ struct OnlineStatus {
   uint64_t refits_completed = 0;
   uint64_t refits_failed = 0;
   double last_refit_seconds = 0.0;
-  uint64_t refit_pairs = 0;                  // training pairs covered by the model's last refit
-  uint64_t train_pairs = 0;                  // training pairs now
+  uint64_t refit_pairs = 0;  // training pairs covered by the model's last refit
+  uint64_t train_pairs = 0;  // training pairs now
   // The last choice of beta by the tuner (empty reason: never tuned).
   double tuned_beta = 0.0;
   std::string tune_reason;

@@ -72,8 +72,8 @@ void Refitter::Run(RefitJob job) {
   if (!s.ok()) return finish(s);
   r.beta = job.options.beta;
   if (!job.tune_betas.empty()) {
-    const trainer::ValidationSample sample = trainer::BuildValidationSample(
-        data, job.validation, std::numeric_limits<size_t>::max());
+    const trainer::ValidationSample sample =
+        trainer::BuildValidationSample(data, job.validation, std::numeric_limits<size_t>::max());
     if (sample.effective_pairs >= job.min_effective_pairs) {
       std::vector<trainer::TuneCandidate> candidates;
       for (double b : job.tune_betas) candidates.push_back({b, job.options.cpr_mix_share});
@@ -82,11 +82,12 @@ void Refitter::Run(RefitJob job) {
       topt.epochs = job.epochs;
       topt.k = job.validation_k;
       trainer::TuneResult tuned;
-      s = trainer::Tune(data, sample, job.options, candidates, topt,
-                        [this](const trainer::TuneRow&, const trainer::Embeddings&) {
-                          return !cancel_.load(std::memory_order_relaxed);
-                        },
-                        &tuned);
+      s = trainer::Tune(
+          data, sample, job.options, candidates, topt,
+          [this](const trainer::TuneRow&, const trainer::Embeddings&) {
+            return !cancel_.load(std::memory_order_relaxed);
+          },
+          &tuned);
       if (!s.ok()) return finish(s);
       r.tuned = true;
       r.tune = std::move(tuned.report);

@@ -99,10 +99,9 @@ std::string FormatTrainingConfig(const store::TrainingConfig& c) {
   }
   s += " beta=" + Num(c.beta);
   if (!c.tune_betas.empty()) s += " (tuned from " + List(c.tune_betas) + ")";
-  s += " dim=" + std::to_string(c.dim) + " " + c.optimizer +
-       " lr=" + Num(c.learning_rate) + " l2=" + Num(c.l2) +
-       " batch=" + std::to_string(c.batch_size) + " epochs=" + std::to_string(c.epochs) +
-       " seed=" + std::to_string(c.seed);
+  s += " dim=" + std::to_string(c.dim) + " " + c.optimizer + " lr=" + Num(c.learning_rate) +
+       " l2=" + Num(c.l2) + " batch=" + std::to_string(c.batch_size) +
+       " epochs=" + std::to_string(c.epochs) + " seed=" + std::to_string(c.seed);
   if (c.origin == "online") s += " replay=" + Num(c.replay_ratio);
   if (c.holdout_fraction > 0.0) s += " holdout=" + Num(c.holdout_fraction);
   return s;

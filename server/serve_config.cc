@@ -67,6 +67,9 @@ void DefineOptions(CLI::App& app, ServeConfig* c) {
       ->check(CLI::Range(0, 110'000));
   app.add_option("--reflection", c->endpoint.reflection,
                  "Offer gRPC server reflection (true/false)");
+  app.add_option("--token-file", c->token_file,
+                 "File holding the bearer token every Ranker call must carry "
+                 "('authorization: Bearer <token>'); empty = no token");
   app.add_option("--tls-cert", c->endpoint.tls_cert_file,
                  "PEM certificate chain; with --tls-key, serve over TLS");
   app.add_option("--tls-key", c->endpoint.tls_key_file, "PEM private key for --tls-cert");

@@ -32,7 +32,7 @@ struct LoadArgs {
   ChannelSpec train{"127.0.0.1:7601", "", ""};
   std::string rpc = "recommend";
   uint32_t channels = 1;
-  std::string users_file, items_file, db, json_file, token_file;
+  std::string users_file, items_file, db, json_file, token_file, target_token_file;
   double publish_rate = 0;
   uint32_t publish_batch = 100;
   bool event_ids = false;
@@ -81,6 +81,10 @@ int RunLoad(LoadArgs& a) {
           : a.rpc == "health" ? LoadRpc::kHealth
                               : LoadRpc::kRecommend;
   const bool publish = a.publish_rate > 0;
+  if (!a.target_token_file.empty()) {
+    if (Status s = ReadBearerToken(a.target_token_file, &o.bearer_token); !s.ok())
+      return Fail(s.message());
+  }
   std::vector<std::string> users, items;
   if (Status s = LoadIds(a, o.rpc == LoadRpc::kRecommend || publish,
                          o.rpc == LoadRpc::kSimilar || publish, &users, &items);
@@ -263,6 +267,9 @@ int main(int argc, char** argv) {
       ->check(CLI::Range(0.1, 3600.0))
       ->group(q);
   AddTlsOptions(&app, &a.serve, "--target-tls-ca", "plumb-serve");
+  app.add_option("--target-token-file", a.target_token_file,
+                 "File with plumb-serve's bearer token (if it requires one)")
+      ->check(CLI::ExistingFile);
   app.add_option("--tls-server-name", a.serve.tls_server_name,
                  "Name to expect in the server certificates instead of the host")
       ->each([&a](const std::string& name) { a.train.tls_server_name = name; });

@@ -3,8 +3,11 @@
 #include <rocksdb/db.h>
 #include <rocksdb/metadata.h>
 #include <rocksdb/options.h>
+#include <rocksdb/sst_file_reader.h>
+#include <rocksdb/table_properties.h>
 
 #include <algorithm>
+#include <filesystem>
 #include <functional>
 #include <memory>
 #include <vector>
@@ -96,6 +99,30 @@ Status ListTableFiles(const std::string& dir, std::string_view family,
   for (const auto& f : files) {
     if (f.column_family_name == family) paths->push_back(f.db_path + "/" + f.relative_filename);
   }
+  return Status::Ok();
+}
+
+Status ForEachTableRecord(
+    const std::string& dir,
+    const std::function<void(const std::string&, std::string_view, std::string_view)>& fn,
+    uint64_t* deletions) {
+  *deletions = 0;
+  std::error_code ec;
+  for (const auto& e : std::filesystem::directory_iterator(dir, ec)) {
+    if (e.path().extension() != ".sst") continue;
+    rocksdb::SstFileReader reader{rocksdb::Options()};
+    rocksdb::Status s = reader.Open(e.path().string());
+    if (!s.ok()) return Status::IoError(e.path().string() + ": " + s.ToString());
+    if (auto props = reader.GetTableProperties()) *deletions += props->num_deletions;
+    std::unique_ptr<rocksdb::Iterator> it(reader.NewIterator(rocksdb::ReadOptions()));
+    const std::string name = e.path().filename().string();
+    for (it->SeekToFirst(); it->Valid(); it->Next()) {
+      fn(name, std::string_view(it->key().data(), it->key().size()),
+         std::string_view(it->value().data(), it->value().size()));
+    }
+    if (!it->status().ok()) return Status::IoError(name + ": " + it->status().ToString());
+  }
+  if (ec) return Status::IoError(dir + ": " + ec.message());
   return Status::Ok();
 }
 

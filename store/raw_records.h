@@ -8,6 +8,7 @@
 // or one read, and closes it again; it fails with IoError while a Store holds the directory.
 #pragma once
 
+#include <functional>
 #include <string>
 #include <string_view>
 #include <vector>
@@ -28,5 +29,13 @@ Status GetRawRecord(const std::string& dir, std::string_view family, std::string
 // Paths of the live table files of `family`, newest (highest file number) first.
 Status ListTableFiles(const std::string& dir, std::string_view family,
                       std::vector<std::string>* paths);
+
+// Reads every table file in `dir` (live or not, decompressed) and calls fn(file, key, value)
+// for every record it holds; *deletions receives the number of deletion markers the files
+// hold (their keys are not visible through a table reader).
+Status ForEachTableRecord(
+    const std::string& dir,
+    const std::function<void(const std::string&, std::string_view, std::string_view)>& fn,
+    uint64_t* deletions);
 
 }  // namespace plumb::store::testing

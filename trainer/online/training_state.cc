@@ -38,8 +38,8 @@ bool IsHeldOut(std::string_view user, std::string_view item, double holdout_frac
   return u < holdout_fraction;
 }
 
-Status TrainingState::Load(const store::Store& store, double holdout_fraction,
-                           TrainingState* out, uint64_t* cursor) {
+Status TrainingState::Load(const store::Store& store, double holdout_fraction, TrainingState* out,
+                           uint64_t* cursor) {
   TrainingState state(holdout_fraction);
   PLUMB_RETURN_IF_ERROR(store.GetCursor(cursor));
   for (auto space : {store::IdSpace::kUser, store::IdSpace::kItem}) {
@@ -68,13 +68,16 @@ Status TrainingState::Load(const store::Store& store, double holdout_fraction,
     }
     if (batch.back().seq > *cursor) break;
   }
-  if (after != *cursor) {
-    return Status::Corruption("event log ends at " + std::to_string(after) +
+  // Events may be missing below the cursor (a user's erased by ForgetUser, or lost and set
+  // aside by a repair); a cursor beyond the log's recorded end is damage.
+  if (*cursor > store.LastSequence()) {
+    return Status::Corruption("event log ends at " + std::to_string(store.LastSequence()) +
                               " but the cursor is " + std::to_string(*cursor));
   }
   if (state.users_.size() != stored_users || state.items_.size() != stored_items) {
-    return Status::Corruption("replaying the log up to the cursor created ids the stored "
-                              "dictionary does not have");
+    return Status::Corruption(
+        "replaying the log up to the cursor created ids the stored "
+        "dictionary does not have");
   }
   state.persisted_users_ = state.users_.size();
   state.persisted_items_ = state.items_.size();

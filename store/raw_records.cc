@@ -126,4 +126,55 @@ Status ForEachTableRecord(
   return Status::Ok();
 }
 
+struct RawWriter::Db {
+  rocksdb::DB* db = nullptr;
+  std::vector<rocksdb::ColumnFamilyHandle*> handles;
+  std::vector<std::string> names;
+  ~Db() {
+    for (auto* h : handles) db->DestroyColumnFamilyHandle(h);
+    if (db != nullptr) db->Close();
+    delete db;
+  }
+  rocksdb::ColumnFamilyHandle* Family(std::string_view name) const {
+    for (size_t k = 0; k < names.size(); ++k) {
+      if (names[k] == name) return handles[k];
+    }
+    return nullptr;
+  }
+};
+
+Status RawWriter::Open(const std::string& dir, std::unique_ptr<RawWriter>* out) {
+  rocksdb::DBOptions options;
+  options.create_if_missing = true;
+  options.create_missing_column_families = true;
+  auto db = std::make_unique<Db>();
+  db->names = {rocksdb::kDefaultColumnFamilyName, "events", "event_ids", "ids", "interactions",
+               "degrees", "models", "meta"};
+  std::vector<rocksdb::ColumnFamilyDescriptor> descriptors;
+  for (const std::string& name : db->names) {
+    descriptors.emplace_back(name, rocksdb::ColumnFamilyOptions());
+  }
+  rocksdb::Status s = rocksdb::DB::Open(options, dir, descriptors, &db->handles, &db->db);
+  if (!s.ok()) return Status::IoError("opening " + dir + ": " + s.ToString());
+  out->reset(new RawWriter());
+  (*out)->db_ = std::move(db);
+  return Status::Ok();
+}
+
+RawWriter::~RawWriter() = default;
+
+Status RawWriter::Put(std::string_view family, std::string_view key, std::string_view value) {
+  rocksdb::ColumnFamilyHandle* cf = db_->Family(family);
+  if (cf == nullptr) return Status::NotFound("no column family " + std::string(family));
+  rocksdb::Status s = db_->db->Put(rocksdb::WriteOptions(), cf, AsSlice(key), AsSlice(value));
+  return s.ok() ? Status::Ok() : Status::IoError(s.ToString());
+}
+
+Status RawWriter::Delete(std::string_view family, std::string_view key) {
+  rocksdb::ColumnFamilyHandle* cf = db_->Family(family);
+  if (cf == nullptr) return Status::NotFound("no column family " + std::string(family));
+  rocksdb::Status s = db_->db->Delete(rocksdb::WriteOptions(), cf, AsSlice(key));
+  return s.ok() ? Status::Ok() : Status::IoError(s.ToString());
+}
+
 }  // namespace plumb::store::testing

@@ -54,7 +54,7 @@ void DefineOptions(CLI::App& app, ServeConfig* c) {
                  "Fold-in: ridge term as a fraction of the item Gram matrix's mean eigenvalue")
       ->check(CLI::Range(0.0, 1e3));
   app.add_option("--max-running-calls", c->admission.max_running,
-                 "Ranker calls that score at the same time (0: one per core)")
+                 "Ranker calls that score at the same time (0: two per core)")
       ->check(CLI::Range(0, 10'000));
   app.add_option("--max-waiting-calls", c->admission.max_waiting,
                  "Ranker calls that wait, first in first out, for a free slot; calls beyond "

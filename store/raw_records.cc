@@ -148,8 +148,14 @@ Status RawWriter::Open(const std::string& dir, std::unique_ptr<RawWriter>* out) 
   options.create_if_missing = true;
   options.create_missing_column_families = true;
   auto db = std::make_unique<Db>();
-  db->names = {rocksdb::kDefaultColumnFamilyName, "events", "event_ids", "ids", "interactions",
-               "degrees", "models", "meta"};
+  db->names = {rocksdb::kDefaultColumnFamilyName,
+               "events",
+               "event_ids",
+               "ids",
+               "interactions",
+               "degrees",
+               "models",
+               "meta"};
   std::vector<rocksdb::ColumnFamilyDescriptor> descriptors;
   for (const std::string& name : db->names) {
     descriptors.emplace_back(name, rocksdb::ColumnFamilyOptions());

@@ -32,10 +32,21 @@ void Require(bool ok) {
   if (!ok) std::abort();
 }
 
+// The store directory, removed at exit (the fixture itself lives until the process ends).
+std::filesystem::path& StoreDir() {
+  static std::filesystem::path dir;
+  return dir;
+}
+
 struct Stores {
   Stores() {
     dir = std::filesystem::temp_directory_path() /
           ("plumb-fuzz-versions-" + std::to_string(::getpid()));
+    StoreDir() = dir;
+    std::atexit([] {
+      std::error_code ec;
+      std::filesystem::remove_all(StoreDir(), ec);
+    });
     std::filesystem::remove_all(dir);
     std::filesystem::create_directories(dir);
     Require(store::testing::RawWriter::Open((dir / "db").string(), &writer).ok());

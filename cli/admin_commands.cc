@@ -218,6 +218,39 @@ Status RunRepair(const AdminArgs& args) {
   return Status::Ok();
 }
 
+Status RunForget(const AdminArgs& args) {
+  if (args.users.empty()) return Status::InvalidArgument("--user is required");
+  std::unique_ptr<store::Store> store;
+  PLUMB_RETURN_IF_ERROR(OpenForWrite(args.db, store::StoreOptions{}, &store));
+  for (const std::string& user : args.users) {
+    store::ForgetReport r;
+    PLUMB_RETURN_IF_ERROR(store->ForgetUser(user, &r));
+    std::printf(
+        "forgot '%s': %llu events, %llu interactions%s, %zu kept version(s) with the "
+        "row set to zero\n",
+        user.c_str(), static_cast<unsigned long long>(r.events),
+        static_cast<unsigned long long>(r.interactions),
+        r.had_index ? (", dictionary entry " + std::to_string(r.index) + " renamed").c_str()
+                    : ", no dictionary entry",
+        r.versions_changed.size());
+    for (const std::string& file : r.lost_files) {
+      std::printf(
+          "warning: %s was set aside by plumb repair and may still hold this user's "
+          "data: delete it\n",
+          file.c_str());
+    }
+  }
+  // Opening the store again rewrites RocksDB's MANIFEST, the last file that names keys of
+  // the deleted table files.
+  store.reset();
+  PLUMB_RETURN_IF_ERROR(OpenForWrite(args.db, store::StoreOptions{}, &store));
+  store.reset();
+  std::printf(
+      "the store is compacted: the erased records are gone from its files. Restart "
+      "plumb-serve (or wait for the next version) so that its memory forgets too.\n");
+  return Status::Ok();
+}
+
 Status RunExport(const AdminArgs& args) {
   if (args.out.empty()) return Status::InvalidArgument("--out is required");
   std::unique_ptr<store::Store> store;

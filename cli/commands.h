@@ -92,7 +92,8 @@ struct AdminArgs {
   uint64_t version = 0;
   std::string out;  // export directory
   bool json = false;
-  bool verify = false;  // inspect: read every block and record, exit non-zero on damage
+  bool verify = false;             // inspect: read every block and record, exit non-zero on damage
+  std::vector<std::string> users;  // forget: external user ids
 };
 
 Status RunSynth(const trainer::SynthOptions& options, const std::string& out_dir);
@@ -108,6 +109,9 @@ Status RunPin(const AdminArgs& args, bool pinned);
 Status RunInspect(const AdminArgs& args);
 // Store::Repair with a printed report; Corruption when problems remain afterwards.
 Status RunRepair(const AdminArgs& args);
+// Store::ForgetUser for each of args.users, with a printed report (the trainer must be
+// stopped: the store is opened for writing).
+Status RunForget(const AdminArgs& args);
 Status RunExport(const AdminArgs& args);
 Status RunTop(const TopArgs& args);
 

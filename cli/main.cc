@@ -226,6 +226,11 @@ int main(int argc, char** argv) {
       "repair", "recover a damaged store: set unreadable files aside, keep every readable record, "
                 "drop incomplete versions (plumb-train must be stopped)");
   repair_cmd->add_option("--db", admin.db, "store directory")->required();
+  auto* forget_cmd = app.add_subcommand(
+      "forget", "erase a user: their events, interactions and id from the log, their row from "
+                "every kept version (plumb-train must be stopped)");
+  forget_cmd->add_option("--db", admin.db, "store directory")->required();
+  forget_cmd->add_option("--user", admin.users, "external user id (repeatable)")->required();
   auto* export_cmd = app.add_subcommand(
       "export",
       "write a version as users.tsv and items.tsv (tab-separated, header user|item, d0..)");
@@ -268,6 +273,7 @@ int main(int argc, char** argv) {
     s = RunPin(admin, false);
   else if (*inspect_cmd) s = RunInspect(admin);
   else if (*repair_cmd) s = RunRepair(admin);
+  else if (*forget_cmd) s = RunForget(admin);
   else if (*export_cmd) s = RunExport(admin);
   else if (*top_cmd) s = RunTop(top);
   if (!s.ok()) {

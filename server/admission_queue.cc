@@ -22,7 +22,7 @@ AdmissionQueue::Ticket::~Ticket() {
 AdmissionQueue::AdmissionQueue(AdmissionOptions options)
     : max_running_(options.max_running > 0
                        ? options.max_running
-                       : static_cast<int>(std::max(1u, std::thread::hardware_concurrency()))),
+                       : 2 * static_cast<int>(std::max(1u, std::thread::hardware_concurrency()))),
       max_waiting_(std::max(0, options.max_waiting)) {}
 
 Status AdmissionQueue::Enter(std::chrono::system_clock::time_point deadline, Ticket* ticket) {

@@ -23,7 +23,9 @@
 namespace plumb::server {
 
 struct AdmissionOptions {
-  // Calls that score at the same time; 0 = one per core.
+  // Calls that score at the same time; 0 = two per core (measured: one per core gave the
+  // lowest p99 but 15-20 % fewer calls/s on 2 cores; sixteen, 25 % more calls/s but twice
+  // the p99 at 32 calls in flight).
   int max_running = 0;
   // Calls that wait beyond those; arrivals beyond this are refused (ResourceExhausted).
   int max_waiting = 512;
@@ -48,7 +50,7 @@ class AdmissionQueue {
     AdmissionQueue* queue_ = nullptr;
   };
 
-  // InvalidArgument-free: non-positive max_running means one per core, negative max_waiting
+  // Non-positive max_running means two per core, negative max_waiting
   // means 0.
   explicit AdmissionQueue(AdmissionOptions options = {});
   AdmissionQueue(const AdmissionQueue&) = delete;

@@ -13,6 +13,8 @@
 #include <iostream>
 #include <memory>
 
+#include "rpc/bearer_auth.h"
+#include "rpc/listen_address.h"
 #include "rpc/listen_probe.h"
 #include "server/admission_queue.h"
 #include "server/catch_up_loop.h"
@@ -86,6 +88,28 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
     return 1;
   }
 
+  std::unique_ptr<plumb::rpc::BearerAuth> auth;
+  if (!config.token_file.empty()) {
+    std::string warning;
+    s = plumb::rpc::BearerAuth::FromFile(config.token_file, &auth, &warning);
+    if (!s.ok()) {
+      spdlog::critical("cannot load the bearer token: {}", s.ToString());
+      return 2;
+    }
+    if (!warning.empty()) spdlog::warn("{}", warning);
+    if (config.endpoint.tls_cert_file.empty() &&
+        !plumb::rpc::IsLoopbackAddress(config.endpoint.listen)) {
+      spdlog::warn("the bearer token travels in clear text to {}: configure tls_cert/tls_key",
+                   config.endpoint.listen);
+    }
+  } else if (!plumb::rpc::IsLoopbackAddress(config.endpoint.listen)) {
+    spdlog::warn(
+        "serving {} without a token: anyone who can reach it can ask for any user's "
+        "recommendations and learn whether a user is known (README: operations). Set "
+        "token_file, or keep the address inside the product's trusted network.",
+        config.endpoint.listen);
+  }
+
   SnapshotHolder holder;
   Scorer scorer(config.fold_in);
   ExposureCounter exposure;
@@ -113,6 +137,7 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   metrics->set_admission(&admission);
   RankerService service(&holder, &scorer, config.limits, &exposure_tee, metrics.get());
   service.set_admission(&admission);
+  service.set_auth(auth.get());
   auto exposure_metrics = std::make_shared<ExposureMetrics>(&holder, &window);
 
   std::unique_ptr<prometheus::Exposer> exposer;
@@ -148,11 +173,11 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   server->SetServing(holder.Get() != nullptr);
   loop.Start();
   spdlog::info(
-      "plumb-serve listening on port {} ({}{}), metrics on {}; {} calls score at once, {} more "
+      "plumb-serve listening on port {} ({}{}{}), metrics on {}; {} calls score at once, {} more "
       "wait, {} threads",
       server->port(), config.endpoint.listen, config.endpoint.tls_cert_file.empty() ? "" : ", TLS",
-      config.metrics.empty() ? "none" : config.metrics, admission.max_running(),
-      admission.max_waiting(), endpoint_options.max_threads);
+      auth ? ", token required" : "", config.metrics.empty() ? "none" : config.metrics,
+      admission.max_running(), admission.max_waiting(), endpoint_options.max_threads);
 
   int signal_number = 0;
   sigwait(&signals, &signal_number);

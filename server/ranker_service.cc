@@ -180,6 +180,9 @@ grpc::Status RankerService::Recommend(grpc::ServerContext* context,
                                       plumb::v1::RecommendResponse* response) {
   const auto start = std::chrono::steady_clock::now();
   grpc::Status status = [&]() -> grpc::Status {
+    if (auth_ != nullptr) {
+      if (grpc::Status a = auth_->Check(*context); !a.ok()) return a;
+    }
     std::string error = CheckId("user_id", request->user_id(), limits_.max_id_bytes);
     if (error.empty()) error = CheckCount(request->count(), limits_.max_count);
     if (error.empty()) {
@@ -229,6 +232,9 @@ grpc::Status RankerService::RankCandidates(grpc::ServerContext* context,
                                            plumb::v1::RankCandidatesResponse* response) {
   const auto start = std::chrono::steady_clock::now();
   grpc::Status status = [&]() -> grpc::Status {
+    if (auth_ != nullptr) {
+      if (grpc::Status a = auth_->Check(*context); !a.ok()) return a;
+    }
     std::string error = CheckId("user_id", request->user_id(), limits_.max_id_bytes);
     if (error.empty() && request->candidate_item_ids().empty()) {
       error = "candidate_item_ids is required (1.." + std::to_string(limits_.max_candidates) +
@@ -275,6 +281,9 @@ grpc::Status RankerService::SimilarItems(grpc::ServerContext* context,
                                          plumb::v1::SimilarItemsResponse* response) {
   const auto start = std::chrono::steady_clock::now();
   grpc::Status status = [&]() -> grpc::Status {
+    if (auth_ != nullptr) {
+      if (grpc::Status a = auth_->Check(*context); !a.ok()) return a;
+    }
     std::string error = CheckId("item_id", request->item_id(), limits_.max_id_bytes);
     if (error.empty()) error = CheckCount(request->count(), limits_.max_count);
     if (error.empty()) {

@@ -10,6 +10,7 @@
 
 #include <cstdint>
 
+#include "rpc/bearer_auth.h"
 #include "plumb/v1/ranker.grpc.pb.h"
 #include "server/admission_queue.h"
 #include "server/exposure_sink.h"
@@ -39,7 +40,13 @@ class RankerService final : public plumb::v1::Ranker::Service {
   // score. Call before the server starts.
   void set_admission(AdmissionQueue* queue) { admission_ = queue; }
 
-  // Status codes: INVALID_ARGUMENT (a field out of its limits), UNAVAILABLE (no version
+  // Every call must carry this bearer token (borrowed, may be null: no token); calls
+  // without it get UNAUTHENTICATED before anything else is looked at. Call before the
+  // server starts.
+  void set_auth(const rpc::BearerAuth* auth) { auth_ = auth; }
+
+  // Status codes: UNAUTHENTICATED (a token is required and missing or wrong),
+  // INVALID_ARGUMENT (a field out of its limits), UNAVAILABLE (no version
   // loaded yet), NOT_FOUND (unknown user or item, see ranker.proto), DEADLINE_EXCEEDED
   // (the call's deadline passed while it waited for a slot or while scoring),
   // RESOURCE_EXHAUSTED (every slot taken and the waiting line full), FAILED_PRECONDITION
@@ -70,6 +77,7 @@ class RankerService final : public plumb::v1::Ranker::Service {
   ExposureSink* const exposure_;
   ServingMetrics* const metrics_;
   AdmissionQueue* admission_ = nullptr;
+  const rpc::BearerAuth* auth_ = nullptr;
 };
 
 }  // namespace plumb::server

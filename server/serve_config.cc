@@ -65,7 +65,7 @@ void DefineOptions(CLI::App& app, ServeConfig* c, DurationTexts* d) {
                  "Fold-in: ridge term as a fraction of the item Gram matrix's mean eigenvalue")
       ->check(CLI::Range(0.0, 1e3));
   app.add_option("--max-running-calls", c->admission.max_running,
-                 "Ranker calls that score at the same time (0: one per core)")
+                 "Ranker calls that score at the same time (0: two per core)")
       ->check(CLI::Range(0, 10'000));
   app.add_option("--max-waiting-calls", c->admission.max_waiting,
                  "Ranker calls that wait, first in first out, for a free slot; calls beyond "
@@ -78,6 +78,9 @@ void DefineOptions(CLI::App& app, ServeConfig* c, DurationTexts* d) {
       ->check(CLI::Range(0, 110'000));
   app.add_flag("--reflection,!--no-reflection", c->endpoint.reflection,
                "Offer gRPC server reflection");
+  app.add_option("--token-file", c->token_file,
+                 "File holding the bearer token every Ranker call must carry "
+                 "('authorization: Bearer <token>'); empty = no token");
   app.add_option("--tls-cert", c->endpoint.tls_cert_file,
                  "PEM certificate chain; with --tls-key, serve over TLS");
   app.add_option("--tls-key", c->endpoint.tls_key_file, "PEM private key for --tls-cert");

@@ -29,8 +29,11 @@ struct ServeConfig {
   int catchup_interval_ms = 500;   // --catchup-interval
   int shutdown_grace_ms = 5000;    // --shutdown-grace
   std::string log_level = "info";  // trace, debug, info, warn, error, critical, off
-  EndpointOptions endpoint;        // listen, TLS, threads, reflection
-  AdmissionOptions admission;      // calls scoring at once, calls waiting for a slot
+  // File holding the bearer token every Ranker call must carry; empty = no token. Health
+  // checks and reflection stay open.
+  std::string token_file;
+  EndpointOptions endpoint;    // listen, TLS, threads, reflection
+  AdmissionOptions admission;  // calls scoring at once, calls waiting for a slot
   RankerLimits limits;
   FoldInOptions fold_in;
   ExposureWindowOptions exposure;

@@ -128,8 +128,10 @@ class Snapshot {
 // Reads version `version` from `store` (manifest, both matrices, degrees, the id
 // dictionaries up to the version's sizes, and the interaction sets restricted to its users
 // and items) and builds its snapshot.
-// Errors: NotFound if the version is not kept; Corruption for missing or wrongly sized
-// blocks, dimensions that disagree with the manifest, non-finite values; IoError from the
+// Every block is read with RocksDB's checksum verification, so a version with a damaged
+// block is refused before it could be swapped in.
+// Errors: NotFound if the version is not kept; Corruption for missing, wrongly sized or
+// damaged (checksum) blocks, dimensions that disagree with the manifest, non-finite values; IoError from the
 // store; ResourceExhausted when the matrices cannot be allocated. *out is unchanged on error.
 // Thread-safe with respect to the store (see store.h); allocates the whole snapshot.
 //

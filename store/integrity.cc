@@ -109,7 +109,14 @@ Status Store::CheckFiles(const std::string& dir, const std::string& scratch_dir)
       std::this_thread::sleep_for(std::chrono::milliseconds(20 << attempt));
       continue;
     }
-    const std::string what = s.ToString();
+    std::string what = s.ToString();
+    // RocksDB looks for a missing table file under its old extension too and names that one;
+    // name the file the store actually lost.
+    for (size_t at = what.find(".ldb: No such file"); at != std::string::npos;
+         at = what.find(".ldb: No such file", at + 1)) {
+      what.replace(at, 4, ".sst");
+    }
+    while (what.starts_with("Corruption: Corruption: ")) what.erase(0, 12);
     if (s.IsCorruption() || what.find("No such file") != std::string::npos) {
       return Status::Corruption("store at " + dir + " is damaged: " + what + "." +
                                 DamageAdvice(dir));

@@ -3,8 +3,11 @@
 #include <rocksdb/db.h>
 #include <rocksdb/metadata.h>
 #include <rocksdb/options.h>
+#include <rocksdb/sst_file_reader.h>
+#include <rocksdb/table_properties.h>
 
 #include <algorithm>
+#include <filesystem>
 #include <functional>
 #include <memory>
 #include <vector>
@@ -97,6 +100,87 @@ Status ListTableFiles(const std::string& dir, std::string_view family,
     if (f.column_family_name == family) paths->push_back(f.db_path + "/" + f.relative_filename);
   }
   return Status::Ok();
+}
+
+Status ForEachTableRecord(
+    const std::string& dir,
+    const std::function<void(const std::string&, std::string_view, std::string_view)>& fn,
+    uint64_t* deletions) {
+  *deletions = 0;
+  std::error_code ec;
+  for (const auto& e : std::filesystem::directory_iterator(dir, ec)) {
+    if (e.path().extension() != ".sst") continue;
+    rocksdb::SstFileReader reader{rocksdb::Options()};
+    rocksdb::Status s = reader.Open(e.path().string());
+    if (!s.ok()) return Status::IoError(e.path().string() + ": " + s.ToString());
+    if (auto props = reader.GetTableProperties()) *deletions += props->num_deletions;
+    std::unique_ptr<rocksdb::Iterator> it(reader.NewIterator(rocksdb::ReadOptions()));
+    const std::string name = e.path().filename().string();
+    for (it->SeekToFirst(); it->Valid(); it->Next()) {
+      fn(name, std::string_view(it->key().data(), it->key().size()),
+         std::string_view(it->value().data(), it->value().size()));
+    }
+    if (!it->status().ok()) return Status::IoError(name + ": " + it->status().ToString());
+  }
+  if (ec) return Status::IoError(dir + ": " + ec.message());
+  return Status::Ok();
+}
+
+struct RawWriter::Db {
+  rocksdb::DB* db = nullptr;
+  std::vector<rocksdb::ColumnFamilyHandle*> handles;
+  std::vector<std::string> names;
+  ~Db() {
+    for (auto* h : handles) db->DestroyColumnFamilyHandle(h);
+    if (db != nullptr) db->Close();
+    delete db;
+  }
+  rocksdb::ColumnFamilyHandle* Family(std::string_view name) const {
+    for (size_t k = 0; k < names.size(); ++k) {
+      if (names[k] == name) return handles[k];
+    }
+    return nullptr;
+  }
+};
+
+Status RawWriter::Open(const std::string& dir, std::unique_ptr<RawWriter>* out) {
+  rocksdb::DBOptions options;
+  options.create_if_missing = true;
+  options.create_missing_column_families = true;
+  auto db = std::make_unique<Db>();
+  db->names = {rocksdb::kDefaultColumnFamilyName,
+               "events",
+               "event_ids",
+               "ids",
+               "interactions",
+               "degrees",
+               "models",
+               "meta"};
+  std::vector<rocksdb::ColumnFamilyDescriptor> descriptors;
+  for (const std::string& name : db->names) {
+    descriptors.emplace_back(name, rocksdb::ColumnFamilyOptions());
+  }
+  rocksdb::Status s = rocksdb::DB::Open(options, dir, descriptors, &db->handles, &db->db);
+  if (!s.ok()) return Status::IoError("opening " + dir + ": " + s.ToString());
+  out->reset(new RawWriter());
+  (*out)->db_ = std::move(db);
+  return Status::Ok();
+}
+
+RawWriter::~RawWriter() = default;
+
+Status RawWriter::Put(std::string_view family, std::string_view key, std::string_view value) {
+  rocksdb::ColumnFamilyHandle* cf = db_->Family(family);
+  if (cf == nullptr) return Status::NotFound("no column family " + std::string(family));
+  rocksdb::Status s = db_->db->Put(rocksdb::WriteOptions(), cf, AsSlice(key), AsSlice(value));
+  return s.ok() ? Status::Ok() : Status::IoError(s.ToString());
+}
+
+Status RawWriter::Delete(std::string_view family, std::string_view key) {
+  rocksdb::ColumnFamilyHandle* cf = db_->Family(family);
+  if (cf == nullptr) return Status::NotFound("no column family " + std::string(family));
+  rocksdb::Status s = db_->db->Delete(rocksdb::WriteOptions(), cf, AsSlice(key));
+  return s.ok() ? Status::Ok() : Status::IoError(s.ToString());
 }
 
 }  // namespace plumb::store::testing

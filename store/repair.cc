@@ -70,7 +70,7 @@ Status Store::Repair(const std::string& dir, const StoreOptions& options, Repair
     return Status::NotFound("no store at " + dir);
   } else if (Status s = CheckFiles(dir, scratch); !s.ok()) {
     if (!s.IsCorruption()) return s;
-    why = s.message();
+    why = s.message().substr(0, s.message().find(" `plumb inspect"));
   }
   std::map<std::string, std::string> damaged;
   PLUMB_RETURN_IF_ERROR(DamagedTables(dir, &damaged));

@@ -119,6 +119,22 @@ struct RepairReport {
   std::vector<std::string> remaining;  // problems Verify still finds afterwards
 };
 
+// What Store::ForgetUser erased.
+struct ForgetReport {
+  uint64_t events = 0;        // events of the user deleted from the log
+  bool had_index = false;     // the user was in the dictionary (trained on at least once)
+  uint32_t index = 0;         // its dense index, now named by a placeholder
+  uint64_t interactions = 0;  // (user, item) pairs deleted
+  std::vector<uint64_t> versions_changed;  // kept versions whose row for the user is now 0
+  std::vector<std::string> lost_files;     // files in <dir>/lost/ (from plumb repair) that
+                                           // may hold the user's data: delete them by hand
+};
+
+// The external id a forgotten user's dictionary entry is renamed to: the prefix and the
+// index. The control character keeps it apart from every real id (ingest refuses control
+// characters in ids).
+inline constexpr std::string_view kForgottenIdPrefix = "\x01forgotten:";
+
 // An event as submitted, already validated by the caller.
 struct EventInput {
   std::string user_id;
@@ -388,6 +404,24 @@ class Store {
 
   // Named meta values set through StateChange::meta. NotFound when unset.
   Status GetMeta(std::string_view key, std::string* value) const;
+
+  // ---- erasure (store/forget.cc) ----------------------------------------------------
+
+  // Erases what the store holds of one user (primary only): every event of theirs in the
+  // log (trained on yet or not) with its de-duplication record; their dictionary entry,
+  // whose index stays taken but is renamed to kForgottenIdPrefix + index; their interaction
+  // set and its share of the live item degrees; and their row in every kept version (set
+  // to zeros). One atomic write; then every column family is flushed and compacted, so
+  // that the deleted bytes are gone from the table files and the log when it returns
+  // (slow on a large store: it rewrites all of it). RocksDB's MANIFEST still names the
+  // first and last key of table files that no longer exist until the store is next opened
+  // (which rewrites it): close and reopen the store to finish (plumb forget does). Future versions
+  // never see the user: the training state is rebuilt from the log, which no longer holds them.
+  // Processes that hold the data in memory (a running plumb-serve's snapshot) keep it until they
+  // load a newer version or restart. A user unknown to the store is not an error (the
+  // report says 0 events). InvalidArgument for an empty or already forgotten id;
+  // Corruption (nothing erased) when the log cannot be read in full.
+  Status ForgetUser(std::string_view user_id, ForgetReport* report);
 
   // ---- integrity (store/integrity.cc) ---------------------------------------------
 

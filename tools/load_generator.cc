@@ -140,6 +140,7 @@ Status LoadGenerator::Run(LoadResult* result) {
           auto* call = new UnaryCall<plumb::v1::RecommendRequest, plumb::v1::RecommendResponse>;
           call->scheduled = scheduled;
           call->context.set_deadline(deadline);
+          AttachBearerToken(o.bearer_token, &call->context);
           call->request.set_user_id((*ids_)[draw(*rng)]);
           call->request.set_count(o.count);
           call->request.set_include_seen(!o.exclude_seen);
@@ -153,6 +154,7 @@ Status LoadGenerator::Run(LoadResult* result) {
               new UnaryCall<plumb::v1::SimilarItemsRequest, plumb::v1::SimilarItemsResponse>;
           call->scheduled = scheduled;
           call->context.set_deadline(deadline);
+          AttachBearerToken(o.bearer_token, &call->context);
           call->request.set_item_id((*ids_)[draw(*rng)]);
           call->request.set_count(o.count);
           call->reader = stub.ranker->PrepareAsyncSimilarItems(&call->context, call->request, cq);

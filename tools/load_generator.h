@@ -42,6 +42,7 @@ struct LoadOptions {
   double zipf_s = 1.0;
   uint64_t seed = 1;
   std::string health_service;  // "" = the server as a whole
+  std::string bearer_token;    // plumb-serve's token; empty: no authorization metadata
   size_t max_samples = size_t{1} << 24;
 };
 
@@ -63,7 +64,7 @@ struct LoadResult {
   // when there are several). Latencies include this; a start-lag p99 near the latency p99
   // means the generator, not the server, set the tail.
   LatencySummary start_lag;
-  CallTally calls;       // calls scheduled inside the measured window
+  CallTally calls;  // calls scheduled inside the measured window
   double calls_per_second() const {
     return seconds > 0 ? static_cast<double>(calls.ok + calls.failed) / seconds : 0;
   }

@@ -36,7 +36,9 @@ struct LoadArgs {
   ChannelSpec train{"127.0.0.1:7601", "", ""};
   std::string rpc = "recommend";
   uint32_t channels = 1;
-  std::string users_file, items_file, db, token_file;
+  std::string users_file, items_file, db;
+  std::string token_file;          // sent to --server (plumb-serve)
+  std::string trainer_token_file;  // sent to --trainer (plumb-train)
   bool json = false;
   double publish_rate = 0;
   uint32_t publish_batch = 100;
@@ -109,6 +111,10 @@ int RunLoad(LoadArgs& a) {
           : a.rpc == "health" ? LoadRpc::kHealth
                               : LoadRpc::kRecommend;
   const bool publish = a.publish_rate > 0;
+  if (!a.token_file.empty()) {
+    if (Status s = ReadBearerToken(a.token_file, &o.bearer_token); !s.ok())
+      return Fail(s.message());
+  }
   std::vector<std::string> users, items;
   if (Status s = LoadIds(a, o.rpc == LoadRpc::kRecommend || publish,
                          o.rpc == LoadRpc::kSimilar || publish, &users, &items);
@@ -138,8 +144,8 @@ int RunLoad(LoadArgs& a) {
     po.zipf_s = o.zipf_s;
     po.seed = o.seed + 1;
     po.event_ids = a.event_ids;
-    if (!a.token_file.empty()) {
-      if (Status s = ReadBearerToken(a.token_file, &po.bearer_token); !s.ok())
+    if (!a.trainer_token_file.empty()) {
+      if (Status s = ReadBearerToken(a.trainer_token_file, &po.bearer_token); !s.ok())
         return Fail(s.message());
     }
     std::shared_ptr<grpc::Channel> channel;
@@ -290,6 +296,10 @@ int main(int argc, char** argv) {
                  "How long to wait for the servers to be reachable (100ms .. 1h)")
       ->group(q);
   AddTlsOptions(&app, &a.serve, "--tls-ca", "plumb-serve")->group(q);
+  app.add_option("--token-file", a.token_file,
+                 "File with plumb-serve's bearer token (if it requires one)")
+      ->check(CLI::ExistingFile)
+      ->group(q);
   app.add_option("--tls-server-name", a.serve.tls_server_name,
                  "Name to expect in plumb-serve's certificate instead of the host")
       ->group(q);
@@ -321,7 +331,7 @@ int main(int argc, char** argv) {
       ->group(pub);
   app.add_flag("--event-ids", a.event_ids, "Give published events unique event ids")->group(pub);
   app.add_option("--trainer", a.train.target, "plumb-train address HOST:PORT")->group(pub);
-  app.add_option("--trainer-token-file", a.token_file, "File with plumb-train's bearer token")
+  app.add_option("--trainer-token-file", a.trainer_token_file, "File with plumb-train's bearer token")
       ->check(CLI::ExistingFile)
       ->group(pub);
   AddTlsOptions(&app, &a.train, "--trainer-tls-ca", "plumb-train")->group(pub);

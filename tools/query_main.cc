@@ -33,7 +33,7 @@ struct Connection {
   explicit Connection(std::string target) { spec.target = std::move(target); }
   ChannelSpec spec;
   std::string deadline = "5s";  // --deadline, checked when the command runs
-  std::string token_file;       // control commands only
+  std::string token_file;       // sent as the bearer token, if set
 };
 
 int Fail(const std::string& message) {
@@ -424,10 +424,10 @@ void AddConnection(CLI::App* cmd, Connection* c, bool control) {
       ->check(CLI::ExistingFile);
   cmd->add_option("--tls-server-name", c->spec.tls_server_name,
                   "Name to expect in the server certificate instead of the host");
-  if (control) {
-    cmd->add_option("--token-file", c->token_file, "File with plumb-train's bearer token")
-        ->check(CLI::ExistingFile);
-  }
+  cmd->add_option("--token-file", c->token_file,
+                  control ? "File with plumb-train's bearer token"
+                          : "File with plumb-serve's bearer token (if it requires one)")
+      ->check(CLI::ExistingFile);
 }
 
 }  // namespace

@@ -8,7 +8,7 @@ check() { if ! eval "$2"; then echo "FAIL: $1"; fail=1; else echo "ok: $1"; fi; 
 
 check "top-level --help lists the commands" \
   '"$PLUMB" --help | grep -q "synth" && "$PLUMB" --help | grep -q "compare"'
-for cmd in synth import fit eval compare versions activate pin unpin inspect export top; do
+for cmd in synth import fit eval compare versions activate pin unpin inspect repair forget export top; do
   check "$cmd --help" '"$PLUMB" $cmd --help >/dev/null'
 done
 check "fit --help shows defaults" '"$PLUMB" fit --help | grep -q "beta.*3"'

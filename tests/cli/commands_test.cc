@@ -1,14 +1,15 @@
 // The offline commands end to end on a small synthetic world: synth -> fit -> eval ->
 // export -> versions/activate, through the same functions the `plumb` binary calls.
+#include "cli/commands.h"
+
+#include <gtest/gtest.h>
 #include <unistd.h>
 
+#include <algorithm>
 #include <filesystem>
 #include <fstream>
 #include <sstream>
 
-#include <gtest/gtest.h>
-
-#include "cli/commands.h"
 #include "cli/store_access.h"
 
 namespace plumb::cli {
@@ -19,8 +20,9 @@ namespace fs = std::filesystem;
 class CommandsTest : public ::testing::Test {
  protected:
   void SetUp() override {
-    dir_ = fs::temp_directory_path() / ("plumb_cli_" + std::to_string(::getpid()) + "_" +
-                                        ::testing::UnitTest::GetInstance()->current_test_info()->name());
+    dir_ = fs::temp_directory_path() /
+           ("plumb_cli_" + std::to_string(::getpid()) + "_" +
+            ::testing::UnitTest::GetInstance()->current_test_info()->name());
     fs::remove_all(dir_);
     world_.users = 400;
     world_.items = 200;
@@ -156,6 +158,50 @@ TEST_F(CommandsTest, ActivateRollsBackToAnOlderVersion) {
   EXPECT_EQ(active, 1u);
   admin.version = 99;
   EXPECT_FALSE(RunActivate(admin).ok());
+}
+
+// plumb forget: a user's events leave the log and the user never reaches a later version.
+TEST_F(CommandsTest, ForgetRemovesTheUserFromTheLogAndFromFutureVersions) {
+  FitArgs fit = SmallFit();
+  ASSERT_TRUE(RunFit(fit).ok());
+  // The first user of the file, and how many events the file has for them.
+  std::ifstream csv(dir_ / "world" / "events.csv");
+  std::string line, user;
+  std::getline(csv, line);  // header
+  size_t total = 0, theirs = 0;
+  while (std::getline(csv, line)) {
+    const std::string who = line.substr(0, line.find(','));
+    if (user.empty()) user = who;
+    ++total;
+    theirs += who == user;
+  }
+  ASSERT_GT(theirs, 0u);
+
+  AdminArgs admin;
+  admin.db = fit.import.db;
+  admin.users = {user};
+  ASSERT_TRUE(RunForget(admin).ok());
+
+  fit.import.events.clear();  // train on what the store holds now
+  ASSERT_TRUE(RunFit(fit).ok());
+  std::unique_ptr<store::Store> store;
+  ASSERT_TRUE(OpenForRead(fit.import.db, &store).ok());
+  std::vector<store::Event> events;
+  ASSERT_TRUE(store->ReadEvents(0, total + 1, &events).ok());
+  EXPECT_EQ(events.size(), total - theirs);
+  for (const store::Event& e : events) ASSERT_NE(e.user_id, user);
+  LoadedModel model;
+  ASSERT_TRUE(LoadModel(*store, 0, &model).ok());
+  EXPECT_EQ(model.manifest.version, 2u);
+  EXPECT_EQ(std::count(model.user_ids.begin(), model.user_ids.end(), user), 0);
+  // The user's index is kept (rows are numbered by it) under a name no caller can send, and
+  // it holds no interaction in the new version's training data.
+  const auto placeholder =
+      std::find_if(model.user_ids.begin(), model.user_ids.end(),
+                   [](const std::string& id) { return id.starts_with(store::kForgottenIdPrefix); });
+  ASSERT_NE(placeholder, model.user_ids.end());
+  const uint32_t index = static_cast<uint32_t>(placeholder - model.user_ids.begin());
+  EXPECT_TRUE(model.train.items_of(index).empty());
 }
 
 }  // namespace

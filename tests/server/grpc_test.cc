@@ -54,6 +54,7 @@ class RankerServerTest : public ::testing::Test {
     metrics_ = std::make_unique<ServingMetrics>(&holder_, nullptr, &exposure_);
     service_ = std::make_unique<RankerService>(&holder_, &scorer_, RankerLimits{}, &exposure_,
                                                metrics_.get());
+    service_->set_auth(auth_);
     endpoint.listen = "127.0.0.1:0";
     Status s = RankingServer::Start(endpoint, service_.get(), &server_);
     ASSERT_TRUE(s.ok()) << s.ToString();
@@ -73,6 +74,7 @@ class RankerServerTest : public ::testing::Test {
                     const Req& request, Resp* response) {
     grpc::ClientContext context;
     context.set_deadline(std::chrono::system_clock::now() + std::chrono::seconds(10));
+    if (!authorization_.empty()) context.AddMetadata("authorization", authorization_);
     return (stub_.get()->*method)(&context, request, response);
   }
   grpc::Status Recommend(const v1::RecommendRequest& r, v1::RecommendResponse* out) {
@@ -93,6 +95,8 @@ class RankerServerTest : public ::testing::Test {
   std::unique_ptr<RankingServer> server_;
   std::shared_ptr<grpc::Channel> channel_;
   std::unique_ptr<Ranker::Stub> stub_;
+  const rpc::BearerAuth* auth_ = nullptr;  // set before Start() to require a token
+  std::string authorization_;              // metadata the client sends, if any
 };
 
 v1::RecommendRequest RecommendFor(const std::string& user, uint32_t count) {
@@ -161,6 +165,47 @@ TEST_F(RankerServerTest, IncludeSeenBringsBackTheUsersTrainingItems) {
   for (int r = 0; r < all_but_one; ++r) {
     EXPECT_EQ(response.items(r).item_id(), m.item_ids[direct.items[r].index]);
   }
+}
+
+// With a token configured, a caller without it learns nothing: not whether a user exists
+// (NOT_FOUND vs OK), not a user's history, not even which field of its request was wrong.
+TEST_F(RankerServerTest, ATokenIsRequiredWhenConfiguredAndHealthStaysOpen) {
+  const rpc::BearerAuth auth("s3cret-token");
+  auth_ = &auth;
+  Start(EndpointOptions{});
+  Load(RandomModel(5, 50, 4, 3, 1, false), 2);
+  v1::RecommendResponse rec;
+  for (const std::string& metadata :
+       {std::string(), std::string("Bearer wrong-token"), std::string("Basic s3cret-token")}) {
+    authorization_ = metadata;
+    for (const char* user : {"member-1", "nobody-at-all"}) {
+      EXPECT_EQ(Recommend(RecommendFor(user, 5), &rec).error_code(),
+                grpc::StatusCode::UNAUTHENTICATED)
+          << metadata << " " << user;
+    }
+    EXPECT_EQ(Recommend(RecommendFor("", 0), &rec).error_code(),
+              grpc::StatusCode::UNAUTHENTICATED);  // not INVALID_ARGUMENT
+    v1::RankCandidatesRequest rc;
+    rc.set_user_id("member-1");
+    rc.add_candidate_item_ids("tool-1");
+    v1::RankCandidatesResponse rc_out;
+    EXPECT_EQ(RankCandidates(rc, &rc_out).error_code(), grpc::StatusCode::UNAUTHENTICATED);
+    v1::SimilarItemsRequest si;
+    si.set_item_id("tool-1");
+    si.set_count(3);
+    v1::SimilarItemsResponse si_out;
+    EXPECT_EQ(SimilarItems(si, &si_out).error_code(), grpc::StatusCode::UNAUTHENTICATED);
+  }
+  EXPECT_EQ(HealthCheck(channel_, ""), kServing);  // load balancers need no token
+  EXPECT_EQ(Sample(*metrics_, "plumb_requests_total",
+                   {{"method", "Recommend"}, {"code", "UNAUTHENTICATED"}}),
+            9);
+
+  authorization_ = "bearer s3cret-token";  // the scheme is case-insensitive (RFC 7235)
+  ASSERT_TRUE(Recommend(RecommendFor("member-1", 5), &rec).ok());
+  EXPECT_EQ(rec.items_size(), 5);
+  EXPECT_EQ(Recommend(RecommendFor("nobody-at-all", 5), &rec).error_code(),
+            grpc::StatusCode::NOT_FOUND);
 }
 
 TEST_F(RankerServerTest, ResponsesCarryIdsScoresAndVersionAndAreCounted) {

@@ -6,6 +6,7 @@
 
 #include <cmath>
 #include <filesystem>
+#include <fstream>
 #include <limits>
 #include <thread>
 
@@ -258,6 +259,47 @@ TEST_F(StoreBackedTest, TheLoopReportsTableFilesDamagedWhileItRuns) {
   EXPECT_EQ(damaged_gauge(), 1.0);
   ASSERT_NE(holder.Get(), nullptr);
   EXPECT_EQ(holder.Get()->version(), v1);
+}
+
+// A version whose table block fails its checksum is not swapped in: LoadSnapshot reads
+// every block of the version with RocksDB's checksum verification, and the old snapshot
+// keeps serving.
+TEST_F(StoreBackedTest, AVersionWithABlockFailingItsChecksumIsNotSwappedIn) {
+  const TestModel good = RandomModel(10, 300, 4, 3, 4, false);
+  const uint64_t v1 = Commit(good);
+  primary_.reset();  // version 1 in table files of its own
+  store::StoreOptions options;
+  options.sync = false;
+  options.rows_per_block = 64;
+  ASSERT_TRUE(store::Store::OpenPrimary(dir_.Sub("db"), options, &primary_).ok());
+  OpenSecondary();
+  SnapshotHolder holder;
+  CatchUpLoop loop(secondary_.get(), &holder, CatchUpOptions{});
+  ASSERT_TRUE(loop.RunOnce().ok());
+  ASSERT_EQ(holder.Get()->version(), v1);
+
+  const uint64_t v2 = Commit(RandomModel(10, 300, 4, 3, 5, false));
+  primary_.reset();  // version 2's blocks now in the newest models table file
+  std::vector<std::string> tables;
+  ASSERT_TRUE(store::testing::ListTableFiles(dir_.Sub("db"), "models", &tables).ok());
+  ASSERT_FALSE(tables.empty());
+  {
+    // Its first table block holds version 2's first item rows (keys sort 'b' < 'd' < 'm').
+    std::fstream f(tables.front(), std::ios::in | std::ios::out | std::ios::binary);
+    char c = 0;
+    f.seekg(100);
+    f.get(c);
+    f.seekp(100);
+    f.put(static_cast<char>(c ^ 0x5a));
+  }
+  Status s = loop.RunOnce();
+  EXPECT_TRUE(s.IsCorruption()) << s.ToString();
+  EXPECT_NE(s.message().find("checksum"), std::string::npos) << s.ToString();
+  EXPECT_EQ(holder.Get()->version(), v1);
+  EXPECT_EQ(loop.failed_loads(), 1u);
+  uint64_t active = 0;
+  ASSERT_TRUE(secondary_->GetActiveVersion(&active).ok());
+  EXPECT_EQ(active, v2);  // the store says 2; the server stays with 1
 }
 
 // Damage the store API cannot produce (a missing block, a block of the wrong size) is made

@@ -178,6 +178,36 @@ else
   echo "skipped: TLS checks (no openssl)"
 fi
 
+# ---- a bearer token: the tools carry it, callers without it learn nothing -------------------------
+printf 's3cret-serve-token\n' >"$tmp/token"; chmod 600 "$tmp/token"
+"$SERVE" --db "$tmp/db" --listen 127.0.0.1:0 --metrics "" --token-file "$tmp/token" \
+  2>"$tmp/token.log" &
+tls_pid=$!
+token_port=""
+for _ in $(seq 300); do
+  token_port=$(sed -n 's/.*listening on port \([0-9]*\).*/\1/p' "$tmp/token.log" | head -1)
+  [ -n "$token_port" ] && break
+  kill -0 "$tls_pid" 2>/dev/null || break
+  sleep 0.1
+done
+check "server with a token started" '[ -n "$token_port" ]'
+guarded=127.0.0.1:${token_port:-1}
+user=$(awk -F, 'NR==2 {print $1}' "$tmp/world/events.csv")
+out=$("$QUERY" recommend --server "$guarded" --user "$user" 2>&1); rc=$?
+check "no token: UNAUTHENTICATED, exit 1" '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "UNAUTHENTICATED"'
+out=$("$QUERY" recommend --server "$guarded" --user "no-such-member" 2>&1); rc=$?
+check "no token, unknown user: UNAUTHENTICATED too (existence not revealed)" \
+  '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "UNAUTHENTICATED"'
+out=$("$QUERY" recommend --server "$guarded" --user "$user" --token-file "$tmp/token" 2>&1); rc=$?
+check "with the token: answered" '[ $rc -eq 0 ]'
+out=$("$QUERY" health --server "$guarded" 2>&1); rc=$?
+check "health needs no token [$out]" '[ $rc -eq 0 ] && [ "$out" = SERVING ]'
+"$LOAD" --server "$guarded" --token-file "$tmp/token" --db "$tmp/db" --duration 0.5s \
+  --warmup 0s --concurrency 2 --json >"$tmp/token.json" 2>/dev/null
+check "plumb-load with --token-file: calls OK, zero errors" \
+  '[ "$(json "$tmp/token.json" "d[\"ok\"] > 0 and d[\"errors\"] == 0")" = True ]'
+kill "$tls_pid"; wait "$tls_pid" 2>/dev/null; tls_pid=""
+
 # ---- after the server stops: UNAVAILABLE ------------------------------------------------------------
 kill "$serve_pid"; wait "$serve_pid" 2>/dev/null; serve_pid=""
 out=$("$QUERY" health --server "$target" --deadline 2000ms 2>&1); rc=$?

@@ -69,9 +69,11 @@ Status TrainingState::Load(const store::Store& store, double holdout_fraction, T
     }
     if (batch.back().seq > *cursor) break;
   }
-  if (after != *cursor) {
-    return Status::Corruption("event log ends at " + std::to_string(after) + " but the cursor is " +
-                              std::to_string(*cursor));
+  // Events may be missing below the cursor (a user's erased by ForgetUser, or lost and set
+  // aside by a repair); a cursor beyond the log's recorded end is damage.
+  if (*cursor > store.LastSequence()) {
+    return Status::Corruption("event log ends at " + std::to_string(store.LastSequence()) +
+                              " but the cursor is " + std::to_string(*cursor));
   }
   if (state.users_.size() != stored_users || state.items_.size() != stored_items) {
     return Status::Corruption(

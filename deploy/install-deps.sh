@@ -11,6 +11,8 @@ PACKAGES=(
   libeigen3-dev librocksdb-dev prometheus-cpp-dev
   libcli11-dev libspdlog-dev libtomlplusplus-dev
   libgtest-dev libgmock-dev libbenchmark-dev
+  # events from NATS JetStream: the C client, and the server the tests and benchmarks run
+  libnats-dev nats-server
   # fuzzing (the Fuzz build type and CI's short fuzz runs): clang with libFuzzer
   clang libfuzzer-14-dev
   # tests and demo: a real Prometheus (promtool), Python reference checks and clients

@@ -1,0 +1,521 @@
+#include "trainer/online/jetstream_source.h"
+
+#include <nats/nats.h>
+#include <prometheus/counter.h>
+#include <prometheus/gauge.h>
+#include <prometheus/registry.h>
+#include <spdlog/spdlog.h>
+
+#include <array>
+#include <chrono>
+#include <deque>
+#include <fstream>
+#include <future>
+#include <mutex>
+#include <sstream>
+#include <utility>
+
+#include "plumb/v1/ingest.pb.h"
+#include "rpc/message_decoding.h"
+
+namespace plumb::online {
+namespace {
+
+int64_t NowMs() {
+  return std::chrono::duration_cast<std::chrono::milliseconds>(
+             std::chrono::system_clock::now().time_since_epoch())
+      .count();
+}
+
+std::string NatsError(natsStatus s, jsErrCode jerr = static_cast<jsErrCode>(0)) {
+  std::string text = natsStatus_GetText(s);
+  if (const char* last = nats_GetLastError(nullptr); last != nullptr && last[0] != '\0') {
+    text += std::string(" (") + last + ")";
+  }
+  if (jerr != 0) text += " [JetStream error " + std::to_string(static_cast<int>(jerr)) + "]";
+  return text;
+}
+
+Status ReadToken(const std::string& path, std::string* token) {
+  std::ifstream in(path);
+  if (!in) return Status::InvalidArgument("cannot read the JetStream token file " + path);
+  std::stringstream text;
+  text << in.rdbuf();
+  std::string s = text.str();
+  const size_t begin = s.find_first_not_of(" \t\r\n");
+  const size_t end = s.find_last_not_of(" \t\r\n");
+  if (begin == std::string::npos) {
+    return Status::InvalidArgument("the JetStream token file " + path + " is empty");
+  }
+  *token = s.substr(begin, end - begin + 1);
+  return Status::Ok();
+}
+
+bool HasUnknownFields(const google::protobuf::Message& m) {
+  return !m.GetReflection()->GetUnknownFields(m).empty();
+}
+
+}  // namespace
+
+const char* TerminateReasonLabel(TerminateReason reason) {
+  switch (reason) {
+    case TerminateReason::kOversized:
+      return "oversized";
+    case TerminateReason::kUndecodable:
+      return "undecodable";
+    case TerminateReason::kWrongType:
+      return "wrong_type";
+    case TerminateReason::kTooManyEvents:
+      return "too_many_events";
+    case TerminateReason::kNoValidEvent:
+      return "no_valid_event";
+  }
+  return "unknown";
+}
+
+struct JetStreamSource::Impl {
+  // Messages pulled together and handed to the committer as one submission.
+  struct Pull {
+    std::future<CommitOutcome> outcome;
+    std::vector<natsMsg*> messages;  // owned; acked (or nak'ed) when the outcome is known
+  };
+
+  Impl(const JetStreamOptions& o, GroupCommitter* c, TrainMetrics* m)
+      : options(o), committer(c), metrics(m) {
+    auto& terminated_family = prometheus::BuildCounter()
+                                  .Name("plumb_jetstream_messages_terminated_total")
+                                  .Help(
+                                      "JetStream messages terminated (never redelivered) "
+                                      "because they can never be stored, by reason")
+                                  .Register(*m->registry());
+    for (int r = 0; r < kNumTerminateReasons; ++r) {
+      terminated_counters[r] = &terminated_family.Add(
+          {{"reason", TerminateReasonLabel(static_cast<TerminateReason>(r))}});
+    }
+    acked_counter = &prometheus::BuildCounter()
+                         .Name("plumb_jetstream_messages_acked_total")
+                         .Help(
+                             "JetStream messages acknowledged after their events were "
+                             "durable in the event log")
+                         .Register(*m->registry())
+                         .Add({});
+    redelivered_counter = &prometheus::BuildCounter()
+                               .Name("plumb_jetstream_redelivered_messages_total")
+                               .Help(
+                                   "JetStream messages received more than once (their "
+                                   "events come back as duplicates)")
+                               .Register(*m->registry())
+                               .Add({});
+    connected_gauge = &prometheus::BuildGauge()
+                           .Name("plumb_jetstream_connected")
+                           .Help(
+                               "1 while plumb-train is connected to a NATS server and "
+                               "subscribed to its consumer")
+                           .Register(*m->registry())
+                           .Add({});
+  }
+
+  Status Configure() {
+    if (options.servers.empty()) return Status::InvalidArgument("JetStream: no server URL");
+    if (options.stream.empty() || options.subject.empty() || options.consumer.empty()) {
+      return Status::InvalidArgument("JetStream: stream, subject and consumer must be named");
+    }
+    if (natsOptions_Create(&nats_options) != NATS_OK) {
+      return Status::Unavailable("JetStream: cannot create the client options");
+    }
+    std::vector<const char*> urls;
+    for (const std::string& u : options.servers) urls.push_back(u.c_str());
+    auto check = [](natsStatus s, const std::string& what) {
+      return s == NATS_OK ? Status::Ok()
+                          : Status::InvalidArgument("JetStream: " + what + ": " + NatsError(s));
+    };
+    PLUMB_RETURN_IF_ERROR(
+        check(natsOptions_SetServers(nats_options, urls.data(), static_cast<int>(urls.size())),
+              "server list"));
+    natsOptions_SetName(nats_options, "plumb-train");
+    natsOptions_SetMaxReconnect(nats_options, -1);  // forever
+    natsOptions_SetReconnectWait(nats_options, 250);
+    natsOptions_SetDisconnectedCB(nats_options, &Impl::OnDisconnected, this);
+    natsOptions_SetReconnectedCB(nats_options, &Impl::OnReconnected, this);
+    if (!options.token_file.empty()) {
+      std::string token;
+      PLUMB_RETURN_IF_ERROR(ReadToken(options.token_file, &token));
+      PLUMB_RETURN_IF_ERROR(check(natsOptions_SetToken(nats_options, token.c_str()), "token"));
+    }
+    if (!options.credentials_file.empty()) {
+      std::ifstream probe(options.credentials_file);
+      if (!probe) {
+        return Status::InvalidArgument("JetStream: cannot read the credentials file " +
+                                       options.credentials_file);
+      }
+      PLUMB_RETURN_IF_ERROR(check(natsOptions_SetUserCredentialsFromFiles(
+                                      nats_options, options.credentials_file.c_str(), nullptr),
+                                  "credentials file"));
+    }
+    if (!options.tls_ca.empty() || !options.tls_cert.empty()) {
+      PLUMB_RETURN_IF_ERROR(check(natsOptions_SetSecure(nats_options, true), "TLS"));
+      if (!options.tls_ca.empty()) {
+        PLUMB_RETURN_IF_ERROR(
+            check(natsOptions_LoadCATrustedCertificates(nats_options, options.tls_ca.c_str()),
+                  "TLS CA " + options.tls_ca));
+      }
+      if (!options.tls_cert.empty()) {
+        PLUMB_RETURN_IF_ERROR(
+            check(natsOptions_LoadCertificatesChain(nats_options, options.tls_cert.c_str(),
+                                                    options.tls_key.c_str()),
+                  "TLS certificate " + options.tls_cert));
+      }
+    }
+    return Status::Ok();
+  }
+
+  static void OnDisconnected(natsConnection*, void* closure) {
+    auto* self = static_cast<Impl*>(closure);
+    self->connected_gauge->Set(0);
+    spdlog::warn("JetStream: disconnected from NATS; reconnecting");
+  }
+  static void OnReconnected(natsConnection* nc, void* closure) {
+    auto* self = static_cast<Impl*>(closure);
+    char url[256] = {0};
+    natsConnection_GetConnectedUrl(nc, url, sizeof url);
+    self->connected_gauge->Set(1);
+    spdlog::info("JetStream: reconnected to {}", url);
+  }
+
+  // Connects and binds to the durable consumer (creating it when missing). Logs and
+  // returns false on failure; the caller retries.
+  bool Connect() {
+    natsStatus s = natsConnection_Connect(&nc, nats_options);
+    if (s != NATS_OK) return Failed("cannot connect to " + Servers(), s);
+    jsOptions js_options;
+    jsOptions_Init(&js_options);
+    if ((s = natsConnection_JetStream(&js, nc, &js_options)) != NATS_OK) {
+      return Failed("no JetStream context", s);
+    }
+    jsErrCode jerr = static_cast<jsErrCode>(0);
+    jsConsumerInfo* info = nullptr;
+    s = js_GetConsumerInfo(&info, js, options.stream.c_str(), options.consumer.c_str(), nullptr,
+                           &jerr);
+    if (s == NATS_NOT_FOUND || jerr == JSConsumerNotFoundErr) {
+      jsConsumerConfig config;
+      jsConsumerConfig_Init(&config);
+      config.Durable = options.consumer.c_str();
+      config.FilterSubject = options.subject.c_str();
+      config.AckPolicy = js_AckExplicit;
+      config.DeliverPolicy = js_DeliverAll;
+      config.AckWait = options.ack_wait_ms * 1000000;  // nanoseconds
+      config.MaxAckPending =
+          static_cast<int64_t>(options.fetch_batch) * (options.max_pulls_in_flight + 2);
+      jerr = static_cast<jsErrCode>(0);
+      s = js_AddConsumer(&info, js, options.stream.c_str(), &config, nullptr, &jerr);
+      if (s == NATS_OK) {
+        spdlog::info("JetStream: created the durable consumer {} on stream {} (subject {})",
+                     options.consumer, options.stream, options.subject);
+      }
+    }
+    if (s != NATS_OK) {
+      return Failed(
+          "cannot find or create the consumer " + options.consumer + " on stream " + options.stream,
+          s, jerr);
+    }
+    jsConsumerInfo_Destroy(info);
+    jsSubOptions sub_options;
+    jsSubOptions_Init(&sub_options);
+    sub_options.Stream = options.stream.c_str();
+    sub_options.Consumer = options.consumer.c_str();
+    jerr = static_cast<jsErrCode>(0);
+    s = js_PullSubscribe(&sub, js, options.subject.c_str(), options.consumer.c_str(), nullptr,
+                         &sub_options, &jerr);
+    if (s != NATS_OK) return Failed("cannot bind to the consumer " + options.consumer, s, jerr);
+    char url[256] = {0};
+    natsConnection_GetConnectedUrl(nc, url, sizeof url);
+    spdlog::info("JetStream: consuming stream {} subject {} as {} via {}", options.stream,
+                 options.subject, options.consumer, url);
+    failing = false;
+    connected_gauge->Set(1);
+    return true;
+  }
+
+  bool Failed(const std::string& what, natsStatus s, jsErrCode jerr = static_cast<jsErrCode>(0)) {
+    if (!failing)
+      spdlog::warn("JetStream: {}: {}; retrying every second", what, NatsError(s, jerr));
+    failing = true;
+    Disconnect();
+    return false;
+  }
+
+  void Disconnect() {
+    if (sub != nullptr) natsSubscription_Destroy(sub);  // keeps the durable consumer
+    sub = nullptr;
+    if (js != nullptr) jsCtx_Destroy(js);
+    js = nullptr;
+    if (nc != nullptr) {
+      natsConnection_Close(nc);
+      natsConnection_Destroy(nc);
+    }
+    nc = nullptr;
+    connected_gauge->Set(0);
+  }
+
+  std::string Servers() const {
+    std::string all;
+    for (const std::string& u : options.servers) all += (all.empty() ? "" : ",") + u;
+    return all;
+  }
+
+  void Terminate(natsMsg* msg, TerminateReason reason, const std::string& detail) {
+    natsMsg_Term(msg, nullptr);
+    const int r = static_cast<int>(reason);
+    terminated_counters[r]->Increment();
+    terminated_totals[r].fetch_add(1);
+    // One line per reason and second at most: a hostile publisher must not flood the log.
+    const int64_t now = NowMs();
+    if (now - last_term_log_ms[r] >= 1000) {
+      last_term_log_ms[r] = now;
+      spdlog::warn("JetStream: terminated a message on {} ({}): {}", natsMsg_GetSubject(msg),
+                   TerminateReasonLabel(reason), detail);
+    }
+    natsMsg_Destroy(msg);
+  }
+
+  // Decodes one message into `events` (appending). Returns true when the message is to be
+  // acked once `events` are durable; false when it was terminated (and destroyed).
+  bool Decode(natsMsg* msg, int64_t received_ms, std::vector<store::EventInput>* events) {
+    const int length = natsMsg_GetDataLength(msg);
+    if (static_cast<size_t>(length) > options.max_message_bytes) {
+      Terminate(msg, TerminateReason::kOversized,
+                std::to_string(length) + " bytes; the limit is " +
+                    std::to_string(options.max_message_bytes));
+      return false;
+    }
+    const std::string_view bytes(natsMsg_GetData(msg), static_cast<size_t>(length));
+    const char* payload = nullptr;
+    bool batch = false;
+    if (natsMsgHeader_Get(msg, "Plumb-Payload", &payload) == NATS_OK && payload != nullptr) {
+      const std::string_view kind(payload);
+      if (kind == "batch") {
+        batch = true;
+      } else if (kind != "event") {
+        Terminate(msg, TerminateReason::kWrongType,
+                  "Plumb-Payload is '" + std::string(kind) + "'; expected event or batch");
+        return false;
+      }
+    }
+    const google::protobuf::Descriptor& type = batch ? *plumb::v1::PublishBatchRequest::descriptor()
+                                                     : *plumb::v1::InteractionEvent::descriptor();
+    if (std::string why = rpc::ExplainUndecodable(type, bytes); !why.empty()) {
+      Terminate(msg, TerminateReason::kUndecodable, type.full_name() + ": " + why);
+      return false;
+    }
+    // The id of the message: the publisher's Nats-Msg-Id, else the stream sequence.
+    std::string message_id;
+    const char* header_id = nullptr;
+    if (natsMsgHeader_Get(msg, "Nats-Msg-Id", &header_id) == NATS_OK && header_id != nullptr) {
+      message_id = header_id;
+    }
+    jsMsgMetaData* meta = nullptr;
+    if (natsMsg_GetMetaData(&meta, msg) == NATS_OK) {
+      if (meta->NumDelivered > 1) redelivered_counter->Increment();
+      if (message_id.empty()) {
+        message_id = options.stream + "/" + std::to_string(meta->Sequence.Stream);
+      }
+      jsMsgMetaData_Destroy(meta);
+    }
+    const size_t first = events->size();
+    size_t received = 0, rejected = 0;
+    auto add = [&](plumb::v1::InteractionEvent* wire, const std::string& fallback_id) {
+      ++received;
+      store::EventInput event;
+      event.user_id = std::move(*wire->mutable_user_id());
+      event.item_id = std::move(*wire->mutable_item_id());
+      event.event_id =
+          wire->event_id().empty() ? fallback_id : std::move(*wire->mutable_event_id());
+      event.timestamp_ms = wire->timestamp_ms();
+      event.weight = wire->weight();
+      EventRejection why;
+      if (!ValidateEvent(&event, received_ms, &why, options.max_future_skew_ms)) {
+        metrics->CountRejected(why.reason);
+        ++rejected;
+        return;
+      }
+      events->push_back(std::move(event));
+    };
+    if (batch) {
+      plumb::v1::PublishBatchRequest request;
+      if (!request.ParseFromArray(bytes.data(), static_cast<int>(bytes.size()))) {
+        Terminate(msg, TerminateReason::kUndecodable, "not a PublishBatchRequest");
+        return false;
+      }
+      bool unknown = HasUnknownFields(request);
+      for (const auto& e : request.events()) unknown = unknown || HasUnknownFields(e);
+      if (unknown) {
+        Terminate(msg, TerminateReason::kWrongType,
+                  "fields a plumb.v1.PublishBatchRequest does not have");
+        return false;
+      }
+      if (static_cast<size_t>(request.events_size()) > options.max_message_events) {
+        Terminate(msg, TerminateReason::kTooManyEvents,
+                  std::to_string(request.events_size()) + " events; the limit is " +
+                      std::to_string(options.max_message_events));
+        return false;
+      }
+      for (int i = 0; i < request.events_size(); ++i) {
+        add(request.mutable_events(i), message_id + "/" + std::to_string(i));
+      }
+    } else {
+      plumb::v1::InteractionEvent wire;
+      if (!wire.ParseFromArray(bytes.data(), static_cast<int>(bytes.size()))) {
+        Terminate(msg, TerminateReason::kUndecodable, "not an InteractionEvent");
+        return false;
+      }
+      if (HasUnknownFields(wire)) {
+        Terminate(msg, TerminateReason::kWrongType,
+                  "fields a plumb.v1.InteractionEvent does not have");
+        return false;
+      }
+      add(&wire, message_id);
+    }
+    if (received == 0 || rejected == received) {
+      events->resize(first);
+      Terminate(msg, TerminateReason::kNoValidEvent,
+                received == 0 ? "an empty batch"
+                              : "all " + std::to_string(received) + " events failed validation");
+      return false;
+    }
+    return true;
+  }
+
+  // Waits for the oldest pull's write and acks (or naks) its messages.
+  void Settle() {
+    Pull pull = std::move(in_flight.front());
+    in_flight.pop_front();
+    const CommitOutcome outcome = pull.outcome.get();
+    if (outcome.status.ok()) {
+      for (natsMsg* m : pull.messages) {
+        natsMsg_Ack(m, nullptr);
+        natsMsg_Destroy(m);
+      }
+      acked_counter->Increment(static_cast<double>(pull.messages.size()));
+      acked_total.fetch_add(pull.messages.size());
+      write_failing = false;
+      return;
+    }
+    if (!write_failing) {
+      spdlog::error(
+          "JetStream: the event log refused a write ({}); messages come back after "
+          "a delay, nothing is acknowledged until the log is writable",
+          outcome.status.ToString());
+    }
+    write_failing = true;
+    for (natsMsg* m : pull.messages) {
+      natsMsg_NakWithDelay(m, 1000, nullptr);
+      natsMsg_Destroy(m);
+    }
+  }
+
+  void Run() {
+    while (!stopping.load()) {
+      if (sub == nullptr && !Connect()) {
+        for (int i = 0; i < 10 && !stopping.load(); ++i) {
+          std::this_thread::sleep_for(std::chrono::milliseconds(100));
+        }
+        continue;
+      }
+      while (!in_flight.empty() && in_flight.front().outcome.wait_for(std::chrono::seconds(0)) ==
+                                       std::future_status::ready) {
+        Settle();
+      }
+      natsMsgList list{nullptr, 0};
+      jsErrCode jerr = static_cast<jsErrCode>(0);
+      const natsStatus s = natsSubscription_Fetch(&list, sub, options.fetch_batch, 250, &jerr);
+      if (s != NATS_OK && list.Count == 0) {
+        natsMsgList_Destroy(&list);
+        if (s == NATS_TIMEOUT) continue;
+        if (s == NATS_CONNECTION_CLOSED || s == NATS_INVALID_SUBSCRIPTION) {
+          Failed("the subscription ended", s, jerr);
+          continue;
+        }
+        // Leader elections, a reconnect in progress, ... : log once per episode, retry.
+        if (!fetch_failing)
+          spdlog::warn("JetStream: pull failed: {}; retrying", NatsError(s, jerr));
+        fetch_failing = true;
+        std::this_thread::sleep_for(std::chrono::milliseconds(100));
+        continue;
+      }
+      if (fetch_failing) spdlog::info("JetStream: pulling again");
+      fetch_failing = false;
+      const int64_t received_ms = NowMs();
+      Pull pull;
+      std::vector<store::EventInput> events;
+      for (int i = 0; i < list.Count; ++i) {
+        natsMsg* m = list.Msgs[i];
+        list.Msgs[i] = nullptr;  // owned here now
+        if (m == nullptr) continue;
+        if (Decode(m, received_ms, &events)) pull.messages.push_back(m);
+      }
+      natsMsgList_Destroy(&list);
+      if (pull.messages.empty()) continue;
+      pull.outcome = committer->Submit(std::move(events));
+      in_flight.push_back(std::move(pull));
+      while (in_flight.size() > static_cast<size_t>(options.max_pulls_in_flight)) Settle();
+    }
+    while (!in_flight.empty()) Settle();
+    Disconnect();
+  }
+
+  const JetStreamOptions options;
+  GroupCommitter* const committer;
+  TrainMetrics* const metrics;
+  natsOptions* nats_options = nullptr;
+  natsConnection* nc = nullptr;
+  jsCtx* js = nullptr;
+  natsSubscription* sub = nullptr;
+  std::deque<Pull> in_flight;
+  bool failing = false, fetch_failing = false, write_failing = false;
+  std::array<int64_t, kNumTerminateReasons> last_term_log_ms{};
+
+  std::array<prometheus::Counter*, kNumTerminateReasons> terminated_counters{};
+  prometheus::Counter* acked_counter = nullptr;
+  prometheus::Counter* redelivered_counter = nullptr;
+  prometheus::Gauge* connected_gauge = nullptr;
+  std::array<std::atomic<uint64_t>, kNumTerminateReasons> terminated_totals{};
+  std::atomic<uint64_t> acked_total{0};
+
+  std::atomic<bool> stopping{false};
+  std::mutex stop_mu;
+  std::thread thread;
+};
+
+JetStreamSource::JetStreamSource(const JetStreamOptions& options, GroupCommitter* committer,
+                                 TrainMetrics* metrics)
+    : impl_(std::make_unique<Impl>(options, committer, metrics)) {}
+
+JetStreamSource::~JetStreamSource() {
+  Stop();
+  if (impl_->nats_options != nullptr) natsOptions_Destroy(impl_->nats_options);
+}
+
+Status JetStreamSource::Start() {
+  PLUMB_RETURN_IF_ERROR(impl_->Configure());
+  impl_->thread = std::thread([this] { impl_->Run(); });
+  return Status::Ok();
+}
+
+void JetStreamSource::Stop() {
+  std::lock_guard<std::mutex> lock(impl_->stop_mu);
+  impl_->stopping.store(true);
+  if (impl_->thread.joinable()) impl_->thread.join();
+}
+
+std::string JetStreamSource::Describe() const {
+  return "JetStream stream " + impl_->options.stream + " subject " + impl_->options.subject +
+         " (durable consumer " + impl_->options.consumer + ") via " + impl_->Servers();
+}
+
+uint64_t JetStreamSource::acked() const { return impl_->acked_total.load(); }
+
+uint64_t JetStreamSource::terminated(TerminateReason reason) const {
+  return impl_->terminated_totals[static_cast<int>(reason)].load();
+}
+
+}  // namespace plumb::online

@@ -6,8 +6,11 @@
 #include <prometheus/registry.h>
 #include <spdlog/spdlog.h>
 
+#include <algorithm>
 #include <array>
+#include <charconv>
 #include <chrono>
+#include <cstring>
 #include <deque>
 #include <fstream>
 #include <future>
@@ -49,6 +52,28 @@ Status ReadToken(const std::string& path, std::string* token) {
   }
   *token = s.substr(begin, end - begin + 1);
   return Status::Ok();
+}
+
+// A delivery's reply subject carries its metadata: $JS.ACK.<stream>.<consumer>.<delivered>.
+// <stream seq>.<consumer seq>.<time>.<pending>, or, from newer servers, with a domain and an
+// account hash after "$JS.ACK" (and a token more at the end).
+void ParseAckSubject(const char* reply, uint64_t* delivered, uint64_t* stream_sequence) {
+  std::vector<std::string_view> tokens;
+  std::string_view rest = reply != nullptr ? reply : "";
+  while (!rest.empty()) {
+    const size_t dot = rest.find('.');
+    tokens.push_back(rest.substr(0, dot));
+    rest = dot == std::string_view::npos ? std::string_view() : rest.substr(dot + 1);
+  }
+  if (tokens.size() < 9 || tokens[0] != "$JS" || tokens[1] != "ACK") return;
+  const size_t at = tokens.size() == 9 ? 4 : 6;
+  auto number = [](std::string_view t) {
+    uint64_t v = 0;
+    std::from_chars(t.data(), t.data() + t.size(), v);
+    return v;
+  };
+  *delivered = number(tokens[at]);
+  *stream_sequence = number(tokens[at + 1]);
 }
 
 bool HasUnknownFields(const google::protobuf::Message& m) {
@@ -219,14 +244,19 @@ struct JetStreamSource::Impl {
           s, jerr);
     }
     jsConsumerInfo_Destroy(info);
-    jsSubOptions sub_options;
-    jsSubOptions_Init(&sub_options);
-    sub_options.Stream = options.stream.c_str();
-    sub_options.Consumer = options.consumer.c_str();
-    jerr = static_cast<jsErrCode>(0);
-    s = js_PullSubscribe(&sub, js, options.subject.c_str(), options.consumer.c_str(), nullptr,
-                         &sub_options, &jerr);
-    if (s != NATS_OK) return Failed("cannot bind to the consumer " + options.consumer, s, jerr);
+    // Deliveries come to an inbox of our own, and pull requests are published by hand
+    // (see PullRequest): libnats 3.4.1's natsSubscription_Fetch writes past the end of its
+    // message array when deliveries of an expired pull arrive during the next one.
+    natsInbox* new_inbox = nullptr;
+    if ((s = natsInbox_Create(&new_inbox)) != NATS_OK) return Failed("no inbox", s);
+    inbox = new_inbox;
+    natsInbox_Destroy(new_inbox);
+    if ((s = natsConnection_SubscribeSync(&sub, nc, inbox.c_str())) != NATS_OK) {
+      return Failed("cannot subscribe to the delivery inbox", s);
+    }
+    natsSubscription_SetPendingLimits(sub, -1, -1);  // bounded by max_ack_pending
+    next_subject = "$JS.API.CONSUMER.MSG.NEXT." + options.stream + "." + options.consumer;
+    outstanding = false;
     char url[256] = {0};
     natsConnection_GetConnectedUrl(nc, url, sizeof url);
     spdlog::info("JetStream: consuming stream {} subject {} as {} via {}", options.stream,
@@ -263,8 +293,17 @@ struct JetStreamSource::Impl {
     return all;
   }
 
+  // The JetStream acknowledgement protocol: a body published to the message's reply
+  // subject ("+ACK", "+TERM", "-NAK {...}").
+  void Reply(natsMsg* msg, const char* body) {
+    const char* reply = natsMsg_GetReply(msg);
+    if (reply != nullptr && reply[0] != '\0') {
+      natsConnection_Publish(nc, reply, body, static_cast<int>(std::strlen(body)));
+    }
+  }
+
   void Terminate(natsMsg* msg, TerminateReason reason, const std::string& detail) {
-    natsMsg_Term(msg, nullptr);
+    Reply(msg, "+TERM");
     const int r = static_cast<int>(reason);
     terminated_counters[r]->Increment();
     terminated_totals[r].fetch_add(1);
@@ -313,14 +352,10 @@ struct JetStreamSource::Impl {
     if (natsMsgHeader_Get(msg, "Nats-Msg-Id", &header_id) == NATS_OK && header_id != nullptr) {
       message_id = header_id;
     }
-    jsMsgMetaData* meta = nullptr;
-    if (natsMsg_GetMetaData(&meta, msg) == NATS_OK) {
-      if (meta->NumDelivered > 1) redelivered_counter->Increment();
-      if (message_id.empty()) {
-        message_id = options.stream + "/" + std::to_string(meta->Sequence.Stream);
-      }
-      jsMsgMetaData_Destroy(meta);
-    }
+    uint64_t delivered = 0, stream_sequence = 0;
+    ParseAckSubject(natsMsg_GetReply(msg), &delivered, &stream_sequence);
+    if (delivered > 1) redelivered_counter->Increment();
+    if (message_id.empty()) message_id = options.stream + "/" + std::to_string(stream_sequence);
     const size_t first = events->size();
     size_t received = 0, rejected = 0;
     auto add = [&](plumb::v1::InteractionEvent* wire, const std::string& fallback_id) {
@@ -392,7 +427,7 @@ struct JetStreamSource::Impl {
     const CommitOutcome outcome = pull.outcome.get();
     if (outcome.status.ok()) {
       for (natsMsg* m : pull.messages) {
-        natsMsg_Ack(m, nullptr);
+        Reply(m, "+ACK");
         natsMsg_Destroy(m);
       }
       acked_counter->Increment(static_cast<double>(pull.messages.size()));
@@ -408,12 +443,66 @@ struct JetStreamSource::Impl {
     }
     write_failing = true;
     for (natsMsg* m : pull.messages) {
-      natsMsg_NakWithDelay(m, 1000, nullptr);
+      Reply(m, "-NAK {\"delay\": 1000000000}");  // again in 1 s
       natsMsg_Destroy(m);
     }
   }
 
+  // Asks the consumer for up to fetch_batch messages, delivered to our inbox within
+  // kPullExpiresMs. One request is outstanding at a time (more only when a late status of an
+  // earlier one ends the current one early).
+  static constexpr int64_t kPullExpiresMs = 500;
+  void PullRequest() {
+    const std::string body = "{\"batch\": " + std::to_string(options.fetch_batch) +
+                             ", \"expires\": " + std::to_string(kPullExpiresMs * 1000000) + "}";
+    const natsStatus s = natsConnection_PublishRequest(nc, next_subject.c_str(), inbox.c_str(),
+                                                       body.data(), static_cast<int>(body.size()));
+    outstanding = s == NATS_OK;
+    remaining = options.fetch_batch;
+    pull_deadline_ms = NowMs() + kPullExpiresMs + 250;
+  }
+
+  // What a status message (no payload, header Status) says about the pull: 408 the request
+  // expired, 404 nothing to deliver, 409 the server ended it (e.g. a leader change, too many
+  // waiting requests), 503 no JetStream answers (the consumer's leader is being elected).
+  void OnStatus(natsMsg* msg) {
+    const char* code = nullptr;
+    natsMsgHeader_Get(msg, "Status", &code);
+    const std::string status = code != nullptr ? code : "";
+    outstanding = false;
+    if (status == "409" || status == "503") {
+      const char* description = nullptr;
+      natsMsgHeader_Get(msg, "Description", &description);
+      if (!fetch_failing) {
+        spdlog::warn("JetStream: pull ended by the server ({} {}); retrying", status,
+                     description != nullptr ? description : "");
+      }
+      fetch_failing = true;
+      std::this_thread::sleep_for(std::chrono::milliseconds(100));
+    }
+  }
+
+  // Decodes what was collected, hands the events to the committer, and settles finished
+  // writes.
+  void Flush(std::vector<natsMsg*>* collected) {
+    if (collected->empty()) return;
+    if (fetch_failing) spdlog::info("JetStream: pulling again");
+    fetch_failing = false;
+    const int64_t received_ms = NowMs();
+    Pull pull;
+    std::vector<store::EventInput> events;
+    for (natsMsg* m : *collected) {
+      if (Decode(m, received_ms, &events)) pull.messages.push_back(m);
+    }
+    collected->clear();
+    if (pull.messages.empty()) return;
+    pull.outcome = committer->Submit(std::move(events));
+    in_flight.push_back(std::move(pull));
+    while (in_flight.size() > static_cast<size_t>(options.max_pulls_in_flight)) Settle();
+  }
+
   void Run() {
+    std::vector<natsMsg*> collected;
     while (!stopping.load()) {
       if (sub == nullptr && !Connect()) {
         for (int i = 0; i < 10 && !stopping.load(); ++i) {
@@ -425,41 +514,46 @@ struct JetStreamSource::Impl {
                                        std::future_status::ready) {
         Settle();
       }
-      natsMsgList list{nullptr, 0};
-      jsErrCode jerr = static_cast<jsErrCode>(0);
-      const natsStatus s = natsSubscription_Fetch(&list, sub, options.fetch_batch, 250, &jerr);
-      if (s != NATS_OK && list.Count == 0) {
-        natsMsgList_Destroy(&list);
-        if (s == NATS_TIMEOUT) continue;
+      if (outstanding && NowMs() > pull_deadline_ms) outstanding = false;  // lost
+      if (!outstanding) PullRequest();
+      // Waiting: briefly once something was collected (a trickle is written at once),
+      // otherwise until the request should have ended.
+      const int64_t wait_ms =
+          collected.empty()
+              ? std::max<int64_t>(1, std::min<int64_t>(pull_deadline_ms - NowMs(), 250))
+              : 2;
+      natsMsg* msg = nullptr;
+      const natsStatus s = natsSubscription_NextMsg(&msg, sub, wait_ms);
+      if (s == NATS_TIMEOUT) {
+        Flush(&collected);
+        continue;
+      }
+      if (s != NATS_OK) {
         if (s == NATS_CONNECTION_CLOSED || s == NATS_INVALID_SUBSCRIPTION) {
-          Failed("the subscription ended", s, jerr);
+          Flush(&collected);
+          Failed("the subscription ended", s);
           continue;
         }
-        // Leader elections, a reconnect in progress, ... : log once per episode, retry.
-        if (!fetch_failing)
-          spdlog::warn("JetStream: pull failed: {}; retrying", NatsError(s, jerr));
+        if (!fetch_failing) spdlog::warn("JetStream: receive failed: {}; retrying", NatsError(s));
         fetch_failing = true;
         std::this_thread::sleep_for(std::chrono::milliseconds(100));
         continue;
       }
-      if (fetch_failing) spdlog::info("JetStream: pulling again");
-      fetch_failing = false;
-      const int64_t received_ms = NowMs();
-      Pull pull;
-      std::vector<store::EventInput> events;
-      for (int i = 0; i < list.Count; ++i) {
-        natsMsg* m = list.Msgs[i];
-        list.Msgs[i] = nullptr;  // owned here now
-        if (m == nullptr) continue;
-        if (Decode(m, received_ms, &events)) pull.messages.push_back(m);
+      const char* reply = natsMsg_GetReply(msg);
+      if (natsMsg_GetDataLength(msg) == 0 && (reply == nullptr || reply[0] == '\0')) {
+        OnStatus(msg);  // a status, not a delivery (a delivery always has an ack subject)
+        natsMsg_Destroy(msg);
+        continue;
       }
-      natsMsgList_Destroy(&list);
-      if (pull.messages.empty()) continue;
-      pull.outcome = committer->Submit(std::move(events));
-      in_flight.push_back(std::move(pull));
-      while (in_flight.size() > static_cast<size_t>(options.max_pulls_in_flight)) Settle();
+      collected.push_back(msg);
+      if (--remaining <= 0 && outstanding) {
+        PullRequest();  // the next batch comes while this one is written
+      }
+      if (collected.size() >= static_cast<size_t>(options.fetch_batch)) Flush(&collected);
     }
+    Flush(&collected);
     while (!in_flight.empty()) Settle();
+    if (nc != nullptr) natsConnection_FlushTimeout(nc, 2000);  // the last acks
     Disconnect();
   }
 
@@ -470,6 +564,10 @@ struct JetStreamSource::Impl {
   natsConnection* nc = nullptr;
   jsCtx* js = nullptr;
   natsSubscription* sub = nullptr;
+  std::string inbox, next_subject;
+  bool outstanding = false;  // a pull request is being served
+  int remaining = 0;         // deliveries still due on it
+  int64_t pull_deadline_ms = 0;
   std::deque<Pull> in_flight;
   bool failing = false, fetch_failing = false, write_failing = false;
   std::array<int64_t, kNumTerminateReasons> last_term_log_ms{};

@@ -218,6 +218,30 @@ struct JetStreamSource::Impl {
       return Failed("no JetStream context", s);
     }
     jsErrCode jerr = static_cast<jsErrCode>(0);
+    if (options.create_replicas > 0) {
+      jsStreamInfo* stream_info = nullptr;
+      s = js_GetStreamInfo(&stream_info, js, options.stream.c_str(), nullptr, &jerr);
+      if (s == NATS_NOT_FOUND || jerr == JSStreamNotFoundErr) {
+        jsStreamConfig config;
+        jsStreamConfig_Init(&config);
+        config.Name = options.stream.c_str();
+        const char* subjects[] = {options.subject.c_str()};
+        config.Subjects = subjects;
+        config.SubjectsLen = 1;
+        config.Storage = js_FileStorage;
+        config.Replicas = options.create_replicas;
+        jerr = static_cast<jsErrCode>(0);
+        s = js_AddStream(&stream_info, js, &config, nullptr, &jerr);
+        if (s == NATS_OK) {
+          spdlog::info("JetStream: created the stream {} (subject {}, {} replicas)", options.stream,
+                       options.subject, options.create_replicas);
+        }
+      }
+      if (s != NATS_OK)
+        return Failed("cannot find or create the stream " + options.stream, s, jerr);
+      jsStreamInfo_Destroy(stream_info);
+      jerr = static_cast<jsErrCode>(0);
+    }
     jsConsumerInfo* info = nullptr;
     s = js_GetConsumerInfo(&info, js, options.stream.c_str(), options.consumer.c_str(), nullptr,
                            &jerr);

@@ -1,7 +1,8 @@
 // JetStreamSource: plumb-train's events from a NATS JetStream stream (EventSource).
 //
 // A durable pull consumer (options.consumer) on options.stream, filtered to options.subject,
-// is created if missing and otherwise resumed where it stopped. Each message carries one
+// is created if missing and otherwise resumed where it stopped; with options.create_replicas
+// the stream too is created when missing. Each message carries one
 // plumb.v1.InteractionEvent (protobuf encoding) or, with the header `Plumb-Payload: batch`, a
 // plumb.v1.PublishBatchRequest (`Plumb-Payload: event`, or no such header, is one event).
 //
@@ -61,6 +62,7 @@ struct JetStreamOptions {
   size_t max_message_bytes = 1 << 20;    // larger payloads are terminated (oversized)
   size_t max_message_events = 10000;     // larger batches are terminated (too_many_events)
   int64_t ack_wait_ms = 30000;           // the consumer's AckWait: redelivery of unacked
+  int create_replicas = 0;  // > 0: create a missing stream (file storage, this many replicas)
   int64_t max_future_skew_ms = kDefaultMaxFutureSkewMs;  // as for gRPC ingest
 };
 

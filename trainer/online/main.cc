@@ -97,6 +97,7 @@ JetStreamOptions JetStreamOptionsFrom(const TrainConfig& config, const IngestLim
   o.fetch_batch = static_cast<int>(config.jetstream_fetch_batch);
   o.max_message_bytes = config.jetstream_max_message_bytes;
   o.max_message_events = limits.max_batch_events;
+  o.create_replicas = static_cast<int>(config.jetstream_create_replicas);
   o.max_future_skew_ms = limits.max_future_skew_ms;
   plumb::ParseDuration(config.jetstream_ack_wait, &o.ack_wait_ms);  // checked by the config
   return o;

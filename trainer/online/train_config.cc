@@ -152,6 +152,9 @@ Status CheckTrainConfig(const TrainConfig& c) {
     if (c.jetstream_max_message_bytes < 1) {
       return bad("jetstream_max_message_bytes must be at least 1");
     }
+    if (c.jetstream_create_replicas > 5) {
+      return bad("jetstream_create_replicas must be within [0, 5] (JetStream's limit)");
+    }
     if (c.jetstream_tls_cert.empty() != c.jetstream_tls_key.empty()) {
       return bad("jetstream_tls_cert and jetstream_tls_key go together");
     }
@@ -272,6 +275,8 @@ std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConf
        "Larger messages are terminated (never redelivered) and counted");
   Bind(app, &keys, j, "jetstream_ack_wait", &c.jetstream_ack_wait,
        "The consumer's ack wait: an unacknowledged message is redelivered after this long");
+  Bind(app, &keys, j, "jetstream_create_replicas", &c.jetstream_create_replicas,
+       "Create the stream when missing, with this many replicas (0 = it must exist)");
 
   const std::string t = "Training";
   Bind(app, &keys, t, "objective", &o.objective, "cpr, bpr or bce");

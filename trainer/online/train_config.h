@@ -53,6 +53,7 @@ struct TrainConfig {
   uint32_t jetstream_fetch_batch = 1000;
   uint64_t jetstream_max_message_bytes = 1 << 20;
   std::string jetstream_ack_wait = "30s";
+  uint32_t jetstream_create_replicas = 0;  // > 0: create a missing stream with these replicas
 
   // The training loop. Its publish_every_seconds is set from publish_interval.
   OnlineOptions online;

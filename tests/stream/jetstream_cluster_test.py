@@ -17,6 +17,9 @@
    not acked are redelivered and recognised by event id. Then every published event must be
    in plumb-train's log exactly once (jetstream_tool verify reads the store), and plumb-train
    stops on SIGTERM with exit 0.
+5. Replacing the trainer's host (README "Beyond one machine"): the store copied when
+   plumb-train was killed (a backup that lacks the later events) plus a new durable consumer
+   replaying the stream ends with every event exactly once.
 
 Also the benchmark's engine (bench/system/jetstream_ingest.sh) via --bench: no hostile
 phase, no kill; prints events/s.
@@ -238,8 +241,8 @@ def main():
                      "--idle-replay-passes", "0", "--min-train-pairs", "1000000000",
                      "--dim", "8"]
 
-        def start_trainer():
-            p = subprocess.Popen(train_cmd, stdout=open(train_log, "a"),
+        def start_trainer(cmd=None):
+            p = subprocess.Popen(cmd or train_cmd, stdout=open(train_log, "a"),
                                  stderr=subprocess.STDOUT)
             wait_for("plumb-train to subscribe",
                      lambda: scrape(metrics).get("plumb_jetstream_connected") == 1, 90, logs)
@@ -321,7 +324,12 @@ def main():
                      >= 2 * args.events // 3 or publisher.poll() is not None, 180, logs)
             trainer.send_signal(signal.SIGKILL)
             trainer.wait()
-            print("killed plumb-train (SIGKILL) mid-stream; restarting it")
+            # The store as a crash left it is also the "backup" of the host-replacement
+            # recipe below: everything acknowledged after this point is missing from it.
+            backup = os.path.join(tmp, "backup")
+            shutil.copytree(os.path.join(tmp, "db"), backup)
+            print("killed plumb-train (SIGKILL) mid-stream; copied its store as a backup; "
+                  "restarting it")
             trainer = start_trainer()
         try:
             publisher.wait(timeout=200)
@@ -370,8 +378,36 @@ def main():
         other = int(re.search(r"other (\d+)", r.stdout).group(1))
         if other != (0 if args.bench else 1):
             fail("the log holds %d events not published by the test" % other, logs)
-        if not args.bench:
-            print("PASS (node n%d and plumb-train killed and restarted mid-stream)" % killed)
+        if args.bench:
+            return
+
+        # ---- replacing the trainer's host: a store backup plus a replay of the stream -----
+        # A new durable consumer (a new name) delivers the whole stream; what the backup
+        # already holds comes back as duplicates (the stream's age must stay within
+        # dedup_window), what it lacks is stored.
+        verify_backup = [tool, "verify", backup, "ev", str(args.events),
+                         str(args.events_per_message)]
+        r = subprocess.run(verify_backup, capture_output=True, text=True, timeout=120)
+        lacking = int(re.search(r"missing (\d+)", r.stdout).group(1))
+        if lacking == 0:
+            fail("the backup lacks nothing: the recipe would prove nothing", logs)
+        cmd = list(train_cmd)
+        cmd[cmd.index("--db") + 1] = backup
+        trainer = start_trainer(cmd + ["--jetstream-consumer", "plumb-train-replaced"])
+        wait_for("the replacement to hold every event",
+                 lambda: subprocess.run(verify_backup, capture_output=True,
+                                        timeout=60).returncode == 0, 120, logs)
+        trainer.send_signal(signal.SIGTERM)
+        if trainer.wait(60) != 0:
+            fail("the replacement plumb-train exited %d on SIGTERM" % trainer.returncode, logs)
+        trainer = None
+        r = subprocess.run(verify_backup, capture_output=True, text=True, timeout=120)
+        print("replacement from a backup lacking %d events, replaying the stream: %s"
+              % (lacking, r.stdout.strip()))
+        if r.returncode != 0 or int(re.search(r"other (\d+)", r.stdout).group(1)) != 1:
+            fail("host replacement: events lost or stored twice", logs)
+        print("PASS (node n%d and plumb-train killed and restarted mid-stream; host replaced "
+              "from a backup)" % killed)
     finally:
         if trainer is not None and trainer.poll() is None:
             trainer.kill()

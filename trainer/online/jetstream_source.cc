@@ -160,8 +160,16 @@ struct JetStreamSource::Impl {
     natsOptions_SetName(nats_options, "plumb-train");
     natsOptions_SetMaxReconnect(nats_options, -1);  // forever
     natsOptions_SetReconnectWait(nats_options, 250);
-    natsOptions_SetDisconnectedCB(nats_options, &Impl::OnDisconnected, this);
-    natsOptions_SetReconnectedCB(nats_options, &Impl::OnReconnected, this);
+    {
+      // Never freed (see CallbackState); kept reachable, so leak checkers stay quiet.
+      static std::mutex pool_mu;
+      static std::deque<CallbackState> pool;
+      std::lock_guard<std::mutex> lock(pool_mu);
+      callbacks = &pool.emplace_back();
+    }
+    callbacks->connected = connected_gauge;
+    natsOptions_SetDisconnectedCB(nats_options, &Impl::OnDisconnected, callbacks);
+    natsOptions_SetReconnectedCB(nats_options, &Impl::OnReconnected, callbacks);
     if (!options.token_file.empty()) {
       std::string token;
       PLUMB_RETURN_IF_ERROR(ReadToken(options.token_file, &token));
@@ -194,17 +202,34 @@ struct JetStreamSource::Impl {
     return Status::Ok();
   }
 
+  // What libnats' connection callbacks may touch. libnats runs them on its own thread and
+  // may still run one after natsConnection_Destroy returned, so this outlives the source:
+  // it lives as long as the process, and the source marks it dead when it stops.
+  struct CallbackState {
+    std::mutex mu;
+    bool alive = true;
+    prometheus::Gauge* connected = nullptr;
+  };
   static void OnDisconnected(natsConnection*, void* closure) {
-    auto* self = static_cast<Impl*>(closure);
-    self->connected_gauge->Set(0);
+    auto* state = static_cast<CallbackState*>(closure);
+    std::lock_guard<std::mutex> lock(state->mu);
+    if (!state->alive) return;
+    state->connected->Set(0);
     spdlog::warn("JetStream: disconnected from NATS; reconnecting");
   }
   static void OnReconnected(natsConnection* nc, void* closure) {
-    auto* self = static_cast<Impl*>(closure);
+    auto* state = static_cast<CallbackState*>(closure);
+    std::lock_guard<std::mutex> lock(state->mu);
+    if (!state->alive) return;
     char url[256] = {0};
     natsConnection_GetConnectedUrl(nc, url, sizeof url);
-    self->connected_gauge->Set(1);
+    state->connected->Set(1);
     spdlog::info("JetStream: reconnected to {}", url);
+  }
+  // Called once the consumer thread has ended: no callback touches the source afterwards.
+  void SilenceCallbacks() {
+    std::lock_guard<std::mutex> lock(callbacks->mu);
+    callbacks->alive = false;
   }
 
   // Connects and binds to the durable consumer (creating it when missing). Logs and
@@ -578,6 +603,7 @@ struct JetStreamSource::Impl {
     Flush(&collected);
     while (!in_flight.empty()) Settle();
     if (nc != nullptr) natsConnection_FlushTimeout(nc, 2000);  // the last acks
+    if (callbacks != nullptr) SilenceCallbacks();  // closing on purpose: no "reconnecting"
     Disconnect();
   }
 
@@ -600,6 +626,7 @@ struct JetStreamSource::Impl {
   prometheus::Counter* acked_counter = nullptr;
   prometheus::Counter* redelivered_counter = nullptr;
   prometheus::Gauge* connected_gauge = nullptr;
+  CallbackState* callbacks = nullptr;
   std::array<std::atomic<uint64_t>, kNumTerminateReasons> terminated_totals{};
   std::atomic<uint64_t> acked_total{0};
 
@@ -627,6 +654,7 @@ void JetStreamSource::Stop() {
   std::lock_guard<std::mutex> lock(impl_->stop_mu);
   impl_->stopping.store(true);
   if (impl_->thread.joinable()) impl_->thread.join();
+  if (impl_->callbacks != nullptr) impl_->SilenceCallbacks();
 }
 
 std::string JetStreamSource::Describe() const {

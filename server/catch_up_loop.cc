@@ -55,7 +55,7 @@ Status CatchUpLoop::RunOnce() {
   const auto start = std::chrono::steady_clock::now();
   loads_.fetch_add(1, std::memory_order_relaxed);
   std::shared_ptr<const Snapshot> next;
-  s = LoadSnapshot(*store_, active, &next);
+  s = LoadSnapshot(*store_, active, &next, options_.approx);
   const double seconds =
       std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
   if (s.IsNotFound()) {
@@ -82,9 +82,12 @@ Status CatchUpLoop::RunOnce() {
   current.reset();
   std::shared_ptr<const Snapshot> previous = holder_->Swap(next);
   swaps_.fetch_add(1, std::memory_order_relaxed);
-  spdlog::info("serving version {} ({} items, {} users, dim {}, {:.1f} MB) after {:.3f} s{}",
+  spdlog::info("serving version {} ({} items, {} users, dim {}, {:.1f} MB) after {:.3f} s{}{}",
                next->version(), next->num_items(), next->num_users(), next->dim(),
                next->memory_bytes() / 1e6, seconds,
+               next->dot_index() ? fmt::format(" (approximate indexes built in {:.1f} s)",
+                                               next->approx_build_seconds())
+                                 : std::string(),
                previous ? "; replaced version " + std::to_string(previous->version()) : "");
   previous.reset();
   if (options_.on_swap) options_.on_swap(*next, seconds);

@@ -38,6 +38,8 @@ struct CatchUpOptions {
   // without an error, so only this check notices. Zero: every round. Costs one read of
   // the MANIFEST and of each table file's footer and index.
   std::chrono::milliseconds file_check_interval{60000};
+  // Approximate indexes for large catalogues, built with each snapshot before its swap.
+  ApproxServingOptions approx;
 };
 
 class CatchUpLoop {

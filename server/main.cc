@@ -118,6 +118,7 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   std::atomic<RankingServer*> endpoint{nullptr};
   CatchUpOptions follow;
   follow.interval = std::chrono::milliseconds(config.catchup_interval_ms);
+  follow.approx = config.approx;
   follow.on_swap = [&endpoint](const Snapshot&, double) {
     if (RankingServer* server = endpoint.load()) server->SetServing(true);
   };

@@ -7,6 +7,9 @@
 // SimilarItems read the snapshot's int8 copy first and compute exact float scores only for
 // rows that might enter the top K (top_k_by_dot_pruned, top_k_by_cosine_pruned): the same
 // answer as a full float scan for less than half the work.
+// Large catalogues (Snapshot::dot_index() present): Recommend and SimilarItems ask the
+// approximate index for candidates instead and score only those exactly; calls whose
+// exclusions exceed the over-fetch bound, or that the index cannot fill, take the exact scan.
 // Per-request scratch (selector, score block, exclusion lists, fold-in vector) is thread-local and
 // reused, so a request on a warm thread allocates nothing on the scoring path.
 #pragma once
@@ -69,6 +72,8 @@ struct RankedList {
   uint64_t version = 0;
   bool folded_in = false;
   bool fallback = false;
+  // Answered from the snapshot's approximate index (membership approximate, scores exact).
+  bool approximate = false;
 };
 
 class Scorer {

@@ -16,8 +16,16 @@
 #include "server/fold_in.h"
 #include "server/ranker_service.h"
 #include "server/ranking_server.h"
+#include "server/snapshot.h"
 
 namespace plumb::server {
+
+// plumb-serve's defaults for approximate serving: catalogues from a million items.
+inline ApproxServingOptions DefaultApproxServing() {
+  ApproxServingOptions a;
+  a.min_items = 1'000'000;
+  return a;
+}
 
 struct ServeConfig {
   std::string db;                          // store directory (required)
@@ -37,7 +45,9 @@ struct ServeConfig {
   RankerLimits limits;
   FoldInOptions fold_in;
   ExposureWindowOptions exposure;
-  bool exposure_monitor = true;  // off: no window, no exposure gauges (for measuring its cost)
+  bool exposure_monitor = true;
+  // Approximate indexes for large catalogues (off below min_items).
+  ApproxServingOptions approx = DefaultApproxServing();  // off: no window, no exposure gauges (for measuring its cost)
 };
 
 // Parses argv (and the --config file it names) into *config.

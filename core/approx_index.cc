@@ -120,19 +120,25 @@ Status ApproxIndex::Build(MatrixView items, Metric metric, const ApproxIndexOpti
   insert(/*lower_priority=*/false);  // the caller's own thread keeps its priority
   for (std::thread& w : workers) w.join();
   if (failed) return Status::ResourceExhausted("approximate index: inserting an item failed");
-  hnsw.setEf(options.search_breadth);
+  // The search breadth is passed per call (Search asks hnswlib for max(want, breadth)
+  // results, which searches with ef = that number); the index's own ef stays minimal.
+  hnsw.setEf(1);
+  index->search_breadth_ = options.search_breadth;
   index->build_seconds_ =
       std::chrono::duration<double>(std::chrono::steady_clock::now() - begin).count();
   *out = std::move(index);
   return Status::Ok();
 }
 
-void ApproxIndex::Search(std::span<const float> query, uint32_t want, std::vector<float>* scratch,
-                         std::vector<uint32_t>* candidates) const {
+void ApproxIndex::Search(std::span<const float> query, uint32_t want, uint32_t breadth,
+                         std::vector<float>* scratch, std::vector<uint32_t>* candidates) const {
   if (want == 0) return;
+  if (breadth == 0) breadth = search_breadth_;
   scratch->resize(dim_);
   TransformRow(query, metric_, scratch->data());
-  auto found = graph_->hnsw->searchKnn(scratch->data(), std::min<size_t>(want, rows_));
+  const size_t keep = std::min<size_t>(want, rows_);
+  auto found = graph_->hnsw->searchKnn(scratch->data(), std::max<size_t>(keep, breadth));
+  while (found.size() > keep) found.pop();  // the farthest are on top
   while (!found.empty()) {
     candidates->push_back(static_cast<uint32_t>(found.top().second));
     found.pop();

@@ -58,11 +58,12 @@ class ApproxIndex {
   ApproxIndex& operator=(const ApproxIndex&) = delete;
 
   // Appends to *candidates the indexes of (about) the `want` rows closest to `query` under
-  // the index's metric, in no particular order. `query` has the matrix's dim. Thread-safe:
-  // any number of searches may run at once. Uses `scratch` (resized as needed) for the
-  // transformed query.
-  void Search(std::span<const float> query, uint32_t want, std::vector<float>* scratch,
-              std::vector<uint32_t>* candidates) const;
+  // the index's metric, in no particular order, searching with a candidate list of
+  // max(want, breadth) (breadth 0: the options' search_breadth). `query` has the matrix's
+  // dim. Thread-safe: any number of searches may run at once. Uses `scratch` (resized as
+  // needed) for the transformed query.
+  void Search(std::span<const float> query, uint32_t want, uint32_t breadth,
+              std::vector<float>* scratch, std::vector<uint32_t>* candidates) const;
 
   Metric metric() const { return metric_; }
   size_t size() const { return rows_; }
@@ -70,6 +71,8 @@ class ApproxIndex {
   size_t memory_bytes() const;
   // Seconds the build took.
   double build_seconds() const { return build_seconds_; }
+  // The options' search_breadth: what Search uses when the caller passes 0.
+  uint32_t search_breadth() const { return search_breadth_; }
 
  private:
   struct Graph;
@@ -79,6 +82,7 @@ class ApproxIndex {
   size_t rows_ = 0;
   size_t dim_ = 0;
   double build_seconds_ = 0;
+  uint32_t search_breadth_ = 0;
   std::unique_ptr<Graph> graph_;
 };
 

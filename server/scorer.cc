@@ -89,13 +89,16 @@ std::string UnknownUserMessage(const Snapshot& snap, std::string_view user_id,
 // or cosine when `norms` is given: the same expression as the exact scan's). False when the
 // exact scan must answer instead: no index, more exclusions than the snapshot's over-fetch
 // bound, or fewer than `count` survivors while the catalogue holds more eligible items.
-bool ApproxTopK(const Snapshot& snap, const ApproxIndex* index, std::span<const float> query,
-                std::span<const float> norms, uint32_t count, std::span<const uint32_t> excluded,
-                Scratch& s, RankedList* out) {
-  if (index == nullptr || count == 0 || excluded.size() > snap.max_overfetch()) return false;
+bool ApproxTopK(const Snapshot& snap, const ApproxIndex* index, const ApproxQueryOptions& how,
+                std::span<const float> query, std::span<const float> norms, uint32_t count,
+                std::span<const uint32_t> excluded, Scratch& s, RankedList* out) {
+  if (index == nullptr || !how.use_index || count == 0 ||
+      excluded.size() > snap.max_overfetch()) {
+    return false;
+  }
   s.approx_rows.clear();
-  index->Search(query, count + static_cast<uint32_t>(excluded.size()), &s.approx_query,
-                &s.approx_rows);
+  index->Search(query, count + static_cast<uint32_t>(excluded.size()), how.search_breadth,
+                &s.approx_query, &s.approx_rows);
   std::sort(s.approx_rows.begin(), s.approx_rows.end());
   std::erase_if(s.approx_rows, [excluded](uint32_t row) {
     return std::binary_search(excluded.begin(), excluded.end(), row);
@@ -127,10 +130,11 @@ bool ApproxTopK(const Snapshot& snap, const ApproxIndex* index, std::span<const 
 // The `count` best rows of the whole item matrix by dot product with `user`: the pruned exact
 // scan (int8 estimates first, exact float scores where they can matter; same answer as a full
 // float scan, see core/scan.h).
-Status ScanTopK(const Snapshot& snap, std::span<const float> user, uint32_t count,
+Status ScanTopK(const Snapshot& snap, const ApproxQueryOptions& how,
+                std::span<const float> user, uint32_t count,
                 std::span<const uint32_t> excluded, Deadline deadline, Scratch& s,
                 RankedList* out) {
-  if (ApproxTopK(snap, snap.dot_index(), user, {}, count, excluded, s, out)) {
+  if (ApproxTopK(snap, snap.dot_index(), how, user, {}, count, excluded, s, out)) {
     if (Passed(deadline)) return DeadlinePassed(snap.num_items(), snap.num_items());
     return Status::Ok();
   }
@@ -193,7 +197,7 @@ Status Scorer::Recommend(const Snapshot& snap, const RecommendQuery& query, Rank
           UnknownUserMessage(snap, query.user_id, query.recent_item_ids.size()));
     }
   }
-  return ScanTopK(snap, user, query.count, Union(user_exclusions, s.request_rows, &s.merged),
+  return ScanTopK(snap, approx_, user, query.count, Union(user_exclusions, s.request_rows, &s.merged),
                   query.deadline, s, out);
 }
 
@@ -268,7 +272,7 @@ Status Scorer::SimilarItems(const Snapshot& snap, const SimilarQuery& query,
   ResolveItems(snap, query.exclude_item_ids, &s.request_rows);
   const uint32_t self[1] = {*item};
   std::span<const uint32_t> excluded = Union(self, s.request_rows, &s.merged);
-  if (ApproxTopK(snap, snap.cosine_index(), snap.item_vector(*item), snap.item_norms(),
+  if (ApproxTopK(snap, snap.cosine_index(), approx_, snap.item_vector(*item), snap.item_norms(),
                  query.count, excluded, s, out)) {
     if (Passed(query.deadline)) return DeadlinePassed(snap.num_items(), snap.num_items());
     return Status::Ok();

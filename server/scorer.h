@@ -76,9 +76,18 @@ struct RankedList {
   bool approximate = false;
 };
 
+// How a Scorer uses a snapshot's approximate indexes (when the snapshot has them).
+struct ApproxQueryOptions {
+  // False: always the exact scan (benchmarks and checks compare the two on one snapshot).
+  bool use_index = true;
+  // The index's candidate list per search; 0: the breadth the index was built with.
+  uint32_t search_breadth = 0;
+};
+
 class Scorer {
  public:
-  explicit Scorer(FoldInOptions fold_in = {}) : fold_in_(fold_in) {}
+  explicit Scorer(FoldInOptions fold_in = {}, ApproxQueryOptions approx = {})
+      : fold_in_(fold_in), approx_(approx) {}
 
   // All three methods: thread-safe (scratch is per thread), allocate nothing in steady
   // state apart from growing *out the first time a thread sees a larger answer. The query's
@@ -103,6 +112,7 @@ class Scorer {
 
  private:
   const FoldInOptions fold_in_;
+  const ApproxQueryOptions approx_;
 };
 
 }  // namespace plumb::server

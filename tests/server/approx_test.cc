@@ -240,12 +240,12 @@ TEST(ApproxIndex, DotSearchFindsTheLargestInnerProductNotTheNearestRow) {
   std::vector<float> scratch;
   std::vector<uint32_t> found;
   const float q[] = {1.0f, 0.0f};
-  index->Search(q, 1, &scratch, &found);
+  index->Search(q, 1, 0, &scratch, &found);
   ASSERT_EQ(found.size(), 1u);
   EXPECT_EQ(found[0], 2u);
   found.clear();
   ASSERT_TRUE(ApproxIndex::Build(m.view(), ApproxIndex::Metric::kCosine, {}, &index).ok());
-  index->Search(q, 2, &scratch, &found);  // cosines 1, 0.72, 0.99, -1
+  index->Search(q, 2, 0, &scratch, &found);  // cosines 1, 0.72, 0.99, -1
   std::sort(found.begin(), found.end());
   EXPECT_EQ(found, (std::vector<uint32_t>{0, 2}));
 }

@@ -38,6 +38,7 @@ struct FitArgs {
   bool activate = true;
   uint32_t keep_versions = 5;
   std::string keep_versions_for = "2h";  // also keep every version younger than this
+  std::string training_window = "0";     // train only on recent pairs (0: all history)
 };
 
 // plumb tune: the fit arguments (store, import, objective cpr, dim, epochs, ...) plus the

@@ -175,6 +175,8 @@ struct Prepared {
   online::TrainingState state;
   uint64_t cursor = 0;
   double holdout = 0.0;
+  int64_t window_ms = 0;
+  uint64_t expired = 0;  // training pairs outside the training window
   trainer::TrainOptions train_options;
 };
 
@@ -188,6 +190,9 @@ Status Prepare(const FitArgs& args, const char* who, Prepared* p) {
   so.keep_versions = args.keep_versions;
   if (Status s = ParseDuration(args.keep_versions_for, &so.keep_versions_for_ms); !s.ok()) {
     return Status::InvalidArgument("--keep-versions-for: " + s.message());
+  }
+  if (Status s = ParseDuration(args.training_window, &p->window_ms); !s.ok()) {
+    return Status::InvalidArgument("--training-window: " + s.message());
   }
   std::vector<store::EventInput> events;
   ImportIdentity identity;
@@ -225,7 +230,8 @@ Status Prepare(const FitArgs& args, const char* who, Prepared* p) {
     return s;
   }
 
-  PLUMB_RETURN_IF_ERROR(online::TrainingState::Load(*p->store, p->holdout, &p->state, &p->cursor));
+  PLUMB_RETURN_IF_ERROR(online::TrainingState::Load(*p->store, p->holdout, &p->state, &p->cursor,
+                                                    p->window_ms));
   std::vector<store::Event> batch;
   while (true) {
     PLUMB_RETURN_IF_ERROR(p->store->ReadEvents(p->cursor, 65536, &batch));
@@ -234,6 +240,12 @@ Status Prepare(const FitArgs& args, const char* who, Prepared* p) {
       PLUMB_RETURN_IF_ERROR(p->state.Apply(ev, nullptr));
       p->cursor = ev.seq;
     }
+  }
+  PLUMB_RETURN_IF_ERROR(p->state.Compact(&p->expired));
+  if (p->window_ms > 0) {
+    std::fprintf(stderr, "%s: training window %s: %llu pairs older than that before the newest "
+                 "event are left out\n",
+                 who, args.training_window.c_str(), static_cast<unsigned long long>(p->expired));
   }
   if (p->state.train().empty()) {
     return Status::FailedPrecondition("the store holds no training events");
@@ -322,6 +334,7 @@ Status RunFit(const FitArgs& args) {
   m.figures["fit_seconds"] = seconds;
   m.training = online::MakeTrainingConfig("fit", p.train_options, args.dim, args.epochs, 0.0,
                                           p.holdout);
+  m.training.training_window_ms = p.window_ms;
   m.training.refit_pairs = train.size();
   // With a hold-out, the debiased validation figures of what was just fitted.
   const trainer::ValidationSample sample = trainer::BuildValidationSample(
@@ -439,6 +452,7 @@ Status RunTune(const TuneArgs& given) {
   m.gate_reason = "offline tune";
   m.training = online::MakeTrainingConfig("tune", t, args.fit.dim, args.fit.epochs, 0.0,
                                           p.holdout, args.betas);
+  m.training.training_window_ms = p.window_ms;
   m.training.refit_pairs = train.size();
   m.target_group_shares = r.report.target_group_shares;
   m.validation_group_shares = chosen.scores.group_shares;

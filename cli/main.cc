@@ -173,6 +173,11 @@ int main(int argc, char** argv) {
       ->add_option("--keep-versions-for", fit.keep_versions_for,
                    "also keep every version younger than this (30m, 2h, 7d; 0 = by count only)")
       ->capture_default_str();
+  fit_cmd
+      ->add_option("--training-window", fit.training_window,
+                   "train only on pairs whose latest event is this recent, measured back from "
+                   "the newest event (30d, 12h; 0 = all history)")
+      ->capture_default_str();
   fit_cmd->add_flag("--activate,!--no-activate", fit.activate,
                     "activate the published version (--no-activate: publish only)");
 

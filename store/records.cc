@@ -84,6 +84,7 @@ std::string EncodeManifest(const VersionManifest& manifest, uint32_t rows_per_bl
     c->set_seed(t.seed);
     c->set_refit_pairs(t.refit_pairs);
     for (double b : t.tune_betas) c->add_tune_betas(b);
+    c->set_training_window_ms(t.training_window_ms);
   }
   for (double v : manifest.target_group_shares) stored.add_target_group_shares(v);
   for (double v : manifest.validation_group_shares) stored.add_validation_group_shares(v);
@@ -177,6 +178,7 @@ bool DecodeManifest(std::string_view value, uint64_t version, VersionManifest* o
     t.seed = c.seed();
     t.refit_pairs = c.refit_pairs();
     t.tune_betas.assign(c.tune_betas().begin(), c.tune_betas().end());
+    t.training_window_ms = c.training_window_ms();
   }
   out->target_group_shares.assign(stored.target_group_shares().begin(),
                                   stored.target_group_shares().end());

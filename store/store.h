@@ -165,6 +165,7 @@ struct TrainingConfig {
   uint64_t seed = 0;
   uint64_t refit_pairs = 0;
   std::vector<double> tune_betas;
+  int64_t training_window_ms = 0;
   bool known() const { return !origin.empty(); }
 };
 

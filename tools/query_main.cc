@@ -250,6 +250,10 @@ std::string FormatTraining(const plumb::v1::TrainingConfig& c) {
     std::snprintf(buf, sizeof buf, " holdout=%g", c.holdout_fraction());
     out += buf;
   }
+  if (c.training_window_ms() > 0) {
+    std::snprintf(buf, sizeof buf, " window=%gh", static_cast<double>(c.training_window_ms()) / 3.6e6);
+    out += buf;
+  }
   return out;
 }
 

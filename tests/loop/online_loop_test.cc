@@ -10,6 +10,7 @@
 #include <cmath>
 #include <filesystem>
 #include <fstream>
+#include <map>
 #include <set>
 #include <thread>
 #include <unordered_map>
@@ -500,6 +501,49 @@ TEST_F(OnlineLoopTest, RebuildsChooseBetaAndVersionsRecordTheChoice) {
   EXPECT_TRUE(loop->status().pending_config_change.empty())
       << loop->status().pending_config_change;
   EXPECT_EQ(loop->status().training.beta, chosen_beta);
+}
+
+// The online loop applies the training window: a version published after the stream covers
+// exactly the pairs whose latest event is within the window of the newest event, and a restart
+// builds the same training state.
+TEST_F(OnlineLoopTest, TrainingWindowDropsExpiredPairs) {
+  OnlineOptions o = Options();
+  o.training_window_ms = 30LL * 86'400'000;  // the world spans 90 days
+  std::unique_ptr<OnlineLoop> loop;
+  ASSERT_TRUE(OnlineLoop::Create(store_.get(), o, &loop).ok());
+  loop->Start();
+  const size_t n = world_->events.size();
+  for (size_t part = 0; part < 10; ++part) {
+    Append(part * n / 10, (part + 1) * n / 10);
+    loop->NotifyAppended();
+  }
+  WaitIdle(*loop, *store_);
+  // In-window training pairs, counted from the world directly.
+  int64_t newest = 0;
+  for (const auto& e : world_->events) newest = std::max(newest, e.ts_ms);
+  std::map<std::pair<uint32_t, uint32_t>, int64_t> last;
+  for (const auto& e : world_->events) {
+    if (IsHeldOut(trainer::MemberLabel(e.user), trainer::ToolLabel(e.item), o.holdout_fraction)) {
+      continue;
+    }
+    int64_t& t = last[{e.user, e.item}];
+    t = std::max(t, e.ts_ms);
+  }
+  size_t in_window = 0;
+  for (const auto& [pair, t] : last) in_window += t >= newest - o.training_window_ms;
+  const OnlineStatus st = loop->status();
+  EXPECT_GT(st.pairs_expired, 0u);
+  EXPECT_EQ(st.train_pairs, in_window);
+  std::vector<store::VersionManifest> kept;
+  ASSERT_TRUE(store_->ListVersions(&kept).ok());
+  ASSERT_FALSE(kept.empty());
+  EXPECT_EQ(kept.front().num_interactions, in_window);
+  EXPECT_EQ(kept.front().training.training_window_ms, o.training_window_ms);
+  loop->Stop();
+  loop.reset();
+  ASSERT_TRUE(OnlineLoop::Create(store_.get(), o, &loop).ok());
+  EXPECT_EQ(loop->status().train_pairs, in_window) << "a restart rebuilds the same state";
+  EXPECT_TRUE(loop->status().pending_config_change.empty());
 }
 
 }  // namespace

@@ -106,5 +106,50 @@ TEST(TrainingState, LoadFromStoreRebuildsTheCommittedState) {
   fs::remove_all(dir);
 }
 
+// The training window by hand: window 10 days. ann-saw at day 0, ann-drill at day 5, bob-saw
+// at day 20: the newest event is day 20, the cut day 10, so ann's two pairs leave training and
+// bob-saw stays. ann-saw again at day 21 comes back as a new training pair; a repeat of a
+// pair keeps it alive (its latest event counts, not its first).
+TEST(TrainingState, WindowDropsPairsWhoseLatestEventIsTooOld) {
+  constexpr int64_t kDay = 86'400'000;
+  auto at = [](uint64_t seq, std::string u, std::string i, int64_t day) {
+    store::Event e = Ev(seq, std::move(u), std::move(i));
+    e.timestamp_ms = 1'700'000'000'000 + day * kDay;
+    return e;
+  };
+  TrainingState s(0.0);
+  s.set_window_ms(10 * kDay);
+  ASSERT_TRUE(s.Apply(at(1, "ann", "saw", 0), nullptr).ok());
+  ASSERT_TRUE(s.Apply(at(2, "ann", "drill", 5), nullptr).ok());
+  ASSERT_TRUE(s.Apply(at(3, "cid", "ladder", 1), nullptr).ok());
+  ASSERT_TRUE(s.Apply(at(4, "cid", "ladder", 15), nullptr).ok());  // repeat keeps it alive
+  ASSERT_TRUE(s.Apply(at(5, "bob", "saw", 20), nullptr).ok());
+  s.MarkPersisted();
+  uint64_t removed = 0;
+  ASSERT_TRUE(s.Compact(&removed).ok());
+  EXPECT_EQ(removed, 2u);
+  ASSERT_EQ(s.train().size(), 2u);
+  EXPECT_EQ(s.train().user_degree(0), 0u);  // ann
+  EXPECT_EQ(s.train().item_degree(0), 1u);  // saw: bob only
+  store::StateChange nothing;
+  s.CollectChanges(&nothing);
+  EXPECT_TRUE(nothing.new_interactions.empty()) << "the survivors were persisted already";
+
+  std::vector<uint64_t> fresh;
+  ASSERT_TRUE(s.Apply(at(6, "ann", "saw", 21), &fresh).ok());
+  EXPECT_EQ(fresh, (std::vector<uint64_t>{2}));
+  store::StateChange back;
+  s.CollectChanges(&back);
+  ASSERT_EQ(back.new_interactions.size(), 1u);  // re-adding to the store is harmless
+  EXPECT_EQ(s.users().size(), 3u) << "ids are never dropped";
+  // Without a window nothing leaves.
+  TrainingState all(0.0);
+  ASSERT_TRUE(all.Apply(at(1, "ann", "saw", 0), nullptr).ok());
+  ASSERT_TRUE(all.Apply(at(2, "bob", "saw", 400), nullptr).ok());
+  ASSERT_TRUE(all.Compact(&removed).ok());
+  EXPECT_EQ(removed, 0u);
+  EXPECT_EQ(all.train().size(), 2u);
+}
+
 }  // namespace
 }  // namespace plumb::online

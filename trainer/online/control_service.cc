@@ -44,6 +44,7 @@ void FillTraining(const store::TrainingConfig& c, plumb::v1::TrainingConfig* out
   out->set_seed(c.seed);
   out->set_refit_pairs(c.refit_pairs);
   for (double b : c.tune_betas) out->add_tune_betas(b);
+  out->set_training_window_ms(c.training_window_ms);
 }
 
 void FillVersionInfo(const store::VersionManifest& m, uint64_t active, plumb::v1::VersionInfo* v) {

@@ -122,6 +122,9 @@ struct OnlineLoop::Impl {
   bool Step(std::span<const uint64_t> anchors, uint64_t replay, uint64_t* samples,
             double* loss_sum);
   bool RefitDue() const;
+  // Drops pairs that left the training window (between steps, never during a refit's catch-up
+  // range: a refit snapshot is taken right after it).
+  void ApplyWindow();
   Status Publish();
   void SetStatus(const std::function<void(OnlineStatus&)>& fn) {
     std::lock_guard<std::mutex> lock(mu);
@@ -192,8 +195,12 @@ Status OnlineLoop::Create(store::Store* store, const OnlineOptions& options,
   impl.config =
       MakeTrainingConfig("online", t, options.dim, options.refit_epochs, options.replay_ratio,
                          impl.options.holdout_fraction, impl.options.tune_betas);
-  PLUMB_RETURN_IF_ERROR(
-      TrainingState::Load(*store, impl.options.holdout_fraction, &impl.state, &impl.cursor));
+  impl.config.training_window_ms = options.training_window_ms;
+  if (options.training_window_ms < 0) {
+    return Status::InvalidArgument("training_window_ms must be >= 0");
+  }
+  PLUMB_RETURN_IF_ERROR(TrainingState::Load(*store, impl.options.holdout_fraction, &impl.state,
+                                            &impl.cursor, options.training_window_ms));
 
   // Warm start from the newest kept version that did not fail its gate and was trained with
   // this configuration. A version trained otherwise (the configuration changed since) is not
@@ -456,6 +463,27 @@ void OnlineLoop::Impl::TrainIncrement(std::span<const uint64_t> new_pairs, bool 
   }
 }
 
+void OnlineLoop::Impl::ApplyWindow() {
+  if (options.training_window_ms <= 0 || refitter.running()) return;
+  uint64_t removed = 0;
+  if (Status s = state.Compact(&removed); !s.ok()) {
+    spdlog::error("training window: {}", s.ToString());
+    return;
+  }
+  if (removed == 0) return;
+  // The last refit covered pairs that are partly gone: count what is left of them.
+  refit_pairs = std::min<uint64_t>(refit_pairs, state.train().size());
+  spdlog::info("training window: {} pairs older than {:.1f} h before the newest event left "
+               "training; {} remain",
+               removed, static_cast<double>(options.training_window_ms) / 3.6e6,
+               state.train().size());
+  SetStatus([&](OnlineStatus& st) {
+    st.pairs_expired += removed;
+    st.train_pairs = state.train().size();
+    st.refit_pairs = refit_pairs;
+  });
+}
+
 bool OnlineLoop::Impl::RefitDue() const {
   if (!refit_forced_reason.empty()) return true;
   if (!options.refit) return false;
@@ -476,6 +504,7 @@ void OnlineLoop::Impl::MaybeStartRefit() {
   if (refitter.running() || !RefitDue()) return;
   const bool forced = !refit_forced_reason.empty();
   if (!forced && Clock::now() < next_refit_allowed) return;
+  ApplyWindow();
   if (state.train().size() < std::max<uint64_t>(options.min_train_pairs, 1)) return;
   if (!fit->Sync().ok()) return;
   RefitJob job;
@@ -664,6 +693,7 @@ void OnlineLoop::Impl::Run() {
 }
 
 Status OnlineLoop::Impl::Publish() {
+  if (!options.refit) ApplyWindow();
   std::lock_guard<std::mutex> publishing(publish_mu);
   const auto started = Clock::now();
   PLUMB_RETURN_IF_ERROR(fit->Sync());

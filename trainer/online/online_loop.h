@@ -57,6 +57,10 @@ struct OnlineOptions {
   // rebuild, and a refit once the training pairs doubled since the last choice. Refits in
   // between keep the chosen beta. tune = false (or an empty list): beta is fixed.
   bool tune = true;
+  // Train only on pairs whose latest event is within this many ms of the newest event seen (0:
+  // all history). Expired pairs leave training at the next refit (or publish, without
+  // refits); training_state.h has the rule.
+  int64_t training_window_ms = 0;
   std::vector<double> tune_betas = {1.0, 2.0, 3.0, 5.0};
   uint64_t seed = 1;
   double holdout_fraction = 0.02;  // share of (user,item) pairs held out for validation
@@ -105,6 +109,7 @@ struct OnlineStatus {
   // The last choice of beta by the tuner (empty reason: never tuned).
   double tuned_beta = 0.0;
   std::string tune_reason;
+  uint64_t pairs_expired = 0;  // training pairs dropped by the training window since start
   int64_t oldest_untrained_received_ms = 0;  // 0 when caught up
   int64_t last_publish_ms = 0;
   // Caught up with the log, idle replay spent, and everything learned is published.

@@ -116,6 +116,8 @@ Status ResolveDurations(TrainConfig* c) {
   c->shutdown_grace_seconds = static_cast<double>(ms) / 1000.0;
   PLUMB_RETURN_IF_ERROR(resolve("publish_interval", c->publish_interval));
   c->online.publish_every_seconds = static_cast<double>(ms) / 1000.0;
+  PLUMB_RETURN_IF_ERROR(resolve("training_window", c->training_window));
+  c->online.training_window_ms = ms;
   return Status::Ok();
 }
 
@@ -250,6 +252,9 @@ std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConf
   Bind(app, &keys, t, "refit_epochs", &o.refit_epochs, "Epochs of a refit (as plumb fit --epochs)");
   Bind(app, &keys, t, "refit_min_growth", &o.refit_min_growth,
        "Refit once training pairs grew by this share since the last refit");
+  Bind(app, &keys, t, "training_window", &c.training_window,
+       "Train only on pairs whose latest event is this recent, measured back from the newest "
+       "event (e.g. 30d; 0 = all history)");
   Bind(app, &keys, t, "tune", &o.tune,
        "Rebuilds choose beta from tune_betas on a debiased validation split");
   Bind(app, &keys, t, "tune_betas", &o.tune_betas,

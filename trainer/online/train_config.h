@@ -42,6 +42,7 @@ struct TrainConfig {
   // The training loop. Its publish_every_seconds is set from publish_interval.
   OnlineOptions online;
   std::string publish_interval = "30s";  // publish a candidate at least this often
+  std::string training_window = "0";     // sets online.training_window_ms; "0" = all history
 
   // Filled by ParseTrainConfig from the duration texts above.
   double commit_window_ms = 2.0;

@@ -82,6 +82,8 @@ std::string DescribeConfigChange(const store::VersionManifest& before,
     num("batch size", was.batch_size, now.batch_size);
     num("epochs", was.epochs, now.epochs);
     num("seed", static_cast<double>(was.seed), static_cast<double>(now.seed));
+    num("training window (ms)", static_cast<double>(was.training_window_ms),
+        static_cast<double>(now.training_window_ms));
   }
   std::string out;
   for (const std::string& d : diffs) out += (out.empty() ? "" : ", ") + d;
@@ -104,6 +106,9 @@ std::string FormatTrainingConfig(const store::TrainingConfig& c) {
        " epochs=" + std::to_string(c.epochs) + " seed=" + std::to_string(c.seed);
   if (c.origin == "online") s += " replay=" + Num(c.replay_ratio);
   if (c.holdout_fraction > 0.0) s += " holdout=" + Num(c.holdout_fraction);
+  if (c.training_window_ms > 0) {
+    s += " window=" + Num(static_cast<double>(c.training_window_ms) / 3'600'000.0) + "h";
+  }
   return s;
 }
 

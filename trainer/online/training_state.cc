@@ -38,9 +38,10 @@ bool IsHeldOut(std::string_view user, std::string_view item, double holdout_frac
   return u < holdout_fraction;
 }
 
-Status TrainingState::Load(const store::Store& store, double holdout_fraction,
-                           TrainingState* out, uint64_t* cursor) {
+Status TrainingState::Load(const store::Store& store, double holdout_fraction, TrainingState* out,
+                           uint64_t* cursor, int64_t window_ms) {
   TrainingState state(holdout_fraction);
+  state.set_window_ms(window_ms);
   PLUMB_RETURN_IF_ERROR(store.GetCursor(cursor));
   for (auto space : {store::IdSpace::kUser, store::IdSpace::kItem}) {
     std::vector<std::string> names;
@@ -69,16 +70,18 @@ Status TrainingState::Load(const store::Store& store, double holdout_fraction,
     if (batch.back().seq > *cursor) break;
   }
   if (after != *cursor) {
-    return Status::Corruption("event log ends at " + std::to_string(after) +
-                              " but the cursor is " + std::to_string(*cursor));
+    return Status::Corruption("event log ends at " + std::to_string(after) + " but the cursor is " +
+                              std::to_string(*cursor));
   }
   if (state.users_.size() != stored_users || state.items_.size() != stored_items) {
-    return Status::Corruption("replaying the log up to the cursor created ids the stored "
-                              "dictionary does not have");
+    return Status::Corruption(
+        "replaying the log up to the cursor created ids the stored "
+        "dictionary does not have");
   }
   state.persisted_users_ = state.users_.size();
   state.persisted_items_ = state.items_.size();
   state.persisted_pairs_ = state.train_.size();
+  PLUMB_RETURN_IF_ERROR(state.Compact(nullptr));
   *out = std::move(state);
   return Status::Ok();
 }
@@ -87,6 +90,11 @@ Status TrainingState::Apply(const store::Event& event, std::vector<uint64_t>* ne
   const uint32_t u = users_.Intern(event.user_id, nullptr);
   const uint32_t i = items_.Intern(event.item_id, nullptr);
   PLUMB_RETURN_IF_ERROR(train_.EnsureShape(users_.size(), items_.size()));
+  watermark_ms_ = std::max(watermark_ms_, event.timestamp_ms);
+  if (window_ms_ > 0) {
+    int64_t& last = last_ms_[(static_cast<uint64_t>(u) << 32) | i];
+    last = std::max(last, event.timestamp_ms);
+  }
   if (IsHeldOut(event.user_id, event.item_id, holdout_fraction_)) {
     const uint64_t key = (static_cast<uint64_t>(u) << 32) | i;
     if (validation_keys_.insert(key).second) validation_.push_back({u, i});
@@ -114,6 +122,46 @@ void TrainingState::CollectChanges(store::StateChange* change) const {
   std::sort(touched.begin(), touched.end());
   touched.erase(std::unique(touched.begin(), touched.end()), touched.end());
   for (uint32_t item : touched) change->item_degrees.emplace_back(item, train_.item_degree(item));
+}
+
+Status TrainingState::Compact(uint64_t* removed) {
+  if (removed != nullptr) *removed = 0;
+  if (window_ms_ <= 0) return Status::Ok();
+  const int64_t cutoff = watermark_ms_ - window_ms_;
+  auto in_window = [&](uint32_t u, uint32_t i) {
+    auto it = last_ms_.find((static_cast<uint64_t>(u) << 32) | i);
+    return it != last_ms_.end() && it->second >= cutoff;
+  };
+  std::vector<trainer::Pair> kept;
+  kept.reserve(train_.size());
+  uint64_t persisted_kept = 0;
+  for (uint64_t p = 0; p < train_.size(); ++p) {
+    const trainer::Pair& pair = train_.pair(p);
+    if (!in_window(pair.user, pair.item)) continue;
+    kept.push_back(pair);
+    if (p < persisted_pairs_) ++persisted_kept;
+  }
+  const uint64_t gone = train_.size() - kept.size();
+  std::vector<trainer::Pair> held;
+  for (const trainer::Pair& pair : validation_) {
+    if (in_window(pair.user, pair.item)) held.push_back(pair);
+  }
+  if (gone == 0 && held.size() == validation_.size()) return Status::Ok();
+  trainer::Interactions next;
+  PLUMB_RETURN_IF_ERROR(
+      trainer::Interactions::Build(kept, train_.num_users(), train_.num_items(), &next));
+  train_ = std::move(next);
+  persisted_pairs_ = persisted_kept;
+  validation_ = std::move(held);
+  validation_keys_.clear();
+  for (const trainer::Pair& pair : validation_) {
+    validation_keys_.insert((static_cast<uint64_t>(pair.user) << 32) | pair.item);
+  }
+  for (auto it = last_ms_.begin(); it != last_ms_.end();) {
+    it = it->second < cutoff ? last_ms_.erase(it) : std::next(it);
+  }
+  if (removed != nullptr) *removed = gone;
+  return Status::Ok();
 }
 
 void TrainingState::MarkPersisted() {

@@ -9,6 +9,12 @@
 // ids, so the decision is stable across restarts and repeated events of the same pair.
 // Held-out pairs are never trained on and are not written to the store's interaction sets.
 //
+// Training window (optional): with a window W, a (user, item) pair trains only while its latest
+// event is within W of the newest event timestamp seen (the stream's own clock, so that a
+// replayed or backfilled history behaves as it did live). Compact() drops pairs (training and
+// held-out) that left the window; the store keeps them (its interaction sets are the users'
+// histories, which serving still needs). A pair that comes back is trained again.
+//
 // Not thread-safe: one owner (the training thread) calls everything.
 #pragma once
 
@@ -52,8 +58,9 @@ class TrainingState {
   // Rebuilds the state of `store` as of its cursor: loads the dictionaries (so indexes match
   // the store's), replays events 1..cursor, and marks everything as already persisted.
   // *cursor receives the cursor. Corruption if the log and the dictionaries disagree.
+  // With window_ms > 0 the loaded state is compacted to the window at the end.
   static Status Load(const store::Store& store, double holdout_fraction, TrainingState* out,
-                     uint64_t* cursor);
+                     uint64_t* cursor, int64_t window_ms = 0);
 
   // Folds one event in: interns its ids, and adds the pair to the training interactions or
   // the validation set. When the pair is a new training pair, its index in train().pairs()
@@ -67,6 +74,17 @@ class TrainingState {
   void CollectChanges(store::StateChange* change) const;
   void MarkPersisted();
 
+  // The training window in ms (0: none). Set before the first Apply.
+  void set_window_ms(int64_t window_ms) { window_ms_ = window_ms; }
+  int64_t window_ms() const { return window_ms_; }
+  // The newest event timestamp folded in (0 before any).
+  int64_t watermark_ms() const { return watermark_ms_; }
+  // Drops the pairs whose latest event is older than watermark - window (none without a
+  // window). Pair indexes of the survivors change (their order is kept); user and item
+  // indexes do not. *removed (may be null) receives how many training pairs left.
+  // Errors: those of Interactions::Build (cannot happen for a consistent state).
+  Status Compact(uint64_t* removed);
+
   const trainer::Interactions& train() const { return train_; }
   const std::vector<trainer::Pair>& validation() const { return validation_; }
   const IdDictionary& users() const { return users_; }
@@ -75,6 +93,11 @@ class TrainingState {
 
  private:
   double holdout_fraction_;
+  int64_t window_ms_ = 0;
+  int64_t watermark_ms_ = 0;
+  // With a window: the latest event time of every training and held-out pair (key user << 32 |
+  // item). Memory: about 40 bytes a pair in the window.
+  std::unordered_map<uint64_t, int64_t> last_ms_;
   IdDictionary users_;
   IdDictionary items_;
   trainer::Interactions train_;

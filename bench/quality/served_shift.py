@@ -16,8 +16,11 @@ With --online, the demo world is also streamed into a real plumb-train (deploy/d
 settings: dim 32, hold-out 2 %, publishes every 40,000 events or 5 s, beta tuned on rebuilds)
 and its active version is served and measured the same way.
 
-Usage: bench/quality/served_shift.py BUILD_DIR [--worlds demo,mild,strong,appeal] [--online]
-       [--out results.json]
+Usage: bench/quality/served_shift.py BUILD_DIR [--worlds demo,mild,mild2,strong,strong2,appeal]
+       [--online] [--out results.json]
+Copy the binaries elsewhere first if you keep building (DEVELOPERS.md, "Benchmarks"): BUILD_DIR
+needs cli/plumb, server/plumb-serve, trainer/online/plumb-train, tools/plumb-query and
+tools/plumb-load.
 """
 import argparse
 import json
@@ -44,11 +47,13 @@ WORLDS = {
                "--appeal-visibility", "0.8"],
 }
 # (label, plumb fit flags): under-corrected (BPR, BCE, plain CPR), the default (beta 3), and
-# pushed further into the tail than the tuner goes (beta 10 and 20, all samples k = 3).
+# pushed further: beta 10, 30 and 50 with k = 2 samples, and beta 10 with all samples k = 3.
 FITS = [("cpr b=1", ["--objective", "cpr", "--beta", "1"]),
         ("cpr b=3", ["--objective", "cpr", "--beta", "3"]),
+        ("cpr b=10", ["--objective", "cpr", "--beta", "10"]),
+        ("cpr b=30", ["--objective", "cpr", "--beta", "30"]),
+        ("cpr b=50", ["--objective", "cpr", "--beta", "50"]),
         ("cpr b=10 k3", ["--objective", "cpr", "--beta", "10", "--cpr-k3-share", "1"]),
-        ("cpr b=20 k3", ["--objective", "cpr", "--beta", "20", "--cpr-k3-share", "1"]),
         ("bpr", ["--objective", "bpr"]),
         ("bce", ["--objective", "bce"])]
 FIT_FLAGS = ["--dim", "32", "--epochs", "20", "--holdout-fraction", "0.02"]

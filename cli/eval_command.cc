@@ -86,10 +86,10 @@ Status RunEval(const EvalArgs& args) {
     }
     std::fprintf(stderr,
                  "eval: %llu of %zu test pairs name a user or item that version%s %s "
-                 "%s not know; they are left out%s\n",
+                 "%s know; they are left out%s\n",
                  static_cast<unsigned long long>(unknown), rows.size(),
                  models.size() > 1 ? "s" : "", which.c_str(),
-                 models.size() > 1 ? "do not all" : "does",
+                 models.size() > 1 ? "do not all" : "does not",
                  models.size() > 1 ? " of every column" : "");
   }
   if (test[0].empty()) return Status::InvalidArgument(args.test + ": no test pair the model knows");

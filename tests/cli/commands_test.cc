@@ -198,6 +198,43 @@ TEST_F(CommandsTest, EvalPrintsSeveralVersionsSideBySide) {
   EXPECT_EQ(run({2, 1, 2}).find("\"v2 bpr\""), run({2, 1}).find("\"v2 bpr\""));
 }
 
+// Test pairs naming a user or item no evaluated version knows are left out, and eval says how
+// many and of which versions, in a sentence that reads right for one version and for several.
+TEST_F(CommandsTest, EvalNamesTheTestPairsItLeavesOut) {
+  FitArgs a = SmallFit();
+  ASSERT_TRUE(RunFit(a).ok());
+  a.import.events.clear();
+  a.objective = "bpr";
+  ASSERT_TRUE(RunFit(a).ok());
+  std::ifstream world_test(dir_ / "world" / "test.csv");
+  std::string header, known;
+  ASSERT_TRUE(std::getline(world_test, header) && std::getline(world_test, known));
+  const fs::path test = dir_ / "test_with_unknown.csv";
+  std::ofstream(test) << header << "\n"
+                      << known << "\nnobody-we-know," << known.substr(known.find(',') + 1) << "\n";
+  EvalArgs e;
+  e.db = a.import.db;
+  e.test = test.string();
+  e.k = 10;
+  e.json = true;
+  auto warning = [&](std::vector<uint64_t> versions) {
+    e.versions = std::move(versions);
+    ::testing::internal::CaptureStderr();
+    ::testing::internal::CaptureStdout();
+    const Status s = RunEval(e);
+    ::testing::internal::GetCapturedStdout();
+    const std::string err = ::testing::internal::GetCapturedStderr();
+    EXPECT_TRUE(s.ok()) << s.ToString();
+    return err;
+  };
+  EXPECT_NE(warning({1, 2}).find("eval: 1 of 2 test pairs name a user or item that versions 1, 2 "
+                                 "do not all know; they are left out of every column"),
+            std::string::npos);
+  EXPECT_NE(warning({1}).find("eval: 1 of 2 test pairs name a user or item that version 1 does "
+                              "not know; they are left out\n"),
+            std::string::npos);
+}
+
 // The test file is the training file: every test pair is a training pair, nothing can be
 // evaluated, and eval says so instead of printing zeros in silence.
 TEST_F(CommandsTest, EvalWarnsWhenTheTestFileIsTheTrainingFile) {

@@ -19,13 +19,14 @@ import sys
 
 DOC, BIN = sys.argv[1], sys.argv[2]
 PROGRAMS = {
-    "plumb": (BIN + "/cli/plumb", ["synth", "import", "fit", "eval", "compare", "versions",
-                                   "activate", "pin", "unpin", "inspect", "export", "top"]),
+    "plumb": (BIN + "/cli/plumb", ["synth", "import", "split", "fit", "tune", "eval",
+                                   "compare", "versions", "activate", "pin", "unpin", "inspect",
+                                   "repair", "export", "top"]),
     "plumb-serve": (BIN + "/server/plumb-serve", []),
     "plumb-train": (BIN + "/trainer/online/plumb-train", []),
     "plumb-query": (BIN + "/tools/plumb-query", ["recommend", "similar", "rank", "health",
                                                  "versions", "status", "activate", "pin",
-                                                 "unpin", "auto-activate"]),
+                                                 "unpin", "auto-activate", "retrain"]),
     "plumb-load": (BIN + "/tools/plumb-load", ["replay"]),
 }
 DURATION = re.compile(r"^(0|[0-9]+(\.[0-9]+)?(ms|s|m|h|d))$")

@@ -40,7 +40,9 @@ struct Removal {
   int64_t timestamp_ms = 0;
 };
 
-uint64_t PairKey(uint32_t user, uint32_t item) { return (static_cast<uint64_t>(user) << 32) | item; }
+uint64_t PairKey(uint32_t user, uint32_t item) {
+  return (static_cast<uint64_t>(user) << 32) | item;
+}
 
 }  // namespace
 
@@ -99,8 +101,8 @@ Status Store::RetainEvents(const RetentionPolicy& policy, RetentionReport* repor
     }
     PLUMB_RETURN_IF_ERROR(FromRocks(it->status(), "events: reading the newest event"));
   }
-  const int64_t cut = policy.max_age_ms > 0 ? clock - policy.max_age_ms
-                                            : std::numeric_limits<int64_t>::min();
+  const int64_t cut =
+      policy.max_age_ms > 0 ? clock - policy.max_age_ms : std::numeric_limits<int64_t>::min();
   report->cut_ms = policy.max_age_ms > 0 ? cut : 0;
   uint64_t live_bytes = d.log_bytes_appended.load() - totals.removed_bytes;
   bool counted_pass = false;
@@ -138,8 +140,8 @@ Status Store::RetainEvents(const RetentionPolicy& policy, RetentionReport* repor
         }
         live_bytes -= std::min(live_bytes, bytes);
         chunk_bytes += bytes;
-        chunk.push_back({*seq, std::move(event.user_id), std::move(event.item_id),
-                         event.timestamp_ms});
+        chunk.push_back(
+            {*seq, std::move(event.user_id), std::move(event.item_id), event.timestamp_ms});
       }
       PLUMB_RETURN_IF_ERROR(FromRocks(it->status(), "events: reading the oldest events"));
       if (stopped_by.empty() && !it->Valid()) {
@@ -198,8 +200,7 @@ Status Store::RetainEvents(const RetentionPolicy& policy, RetentionReport* repor
         if (!records::DecodePairHistory(value, &stored)) {
           return Status::Corruption("pair_history: the record of user " +
                                     std::to_string(key >> 32) + ", item " +
-                                    std::to_string(static_cast<uint32_t>(key)) +
-                                    " does not parse");
+                                    std::to_string(static_cast<uint32_t>(key)) + " does not parse");
         }
         h.count += stored.count;
         h.first_seq = std::min(h.first_seq, stored.first_seq);

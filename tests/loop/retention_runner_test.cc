@@ -3,16 +3,16 @@
 // passes remove old events. Afterwards every appended event is accounted for exactly once
 // (left in the log, or counted in pair_history), nothing beyond the cursor was removed, no
 // append failed, and a restart rebuilds the state the running trainer holds.
+#include "trainer/online/retention_runner.h"
+
+#include <gtest/gtest.h>
 #include <unistd.h>
 
 #include <atomic>
 #include <filesystem>
 #include <thread>
 
-#include <gtest/gtest.h>
-
 #include "store/store.h"
-#include "trainer/online/retention_runner.h"
 #include "trainer/online/training_state.h"
 
 namespace plumb::online {
@@ -24,8 +24,8 @@ constexpr int64_t kSecond = 1000;
 constexpr int64_t kBase = 1'700'000'000'000;
 
 TEST(RetentionRunner, PassesBesideIngestAndTrainingLoseNothingAndRestartAlike) {
-  const fs::path dir = fs::temp_directory_path() / ("plumb_retention_runner_" +
-                                                    std::to_string(::getpid()));
+  const fs::path dir =
+      fs::temp_directory_path() / ("plumb_retention_runner_" + std::to_string(::getpid()));
   fs::remove_all(dir);
   store::StoreOptions so;
   so.sync = false;
@@ -102,9 +102,8 @@ TEST(RetentionRunner, PassesBesideIngestAndTrainingLoseNothingAndRestartAlike) {
   EXPECT_GT(runner.totals().passes, 1u) << "passes ran while events arrived";
   uint64_t folded = 0;
   ASSERT_TRUE(store
-                  ->ForEachPairHistory([&](uint32_t, uint32_t, const store::PairHistory& h) {
-                    folded += h.count;
-                  })
+                  ->ForEachPairHistory(
+                      [&](uint32_t, uint32_t, const store::PairHistory& h) { folded += h.count; })
                   .ok());
   EXPECT_EQ(folded + log.events, total) << "every event exactly once: in the log or folded";
   EXPECT_EQ(runner.totals().removed_events, 9999u);

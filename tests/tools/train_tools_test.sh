@@ -139,4 +139,49 @@ acked=$(json "$tmp/mixed.json" 'd["publish"]["accepted"]')
 last=$("$QUERY" status --trainer "$train" --token-file "$tmp/token" | sed -n 's/^last sequence: *\([0-9]*\).*/\1/p')
 check "the trainer's log grew by exactly the acknowledged events ($events + $acked = $last)" \
   '[ "$last" = "$((events + acked))" ]'
+# ---- item availability: withdraw, served nowhere, restore --------------------------------------------
+user=$(sed -n '2s/,.*//p' "$tmp/world/events.csv")
+top_item() { "$QUERY" recommend --server "127.0.0.1:$sport" --user "$user" --count 10 2>/dev/null |
+             awk '$1 == "1" {print $2; exit}'; }
+target=$(top_item)
+check "recommend for $user names a first item ($target)" '[ -n "$target" ]'
+other=$("$QUERY" similar --server "127.0.0.1:$sport" --item "$target" --count 1 2>/dev/null |
+        awk '$1 == "1" {print $2; exit}')
+printf '# withdrawn by the tools test\n%s\n\n' "$target" >"$tmp/withdraw.txt"
+out=$("$QUERY" items withdraw --trainer "$train" --token-file "$tmp/token" \
+      --items-file "$tmp/withdraw.txt" 2>&1); rc=$?
+check "items withdraw --items-file: exit 0, one item [$out]" \
+  '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "^withdrew 1 items (0 already withdrawn); 1 items withdrawn in all"'
+gone=""
+for _ in $(seq 100); do  # plumb-serve follows the store every 500 ms by default
+  ! "$QUERY" similar --server "127.0.0.1:$sport" --item "$other" --count 150 | grep -q " $target " &&
+    gone=yes && break
+  sleep 0.1
+done
+check "the withdrawn item left similar within 10 s" '[ -n "$gone" ]'
+check "recommend never lists it" \
+  '! "$QUERY" recommend --server "127.0.0.1:$sport" --user "$user" --count 150 | grep -q " $target "'
+check "similar never lists it" \
+  '! "$QUERY" similar --server "127.0.0.1:$sport" --item "$other" --count 150 | grep -q " $target "'
+out=$("$QUERY" rank --server "127.0.0.1:$sport" --user "$user" --candidates "$target,$other" 2>&1)
+check "rank reports it withdrawn, not ranked [$out]" \
+  'printf "%s" "$out" | grep -q "^withdrawn from serving: $target$" && ! printf "%s" "$out" | grep -q "^ *[0-9]  *$target "'
+out=$("$QUERY" items list --trainer "$train" --token-file "$tmp/token" --json 2>&1)
+check "items list --json names it [$out]" \
+  '[ "$(printf "%s" "$out" | "${PYTHON3:-python3}" -c "import json,sys; print([i[\"item\"] for i in json.load(sys.stdin)[\"withdrawn_items\"]])")" = "['"'"'$target'"'"']" ]'
+check "status counts it" \
+  '"$QUERY" status --trainer "$train" --token-file "$tmp/token" | grep -q "^withdrawn items: *1$"'
+out=$("$QUERY" items withdraw --trainer "$train" --token-file "$tmp/token" 2>&1); rc=$?
+check "items withdraw without ids: exit 1, says what is missing [$out]" \
+  '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "give --item ID or --items-file FILE"'
+out=$("$QUERY" items restore --trainer "$train" --token-file "$tmp/token" --item "$target" 2>&1); rc=$?
+check "items restore --item [$out]" \
+  '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "^restored 1 items (0 already available); 0 items withdrawn in all"'
+back=""
+for _ in $(seq 100); do
+  "$QUERY" similar --server "127.0.0.1:$sport" --item "$other" --count 150 | grep -q " $target " &&
+    back=yes && break
+  sleep 0.1
+done
+check "the restored item is served again within 10 s" '[ -n "$back" ]'
 exit $fail

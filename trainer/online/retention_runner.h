@@ -17,8 +17,8 @@
 namespace plumb::online {
 
 struct RetentionOptions {
-  int64_t max_age_ms = 0;      // RetentionPolicy::max_age_ms (0: no age rule)
-  uint64_t max_log_bytes = 0;  // RetentionPolicy::max_log_bytes (0: no size rule)
+  int64_t max_age_ms = 0;        // RetentionPolicy::max_age_ms (0: no age rule)
+  uint64_t max_log_bytes = 0;    // RetentionPolicy::max_log_bytes (0: no size rule)
   int64_t interval_ms = 60'000;  // time between the end of one pass and the start of the next
   uint32_t events_per_write = 4096;
 

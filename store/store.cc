@@ -305,6 +305,11 @@ Status Store::OpenPrimary(const std::string& dir, const StoreOptions& options,
   // such families once the WAL passes it. (Found when a store holding one 100k x 64 version
   // plus 200k users took plumb-serve ~20 s to open.)
   db_options.max_total_wal_size = 256ull << 20;
+  // One budget for the memtables of every family together (RocksDB's WriteBufferManager):
+  // without it each of the nine families may hold up to two 64 MB memtables, and the
+  // trainer's resident memory creeps up by the size of whatever the slow families (ids,
+  // interactions, pair_history, meta) have buffered. A full budget flushes the largest.
+  db_options.db_write_buffer_size = 128ull << 20;
 
   rocksdb::BlockBasedTableOptions lookup_table;
   lookup_table.filter_policy.reset(rocksdb::NewBloomFilterPolicy(10));

@@ -246,7 +246,7 @@ def main():
                     help="which runs, comma-separated (the pass latency needs all-history)")
     ap.add_argument("--dedup-window", default="20s",
                     help="plumb-train's dedup_window, in real time: at the accelerated clock a "
-                         "simulated day takes 15-20 s, so 20s stands for about a day")
+                         "simulated day takes 10-20 s, so 20s stands for about a day")
     args = ap.parse_args()
     args.build = os.path.abspath(args.build)
     tmp = tempfile.mkdtemp(prefix="plumb-long-run-")

@@ -184,4 +184,24 @@ for _ in $(seq 100); do
   sleep 0.1
 done
 check "the restored item is served again within 10 s" '[ -n "$back" ]'
+# ---- event-log retention in a running trainer -------------------------------------------------------
+# 200 events one minute apart, the newest 4 h ago; a 1 h age rule measured back from the
+# newest event removes exactly those more than 60 min older than it: k < 139 (by hand).
+base=$(( ($(date +%s) - 4 * 3600) * 1000 ))
+{ echo "user,item,ts"; for k in $(seq 0 199); do echo "r$((k % 17)),s$((k % 23)),$((base + k * 60000))"; done; } >"$tmp/old.csv"
+"$TRAIN" --db "$tmp/rdb" --listen 127.0.0.1:0 --metrics "" --dim 8 --no-sync --min-train-pairs 10 \
+  --publish-interval 500ms --retention-max-age 1h --retention-interval 200ms 2>"$tmp/rtrain.log" &
+pids+=($!)
+rport=$(wait_port "$tmp/rtrain.log" "(port" "${pids[-1]}")
+"$LOAD" replay --events "$tmp/old.csv" --trainer "127.0.0.1:$rport" --quiet >/dev/null 2>&1
+removed=""
+for _ in $(seq 150); do
+  removed=$("$QUERY" status --trainer "127.0.0.1:$rport" 2>/dev/null | sed -n 's/^retention: *\([0-9]*\) events.*/\1/p')
+  [ "$removed" = 139 ] && break
+  sleep 0.2
+done
+check "the trainer's retention removed exactly the 139 events older than the cut [$removed]" '[ "$removed" = 139 ]'
+out=$("$PLUMB" inspect --db "$tmp/rdb" 2>&1)
+check "plumb inspect shows the log left, its oldest event and what retention removed [$out]" \
+  'printf "%s" "$out" | grep -q "^event log *61 events" && printf "%s" "$out" | grep -q "^oldest event *.* (sequence 140)" && printf "%s" "$out" | grep -q "^retention *removed 139 events"'
 exit $fail

@@ -26,7 +26,8 @@ PROGRAMS = {
     "plumb-train": (BIN + "/trainer/online/plumb-train", []),
     "plumb-query": (BIN + "/tools/plumb-query", ["recommend", "similar", "rank", "health",
                                                  "versions", "status", "activate", "pin",
-                                                 "unpin", "auto-activate", "retrain"]),
+                                                 "unpin", "auto-activate", "retrain",
+                                                 "items withdraw", "items restore", "items list"]),
     "plumb-load": (BIN + "/tools/plumb-load", ["replay"]),
 }
 DURATION = re.compile(r"^(0|[0-9]+(\.[0-9]+)?(ms|s|m|h|d))$")
@@ -67,7 +68,7 @@ def run(args):
 
 
 def check_help(program, binary, sub):
-    args = [binary] + ([sub] if sub else []) + ["--help"]
+    args = [binary] + (sub.split() if sub else []) + ["--help"]
     result = run(args)
     where = program + (" " + sub if sub else "")
     if result.returncode != 0:
@@ -133,7 +134,7 @@ for program, (binary, subs) in PROGRAMS.items():
                                                 result.stdout):
         fail("%s --version: exit %d, printed %r" % (program, result.returncode, result.stdout))
     for sub in [None] + subs:
-        args = [binary] + ([sub] if sub else []) + ["--no-such-flag"]
+        args = [binary] + (sub.split() if sub else []) + ["--no-such-flag"]
         result = run(args)
         if result.returncode != 2:
             fail("%s: an unknown flag exits %d, not 2" % (" ".join(args[:-1]), result.returncode))

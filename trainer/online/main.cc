@@ -33,6 +33,7 @@
 #include "trainer/online/inflight_calls.h"
 #include "trainer/online/ingest_service.h"
 #include "trainer/online/online_loop.h"
+#include "trainer/online/retention_runner.h"
 #include "trainer/online/train_config.h"
 #include "trainer/online/train_metrics.h"
 
@@ -50,13 +51,19 @@ int64_t NowMs() {
 // Copies the committer's totals and the loop's status into the metrics once a second.
 class MetricsPoller {
  public:
-  MetricsPoller(TrainMetrics* metrics, GroupCommitter* committer, OnlineLoop* loop)
+  MetricsPoller(TrainMetrics* metrics, GroupCommitter* committer, OnlineLoop* loop,
+                const plumb::store::Store* store, const RetentionRunner* retention)
       : thread_([=, this] {
           std::unique_lock<std::mutex> lock(mu_);
           do {
             lock.unlock();
             const OnlineStatus status = loop->status();
             metrics->Refresh(committer->stats(), &status, NowMs());
+            plumb::store::LogStats log;
+            if (store->GetLogStats(&log).ok()) {
+              const RetentionTotals totals = retention->totals();
+              metrics->RefreshLog(log, &totals, NowMs());
+            }
             lock.lock();
           } while (!cv_.wait_for(lock, std::chrono::seconds(1), [this] { return stop_; }));
         }) {}
@@ -171,6 +178,12 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
     return 1;
   }
   loop->Start();
+  RetentionOptions retention_options;
+  retention_options.max_age_ms = config.retention_max_age_ms;
+  retention_options.max_log_bytes = config.retention_max_log_mb << 20;
+  retention_options.interval_ms = config.retention_interval_ms;
+  RetentionRunner retention(store.get(), retention_options);
+  retention.Start();
 
   // ---- ingest and control -----------------------------------------------------------
   StoreEventLog event_log(store.get());
@@ -210,12 +223,13 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
     spdlog::critical("cannot listen on {}: {}", config.listen,
                      why.ok() ? "bad TLS files or address?" : why.message());
     committer.Close();
+    retention.Stop();
     loop->Stop();
     return 1;
   }
 
   std::unique_ptr<MetricsPoller> poller =
-      std::make_unique<MetricsPoller>(&metrics, &committer, loop.get());
+      std::make_unique<MetricsPoller>(&metrics, &committer, loop.get(), store.get(), &retention);
   const OnlineStatus initial = loop->status();
   spdlog::info(
       "plumb-train serving {} (port {}{}{}), metrics {}; store {}: log at {}, active version "
@@ -244,6 +258,7 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
   stopper.join();
   server->Wait();
   committer.Close();
+  retention.Stop();
   loop->Stop();
   poller.reset();
   const plumb::online::CommitterStats stats = committer.stats();

@@ -44,9 +44,17 @@ struct TrainConfig {
   std::string publish_interval = "30s";  // publish a candidate at least this often
   std::string training_window = "0";     // sets online.training_window_ms; "0" = all history
 
+  // Event-log retention (RetentionRunner): events older than retention_max_age (measured back
+  // from the newest event) or beyond retention_max_log_mb leave the log once trained on.
+  std::string retention_max_age = "0";    // "0" = no age rule
+  uint64_t retention_max_log_mb = 0;      // 0 = no size rule
+  std::string retention_interval = "1m";  // pause between passes
+
   // Filled by ParseTrainConfig from the duration texts above.
   double commit_window_ms = 2.0;
   double shutdown_grace_seconds = 5.0;
+  int64_t retention_max_age_ms = 0;
+  int64_t retention_interval_ms = 60'000;
 };
 
 // Parses the command line (and the TOML file it names), then checks the result. Returns

@@ -211,10 +211,10 @@ def check_train(d, addr, shots):
     check(card(d, "log_sequence") == t["log_sequence"], "plumb-train: log sequence card != JSON")
     check(card(d, "lag_events") == t["lag_events"] == prom.get(("plumb_trainer_lag_events", frozenset())),
           "plumb-train: lag card, JSON and plumb_trainer_lag_events disagree")
-    rejected = prom.get(("plumb_events_rejected_total", frozenset({("reason", "id_too_long")})))
-    check(t["events_rejected"]["id_too_long"] == rejected == 1,
-          "plumb-train: id_too_long rejections JSON %s, counter %s (1 sent)" % (t["events_rejected"]["id_too_long"], rejected))
-    check(d.find_elements(By.CSS_SELECTOR, 'circle.point[data-key="rejected_rate_id_too_long"]'),
+    rejected = prom.get(("plumb_events_rejected_total", frozenset({("reason", "future_timestamp")})))
+    check(t["events_rejected"]["future_timestamp"] == rejected == 1,
+          "plumb-train: future_timestamp rejections JSON %s, counter %s (1 sent)" % (t["events_rejected"]["future_timestamp"], rejected))
+    check(d.find_elements(By.CSS_SELECTOR, 'circle.point[data-key="rejected_rate_future_timestamp"]'),
           "plumb-train: the rejection reason that occurred has no line")
     rows = d.find_elements(By.CSS_SELECTOR, "#versions tbody tr")
     marks = d.find_elements(By.CSS_SELECTOR, 'svg[data-plot="versions"] g.version')

@@ -46,9 +46,9 @@ pids="$pids $!"
 for _ in $(seq 150); do grep -q "plumb-train serving" "$tmp/train.log" && break; sleep 0.2; done
 "$LOAD" replay --events "$tmp/world/events.csv" --trainer "$TRAIN_ADDR" --quiet \
   >/dev/null 2>&1 || fail "replay"
-# One event the trainer rejects, so that a rejection reason shows.
-printf 'user,item\nm1,%0300d\n' 1 > "$tmp/too_long.csv"
-"$LOAD" replay --events "$tmp/too_long.csv" --trainer "$TRAIN_ADDR" --quiet >/dev/null 2>&1
+# One event the trainer rejects (a timestamp in the year 5138), so that a rejection shows.
+printf 'user,item,ts\nm1,t1,99999999999999\n' > "$tmp/future.csv"
+"$LOAD" replay --events "$tmp/future.csv" --trainer "$TRAIN_ADDR" --quiet >/dev/null 2>&1
 "$SERVE" --db "$tmp/db" --listen "$SERVE_ADDR" --metrics "$SERVE_METRICS" \
   --catchup-interval 100ms --status-history-step 1s >"$tmp/serve.log" 2>&1 &
 pids="$pids $!"

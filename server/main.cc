@@ -152,8 +152,8 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   // history is sampled by its own timer, never by a request.
   ServeStatusOptions status_options;
   status_options.step_ms = config.status_history_step_ms;
-  ServeStatusPage status_page(&holder, config.exposure_monitor ? &window : nullptr,
-                              metrics.get(), &loop, status_options);
+  ServeStatusPage status_page(&holder, config.exposure_monitor ? &window : nullptr, metrics.get(),
+                              &loop, status_options);
   std::unique_ptr<plumb::status::StatusEndpoint> http;
   std::unique_ptr<plumb::status::PeriodicTask> status_sampler;
   if (!config.metrics.empty()) {
@@ -176,7 +176,8 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
                        why.ok() ? s.message() : why.message());
       return 1;
     }
-    for (int port : http->ListeningPorts()) spdlog::info("metrics and status page on port {}", port);
+    for (int port : http->ListeningPorts())
+      spdlog::info("metrics and status page on port {}", port);
     status_sampler = std::make_unique<plumb::status::PeriodicTask>(
         std::chrono::milliseconds(config.status_history_step_ms),
         [&status_page] { status_page.Sample(NowMs()); });
@@ -224,7 +225,8 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
 
 int main(int argc, char** argv) {
   // Block the shutdown signals before any thread exists, so that every thread (gRPC's,
-  // RocksDB's, the HTTP endpoint's, the catch-up loop) inherits the mask and only sigwait sees them.
+  // RocksDB's, the HTTP endpoint's, the catch-up loop) inherits the mask and only sigwait sees
+  // them.
   sigset_t signals;
   sigemptyset(&signals);
   sigaddset(&signals, SIGTERM);

@@ -192,8 +192,8 @@ int ParseServeConfig(int argc, const char* const* argv, ServeConfig* config, std
                        30LL * 86'400'000, &ms, err))
     return 2;
   config->exposure.window_seconds = static_cast<double>(ms) / 1000.0;
-  if (!ConvertDuration("--status-history-step", durations.status_history_step, 1000, 3'600'000,
-                       &ms, err))
+  if (!ConvertDuration("--status-history-step", durations.status_history_step, 1000, 3'600'000, &ms,
+                       err))
     return 2;
   config->status_history_step_ms = ms;
   return -1;

@@ -135,8 +135,7 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
     if (as_json) {
       return plumb::status::HttpReply{
           200, "application/json",
-          page->Json(NowMs()).dump(1, ' ', false, nlohmann::json::error_handler_t::replace) +
-              "\n"};
+          page->Json(NowMs()).dump(1, ' ', false, nlohmann::json::error_handler_t::replace) + "\n"};
     }
     return plumb::status::HttpReply{200, "text/html; charset=utf-8", page->Html(NowMs())};
   };
@@ -203,7 +202,8 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
       &event_log, [&loop] { loop->NotifyAppended(); }, commit_options);
   IngestLimits limits;
   limits.max_batch_events = config.max_batch_events;
-  if (Status s = plumb::ParseDuration(config.max_future_skew, &limits.max_future_skew_ms); !s.ok()) {
+  if (Status s = plumb::ParseDuration(config.max_future_skew, &limits.max_future_skew_ms);
+      !s.ok()) {
     spdlog::critical("{}", s.message());
     return 2;
   }

@@ -96,9 +96,11 @@ std::string Timeline(const json& versions, size_t groups) {
     t0 = t0 == 0 ? t : std::min(t0, t);
     t1 = std::max(t1, t);
   }
+  // Marks sit 24 px inside the axis ends, clear of the row labels.
   auto x_of = [&](int64_t t) {
-    return t1 == t0 ? L + (W - L - R) / 2
-                    : L + (W - L - R) * static_cast<double>(t - t0) / static_cast<double>(t1 - t0);
+    const double left = L + 24, width = W - R - 24 - left;
+    return t1 == t0 ? left + width / 2
+                    : left + width * static_cast<double>(t - t0) / static_cast<double>(t1 - t0);
   };
   const double lane = T + 26;                              // marks
   const double bar_top = T + 50, bar_h = H - B - bar_top;  // stacked validation shares

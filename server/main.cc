@@ -177,7 +177,7 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
       return 1;
     }
     for (int port : http->ListeningPorts())
-      spdlog::info("metrics and status page on port {}", port);
+      spdlog::info("metrics on port {} (status page at /)", port);
     status_sampler = std::make_unique<plumb::status::PeriodicTask>(
         std::chrono::milliseconds(config.status_history_step_ms),
         [&status_page] { status_page.Sample(NowMs()); });

@@ -44,9 +44,9 @@ class StatusEndpoint {
   // thread, concurrently with itself; it must be thread-safe.
   void RegisterPage(const std::string& path, std::function<HttpReply()> render);
 
-  // Listens on `address` ("host:port" as civetweb's listening_ports takes it; port 0 is not
-  // supported by civetweb) with `threads` worker threads. IoError naming the address when it
-  // cannot listen.
+  // Listens on `address` ("host:port" as civetweb's listening_ports takes it; port 0: a
+  // free port, see ListeningPorts()) with `threads` worker threads. IoError naming the
+  // address when it cannot listen.
   Status Start(const std::string& address, int threads = 4);
 
   std::vector<int> ListeningPorts() const;

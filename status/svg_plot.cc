@@ -153,8 +153,10 @@ std::string RenderLinePlot(const LinePlot& p) {
       const double x = x_of(t);
       s += "<line class=\"tickmark\" x1=\"" + Num(x) + "\" x2=\"" + Num(x) + "\" y1=\"" +
            Num(kHeight - kBottom) + "\" y2=\"" + Num(kHeight - kBottom + 4) + "\"/>";
+      // A label near the right end is right-aligned so that it stays inside the plot.
+      const char* anchor = x > kWidth - kRight - 24 ? "end" : "middle";
       s += "<text class=\"tick\" x=\"" + Num(x) + "\" y=\"" + Num(kHeight - kBottom + 16) +
-           "\" text-anchor=\"middle\">" + TimeTick(t, step) + "</text>";
+           "\" text-anchor=\"" + anchor + "\">" + TimeTick(t, step) + "</text>";
     }
   }
   s += "<text class=\"axis-label\" x=\"" + Num(kLeft + plot_w / 2) + "\" y=\"" + Num(kHeight - 6) +

@@ -142,10 +142,13 @@ def console_errors(d, page):
 
 
 def screenshot(d, path):
+    """The whole page, 1280 CSS pixels wide, as a PNG."""
     height = d.execute_script("return document.documentElement.scrollHeight")
-    d.set_window_size(1280, min(max(int(height) + 40, 800), 6000))
+    d.execute_cdp_cmd("Emulation.setDeviceMetricsOverride",
+                      {"width": 1280, "height": min(int(height), 8000), "deviceScaleFactor": 1,
+                       "mobile": False})
     d.save_screenshot(path)
-    d.set_window_size(1280, 1000)
+    d.execute_cdp_cmd("Emulation.clearDeviceMetricsOverride", {})
 
 
 def check_serve(d, addr, shots):

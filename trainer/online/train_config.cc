@@ -114,6 +114,8 @@ Status ResolveDurations(TrainConfig* c) {
   c->commit_window_ms = static_cast<double>(ms);
   PLUMB_RETURN_IF_ERROR(resolve("shutdown_grace", c->shutdown_grace));
   c->shutdown_grace_seconds = static_cast<double>(ms) / 1000.0;
+  PLUMB_RETURN_IF_ERROR(resolve("status_history_step", c->status_history_step));
+  c->status_history_step_ms = ms;
   PLUMB_RETURN_IF_ERROR(resolve("publish_interval", c->publish_interval));
   c->online.publish_every_seconds = static_cast<double>(ms) / 1000.0;
   PLUMB_RETURN_IF_ERROR(resolve("training_window", c->training_window));
@@ -147,6 +149,9 @@ Status CheckTrainConfig(const TrainConfig& c) {
   PLUMB_RETURN_IF_ERROR(ParseDuration(c.max_future_skew, &ms));
   if (c.tls_cert.empty() != c.tls_key.empty()) {
     return bad("TLS needs both tls_cert and tls_key (or neither)");
+  }
+  if (c.status_history_step_ms < 1000 || c.status_history_step_ms > 3'600'000) {
+    return bad("status_history_step must be within [1s, 1h]");
   }
   if (!(c.shutdown_grace_seconds >= 0 && c.shutdown_grace_seconds <= 600)) {
     return bad("shutdown_grace must be within [0, 10m]");
@@ -207,7 +212,10 @@ std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConf
   const std::string s = "Store and transport";
   Bind(app, &keys, s, "db", &c.db, "Database directory (opened as the primary; required)");
   Bind(app, &keys, s, "listen", &c.listen, "gRPC address HOST:PORT (or unix:PATH)");
-  Bind(app, &keys, s, "metrics", &c.metrics, "Prometheus /metrics address HOST:PORT; empty = off");
+  Bind(app, &keys, s, "metrics", &c.metrics,
+       "Prometheus /metrics and status page (/) address HOST:PORT; empty = off");
+  Bind(app, &keys, s, "status_history_step", &c.status_history_step,
+       "Spacing of the status page's history points; the last 1440 are kept (1s .. 1h)");
   Bind(app, &keys, s, "sync", &c.sync, "fsync the event log before acknowledging");
   Bind(app, &keys, s, "commit_window", &c.commit_window,
        "Group commit: wait this long for more events before a log write (0 = none; at most "

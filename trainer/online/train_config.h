@@ -38,6 +38,7 @@ struct TrainConfig {
   bool allow_insecure_remote = false;      // serve a non-loopback address without a token
   std::string shutdown_grace = "5s";       // how long in-flight calls get at shutdown
   std::string log_level = "info";          // trace|debug|info|warn|error|critical|off
+  std::string status_history_step = "1m";  // status page history spacing; 1440 points kept
 
   // The training loop. Its publish_every_seconds is set from publish_interval.
   OnlineOptions online;
@@ -55,6 +56,7 @@ struct TrainConfig {
   double shutdown_grace_seconds = 5.0;
   int64_t retention_max_age_ms = 0;
   int64_t retention_interval_ms = 60'000;
+  int64_t status_history_step_ms = 60000;
 };
 
 // Parses the command line (and the TOML file it names), then checks the result. Returns

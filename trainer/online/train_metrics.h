@@ -35,7 +35,7 @@ class TrainMetrics {
   TrainMetrics& operator=(const TrainMetrics&) = delete;
   ~TrainMetrics();
 
-  // The registry to expose (prometheus::Exposer::RegisterCollectable). Shared ownership.
+  // The registry to expose (status::StatusEndpoint::RegisterCollectable). Shared ownership.
   std::shared_ptr<prometheus::Registry> registry() const { return registry_; }
 
   // plumb_events_rejected_total{reason} += n.

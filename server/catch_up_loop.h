@@ -4,7 +4,8 @@
 // reads the active version and, when that differs from the serving one, builds the new
 // snapshot on this thread (off the request path) and swaps it into the holder. A version
 // that fails to load is logged, counted and not retried until the active version changes
-// again; the old snapshot keeps serving.
+// again; the old snapshot keeps serving. Every round also follows the store's withdrawn items
+// (a small read; the list itself only when it changed) into the holder.
 #pragma once
 
 #include <atomic>
@@ -74,6 +75,9 @@ class CatchUpLoop {
 
  private:
   void Run();
+  // Rebuilds the holder's withdrawn set when the store's generation moved, or (swapped) for
+  // the snapshot just swapped in.
+  Status RefreshWithdrawn(bool swapped);
 
   store::Store* const store_;
   SnapshotHolder* const holder_;

@@ -25,7 +25,28 @@ struct Scratch {
   std::vector<float> approx_query;                             // the index's form of a query
   std::vector<uint32_t> approx_rows;                           // the index's candidates
   std::vector<std::pair<std::string_view, uint32_t>> unknown;  // (id, request position)
+  std::vector<std::pair<std::string_view, uint32_t>> unavailable;
+  std::vector<uint32_t> withdrawn_rows;
 };
+
+// The withdrawn items of `snap` as a bitmap when the set was built for it; otherwise (the
+// instant after a swap) their rows are added to *rows (ascending, as ResolveItems leaves it).
+std::span<const uint64_t> WithdrawnExclusions(const Snapshot& snap, const WithdrawnItems* withdrawn,
+                                              std::vector<uint32_t>* scratch,
+                                              std::vector<uint32_t>* rows) {
+  if (withdrawn == nullptr || withdrawn->empty()) return {};
+  if (withdrawn->BuiltFor(snap.version())) return withdrawn->bitmap();
+  withdrawn->ResolveRows(snap, scratch);
+  if (!scratch->empty()) {
+    rows->insert(rows->end(), scratch->begin(), scratch->end());
+    std::sort(rows->begin(), rows->end());
+  }
+  return {};
+}
+
+bool InBitmap(std::span<const uint64_t> bitmap, uint32_t row) {
+  return row / 64 < bitmap.size() && ((bitmap[row / 64] >> (row % 64)) & 1) != 0;
+}
 
 Scratch& ThreadScratch() {
   thread_local Scratch scratch;
@@ -84,24 +105,28 @@ std::string UnknownUserMessage(const Snapshot& snap, std::string_view user_id,
   return msg;
 }
 
-// The `count` best rows by the approximate index: the index proposes count + |excluded|
-// candidates, excluded ones are dropped, and the survivors are scored exactly (dot product,
-// or cosine when `norms` is given: the same expression as the exact scan's). False when the
-// exact scan must answer instead: no index, more exclusions than the snapshot's over-fetch
-// bound, or fewer than `count` survivors while the catalogue holds more eligible items.
+// The `count` best rows by the approximate index: the index proposes count + |excluded| +
+// bitmap_bound candidates (bitmap_bound: at most that many rows are set in excluded_bitmap,
+// the withdrawn items), excluded ones are dropped, and the survivors are scored exactly (dot
+// product, or cosine when `norms` is given: the same expression as the exact scan's). False
+// when the exact scan must answer instead: no index (or the Scorer told not to use it), more
+// exclusions than the snapshot's over-fetch bound, or fewer than `count` survivors while the
+// catalogue holds more eligible items.
 bool ApproxTopK(const Snapshot& snap, const ApproxIndex* index, const ApproxQueryOptions& how,
                 std::span<const float> query, std::span<const float> norms, uint32_t count,
+                std::span<const uint64_t> excluded_bitmap, size_t bitmap_bound,
                 std::span<const uint32_t> excluded, Scratch& s, RankedList* out) {
-  if (index == nullptr || !how.use_index || count == 0 ||
-      excluded.size() > snap.max_overfetch()) {
+  const size_t overfetch = excluded.size() + bitmap_bound;
+  if (index == nullptr || !how.use_index || count == 0 || overfetch > snap.max_overfetch()) {
     return false;
   }
   s.approx_rows.clear();
-  index->Search(query, count + static_cast<uint32_t>(excluded.size()), how.search_breadth,
+  index->Search(query, count + static_cast<uint32_t>(overfetch), how.search_breadth,
                 &s.approx_query, &s.approx_rows);
   std::sort(s.approx_rows.begin(), s.approx_rows.end());
-  std::erase_if(s.approx_rows, [excluded](uint32_t row) {
-    return std::binary_search(excluded.begin(), excluded.end(), row);
+  std::erase_if(s.approx_rows, [excluded, excluded_bitmap](uint32_t row) {
+    return InBitmap(excluded_bitmap, row) ||
+           std::binary_search(excluded.begin(), excluded.end(), row);
   });
   s.scores.resize(s.approx_rows.size());
   if (!gather_dot_scores(snap.items(), s.approx_rows, query, s.scores).ok()) return false;
@@ -118,7 +143,7 @@ bool ApproxTopK(const Snapshot& snap, const ApproxIndex* index, const ApproxQuer
     if (!norms.empty()) score = norms[row] > 0.0f ? score * inv_query_norm / norms[row] : 0.0f;
     s.selector.Push(row, score);
   }
-  if (s.selector.size() < count && s.approx_rows.size() + excluded.size() < snap.num_items()) {
+  if (s.selector.size() < count && s.approx_rows.size() + overfetch < snap.num_items()) {
     return false;  // the exclusions ate into the answer: let the exact scan fill it
   }
   std::span<const ScoredIndex> best = s.selector.SortedResult();
@@ -132,9 +157,11 @@ bool ApproxTopK(const Snapshot& snap, const ApproxIndex* index, const ApproxQuer
 // float scan, see core/scan.h).
 Status ScanTopK(const Snapshot& snap, const ApproxQueryOptions& how,
                 std::span<const float> user, uint32_t count,
+                std::span<const uint64_t> excluded_bitmap, size_t bitmap_bound,
                 std::span<const uint32_t> excluded, Deadline deadline, Scratch& s,
                 RankedList* out) {
-  if (ApproxTopK(snap, snap.dot_index(), how, user, {}, count, excluded, s, out)) {
+  if (ApproxTopK(snap, snap.dot_index(), how, user, {}, count, excluded_bitmap, bitmap_bound,
+                 excluded, s, out)) {
     if (Passed(deadline)) return DeadlinePassed(snap.num_items(), snap.num_items());
     return Status::Ok();
   }
@@ -144,8 +171,8 @@ Status ScanTopK(const Snapshot& snap, const ApproxQueryOptions& how,
   StopCheck stop;
   if (deadline != kNoDeadline) stop = past_deadline;
   PLUMB_RETURN_IF_ERROR(top_k_by_dot_pruned(snap.items(), snap.item_codes(), user,
-                                            Exclusions{{}, excluded}, s.block, &s.selector,
-                                            &outcome, stop));
+                                            Exclusions{excluded_bitmap, excluded}, s.block,
+                                            &s.selector, &outcome, stop));
   if (outcome.stopped_early) return DeadlinePassed(outcome.rows_scanned, snap.num_items());
   std::span<const ScoredIndex> best = s.selector.SortedResult();
   out->items.assign(best.begin(), best.end());
@@ -155,6 +182,7 @@ Status ScanTopK(const Snapshot& snap, const ApproxQueryOptions& how,
 void Clear(const Snapshot& snap, RankedList* out) {
   out->items.clear();
   out->unknown_candidates.clear();
+  out->unavailable_candidates.clear();
   out->version = snap.version();
   out->folded_in = false;
   out->fallback = false;
@@ -168,6 +196,8 @@ Status Scorer::Recommend(const Snapshot& snap, const RecommendQuery& query, Rank
   if (Passed(query.deadline)) return DeadlinePassed(0, snap.num_items());
   Scratch& s = ThreadScratch();
   ResolveItems(snap, query.exclude_item_ids, &s.request_rows);
+  const std::span<const uint64_t> withdrawn =
+      WithdrawnExclusions(snap, query.withdrawn, &s.withdrawn_rows, &s.request_rows);
 
   std::span<const float> user;
   std::span<const uint32_t> user_exclusions;
@@ -188,6 +218,7 @@ Status Scorer::Recommend(const Snapshot& snap, const RecommendQuery& query, Rank
       for (uint32_t item : snap.items_by_degree()) {
         if (out->items.size() >= query.count) break;
         if (std::binary_search(s.request_rows.begin(), s.request_rows.end(), item)) continue;
+        if (InBitmap(withdrawn, item)) continue;
         out->items.push_back(ScoredIndex{item, static_cast<float>(snap.item_degrees()[item])});
       }
       out->fallback = true;
@@ -197,8 +228,9 @@ Status Scorer::Recommend(const Snapshot& snap, const RecommendQuery& query, Rank
           UnknownUserMessage(snap, query.user_id, query.recent_item_ids.size()));
     }
   }
-  return ScanTopK(snap, approx_, user, query.count, Union(user_exclusions, s.request_rows, &s.merged),
-                  query.deadline, s, out);
+  return ScanTopK(snap, approx_, user, query.count, withdrawn,
+                  withdrawn.empty() ? 0 : query.withdrawn->size(),
+                  Union(user_exclusions, s.request_rows, &s.merged), query.deadline, s, out);
 }
 
 Status Scorer::RankCandidates(const Snapshot& snap, const CandidatesQuery& query,
@@ -225,10 +257,16 @@ Status Scorer::RankCandidates(const Snapshot& snap, const CandidatesQuery& query
 
   s.candidate_rows.clear();
   s.unknown.clear();
+  s.unavailable.clear();
+  const bool any_withdrawn = query.withdrawn != nullptr && !query.withdrawn->empty();
   for (uint32_t j = 0; j < query.candidate_item_ids.size(); ++j) {
     const std::string_view id = query.candidate_item_ids[j];
     if (std::optional<uint32_t> row = snap.FindItem(id)) {
-      s.candidate_rows.push_back(*row);
+      if (any_withdrawn && query.withdrawn->Contains(id)) {
+        s.unavailable.emplace_back(id, j);
+      } else {
+        s.candidate_rows.push_back(*row);
+      }
     } else {
       s.unknown.emplace_back(id, j);
     }
@@ -244,6 +282,13 @@ Status Scorer::RankCandidates(const Snapshot& snap, const CandidatesQuery& query
     }
   }
   std::sort(out->unknown_candidates.begin(), out->unknown_candidates.end());
+  std::sort(s.unavailable.begin(), s.unavailable.end());
+  for (size_t j = 0; j < s.unavailable.size(); ++j) {
+    if (j == 0 || s.unavailable[j].first != s.unavailable[j - 1].first) {
+      out->unavailable_candidates.push_back(s.unavailable[j].second);
+    }
+  }
+  std::sort(out->unavailable_candidates.begin(), out->unavailable_candidates.end());
 
   s.scores.resize(s.candidate_rows.size());
   PLUMB_RETURN_IF_ERROR(gather_dot_scores(snap.items(), s.candidate_rows, user, s.scores));
@@ -270,10 +315,13 @@ Status Scorer::SimilarItems(const Snapshot& snap, const SimilarQuery& query,
   }
   Scratch& s = ThreadScratch();
   ResolveItems(snap, query.exclude_item_ids, &s.request_rows);
+  const std::span<const uint64_t> withdrawn =
+      WithdrawnExclusions(snap, query.withdrawn, &s.withdrawn_rows, &s.request_rows);
   const uint32_t self[1] = {*item};
   std::span<const uint32_t> excluded = Union(self, s.request_rows, &s.merged);
   if (ApproxTopK(snap, snap.cosine_index(), approx_, snap.item_vector(*item), snap.item_norms(),
-                 query.count, excluded, s, out)) {
+                 query.count, withdrawn, withdrawn.empty() ? 0 : query.withdrawn->size(),
+                 excluded, s, out)) {
     if (Passed(query.deadline)) return DeadlinePassed(snap.num_items(), snap.num_items());
     return Status::Ok();
   }
@@ -286,7 +334,7 @@ Status Scorer::SimilarItems(const Snapshot& snap, const SimilarQuery& query,
   StopCheck stop;
   if (query.deadline != kNoDeadline) stop = past_deadline;
   PLUMB_RETURN_IF_ERROR(top_k_by_cosine_pruned(snap.items(), snap.item_codes(), snap.item_norms(),
-                                               snap.item_vector(*item), Exclusions{{}, excluded},
+                                               snap.item_vector(*item), Exclusions{withdrawn, excluded},
                                                s.block, &s.selector, &outcome, stop));
   if (outcome.stopped_early) return DeadlinePassed(outcome.rows_scanned, snap.num_items());
   std::span<const ScoredIndex> best = s.selector.SortedResult();

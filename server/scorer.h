@@ -24,6 +24,7 @@
 #include "core/topk.h"
 #include "server/fold_in.h"
 #include "server/snapshot.h"
+#include "server/withdrawn_items.h"
 
 namespace plumb::server {
 
@@ -45,6 +46,7 @@ struct RecommendQuery {
   std::span<const std::string_view> recent_item_ids;   // used only for unknown users
   UnknownUserPolicy unknown_user = UnknownUserPolicy::kFail;
   Deadline deadline = kNoDeadline;
+  const WithdrawnItems* withdrawn = nullptr;  // never returned (null: none)
 };
 
 struct CandidatesQuery {
@@ -52,6 +54,7 @@ struct CandidatesQuery {
   std::span<const std::string_view> candidate_item_ids;
   std::span<const std::string_view> recent_item_ids;
   Deadline deadline = kNoDeadline;
+  const WithdrawnItems* withdrawn = nullptr;  // reported, not scored (null: none)
 };
 
 struct SimilarQuery {
@@ -59,6 +62,7 @@ struct SimilarQuery {
   uint32_t count = 0;
   std::span<const std::string_view> exclude_item_ids;
   Deadline deadline = kNoDeadline;
+  const WithdrawnItems* withdrawn = nullptr;  // never returned (null: none)
 };
 
 // A ranked answer. Reuse one per thread: the vectors keep their capacity between requests.
@@ -69,6 +73,9 @@ struct RankedList {
   // RankCandidates: indexes into candidate_item_ids of the candidates the snapshot does not
   // know, first occurrence of each distinct id, in request order.
   std::vector<uint32_t> unknown_candidates;
+  // RankCandidates: indexes into candidate_item_ids of the known candidates that are
+  // withdrawn (query.withdrawn), first occurrence of each distinct id, in request order.
+  std::vector<uint32_t> unavailable_candidates;
   uint64_t version = 0;
   bool folded_in = false;
   bool fallback = false;
@@ -103,10 +110,12 @@ class Scorer {
   Status Recommend(const Snapshot& snap, const RecommendQuery& query, RankedList* out) const;
 
   // Scores the known candidates (each distinct one once) for a known or folded-in user, best
-  // first; unknown candidates are reported in out->unknown_candidates.
+  // first; unknown candidates are reported in out->unknown_candidates, withdrawn ones in
+  // out->unavailable_candidates.
   Status RankCandidates(const Snapshot& snap, const CandidatesQuery& query, RankedList* out) const;
 
-  // Top `count` items by cosine similarity to a known item, never the item itself.
+  // Top `count` items by cosine similarity to a known item, never the item itself nor a
+  // withdrawn item (the query item may be withdrawn).
   // FailedPrecondition if the item's vector is zero (cosine undefined).
   Status SimilarItems(const Snapshot& snap, const SimilarQuery& query, RankedList* out) const;
 

@@ -16,7 +16,7 @@ namespace {
 
 // The duration flags are texts with a unit; ParseServeConfig converts them afterwards.
 struct DurationTexts {
-  std::string catchup_interval, exposure_window_max_age, shutdown_grace;
+  std::string catchup_interval, exposure_window_max_age, shutdown_grace, status_history_step;
 };
 
 void DefineOptions(CLI::App& app, ServeConfig* c, DurationTexts* d) {
@@ -35,6 +35,10 @@ void DefineOptions(CLI::App& app, ServeConfig* c, DurationTexts* d) {
   app.add_option("--catchup-interval", d->catchup_interval,
                  "How often to catch up with the trainer and look for a new active version "
                  "(10ms .. 1h)");
+  d->status_history_step = FormatDuration(c->status_history_step_ms);
+  app.add_option("--status-history-step", d->status_history_step,
+                 "Spacing of the status page's history points at the metrics address; the "
+                 "last 1440 are kept (1m: a day) (1s .. 1h)");
   app.add_option("--exposure-window-lists", c->exposure.window_lists,
                  "Exposure monitor: the last this many served lists form the window")
       ->check(CLI::Range(1, 10'000'000));
@@ -211,6 +215,10 @@ int ParseServeConfig(int argc, const char* const* argv, ServeConfig* config, std
                        30LL * 86'400'000, &ms, err))
     return 2;
   config->exposure.window_seconds = static_cast<double>(ms) / 1000.0;
+  if (!ConvertDuration("--status-history-step", durations.status_history_step, 1000, 3'600'000, &ms,
+                       err))
+    return 2;
+  config->status_history_step_ms = ms;
   return -1;
 }
 

@@ -36,6 +36,8 @@ struct ServeConfig {
   std::string scratch_dir;
   int catchup_interval_ms = 500;   // --catchup-interval
   int shutdown_grace_ms = 5000;    // --shutdown-grace
+  // Spacing of the status page's history points (--status-history-step); 1440 are kept.
+  int64_t status_history_step_ms = 60000;
   std::string log_level = "info";  // trace, debug, info, warn, error, critical, off
   // File holding the bearer token every Ranker call must carry; empty = no token. Health
   // checks and reflection stay open.

@@ -212,6 +212,50 @@ TEST(ApproxServing, RequestExclusionsAreHonouredAndTooManyFallBackToTheExactScan
   EXPECT_EQ(a.items, e.items);
 }
 
+// Withdrawn items (bitmap built for the snapshot, or resolved by id the instant after a swap)
+// are never returned by the approximate path either, and it still answers from the index.
+TEST(ApproxServing, WithdrawnItemsAreNeverReturned) {
+  const TrainedWorld& t = World();
+  auto approx = Build(t, 1);
+  Scorer scorer;
+  RankedList before, after;
+  for (uint32_t u : {3u, 11u, 42u}) {
+    RecommendQuery q;
+    const std::string user = trainer::MemberLabel(u);
+    q.user_id = user;
+    q.count = kCount;
+    ASSERT_TRUE(scorer.Recommend(*approx, q, &before).ok());
+    ASSERT_TRUE(before.approximate);
+    // Withdraw the first answer's top five.
+    std::vector<std::string> ids;
+    for (size_t j = 0; j < 5; ++j) ids.push_back(trainer::ToolLabel(before.items[j].index));
+    for (const Snapshot* built_for : {approx.get(), static_cast<const Snapshot*>(nullptr)}) {
+      WithdrawnItems withdrawn(ids, 1, built_for);
+      q.withdrawn = &withdrawn;
+      ASSERT_TRUE(scorer.Recommend(*approx, q, &after).ok());
+      EXPECT_TRUE(after.approximate);
+      ASSERT_EQ(after.items.size(), kCount);
+      for (const ScoredIndex& x : after.items) {
+        for (size_t j = 0; j < 5; ++j) ASSERT_NE(x.index, before.items[j].index) << user;
+      }
+      // The rest of the old answer moves up: its 15 others are all still there.
+      for (size_t j = 5; j < kCount; ++j) {
+        EXPECT_TRUE(std::any_of(after.items.begin(), after.items.end(),
+                                [&](const ScoredIndex& x) { return x == before.items[j]; }));
+      }
+      SimilarQuery sq;
+      const std::string item = trainer::ToolLabel(before.items[10].index);
+      sq.item_id = item;
+      sq.count = kCount;
+      sq.withdrawn = &withdrawn;
+      ASSERT_TRUE(scorer.SimilarItems(*approx, sq, &after).ok());
+      for (const ScoredIndex& x : after.items) {
+        for (size_t j = 0; j < 5; ++j) ASSERT_NE(x.index, before.items[j].index) << item;
+      }
+    }
+  }
+}
+
 TEST(ApproxServing, SmallCataloguesStayExactAndBadOptionsAreRefused) {
   const TrainedWorld& t = World();
   auto snap = Build(t, t.model.num_items() + 1);  // threshold above the catalogue

@@ -1,11 +1,6 @@
 #include "core/approx_index.h"
 
-#include <sys/resource.h>
-#include <sys/syscall.h>
-#include <unistd.h>
-
 #include <algorithm>
-#include <cerrno>
 #include <atomic>
 #include <chrono>
 #include <cmath>
@@ -15,6 +10,8 @@
 #include <thread>
 
 #include <hnswlib/hnswlib.h>
+
+#include "core/thread_priority.h"
 
 namespace plumb {
 
@@ -36,14 +33,6 @@ void TransformRow(std::span<const float> row, ApproxIndex::Metric metric, float*
     const double scale = norm_sq > 0 ? 1.0 / std::sqrt(norm_sq) : 0.0;
     for (size_t d = 0; d < row.size(); ++d) out[d] = static_cast<float>(row[d] * scale);
   }
-}
-
-// Lowers the calling thread's CPU priority (Linux: nice applies per thread).
-void LowerThisThreadsPriority() {
-  const pid_t tid = static_cast<pid_t>(syscall(SYS_gettid));
-  errno = 0;
-  const int now = getpriority(PRIO_PROCESS, tid);
-  if (errno == 0 && now < 10) setpriority(PRIO_PROCESS, tid, 10);
 }
 
 }  // namespace
@@ -94,7 +83,7 @@ Status ApproxIndex::Build(MatrixView items, Metric metric, const ApproxIndexOpti
   std::atomic<size_t> next{0};
   std::atomic<bool> failed{false};
   auto insert = [&](bool lower_priority) {
-    if (lower_priority) LowerThisThreadsPriority();
+    if (lower_priority) LowerThisThreadsPriority(10);
     std::vector<float> row(stored_dim);
     for (;;) {
       const size_t r = next.fetch_add(1);

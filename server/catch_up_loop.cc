@@ -2,6 +2,7 @@
 
 #include <spdlog/spdlog.h>
 
+#include "core/thread_priority.h"
 #include "store/store.h"
 
 namespace plumb::server {
@@ -127,8 +128,11 @@ Status CatchUpLoop::RefreshWithdrawn(bool swapped) {
   return Status::Ok();
 }
 
-void CatchUpLoop::Start() {
-  thread_ = std::thread([this] { Run(); });
+void CatchUpLoop::Start(int nice) {
+  thread_ = std::thread([this, nice] {
+    LowerThisThreadsPriority(nice);
+    Run();
+  });
 }
 
 void CatchUpLoop::Stop() {

@@ -200,7 +200,7 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   }
   endpoint.store(server.get());
   server->SetServing(holder.Get() != nullptr);
-  loop.Start();
+  loop.Start(config.background_nice);
   spdlog::info(
       "plumb-serve listening on port {} ({}{}{}), metrics on {}; {} calls score at once, {} more "
       "wait, {} threads",

@@ -62,6 +62,10 @@ void DefineOptions(CLI::App& app, ServeConfig* c, DurationTexts* d) {
       ->check(CLI::Range(0, 1'000'000));
   app.add_option("--max-recent", c->limits.max_recent, "Most recent_item_ids in one request")
       ->check(CLI::Range(0, 100'000));
+  app.add_option("--background-nice", c->background_nice,
+                 "CPU niceness of the catch-up thread (snapshot and index builds), so that "
+                 "requests keep the CPU while a version loads (0: as the process)")
+      ->check(CLI::Range(0, 19));
   app.add_option("--approx-min-items", c->approx.min_items,
                  "Catalogues of at least this many items are served from approximate indexes "
                  "(Recommend, SimilarItems); smaller ones by the exact scan. 0: always exact")

@@ -47,9 +47,11 @@ struct ServeConfig {
   RankerLimits limits;
   FoldInOptions fold_in;
   ExposureWindowOptions exposure;
-  bool exposure_monitor = true;
+  bool exposure_monitor = true;  // off: no window, no exposure gauges (for measuring its cost)
   // Approximate indexes for large catalogues (off below min_items).
-  ApproxServingOptions approx = DefaultApproxServing();  // off: no window, no exposure gauges (for measuring its cost)
+  ApproxServingOptions approx = DefaultApproxServing();
+  // Niceness of the catch-up thread (snapshot and index builds); 0: the process's.
+  int background_nice = 10;
 };
 
 // Parses argv (and the --config file it names) into *config.

@@ -174,7 +174,7 @@ Status Snapshot::Build(SnapshotParts parts, std::shared_ptr<const Snapshot>* out
     // already the configured share of the machine).
     Status built = ApproxIndex::Build(snap->items_.view(), ApproxIndex::Metric::kDot,
                                       parts.approx.index, &snap->dot_index_);
-    if (built.ok()) {
+    if (built.ok() && parts.approx.similar_items) {
       built = ApproxIndex::Build(snap->items_.view(), ApproxIndex::Metric::kCosine,
                                  parts.approx.index, &snap->cosine_index_);
     }

@@ -38,6 +38,9 @@ struct ApproxServingOptions {
   // candidates and drop the excluded ones; when fewer than count survive, the call falls
   // back to the exact scan.
   uint32_t max_overfetch = 2000;
+  // Also the cosine index for SimilarItems; false leaves SimilarItems to the exact scan and
+  // halves the indexes' build time and memory (used by bench_catalogue at 10M items).
+  bool similar_items = true;
 };
 
 // The raw material of a Snapshot. LoadSnapshot() fills it from a Store; tests and

@@ -198,6 +198,7 @@ int Run(const Args& a) {
   parts.approx.index.links = a.links;
   parts.approx.index.build_breadth = a.build_breadth;
   parts.approx.index.build_threads = a.build_threads;
+  parts.approx.similar_items = a.similar;
   const auto [rss_before, hwm_before] = RssMb();
   Clock::time_point t0 = Clock::now();
   std::shared_ptr<const Snapshot> snap;
@@ -216,7 +217,8 @@ int Run(const Args& a) {
   std::printf("memory: float rows %.0f MB, index (dot) %.0f MB, index (cosine) %.0f MB; "
               "process RSS %.0f -> %.0f MB, peak %.0f MB\n",
               items * dim * 4.0 / 1e6, snap->dot_index()->memory_bytes() / 1e6,
-              snap->cosine_index()->memory_bytes() / 1e6, rss_before, rss_after, hwm_after);
+              snap->cosine_index() ? snap->cosine_index()->memory_bytes() / 1e6 : 0.0,
+              rss_before, rss_after, hwm_after);
   std::vector<uint32_t> group_of;
   constexpr size_t kGroups = 5;
   if (!popularity_groups(snap->item_degrees(), kGroups, &group_of).ok()) return 1;
@@ -240,11 +242,20 @@ int Run(const Args& a) {
   }
 
   std::mt19937_64 rng(a.seed + 3);
-  std::vector<uint32_t> users(a.queries), probe_items(a.queries);
+  std::vector<uint32_t> users(a.queries), uniform_items(a.queries), viewed_items(a.queries);
   for (uint32_t& u : users) u = static_cast<uint32_t>(rng() % snap->num_users());
-  for (uint32_t& i : probe_items) i = static_cast<uint32_t>(rng() % items);
+  for (uint32_t& i : uniform_items) i = static_cast<uint32_t>(rng() % items);
+  {
+    // Items drawn in proportion to their interactions: the pages people look at, where a
+    // "similar items" box is asked for.
+    std::discrete_distribution<uint32_t> by_degree(snap->item_degrees().begin(),
+                                                   snap->item_degrees().end());
+    for (uint32_t& i : viewed_items) i = by_degree(rng);
+  }
 
-  for (int kind = 0; kind < (a.similar ? 2 : 1); ++kind) {
+  // kind 0: Recommend; 1: SimilarItems of uniformly drawn items; 2: of interaction-drawn ones.
+  for (int kind = 0; kind < (a.similar ? 3 : 1); ++kind) {
+    const std::vector<uint32_t>& probe_items = kind == 1 ? uniform_items : viewed_items;
     auto run = [&](const Scorer& scorer, std::vector<RankedList>* answers, const Sweep* exact,
                    Sweep* out) {
       out->shares.assign(kGroups, 0.0);
@@ -285,8 +296,11 @@ int Run(const Args& a) {
     Sweep exact;
     run(Scorer({}, ApproxQueryOptions{.use_index = false}), &exact_answers, nullptr, &exact);
     exact.recall = 1.0;
-    PrintHeader(kind == 0 ? "Recommend (top 20, seen items excluded), server-side, 1 thread"
-                          : "SimilarItems (top 20 by cosine), server-side, 1 thread",
+    PrintHeader(kind == 0   ? "Recommend (top 20, seen items excluded), server-side, 1 thread"
+                : kind == 1 ? "SimilarItems (top 20 by cosine) of items drawn uniformly, "
+                              "server-side, 1 thread"
+                            : "SimilarItems (top 20 by cosine) of items drawn by their "
+                              "interactions, server-side, 1 thread",
                 kGroups);
     PrintRow("exact pruned scan", exact, exact);
     if (kind == 0) {

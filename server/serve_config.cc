@@ -81,6 +81,9 @@ void DefineOptions(CLI::App& app, ServeConfig* c, DurationTexts* d) {
                  "Approximate index: candidates kept while searching (more: higher recall, "
                  "slower calls)")
       ->check(CLI::Range(8u, 65'536u));
+  app.add_option("--approx-similar-search-breadth", c->approx.similar_search_breadth,
+                 "Approximate index: candidates kept while searching for SimilarItems")
+      ->check(CLI::Range(8u, 65'536u));
   app.add_option("--approx-build-threads", c->approx.index.build_threads,
                  "Threads that build a new version's indexes, at a lower CPU priority than "
                  "requests")

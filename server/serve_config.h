@@ -7,9 +7,11 @@
 // are --x / --no-x (true / false in the file).
 #pragma once
 
+#include <algorithm>
 #include <cstdint>
 #include <iosfwd>
 #include <string>
+#include <thread>
 
 #include "server/admission_queue.h"
 #include "server/exposure_window.h"
@@ -22,8 +24,12 @@ namespace plumb::server {
 
 // plumb-serve's defaults for approximate serving: catalogues from a million items.
 inline ApproxServingOptions DefaultApproxServing() {
+  // Measured at 1M trained items x 64 (README, "Large catalogues"): build breadth 100 builds
+  // in 58 % of 200's time for 0.6 points less recall; the build threads run nice.
   ApproxServingOptions a;
   a.min_items = 1'000'000;
+  a.index.build_breadth = 100;
+  a.index.build_threads = std::max(1u, std::thread::hardware_concurrency());
   return a;
 }
 

@@ -175,8 +175,10 @@ Status Snapshot::Build(SnapshotParts parts, std::shared_ptr<const Snapshot>* out
     Status built = ApproxIndex::Build(snap->items_.view(), ApproxIndex::Metric::kDot,
                                       parts.approx.index, &snap->dot_index_);
     if (built.ok() && parts.approx.similar_items) {
-      built = ApproxIndex::Build(snap->items_.view(), ApproxIndex::Metric::kCosine,
-                                 parts.approx.index, &snap->cosine_index_);
+      ApproxIndexOptions cosine = parts.approx.index;
+      cosine.search_breadth = parts.approx.similar_search_breadth;
+      built = ApproxIndex::Build(snap->items_.view(), ApproxIndex::Metric::kCosine, cosine,
+                                 &snap->cosine_index_);
     }
     if (!built.ok()) {
       // The rows were checked above, so what remains is a lack of memory.

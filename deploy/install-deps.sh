@@ -8,7 +8,7 @@ PACKAGES=(
   build-essential cmake ninja-build pkg-config git ca-certificates
   # libraries
   libgrpc++-dev protobuf-compiler-grpc libprotobuf-dev protobuf-compiler
-  libeigen3-dev librocksdb-dev prometheus-cpp-dev
+  libeigen3-dev librocksdb-dev prometheus-cpp-dev libhnswlib-dev
   libcli11-dev libspdlog-dev libtomlplusplus-dev
   # the metrics address's HTTP server (status pages beside /metrics) and JSON
   libcivetweb-dev nlohmann-json3-dev

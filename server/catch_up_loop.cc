@@ -2,6 +2,7 @@
 
 #include <spdlog/spdlog.h>
 
+#include "core/thread_priority.h"
 #include "store/store.h"
 
 namespace plumb::server {
@@ -61,7 +62,7 @@ Status CatchUpLoop::RunOnce() {
   const auto start = std::chrono::steady_clock::now();
   loads_.fetch_add(1, std::memory_order_relaxed);
   std::shared_ptr<const Snapshot> next;
-  s = LoadSnapshot(*store_, active, &next);
+  s = LoadSnapshot(*store_, active, &next, options_.approx);
   const double seconds =
       std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
   if (s.IsNotFound()) {
@@ -88,9 +89,12 @@ Status CatchUpLoop::RunOnce() {
   current.reset();
   std::shared_ptr<const Snapshot> previous = holder_->Swap(next);
   swaps_.fetch_add(1, std::memory_order_relaxed);
-  spdlog::info("serving version {} ({} items, {} users, dim {}, {:.1f} MB) after {:.3f} s{}",
+  spdlog::info("serving version {} ({} items, {} users, dim {}, {:.1f} MB) after {:.3f} s{}{}",
                next->version(), next->num_items(), next->num_users(), next->dim(),
                next->memory_bytes() / 1e6, seconds,
+               next->dot_index() ? fmt::format(" (approximate indexes built in {:.1f} s)",
+                                               next->approx_build_seconds())
+                                 : std::string(),
                previous ? "; replaced version " + std::to_string(previous->version()) : "");
   previous.reset();
   if (Status w = RefreshWithdrawn(true); !w.ok()) {
@@ -124,8 +128,11 @@ Status CatchUpLoop::RefreshWithdrawn(bool swapped) {
   return Status::Ok();
 }
 
-void CatchUpLoop::Start() {
-  thread_ = std::thread([this] { Run(); });
+void CatchUpLoop::Start(int nice) {
+  thread_ = std::thread([this, nice] {
+    LowerThisThreadsPriority(nice);
+    Run();
+  });
 }
 
 void CatchUpLoop::Stop() {

@@ -39,6 +39,8 @@ struct CatchUpOptions {
   // without an error, so only this check notices. Zero: every round. Costs one read of
   // the MANIFEST and of each table file's footer and index.
   std::chrono::milliseconds file_check_interval{60000};
+  // Approximate indexes for large catalogues, built with each snapshot before its swap.
+  ApproxServingOptions approx;
 };
 
 class CatchUpLoop {
@@ -58,8 +60,10 @@ class CatchUpLoop {
   // version on disk is ready when it listens.
   Status RunOnce();
 
-  // Starts the background thread, which calls RunOnce every interval. Call at most once.
-  void Start();
+  // Starts the background thread, which calls RunOnce every interval, at niceness `nice`
+  // (core/thread_priority.h; 0: the caller's): snapshot and index builds then yield the CPU
+  // to request threads. Call at most once.
+  void Start(int nice = 0);
   // Asks the thread to finish its round and joins it. Idempotent; call from one thread
   // (the owner), like the destructor.
   void Stop();

@@ -126,6 +126,7 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   std::atomic<RankingServer*> endpoint{nullptr};
   CatchUpOptions follow;
   follow.interval = std::chrono::milliseconds(config.catchup_interval_ms);
+  follow.approx = config.approx;
   follow.on_swap = [&endpoint](const Snapshot&, double) {
     if (RankingServer* server = endpoint.load()) server->SetServing(true);
   };
@@ -199,7 +200,7 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   }
   endpoint.store(server.get());
   server->SetServing(holder.Get() != nullptr);
-  loop.Start();
+  loop.Start(config.background_nice);
   spdlog::info(
       "plumb-serve listening on port {} ({}{}{}), metrics on {}; {} calls score at once, {} more "
       "wait, {} threads",

@@ -7,6 +7,9 @@
 // SimilarItems read the snapshot's int8 copy first and compute exact float scores only for
 // rows that might enter the top K (top_k_by_dot_pruned, top_k_by_cosine_pruned): the same
 // answer as a full float scan for less than half the work.
+// Large catalogues (Snapshot::dot_index() present): Recommend and SimilarItems ask the
+// approximate index for candidates instead and score only those exactly; calls whose
+// exclusions exceed the over-fetch bound, or that the index cannot fill, take the exact scan.
 // Per-request scratch (selector, score block, exclusion lists, fold-in vector) is thread-local and
 // reused, so a request on a warm thread allocates nothing on the scoring path.
 #pragma once
@@ -76,11 +79,22 @@ struct RankedList {
   uint64_t version = 0;
   bool folded_in = false;
   bool fallback = false;
+  // Answered from the snapshot's approximate index (membership approximate, scores exact).
+  bool approximate = false;
+};
+
+// How a Scorer uses a snapshot's approximate indexes (when the snapshot has them).
+struct ApproxQueryOptions {
+  // False: always the exact scan (benchmarks and checks compare the two on one snapshot).
+  bool use_index = true;
+  // The index's candidate list per search; 0: the breadth the index was built with.
+  uint32_t search_breadth = 0;
 };
 
 class Scorer {
  public:
-  explicit Scorer(FoldInOptions fold_in = {}) : fold_in_(fold_in) {}
+  explicit Scorer(FoldInOptions fold_in = {}, ApproxQueryOptions approx = {})
+      : fold_in_(fold_in), approx_(approx) {}
 
   // All three methods: thread-safe (scratch is per thread), allocate nothing in steady
   // state apart from growing *out the first time a thread sees a larger answer. The query's
@@ -107,6 +121,7 @@ class Scorer {
 
  private:
   const FoldInOptions fold_in_;
+  const ApproxQueryOptions approx_;
 };
 
 }  // namespace plumb::server

@@ -198,13 +198,13 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
     spdlog::critical("cannot start the training loop: {}", s.ToString());
     return 1;
   }
-  loop->Start();
+  loop->Start(config.background_nice);
   RetentionOptions retention_options;
   retention_options.max_age_ms = config.retention_max_age_ms;
   retention_options.max_log_bytes = config.retention_max_log_mb << 20;
   retention_options.interval_ms = config.retention_interval_ms;
   RetentionRunner retention(store.get(), retention_options);
-  retention.Start();
+  retention.Start(config.background_nice);
 
   // ---- ingest and control -----------------------------------------------------------
   StoreEventLog event_log(store.get());

@@ -4,6 +4,8 @@
 
 #include <chrono>
 
+#include "core/thread_priority.h"
+
 namespace plumb::online {
 
 RetentionRunner::RetentionRunner(store::Store* store, const RetentionOptions& options)
@@ -11,9 +13,10 @@ RetentionRunner::RetentionRunner(store::Store* store, const RetentionOptions& op
 
 RetentionRunner::~RetentionRunner() { Stop(); }
 
-void RetentionRunner::Start() {
+void RetentionRunner::Start(int nice) {
   if (!options_.enabled() || thread_.joinable()) return;
-  thread_ = std::thread([this] {
+  thread_ = std::thread([this, nice] {
+    LowerThisThreadsPriority(nice);
     std::unique_lock<std::mutex> lock(mu_);
     while (!stop_) {
       lock.unlock();

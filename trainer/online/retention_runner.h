@@ -44,8 +44,9 @@ class RetentionRunner {
   // Stops the thread (waits for a pass in progress).
   ~RetentionRunner();
 
-  // Starts the background thread (its first pass runs at once). A no-op when no rule is set.
-  void Start();
+  // Starts the background thread at niceness `nice` (core/thread_priority.h; 0: the
+  // caller's); its first pass runs at once. A no-op when no rule is set.
+  void Start(int nice = 0);
   // Stops and joins the thread. Idempotent.
   void Stop();
 

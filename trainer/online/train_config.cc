@@ -140,6 +140,9 @@ Status CheckTrainConfig(const TrainConfig& c) {
   }
   if (c.keep_versions < 1) return bad("keep_versions must be at least 1");
   if (c.retention_interval_ms < 100) return bad("retention_interval must be at least 100ms");
+  if (c.background_nice < 0 || c.background_nice > 19) {
+    return bad("background_nice must be within [0, 19]");
+  }
   if (c.retention_max_log_mb > (uint64_t{1} << 40)) return bad("retention_max_log_mb is too large");
   int64_t ms;
   PLUMB_RETURN_IF_ERROR(ParseDuration(c.dedup_window, &ms));
@@ -240,6 +243,9 @@ std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConf
   Bind(app, &keys, s, "max_future_skew", &c.max_future_skew,
        "Events whose timestamp is more than this after their receipt are rejected "
        "(REJECT_FUTURE_TIMESTAMP; 90s, 30m, 1h, 1d; 0 = no limit)");
+  Bind(app, &keys, s, "background_nice", &c.background_nice,
+       "CPU niceness of training, refits (10 more) and retention, so that serving on the "
+       "same host keeps the CPU (0 = as the process, at most 19)");
   Bind(app, &keys, s, "min_free_disk_mb", &c.min_free_disk_mb,
        "Free space (MB) kept on the store's disk: writes that would cut into it are refused "
        "(RESOURCE_EXHAUSTED) until space is freed; 0 = no check");

@@ -31,6 +31,7 @@ struct TrainConfig {
   std::string keep_versions_for = "2h";    // ...and every version younger than this
   std::string dedup_window = "24h";        // event_id de-duplication window; "0" = forever
   std::string max_future_skew = "1h";      // event timestamps ahead of receipt; "0" = no limit
+  int background_nice = 10;  // niceness of training, refit and retention threads (0..19)
   uint64_t min_free_disk_mb = 128;         // free space kept on the store's disk; 0 = no check
   std::string token_file;                  // bearer token file; "" = no token
   std::string tls_cert;                    // PEM certificate chain; "" = no TLS

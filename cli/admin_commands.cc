@@ -117,6 +117,20 @@ Status RunActivate(const AdminArgs& args) {
   return Status::Ok();
 }
 
+namespace {
+
+// "2026-12-02 21:30:05 UTC" for ms since the epoch.
+std::string FormatUtc(int64_t ms) {
+  const std::time_t seconds = static_cast<std::time_t>(ms / 1000);
+  std::tm utc{};
+  gmtime_r(&seconds, &utc);
+  char buf[48];
+  std::strftime(buf, sizeof buf, "%Y-%m-%d %H:%M:%S UTC", &utc);
+  return buf;
+}
+
+}  // namespace
+
 Status RunInspect(const AdminArgs& args) {
   std::unique_ptr<store::Store> store;
   PLUMB_RETURN_IF_ERROR(OpenForRead(args.db, &store));
@@ -127,9 +141,37 @@ Status RunInspect(const AdminArgs& args) {
   PLUMB_RETURN_IF_ERROR(store->ListVersions(&versions));
   uint64_t interactions = 0;
   PLUMB_RETURN_IF_ERROR(store->ForEachInteraction([&](uint32_t, uint32_t) { ++interactions; }));
+  store::LogStats log;
+  PLUMB_RETURN_IF_ERROR(store->GetLogStats(&log));
   std::printf("store           %s\n", args.db.c_str());
-  std::printf("event log       %llu events\n",
-              static_cast<unsigned long long>(store->LastSequence()));
+  std::printf("event log       %llu events (%.1f MB stored; %.1f MB of table files), sequences "
+              "%llu..%llu\n",
+              static_cast<unsigned long long>(log.events), static_cast<double>(log.bytes) / 1e6,
+              static_cast<double>(log.disk_bytes) / 1e6,
+              static_cast<unsigned long long>(log.first_seq),
+              static_cast<unsigned long long>(log.last_seq));
+  if (log.events > 0) {
+    std::printf("oldest event    %s (sequence %llu)\n", FormatUtc(log.oldest_timestamp_ms).c_str(),
+                static_cast<unsigned long long>(log.first_seq));
+  }
+  if (log.removed_events > 0) {
+    std::printf(
+        "retention       removed %llu events (%.1f MB) in %llu passes, the last at %s; "
+        "everything up to sequence %llu (newest %s) is kept as %llu (user, item) pairs with "
+        "their counts and last times\n",
+        static_cast<unsigned long long>(log.removed_events),
+        static_cast<double>(log.removed_bytes) / 1e6,
+        static_cast<unsigned long long>(log.retention_passes),
+        FormatUtc(log.last_retention_ms).c_str(),
+        static_cast<unsigned long long>(log.folded_through),
+        FormatUtc(log.folded_watermark_ms).c_str(),
+        static_cast<unsigned long long>(log.history_pairs));
+  } else {
+    std::printf("retention       nothing removed yet\n");
+  }
+  uint64_t availability_generation = 0, withdrawn = 0;
+  PLUMB_RETURN_IF_ERROR(store->GetAvailability(&availability_generation, &withdrawn));
+  std::printf("withdrawn items %llu\n", static_cast<unsigned long long>(withdrawn));
   std::printf("trained up to   %llu (lag %llu events)\n", static_cast<unsigned long long>(cursor),
               static_cast<unsigned long long>(store->LastSequence() - cursor));
   std::printf("users, items    %u, %u\n", store->IdCount(store::IdSpace::kUser),

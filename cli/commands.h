@@ -42,7 +42,8 @@ struct FitArgs {
 };
 
 // plumb tune: the fit arguments (store, import, objective cpr, dim, epochs, ...) plus the
-// search and whether to publish the chosen candidate.
+// search and whether to publish the chosen candidate. Without fit.import.db the events go
+// into a temporary store that is removed afterwards (publish then needs a store).
 struct TuneArgs {
   FitArgs fit;
   std::vector<double> betas = {1.0, 2.0, 3.0, 5.0};
@@ -54,8 +55,10 @@ struct TuneArgs {
 
 struct EvalArgs {
   std::string db;
-  std::string test;      // CSV with `user,item`
-  uint64_t version = 0;  // 0: the active version
+  std::string test;  // CSV with `user,item`
+  // Versions to evaluate side by side, on the test pairs every one of them knows; empty or
+  // {0}: the active one.
+  std::vector<uint64_t> versions;
   uint32_t k = 20;
   uint32_t groups = 5;
   uint32_t threads = 2;
@@ -64,6 +67,12 @@ struct EvalArgs {
 
 struct CompareArgs {
   trainer::SynthOptions world;
+  // The user's own data instead of a synthetic world: an event CSV to fit on and a test CSV
+  // (`user,item`) to evaluate on. There is no true relevance then, so no "truth" column;
+  // world.seed still seeds the fits.
+  std::string events;
+  std::string test;
+  bool skip_bad = false;
   uint32_t dim = 64;
   uint32_t epochs = 20;
   uint32_t threads = 2;
@@ -76,6 +85,17 @@ struct CompareArgs {
   bool tune = true;
   double tune_holdout = 0.1;
   std::vector<double> tune_betas = {1.0, 2.0, 3.0, 5.0};
+};
+
+// plumb split (cli/event_split.h).
+struct SplitArgs {
+  std::string events;
+  std::string out;
+  std::string kind = "random";  // random, temporal or debiased
+  double holdout_fraction = 0.2;
+  double validation_fraction = 0.0;
+  uint64_t seed = 1;
+  bool skip_bad = false;
 };
 
 struct TopArgs {
@@ -98,6 +118,7 @@ struct AdminArgs {
 
 Status RunSynth(const trainer::SynthOptions& options, const std::string& out_dir);
 Status RunImport(const ImportArgs& args);
+Status RunSplit(const SplitArgs& args);
 Status RunFit(const FitArgs& args);
 Status RunEval(const EvalArgs& args);
 Status RunTune(const TuneArgs& args);

@@ -1,14 +1,16 @@
-// plumb eval: a stored version against a test file. plumb compare: CPR, BPR and BCE fitted
-// side by side on a synthetic world, beside the ranking by true relevance.
+// plumb eval: stored versions side by side against a test file. plumb compare: CPR, BPR and
+// BCE fitted side by side on a synthetic world, beside the ranking by true relevance, or on
+// the user's own events and test file.
+#include <algorithm>
 #include <chrono>
 #include <cstdio>
 #include <fstream>
-#include <unordered_map>
-
 #include <limits>
+#include <unordered_map>
 
 #include "cli/commands.h"
 #include "cli/csv_reader.h"
+#include "cli/eval_checks.h"
 #include "cli/report_format.h"
 #include "cli/store_access.h"
 #include "trainer/evaluate.h"
@@ -17,63 +19,193 @@
 
 namespace plumb::cli {
 
+namespace {
+
+void Say(const char* who, const std::string& message) {
+  if (!message.empty()) std::fprintf(stderr, "%s: %s\n", who, message.c_str());
+}
+
+std::string VersionLabel(const store::VersionManifest& m) {
+  std::string label = "v" + std::to_string(m.version) + " " + m.objective;
+  if (m.objective == "cpr" && m.training.known()) {
+    char beta[32];
+    std::snprintf(beta, sizeof beta, " b=%g", m.training.beta);
+    label += beta;
+  }
+  return label;
+}
+
+}  // namespace
+
 Status RunEval(const EvalArgs& args) {
   std::unique_ptr<store::Store> store;
   PLUMB_RETURN_IF_ERROR(OpenForRead(args.db, &store));
-  LoadedModel loaded;
-  PLUMB_RETURN_IF_ERROR(LoadModel(*store, args.version, &loaded));
+  // The versions in the order given, each once; none (or 0) means the active one.
+  std::vector<uint64_t> wanted;
+  for (uint64_t v : args.versions) {
+    if (std::find(wanted.begin(), wanted.end(), v) == wanted.end()) wanted.push_back(v);
+  }
+  if (wanted.empty()) wanted.push_back(0);
+  std::vector<LoadedModel> models(wanted.size());
+  for (size_t m = 0; m < wanted.size(); ++m) {
+    PLUMB_RETURN_IF_ERROR(LoadModel(*store, wanted[m], &models[m]));
+  }
 
   std::vector<CsvEvent> rows;
   CsvReadReport read;
   PLUMB_RETURN_IF_ERROR(ReadEventCsv(args.test, CsvReadOptions{}, &rows, &read));
-  std::unordered_map<std::string, uint32_t> user_index, item_index;
-  for (uint32_t u = 0; u < loaded.user_ids.size(); ++u) user_index.emplace(loaded.user_ids[u], u);
-  for (uint32_t i = 0; i < loaded.item_ids.size(); ++i) item_index.emplace(loaded.item_ids[i], i);
-  std::vector<trainer::Pair> test;
+  // Only pairs every version knows, so that the columns compare the same test.
+  std::vector<std::unordered_map<std::string, uint32_t>> user_index(models.size()),
+      item_index(models.size());
+  for (size_t m = 0; m < models.size(); ++m) {
+    for (uint32_t u = 0; u < models[m].user_ids.size(); ++u)
+      user_index[m].emplace(models[m].user_ids[u], u);
+    for (uint32_t i = 0; i < models[m].item_ids.size(); ++i)
+      item_index[m].emplace(models[m].item_ids[i], i);
+  }
+  std::vector<std::vector<trainer::Pair>> test(models.size());
   uint64_t unknown = 0;
   for (const CsvEvent& r : rows) {
-    auto u = user_index.find(r.user);
-    auto i = item_index.find(r.item);
-    if (u == user_index.end() || i == item_index.end()) {
+    std::vector<trainer::Pair> mapped;
+    for (size_t m = 0; m < models.size(); ++m) {
+      auto u = user_index[m].find(r.user);
+      auto i = item_index[m].find(r.item);
+      if (u == user_index[m].end() || i == item_index[m].end()) break;
+      mapped.push_back({u->second, i->second});
+    }
+    if (mapped.size() < models.size()) {
       ++unknown;
       continue;
     }
-    test.push_back({u->second, i->second});
+    for (size_t m = 0; m < models.size(); ++m) test[m].push_back(mapped[m]);
   }
   if (unknown > 0) {
-    std::fprintf(stderr, "eval: %llu of %zu test pairs name a user or item version %llu does not "
-                 "know; they are left out\n",
+    std::string which;
+    for (const LoadedModel& m : models) {
+      which += (which.empty() ? "" : ", ") + std::to_string(m.manifest.version);
+    }
+    std::fprintf(stderr,
+                 "eval: %llu of %zu test pairs name a user or item that version%s %s "
+                 "%s know; they are left out%s\n",
                  static_cast<unsigned long long>(unknown), rows.size(),
-                 static_cast<unsigned long long>(loaded.manifest.version));
+                 models.size() > 1 ? "s" : "", which.c_str(),
+                 models.size() > 1 ? "do not all" : "does not",
+                 models.size() > 1 ? " of every column" : "");
   }
-  if (test.empty()) return Status::InvalidArgument(args.test + ": no test pair the model knows");
+  if (test[0].empty()) return Status::InvalidArgument(args.test + ": no test pair the model knows");
 
   trainer::EvalOptions opt;
   opt.k = args.k;
   opt.num_groups = args.groups;
   opt.threads = args.threads;
-  RankingReport report;
-  PLUMB_RETURN_IF_ERROR(trainer::EvaluateModel(loaded.model, loaded.train, test, opt, &report));
-  const std::string label =
-      "v" + std::to_string(loaded.manifest.version) + " " + loaded.manifest.objective;
-  std::vector<LabelledReport> reports{{label, report}};
+  std::vector<LabelledReport> reports;
+  for (size_t m = 0; m < models.size(); ++m) {
+    const LoadedModel& loaded = models[m];
+    const std::string name = "version " + std::to_string(loaded.manifest.version);
+    Say("eval", LargeKWarning(args.k, loaded.model.num_items()));
+    Say("eval",
+        TrainingOverlapWarning(CountTrainingPairs(loaded.train, test[m]), test[m].size(), name));
+    RankingReport report;
+    PLUMB_RETURN_IF_ERROR(
+        trainer::EvaluateModel(loaded.model, loaded.train, test[m], opt, &report));
+    if (m > 0 && report.test_group_shares != reports.front().second.test_group_shares) {
+      std::fprintf(stderr,
+                   "eval: note: %s was trained on other interactions than version %llu, "
+                   "so its popularity groups are cut differently; the test column shows version "
+                   "%llu's\n",
+                   name.c_str(), static_cast<unsigned long long>(models[0].manifest.version),
+                   static_cast<unsigned long long>(models[0].manifest.version));
+    }
+    reports.emplace_back(VersionLabel(loaded.manifest), std::move(report));
+  }
   std::fputs(args.json ? FormatReportJson(reports).c_str() : FormatReportTable(reports).c_str(),
              stdout);
   return Status::Ok();
 }
 
+namespace {
+
+// compare --events FILE --test FILE: the user's events as training pairs (ids numbered in
+// order of first appearance) and the test pairs whose user and item the events name.
+Status LoadOwnData(const CompareArgs& args, trainer::Interactions* train,
+                   std::vector<trainer::Pair>* test) {
+  std::vector<CsvEvent> rows;
+  CsvReadReport report;
+  CsvReadOptions opt;
+  opt.skip_bad = args.skip_bad;
+  PLUMB_RETURN_IF_ERROR(ReadEventCsv(args.events, opt, &rows, &report));
+  if (report.skipped > 0) {
+    std::fprintf(stderr, "compare: skipped %llu malformed lines (first: %s)\n",
+                 static_cast<unsigned long long>(report.skipped), report.first_skip_reason.c_str());
+  }
+  for (const std::string& w : report.warnings) Say("compare", "warning: " + w);
+  std::unordered_map<std::string, uint32_t> users, items;
+  std::vector<trainer::Pair> pairs;
+  pairs.reserve(rows.size());
+  for (const CsvEvent& r : rows) {
+    const uint32_t u = users.try_emplace(r.user, static_cast<uint32_t>(users.size())).first->second;
+    const uint32_t i = items.try_emplace(r.item, static_cast<uint32_t>(items.size())).first->second;
+    pairs.push_back({u, i});
+  }
+  if (pairs.empty()) return Status::InvalidArgument(args.events + ": no events");
+  PLUMB_RETURN_IF_ERROR(trainer::Interactions::Build(pairs, static_cast<uint32_t>(users.size()),
+                                                     static_cast<uint32_t>(items.size()), train));
+  PLUMB_RETURN_IF_ERROR(ReadEventCsv(args.test, CsvReadOptions{}, &rows, &report));
+  test->clear();
+  uint64_t unknown = 0;
+  for (const CsvEvent& r : rows) {
+    auto u = users.find(r.user);
+    auto i = items.find(r.item);
+    if (u == users.end() || i == items.end()) {
+      ++unknown;
+      continue;
+    }
+    test->push_back({u->second, i->second});
+  }
+  if (unknown > 0) {
+    std::fprintf(stderr,
+                 "compare: %llu of %zu test pairs name a user or item that %s does not "
+                 "hold; they are left out\n",
+                 static_cast<unsigned long long>(unknown), rows.size(), args.events.c_str());
+  }
+  if (test->empty()) {
+    return Status::InvalidArgument(args.test + ": no test pair whose user and item are in " +
+                                   args.events);
+  }
+  Say("compare", TrainingOverlapWarning(CountTrainingPairs(*train, *test), test->size(),
+                                        "the events (" + args.events + ")"));
+  return Status::Ok();
+}
+
+}  // namespace
+
 Status RunCompare(const CompareArgs& args) {
-  std::fprintf(stderr, "compare: generating a lending-library world: %u members, %u tools, "
-               "about %llu borrowings (seed %llu)\n",
-               args.world.users, args.world.items,
-               static_cast<unsigned long long>(args.world.target_interactions),
-               static_cast<unsigned long long>(args.world.seed));
+  const bool own = !args.events.empty();
   trainer::SynthWorld world;
-  PLUMB_RETURN_IF_ERROR(trainer::GenerateSynthWorld(args.world, &world));
   trainer::Interactions train;
-  PLUMB_RETURN_IF_ERROR(world.TrainInteractions(&train));
-  std::fprintf(stderr, "compare: %zu training pairs, %zu ground-truth test pairs\n", train.size(),
-               world.test.size());
+  std::vector<trainer::Pair> test;
+  if (own) {
+    if (args.test.empty()) return Status::InvalidArgument("--events needs --test");
+    PLUMB_RETURN_IF_ERROR(LoadOwnData(args, &train, &test));
+    std::fprintf(stderr,
+                 "compare: %u users, %u items, %zu training pairs from %s; %zu test pairs "
+                 "from %s (no true relevance: no truth column)\n",
+                 train.num_users(), train.num_items(), train.size(), args.events.c_str(),
+                 test.size(), args.test.c_str());
+  } else {
+    std::fprintf(stderr,
+                 "compare: generating a lending-library world: %u members, %u tools, "
+                 "about %llu borrowings (seed %llu)\n",
+                 args.world.users, args.world.items,
+                 static_cast<unsigned long long>(args.world.target_interactions),
+                 static_cast<unsigned long long>(args.world.seed));
+    PLUMB_RETURN_IF_ERROR(trainer::GenerateSynthWorld(args.world, &world));
+    PLUMB_RETURN_IF_ERROR(world.TrainInteractions(&train));
+    test = world.test;
+    std::fprintf(stderr, "compare: %zu training pairs, %zu ground-truth test pairs\n", train.size(),
+                 test.size());
+  }
+  Say("compare", LargeKWarning(args.k, train.num_items()));
 
   trainer::EvalOptions eval;
   eval.k = args.k;
@@ -126,7 +258,7 @@ Status RunCompare(const CompareArgs& args) {
     tune_json = "\"tune\":[";
     auto score_truth = [&](const trainer::TuneRow& row, const trainer::Embeddings& model) {
       RankingReport r;
-      if (!trainer::EvaluateModel(model, part, world.test, eval, &r).ok()) return false;
+      if (!trainer::EvaluateModel(model, part, test, eval, &r).ok()) return false;
       char buf[512];
       std::snprintf(buf, sizeof buf,
                     "%s{\"beta\":%g,\"validation_recall\":%.6f,\"validation_shift\":%.6f,"
@@ -181,16 +313,18 @@ Status RunCompare(const CompareArgs& args) {
     PLUMB_RETURN_IF_ERROR(fit->RunEpochs(args.epochs));
     const double s = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
     RankingReport r;
-    PLUMB_RETURN_IF_ERROR(trainer::EvaluateModel(model, train, world.test, eval, &r));
+    PLUMB_RETURN_IF_ERROR(trainer::EvaluateModel(model, train, test, eval, &r));
     std::fprintf(stderr, "compare: %-9s (beta %g) fitted in %5.1f s, Recall@%u %.4f\n",
                  run.label.c_str(), run.beta, s, args.k, r.recall);
     reports.emplace_back(run.label, std::move(r));
   }
-  RankingReport truth;
-  PLUMB_RETURN_IF_ERROR(trainer::EvaluateScorer(
-      [&world](uint32_t u, std::span<float> scores) { world.TrueScores(u, scores); },
-      train.num_items(), train, world.test, eval, &truth));
-  reports.emplace_back("truth", std::move(truth));
+  if (!own) {
+    RankingReport truth;
+    PLUMB_RETURN_IF_ERROR(trainer::EvaluateScorer(
+        [&world](uint32_t u, std::span<float> scores) { world.TrueScores(u, scores); },
+        train.num_items(), train, test, eval, &truth));
+    reports.emplace_back("truth", std::move(truth));
+  }
   std::fputs(args.json ? FormatReportJson(reports, tune_json).c_str()
                        : FormatReportTable(reports).c_str(),
              stdout);

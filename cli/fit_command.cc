@@ -1,17 +1,21 @@
 // plumb import / plumb fit: events from a CSV file into the store's log, and an offline
 // training run over everything the log holds, published as a new version.
+#include <unistd.h>
+
 #include <chrono>
 #include <cmath>
 #include <cstdio>
 #include <cstdlib>
+#include <filesystem>
 #include <limits>
 
 #include "cli/commands.h"
-#include "cli/report_format.h"
 #include "cli/csv_reader.h"
+#include "cli/eval_checks.h"
+#include "cli/report_format.h"
 #include "cli/store_access.h"
-#include "trainer/online/training_config.h"
 #include "core/duration.h"
+#include "trainer/online/training_config.h"
 #include "trainer/online/training_state.h"
 #include "trainer/tuner.h"
 #include "trainer/validation.h"
@@ -27,10 +31,26 @@ int64_t NowMs() {
       .count();
 }
 
-// Reads and validates the whole file first, so that a bad line changes nothing.
+// What identifies an imported file's content when it has no event ids: a 64-bit FNV-1a hash
+// (Fowler, Noll, Vo) of every row's user, item, ts as written (0 without one) and weight, in
+// order. Not a cryptographic hash: it recognises the same file imported again by mistake.
+struct ImportIdentity {
+  uint64_t hash = 0xcbf29ce484222325ULL;  // FNV-1a 64 offset basis
+  bool has_event_ids = false;
+};
+
+void HashBytes(const void* data, size_t n, uint64_t* h) {
+  const auto* p = static_cast<const unsigned char*>(data);
+  for (size_t i = 0; i < n; ++i) {
+    *h ^= p[i];
+    *h *= 0x100000001b3ULL;  // FNV-1a 64 prime
+  }
+}
+
 // Reads and checks the whole file before any store is opened, so that a bad file changes
 // nothing (and creates no store directory).
-Status ReadForImport(const ImportArgs& args, std::vector<store::EventInput>* events) {
+Status ReadForImport(const ImportArgs& args, std::vector<store::EventInput>* events,
+                     ImportIdentity* identity) {
   std::vector<CsvEvent> rows;
   CsvReadReport report;
   CsvReadOptions opt;
@@ -43,10 +63,16 @@ Status ReadForImport(const ImportArgs& args, std::vector<store::EventInput>* eve
   }
   for (const std::string& w : report.warnings)
     std::fprintf(stderr, "import: warning: %s\n", w.c_str());
+  *identity = ImportIdentity{};
   events->clear();
   events->reserve(rows.size());
   const int64_t now = NowMs();
   for (CsvEvent& r : rows) {
+    HashBytes(r.user.data(), r.user.size() + 1, &identity->hash);  // with the terminating 0
+    HashBytes(r.item.data(), r.item.size() + 1, &identity->hash);
+    HashBytes(&r.timestamp_ms, sizeof r.timestamp_ms, &identity->hash);
+    HashBytes(&r.weight, sizeof r.weight, &identity->hash);
+    identity->has_event_ids = identity->has_event_ids || !r.event_id.empty();
     store::EventInput e;
     e.user_id = std::move(r.user);
     e.item_id = std::move(r.item);
@@ -58,7 +84,25 @@ Status ReadForImport(const ImportArgs& args, std::vector<store::EventInput>* eve
   return Status::Ok();
 }
 
-Status AppendImported(store::Store* store, const std::vector<store::EventInput>& events) {
+std::string ImportKey(const ImportIdentity& identity) {
+  char key[64];
+  std::snprintf(key, sizeof key, "import_fingerprint.%016llx",
+                static_cast<unsigned long long>(identity.hash));
+  return key;
+}
+
+// Appends the events. A file without event ids whose content this store has imported before
+// is appended again (the log cannot tell a repeat from new events without ids), with a
+// warning that says so; every such import is recorded in the store's meta values.
+Status AppendImported(store::Store* store, const std::vector<store::EventInput>& events,
+                      const ImportIdentity& identity) {
+  std::string earlier;
+  const bool watch = !identity.has_event_ids && !events.empty();
+  if (watch) {
+    if (Status s = store->GetMeta(ImportKey(identity), &earlier); !s.ok() && !s.IsNotFound()) {
+      return s;
+    }
+  }
   store::AppendResult result;
   PLUMB_RETURN_IF_ERROR(store->AppendEvents(events, &result));
   std::fprintf(stderr, "import: %llu events appended, %llu duplicates of earlier event ids, log "
@@ -66,20 +110,37 @@ Status AppendImported(store::Store* store, const std::vector<store::EventInput>&
                static_cast<unsigned long long>(result.appended),
                static_cast<unsigned long long>(result.duplicates),
                static_cast<unsigned long long>(result.last_seq));
-  return Status::Ok();
+  if (!watch) return Status::Ok();
+  const uint64_t first = result.last_seq - result.appended + 1;
+  if (!earlier.empty()) {
+    std::fprintf(stderr,
+                 "import: warning: this store imported the same events before (same users, "
+                 "items, timestamps and weights, in the same order: log entries %s); the file "
+                 "has no event_id column, so they were appended again and the log now holds them "
+                 "twice (entries %llu..%llu). Training counts each (user, item) pair once, but "
+                 "the event counts double. Give every event an event_id to make a repeated "
+                 "import harmless\n",
+                 earlier.c_str(), static_cast<unsigned long long>(first),
+                 static_cast<unsigned long long>(result.last_seq));
+  }
+  store::StateChange change;
+  change.meta.emplace_back(ImportKey(identity),
+                           std::to_string(first) + ".." + std::to_string(result.last_seq));
+  return store->Commit(change, nullptr);
 }
 
 }  // namespace
 
 Status RunImport(const ImportArgs& args) {
   std::vector<store::EventInput> events;
-  PLUMB_RETURN_IF_ERROR(ReadForImport(args, &events));
+  ImportIdentity identity;
+  PLUMB_RETURN_IF_ERROR(ReadForImport(args, &events, &identity));
   store::StoreOptions so;
   so.sync = args.sync;
   std::unique_ptr<store::Store> store;
   bool created = false;
   PLUMB_RETURN_IF_ERROR(OpenForWrite(args.db, so, &store, &created));
-  Status s = AppendImported(store.get(), events);
+  Status s = AppendImported(store.get(), events, identity);
   if (!s.ok() && created) {
     store.reset();
     RemoveCreatedStore(args.db);
@@ -134,11 +195,14 @@ Status Prepare(const FitArgs& args, const char* who, Prepared* p) {
     return Status::InvalidArgument("--training-window: " + s.message());
   }
   std::vector<store::EventInput> events;
-  if (!args.import.events.empty()) PLUMB_RETURN_IF_ERROR(ReadForImport(args.import, &events));
+  ImportIdentity identity;
+  if (!args.import.events.empty()) {
+    PLUMB_RETURN_IF_ERROR(ReadForImport(args.import, &events, &identity));
+  }
   bool created = false;
   PLUMB_RETURN_IF_ERROR(OpenForWrite(args.import.db, so, &p->store, &created));
   if (!args.import.events.empty()) {
-    if (Status s = AppendImported(p->store.get(), events); !s.ok()) {
+    if (Status s = AppendImported(p->store.get(), events, identity); !s.ok()) {
       if (created) {
         p->store.reset();
         RemoveCreatedStore(args.import.db);
@@ -276,6 +340,9 @@ Status RunFit(const FitArgs& args) {
   const trainer::ValidationSample sample = trainer::BuildValidationSample(
       train, p.state.validation(), std::numeric_limits<size_t>::max());
   if (!sample.weights.empty()) {
+    if (std::string w = LargeKWarning(20, train.num_items()); !w.empty()) {
+      std::fprintf(stderr, "fit: validation: %s\n", w.c_str());
+    }
     trainer::ValidationScores v;
     PLUMB_RETURN_IF_ERROR(trainer::ScoreOnValidation(sample, model, train, 20, 5, &v));
     m.validation_recall = v.recall;
@@ -305,14 +372,39 @@ Status RunFit(const FitArgs& args) {
   return Status::Ok();
 }
 
-Status RunTune(const TuneArgs& args) {
-  if (args.fit.objective != "cpr") {
+Status RunTune(const TuneArgs& given) {
+  if (given.fit.objective != "cpr") {
     return Status::InvalidArgument("tune chooses CPR's beta: --objective must be cpr");
   }
-  if (args.betas.empty()) return Status::InvalidArgument("--tune-betas: give at least one beta");
+  if (given.betas.empty()) return Status::InvalidArgument("--tune-betas: give at least one beta");
+  TuneArgs args = given;
+  // Without a store, the events go into a temporary one, removed when tune returns.
+  std::string temporary;
+  if (args.fit.import.db.empty()) {
+    if (args.fit.import.events.empty()) {
+      return Status::InvalidArgument("tune needs --events, --db or both");
+    }
+    if (args.publish) return Status::InvalidArgument("--publish needs --db");
+    temporary = (std::filesystem::temp_directory_path() /
+                 ("plumb-tune-" + std::to_string(::getpid()) + "-" + std::to_string(NowMs())))
+                    .string();
+    args.fit.import.db = temporary;
+    args.fit.import.sync = false;
+  }
+  struct RemoveTemporary {
+    std::string dir;
+    ~RemoveTemporary() {
+      if (!dir.empty()) RemoveCreatedStore(dir);
+    }
+  };
+  // Declared before p, so destroyed after it: the store closes before its directory goes.
+  RemoveTemporary cleanup{temporary};
   Prepared p;
   PLUMB_RETURN_IF_ERROR(Prepare(args.fit, "tune", &p));
   const trainer::Interactions& train = p.state.train();
+  if (std::string w = LargeKWarning(args.k, train.num_items()); !w.empty()) {
+    std::fprintf(stderr, "tune: %s\n", w.c_str());
+  }
   const trainer::ValidationSample sample = trainer::BuildValidationSample(
       train, p.state.validation(), std::numeric_limits<size_t>::max());
   if (sample.weights.empty()) {

@@ -1,9 +1,9 @@
 // plumb: the offline command line. `plumb --help` lists the commands, `plumb CMD --help`
 // their options.
+#include <CLI/CLI.hpp>
 #include <cstdio>
 #include <string>
-
-#include <CLI/CLI.hpp>
+#include <vector>
 
 #include "cli/commands.h"
 
@@ -122,6 +122,38 @@ int main(int argc, char** argv) {
   import_cmd->add_option("--db", import.db, "store directory (created if missing)")->required();
   import_cmd->add_flag("--skip-bad", import.skip_bad, "skip and count malformed lines instead of stopping");
 
+  SplitArgs split;
+  auto* split_cmd = app.add_subcommand(
+      "split",
+      "divide an event CSV by (user, item) pair into train.csv, test.csv and "
+      "validation.csv: at random, by time per user, or debiased by inverse popularity");
+  split_cmd
+      ->add_option("--events", split.events, "CSV with columns user,item[,ts][,weight][,event_id]")
+      ->required()
+      ->check(CLI::ExistingFile);
+  split_cmd->add_option("--out", split.out, "directory for train.csv, test.csv, validation.csv")
+      ->required();
+  split_cmd
+      ->add_option("--kind", split.kind,
+                   "random (pairs drawn uniformly), temporal (each user's latest pairs, by ts) "
+                   "or debiased (random, then kept with probability proportional to 1 / item "
+                   "popularity; the rest go back to training)")
+      ->check(CLI::IsMember({"random", "temporal", "debiased"}))
+      ->capture_default_str();
+  split_cmd
+      ->add_option("--holdout-fraction", split.holdout_fraction,
+                   "share of pairs held out (temporal: of each user's pairs, leaving at least "
+                   "one to train on)")
+      ->check(CLI::Range(0.001, 0.999))
+      ->capture_default_str();
+  split_cmd
+      ->add_option("--validation-fraction", split.validation_fraction,
+                   "share of the held-out pairs written to validation.csv instead of test.csv")
+      ->check(CLI::Range(0.0, 1.0))
+      ->capture_default_str();
+  split_cmd->add_option("--seed", split.seed, "random seed")->capture_default_str();
+  split_cmd->add_flag("--skip-bad", split.skip_bad, "skip and count malformed lines");
+
   FitArgs fit;
   auto* fit_cmd = app.add_subcommand("fit", "import events (optional), train, publish and activate a version");
   fit_cmd->add_option("--events", fit.import.events, "CSV to import first (columns user,item[,ts])")
@@ -156,8 +188,9 @@ int main(int argc, char** argv) {
   tune_cmd->add_option("--events", tune.fit.import.events,
                        "CSV to import first (columns user,item[,ts])")
       ->check(CLI::ExistingFile);
-  tune_cmd->add_option("--db", tune.fit.import.db, "store directory (created if missing)")
-      ->required();
+  auto* tune_db = tune_cmd->add_option(
+      "--db", tune.fit.import.db,
+      "store directory (created if missing; without it, --events go into a temporary store)");
   tune_cmd->add_flag("--skip-bad", tune.fit.import.skip_bad, "skip and count malformed CSV lines");
   AddTrainOptions(tune_cmd, &tune.fit);
   tune_cmd
@@ -177,17 +210,23 @@ int main(int argc, char** argv) {
       ->default_str("0");
   tune_cmd->add_option("--k", tune.k, "cut-off K of the validation figures")->capture_default_str();
   tune_cmd->add_option("--groups", tune.groups, "popularity groups")->capture_default_str();
-  tune_cmd->add_flag("--publish,!--no-publish", tune.publish,
-                     "publish the chosen candidate as a version (default: print the table only)");
+  tune_cmd
+      ->add_flag("--publish,!--no-publish", tune.publish,
+                 "publish the chosen candidate as a version (default: print the table only)")
+      ->needs(tune_db);
   tune_cmd->add_flag("--activate,!--no-activate", tune.fit.activate,
                      "activate what --publish writes");
 
   EvalArgs eval;
-  auto* eval_cmd = app.add_subcommand("eval", "Recall, NDCG, ARP, Gini, coverage, group shares on a test file");
+  auto* eval_cmd = app.add_subcommand(
+      "eval", "Recall, NDCG, ARP, Gini, coverage, group shares of versions on a test file");
   eval_cmd->add_option("--db", eval.db, "store directory")->required();
   eval_cmd->add_option("--test", eval.test, "CSV with columns user,item")->required()->check(CLI::ExistingFile);
-  eval_cmd->add_option("--model-version", eval.version,
-                       "version to evaluate (default: the active one)");
+  eval_cmd
+      ->add_option("--model-version", eval.versions,
+                   "version to evaluate (default: the active one); repeat it or give a "
+                   "comma-separated list to evaluate several side by side")
+      ->delimiter(',');
   eval_cmd->add_option("--k", eval.k, "cut-off K")->capture_default_str();
   eval_cmd->add_option("--groups", eval.groups, "popularity groups")->capture_default_str();
   eval_cmd->add_option("--threads", eval.threads, "scoring threads")->capture_default_str();
@@ -196,8 +235,30 @@ int main(int argc, char** argv) {
   CompareArgs compare;
   compare.world = synth;
   auto* compare_cmd = app.add_subcommand(
-      "compare", "fit CPR, BPR and BCE on a synthetic world and compare them with the truth");
+      "compare",
+      "fit CPR, BPR and BCE on a synthetic world, or on your own events, and compare "
+      "them (with the truth, on a synthetic world)");
   AddWorldOptions(compare_cmd, &compare.world);
+  auto* compare_events =
+      compare_cmd
+          ->add_option("--events", compare.events,
+                       "fit on this event CSV instead of a synthetic world (columns user,item; "
+                       "needs --test; no truth column then)")
+          ->check(CLI::ExistingFile);
+  auto* compare_test =
+      compare_cmd
+          ->add_option("--test", compare.test, "with --events: the test CSV (columns user,item)")
+          ->check(CLI::ExistingFile);
+  compare_events->needs(compare_test);
+  compare_test->needs(compare_events);
+  // A world's shape means nothing for the user's own events: refuse the mixture.
+  for (const char* world_flag : {"--users", "--items", "--interactions", "--alpha", "--zipf",
+                                 "--test-per-user", "--drift", "--drift-at", "--drift-strength",
+                                 "--appeal-spread", "--appeal-visibility", "--arrival-span"}) {
+    compare_events->excludes(compare_cmd->get_option(world_flag));
+  }
+  compare_cmd->add_flag("--skip-bad", compare.skip_bad,
+                        "with --events: skip and count malformed lines");
   compare_cmd->add_option("--dim", compare.dim, "embedding dimension")->capture_default_str();
   compare_cmd->add_option("--epochs", compare.epochs, "epochs per objective")->capture_default_str();
   compare_cmd->add_option("--beta", compare.beta, "CPR's dynamic-sampling beta")->capture_default_str();
@@ -259,6 +320,8 @@ int main(int argc, char** argv) {
   Status s;
   if (*synth_cmd) s = RunSynth(synth, synth_out);
   else if (*import_cmd) s = RunImport(import);
+  else if (*split_cmd)
+    s = RunSplit(split);
   else if (*fit_cmd)
     s = RunFit(fit);
   else if (*eval_cmd)

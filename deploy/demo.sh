@@ -162,6 +162,7 @@ cat <<INFO
   ranking endpoint  $SERVE_ADDR   (plumb.v1.Ranker; try: $QUERY recommend --server $SERVE_ADDR --user m1)
   event ingest      $TRAIN_ADDR   (plumb.v1.EventIngest, plumb.v1.ModelControl)
   metrics           http://$SERVE_METRICS/metrics  http://$TRAIN_METRICS/metrics
+  status pages      http://$SERVE_METRICS/  http://$TRAIN_METRICS/   (open in a browser)
   logs              $DEMO/plumb-serve.log  $DEMO/plumb-train.log
 INFO
 if [ "$MODE" = "--once" ]; then

@@ -8,8 +8,10 @@ PACKAGES=(
   build-essential cmake ninja-build pkg-config git ca-certificates
   # libraries
   libgrpc++-dev protobuf-compiler-grpc libprotobuf-dev protobuf-compiler
-  libeigen3-dev librocksdb-dev prometheus-cpp-dev
+  libeigen3-dev librocksdb-dev prometheus-cpp-dev libhnswlib-dev
   libcli11-dev libspdlog-dev libtomlplusplus-dev
+  # the metrics address's HTTP server (status pages beside /metrics) and JSON
+  libcivetweb-dev nlohmann-json3-dev
   libgtest-dev libgmock-dev libbenchmark-dev
   # events from NATS JetStream: the C client, and the server the tests and benchmarks run
   libnats-dev nats-server
@@ -18,6 +20,8 @@ PACKAGES=(
   # tests and demo: a real Prometheus (promtool), Python reference checks and clients
   prometheus python3 python3-numpy python3-sklearn python3-grpcio python3-protobuf
   curl procps systemd
+  # the status pages' system test: a real headless browser driven through WebDriver
+  chromium chromium-driver python3-selenium
 )
 
 missing=()

@@ -2,6 +2,7 @@
 
 #include <spdlog/spdlog.h>
 
+#include "core/thread_priority.h"
 #include "store/store.h"
 
 namespace plumb::server {
@@ -45,6 +46,12 @@ Status CatchUpLoop::RunOnce() {
     }
   }
 
+  // The withdrawn items: re-read when their generation moved, re-mapped to a new snapshot's
+  // rows after a swap (below).
+  if (Status w = RefreshWithdrawn(false); !w.ok()) {
+    spdlog::warn("cannot read the withdrawn items: {}", w.ToString());
+  }
+
   uint64_t active = 0;
   PLUMB_RETURN_IF_ERROR(store_->GetActiveVersion(&active));
   if (active == 0) return damage;  // nothing published yet
@@ -55,7 +62,7 @@ Status CatchUpLoop::RunOnce() {
   const auto start = std::chrono::steady_clock::now();
   loads_.fetch_add(1, std::memory_order_relaxed);
   std::shared_ptr<const Snapshot> next;
-  s = LoadSnapshot(*store_, active, &next);
+  s = LoadSnapshot(*store_, active, &next, options_.approx);
   const double seconds =
       std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
   if (s.IsNotFound()) {
@@ -82,17 +89,50 @@ Status CatchUpLoop::RunOnce() {
   current.reset();
   std::shared_ptr<const Snapshot> previous = holder_->Swap(next);
   swaps_.fetch_add(1, std::memory_order_relaxed);
-  spdlog::info("serving version {} ({} items, {} users, dim {}, {:.1f} MB) after {:.3f} s{}",
+  spdlog::info("serving version {} ({} items, {} users, dim {}, {:.1f} MB) after {:.3f} s{}{}",
                next->version(), next->num_items(), next->num_users(), next->dim(),
                next->memory_bytes() / 1e6, seconds,
+               next->dot_index() ? fmt::format(" (approximate indexes built in {:.1f} s)",
+                                               next->approx_build_seconds())
+                                 : std::string(),
                previous ? "; replaced version " + std::to_string(previous->version()) : "");
   previous.reset();
+  if (Status w = RefreshWithdrawn(true); !w.ok()) {
+    spdlog::warn("cannot read the withdrawn items: {}", w.ToString());
+  }
   if (options_.on_swap) options_.on_swap(*next, seconds);
   return damage;
 }
 
-void CatchUpLoop::Start() {
-  thread_ = std::thread([this] { Run(); });
+Status CatchUpLoop::RefreshWithdrawn(bool swapped) {
+  uint64_t generation = 0, count = 0;
+  PLUMB_RETURN_IF_ERROR(store_->GetAvailability(&generation, &count));
+  std::shared_ptr<const WithdrawnItems> current = holder_->GetWithdrawn();
+  std::shared_ptr<const Snapshot> snap = holder_->Get();
+  if (current != nullptr && current->generation() == generation && !swapped) return Status::Ok();
+  std::vector<std::string> ids;
+  if (current != nullptr && current->generation() == generation) {
+    ids = current->ids();  // same set, new snapshot: only the rows change
+  } else if (count > 0) {
+    std::vector<store::WithdrawnItem> items;
+    PLUMB_RETURN_IF_ERROR(store_->ListWithdrawnItems("", 0, &items));
+    ids.reserve(items.size());
+    for (store::WithdrawnItem& item : items) ids.push_back(std::move(item.item_id));
+  }
+  const size_t before = current ? current->size() : 0;
+  holder_->SetWithdrawn(std::make_shared<const WithdrawnItems>(std::move(ids), generation, snap.get()));
+  if (current == nullptr || current->generation() != generation) {
+    spdlog::info("withdrawn items: {} (was {}; generation {})", holder_->GetWithdrawn()->size(),
+                 before, generation);
+  }
+  return Status::Ok();
+}
+
+void CatchUpLoop::Start(int nice) {
+  thread_ = std::thread([this, nice] {
+    LowerThisThreadsPriority(nice);
+    Run();
+  });
 }
 
 void CatchUpLoop::Stop() {

@@ -4,7 +4,8 @@
 // reads the active version and, when that differs from the serving one, builds the new
 // snapshot on this thread (off the request path) and swaps it into the holder. A version
 // that fails to load is logged, counted and not retried until the active version changes
-// again; the old snapshot keeps serving.
+// again; the old snapshot keeps serving. Every round also follows the store's withdrawn items
+// (a small read; the list itself only when it changed) into the holder.
 #pragma once
 
 #include <atomic>
@@ -38,6 +39,8 @@ struct CatchUpOptions {
   // without an error, so only this check notices. Zero: every round. Costs one read of
   // the MANIFEST and of each table file's footer and index.
   std::chrono::milliseconds file_check_interval{60000};
+  // Approximate indexes for large catalogues, built with each snapshot before its swap.
+  ApproxServingOptions approx;
 };
 
 class CatchUpLoop {
@@ -57,8 +60,10 @@ class CatchUpLoop {
   // version on disk is ready when it listens.
   Status RunOnce();
 
-  // Starts the background thread, which calls RunOnce every interval. Call at most once.
-  void Start();
+  // Starts the background thread, which calls RunOnce every interval, at niceness `nice`
+  // (core/thread_priority.h; 0: the caller's): snapshot and index builds then yield the CPU
+  // to request threads. Call at most once.
+  void Start(int nice = 0);
   // Asks the thread to finish its round and joins it. Idempotent; call from one thread
   // (the owner), like the destructor.
   void Stop();
@@ -72,6 +77,9 @@ class CatchUpLoop {
 
  private:
   void Run();
+  // Rebuilds the holder's withdrawn set when the store's generation moved, or (swapped) for
+  // the snapshot just swapped in.
+  Status RefreshWithdrawn(bool swapped);
 
   store::Store* const store_;
   SnapshotHolder* const holder_;

@@ -19,7 +19,7 @@ class ExposureMetrics final : public prometheus::Collectable {
   ExposureMetrics(const SnapshotHolder* holder, const ExposureWindow* window)
       : holder_(holder), window_(window) {}
 
-  // Thread-safe (called by the exposer's HTTP thread). Omits the gauges before the first
+  // Thread-safe (called by the metrics endpoint's HTTP threads). Omits the gauges before the first
   // snapshot is loaded.
   std::vector<prometheus::MetricFamily> Collect() const override;
 

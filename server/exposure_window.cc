@@ -87,7 +87,7 @@ void ExposureWindow::Record(const Snapshot& snap, std::span<const uint32_t> item
   }
 }
 
-ExposureFigures ExposureWindow::Summarize(const Snapshot& snap) const {
+ExposureFigures ExposureWindow::Summarize(const Snapshot& snap, size_t top_items) const {
   ExposureFigures f;
   f.version = snap.version();
   const uint32_t n = snap.num_items();
@@ -124,6 +124,17 @@ ExposureFigures ExposureWindow::Summarize(const Snapshot& snap) const {
       groups_version_ = snap.version();
     }
     summarize_exposure(counts, degrees, group_of_item_, options_.groups, &f.summary);
+  }
+  if (top_items > 0) {
+    for (uint32_t i = 0; i < n; ++i) {
+      if (counts[i] > 0) f.top_items.push_back({i, counts[i]});
+    }
+    const auto more = [](const auto& a, const auto& b) {
+      return a.second != b.second ? a.second > b.second : a.first < b.first;
+    };
+    const size_t keep = std::min(top_items, f.top_items.size());
+    std::partial_sort(f.top_items.begin(), f.top_items.begin() + keep, f.top_items.end(), more);
+    f.top_items.resize(keep);
   }
   f.served_popularity = f.summary.arp;
   double sum_d = 0.0, sum_d2 = 0.0;

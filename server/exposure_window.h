@@ -30,6 +30,7 @@
 #include <memory>
 #include <mutex>
 #include <span>
+#include <utility>
 #include <vector>
 
 #include "core/exposure_stats.h"
@@ -54,6 +55,9 @@ struct ExposureFigures {
   double interaction_popularity = 0.0;  // Σ d² / Σ d: mean degree over training interactions
   double lift = 0.0;                    // served / interaction popularity; NaN without data
   ExposureSummary summary;              // gini, coverage, group shares, drift
+  // The most-served items of the window (item index, served slots), most first, ties by
+  // smaller index; only when Summarize was asked for them.
+  std::vector<std::pair<uint32_t, uint64_t>> top_items;
 };
 
 class ExposureWindow final : public ExposureSink {
@@ -65,9 +69,10 @@ class ExposureWindow final : public ExposureSink {
 
   void Record(const Snapshot& snap, std::span<const uint32_t> items) override;
 
-  // Summarises the lists counted against `snap`'s version. Cost O(shards × catalogue +
-  // catalogue log catalogue) — meant for a scrape every few seconds, not the request path.
-  ExposureFigures Summarize(const Snapshot& snap) const;
+  // Summarises the lists counted against `snap`'s version, and lists its `top_items`
+  // most-served items (0: none). Cost O(shards × catalogue + catalogue log catalogue) — meant
+  // for a scrape every few seconds, not the request path.
+  ExposureFigures Summarize(const Snapshot& snap, size_t top_items = 0) const;
 
   const ExposureWindowOptions& options() const { return options_; }
 

@@ -1,7 +1,6 @@
 // plumb-serve: the ranking endpoint. Follows the trainer's store as a RocksDB secondary,
 // serves plumb.v1.Ranker from the active version, hot-swaps new versions, exports
 // Prometheus metrics. See serve_config.h for the settings.
-#include <prometheus/exposer.h>
 #include <signal.h>
 #include <spdlog/sinks/stdout_color_sinks.h>
 #include <spdlog/spdlog.h>
@@ -27,11 +26,20 @@
 #include "server/serve_config.h"
 #include "server/serving_metrics.h"
 #include "server/snapshot_holder.h"
+#include "server/status_page.h"
+#include "status/http_endpoint.h"
+#include "status/periodic_task.h"
 #include "store/store.h"
 
 namespace {
 
 using namespace plumb::server;
+
+int64_t NowMs() {
+  return std::chrono::duration_cast<std::chrono::milliseconds>(
+             std::chrono::system_clock::now().time_since_epoch())
+      .count();
+}
 
 // A directory of our own for the secondary's info log, removed at exit if we made it.
 class ScratchDir {
@@ -118,6 +126,7 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   std::atomic<RankingServer*> endpoint{nullptr};
   CatchUpOptions follow;
   follow.interval = std::chrono::milliseconds(config.catchup_interval_ms);
+  follow.approx = config.approx;
   follow.on_swap = [&endpoint](const Snapshot&, double) {
     if (RankingServer* server = endpoint.load()) server->SetServing(true);
   };
@@ -140,19 +149,39 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   service.set_auth(auth.get());
   auto exposure_metrics = std::make_shared<ExposureMetrics>(&holder, &window);
 
-  std::unique_ptr<prometheus::Exposer> exposer;
+  // The metrics address also serves the status page and its JSON (issue 15); the page's
+  // history is sampled by its own timer, never by a request.
+  ServeStatusOptions status_options;
+  status_options.step_ms = config.status_history_step_ms;
+  ServeStatusPage status_page(&holder, config.exposure_monitor ? &window : nullptr, metrics.get(),
+                              &loop, status_options);
+  std::unique_ptr<plumb::status::StatusEndpoint> http;
+  std::unique_ptr<plumb::status::PeriodicTask> status_sampler;
   if (!config.metrics.empty()) {
-    try {
-      exposer = std::make_unique<prometheus::Exposer>(config.metrics);
-    } catch (const std::exception& e) {
+    http = std::make_unique<plumb::status::StatusEndpoint>();
+    http->RegisterCollectable(metrics);
+    if (config.exposure_monitor) http->RegisterCollectable(exposure_metrics);
+    http->RegisterPage("/", [&status_page] {
+      return plumb::status::HttpReply{200, "text/html; charset=utf-8", status_page.Html(NowMs())};
+    });
+    http->RegisterPage("/status.json", [&status_page] {
+      return plumb::status::HttpReply{
+          200, "application/json",
+          status_page.Json(NowMs()).dump(1, ' ', false, nlohmann::json::error_handler_t::replace) +
+              "\n"};
+    });
+    s = http->Start(config.metrics);
+    if (!s.ok()) {
       const plumb::Status why = plumb::rpc::ProbeListenAddress(config.metrics, "metrics");
       spdlog::critical("cannot serve metrics on '{}': {}", config.metrics,
-                       why.ok() ? std::string(e.what()) : why.message());
+                       why.ok() ? s.message() : why.message());
       return 1;
     }
-    exposer->RegisterCollectable(metrics);
-    if (config.exposure_monitor) exposer->RegisterCollectable(exposure_metrics);
-    for (int port : exposer->GetListeningPorts()) spdlog::info("metrics on port {}", port);
+    for (int port : http->ListeningPorts())
+      spdlog::info("metrics on port {} (status page at /)", port);
+    status_sampler = std::make_unique<plumb::status::PeriodicTask>(
+        std::chrono::milliseconds(config.status_history_step_ms),
+        [&status_page] { status_page.Sample(NowMs()); });
   }
 
   EndpointOptions endpoint_options = config.endpoint;
@@ -171,7 +200,7 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   }
   endpoint.store(server.get());
   server->SetServing(holder.Get() != nullptr);
-  loop.Start();
+  loop.Start(config.background_nice);
   spdlog::info(
       "plumb-serve listening on port {} ({}{}{}), metrics on {}; {} calls score at once, {} more "
       "wait, {} threads",
@@ -186,7 +215,8 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   server->Shutdown(std::chrono::milliseconds(config.shutdown_grace_ms));
   loop.Stop();
   endpoint.store(nullptr);
-  exposer.reset();
+  status_sampler.reset();
+  http.reset();
   server.reset();
   spdlog::info("stopped after serving {} lists", exposure.lists());
   return 0;
@@ -196,7 +226,8 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
 
 int main(int argc, char** argv) {
   // Block the shutdown signals before any thread exists, so that every thread (gRPC's,
-  // RocksDB's, the exposer's, the catch-up loop) inherits the mask and only sigwait sees them.
+  // RocksDB's, the HTTP endpoint's, the catch-up loop) inherits the mask and only sigwait sees
+  // them.
   sigset_t signals;
   sigemptyset(&signals);
   sigaddset(&signals, SIGTERM);

@@ -202,7 +202,9 @@ grpc::Status RankerService::Recommend(grpc::ServerContext* context,
     if (grpc::Status a = Admit(RankerMethod::kRecommend, *context, &ticket); !a.ok()) return a;
     std::shared_ptr<const Snapshot> snap = holder_->Get();
     if (snap == nullptr) return NoSnapshot();
+    const std::shared_ptr<const WithdrawnItems> withdrawn = holder_->GetWithdrawn();
     RecommendQuery query;
+    query.withdrawn = withdrawn.get();
     query.user_id = request->user_id();
     query.count = request->count();
     query.exclude_seen = !request->include_seen();
@@ -254,7 +256,9 @@ grpc::Status RankerService::RankCandidates(grpc::ServerContext* context,
     if (grpc::Status a = Admit(RankerMethod::kRankCandidates, *context, &ticket); !a.ok()) return a;
     std::shared_ptr<const Snapshot> snap = holder_->Get();
     if (snap == nullptr) return NoSnapshot();
+    const std::shared_ptr<const WithdrawnItems> withdrawn = holder_->GetWithdrawn();
     CandidatesQuery query;
+    query.withdrawn = withdrawn.get();
     query.user_id = request->user_id();
     query.candidate_item_ids = Views(request->candidate_item_ids(), 0);
     query.recent_item_ids = Views(request->recent_item_ids(), 1);
@@ -266,6 +270,9 @@ grpc::Status RankerService::RankCandidates(grpc::ServerContext* context,
     AddItems(*snap, ranked.items, response);
     for (uint32_t j : ranked.unknown_candidates) {
       response->add_unknown_item_ids(request->candidate_item_ids(static_cast<int>(j)));
+    }
+    for (uint32_t j : ranked.unavailable_candidates) {
+      response->add_unavailable_item_ids(request->candidate_item_ids(static_cast<int>(j)));
     }
     response->set_model_version(ranked.version);
     response->set_folded_in(ranked.folded_in);
@@ -296,7 +303,9 @@ grpc::Status RankerService::SimilarItems(grpc::ServerContext* context,
     if (grpc::Status a = Admit(RankerMethod::kSimilarItems, *context, &ticket); !a.ok()) return a;
     std::shared_ptr<const Snapshot> snap = holder_->Get();
     if (snap == nullptr) return NoSnapshot();
+    const std::shared_ptr<const WithdrawnItems> withdrawn = holder_->GetWithdrawn();
     SimilarQuery query;
+    query.withdrawn = withdrawn.get();
     query.item_id = request->item_id();
     query.count = request->count();
     query.exclude_item_ids = Views(request->exclude_item_ids(), 0);

@@ -7,6 +7,9 @@
 // SimilarItems read the snapshot's int8 copy first and compute exact float scores only for
 // rows that might enter the top K (top_k_by_dot_pruned, top_k_by_cosine_pruned): the same
 // answer as a full float scan for less than half the work.
+// Large catalogues (Snapshot::dot_index() present): Recommend and SimilarItems ask the
+// approximate index for candidates instead and score only those exactly; calls whose
+// exclusions exceed the over-fetch bound, or that the index cannot fill, take the exact scan.
 // Per-request scratch (selector, score block, exclusion lists, fold-in vector) is thread-local and
 // reused, so a request on a warm thread allocates nothing on the scoring path.
 #pragma once
@@ -21,6 +24,7 @@
 #include "core/topk.h"
 #include "server/fold_in.h"
 #include "server/snapshot.h"
+#include "server/withdrawn_items.h"
 
 namespace plumb::server {
 
@@ -42,6 +46,7 @@ struct RecommendQuery {
   std::span<const std::string_view> recent_item_ids;   // used only for unknown users
   UnknownUserPolicy unknown_user = UnknownUserPolicy::kFail;
   Deadline deadline = kNoDeadline;
+  const WithdrawnItems* withdrawn = nullptr;  // never returned (null: none)
 };
 
 struct CandidatesQuery {
@@ -49,6 +54,7 @@ struct CandidatesQuery {
   std::span<const std::string_view> candidate_item_ids;
   std::span<const std::string_view> recent_item_ids;
   Deadline deadline = kNoDeadline;
+  const WithdrawnItems* withdrawn = nullptr;  // reported, not scored (null: none)
 };
 
 struct SimilarQuery {
@@ -56,6 +62,7 @@ struct SimilarQuery {
   uint32_t count = 0;
   std::span<const std::string_view> exclude_item_ids;
   Deadline deadline = kNoDeadline;
+  const WithdrawnItems* withdrawn = nullptr;  // never returned (null: none)
 };
 
 // A ranked answer. Reuse one per thread: the vectors keep their capacity between requests.
@@ -66,14 +73,28 @@ struct RankedList {
   // RankCandidates: indexes into candidate_item_ids of the candidates the snapshot does not
   // know, first occurrence of each distinct id, in request order.
   std::vector<uint32_t> unknown_candidates;
+  // RankCandidates: indexes into candidate_item_ids of the known candidates that are
+  // withdrawn (query.withdrawn), first occurrence of each distinct id, in request order.
+  std::vector<uint32_t> unavailable_candidates;
   uint64_t version = 0;
   bool folded_in = false;
   bool fallback = false;
+  // Answered from the snapshot's approximate index (membership approximate, scores exact).
+  bool approximate = false;
+};
+
+// How a Scorer uses a snapshot's approximate indexes (when the snapshot has them).
+struct ApproxQueryOptions {
+  // False: always the exact scan (benchmarks and checks compare the two on one snapshot).
+  bool use_index = true;
+  // The index's candidate list per search; 0: the breadth the index was built with.
+  uint32_t search_breadth = 0;
 };
 
 class Scorer {
  public:
-  explicit Scorer(FoldInOptions fold_in = {}) : fold_in_(fold_in) {}
+  explicit Scorer(FoldInOptions fold_in = {}, ApproxQueryOptions approx = {})
+      : fold_in_(fold_in), approx_(approx) {}
 
   // All three methods: thread-safe (scratch is per thread), allocate nothing in steady
   // state apart from growing *out the first time a thread sees a larger answer. The query's
@@ -89,15 +110,18 @@ class Scorer {
   Status Recommend(const Snapshot& snap, const RecommendQuery& query, RankedList* out) const;
 
   // Scores the known candidates (each distinct one once) for a known or folded-in user, best
-  // first; unknown candidates are reported in out->unknown_candidates.
+  // first; unknown candidates are reported in out->unknown_candidates, withdrawn ones in
+  // out->unavailable_candidates.
   Status RankCandidates(const Snapshot& snap, const CandidatesQuery& query, RankedList* out) const;
 
-  // Top `count` items by cosine similarity to a known item, never the item itself.
+  // Top `count` items by cosine similarity to a known item, never the item itself nor a
+  // withdrawn item (the query item may be withdrawn).
   // FailedPrecondition if the item's vector is zero (cosine undefined).
   Status SimilarItems(const Snapshot& snap, const SimilarQuery& query, RankedList* out) const;
 
  private:
   const FoldInOptions fold_in_;
+  const ApproxQueryOptions approx_;
 };
 
 }  // namespace plumb::server

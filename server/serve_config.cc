@@ -16,7 +16,7 @@ namespace {
 
 // The duration flags are texts with a unit; ParseServeConfig converts them afterwards.
 struct DurationTexts {
-  std::string catchup_interval, exposure_window_max_age, shutdown_grace;
+  std::string catchup_interval, exposure_window_max_age, shutdown_grace, status_history_step;
 };
 
 void DefineOptions(CLI::App& app, ServeConfig* c, DurationTexts* d) {
@@ -35,6 +35,10 @@ void DefineOptions(CLI::App& app, ServeConfig* c, DurationTexts* d) {
   app.add_option("--catchup-interval", d->catchup_interval,
                  "How often to catch up with the trainer and look for a new active version "
                  "(10ms .. 1h)");
+  d->status_history_step = FormatDuration(c->status_history_step_ms);
+  app.add_option("--status-history-step", d->status_history_step,
+                 "Spacing of the status page's history points at the metrics address; the "
+                 "last 1440 are kept (1m: a day) (1s .. 1h)");
   app.add_option("--exposure-window-lists", c->exposure.window_lists,
                  "Exposure monitor: the last this many served lists form the window")
       ->check(CLI::Range(1, 10'000'000));
@@ -58,6 +62,36 @@ void DefineOptions(CLI::App& app, ServeConfig* c, DurationTexts* d) {
       ->check(CLI::Range(0, 1'000'000));
   app.add_option("--max-recent", c->limits.max_recent, "Most recent_item_ids in one request")
       ->check(CLI::Range(0, 100'000));
+  app.add_option("--background-nice", c->background_nice,
+                 "CPU niceness of the catch-up thread (snapshot and index builds), so that "
+                 "requests keep the CPU while a version loads (0: as the process)")
+      ->check(CLI::Range(0, 19));
+  app.add_option("--approx-min-items", c->approx.min_items,
+                 "Catalogues of at least this many items are served from approximate indexes "
+                 "(Recommend, SimilarItems); smaller ones by the exact scan. 0: always exact")
+      ->check(CLI::Range(0u, 2'000'000'000u));
+  app.add_option("--approx-links", c->approx.index.links,
+                 "Approximate index: links per node (more: higher recall, more memory)")
+      ->check(CLI::Range(4u, 128u));
+  app.add_option("--approx-build-breadth", c->approx.index.build_breadth,
+                 "Approximate index: candidates kept while inserting (more: better graph, "
+                 "slower build)")
+      ->check(CLI::Range(8u, 4096u));
+  app.add_option("--approx-search-breadth", c->approx.index.search_breadth,
+                 "Approximate index: candidates kept while searching (more: higher recall, "
+                 "slower calls)")
+      ->check(CLI::Range(8u, 65'536u));
+  app.add_option("--approx-similar-search-breadth", c->approx.similar_search_breadth,
+                 "Approximate index: candidates kept while searching for SimilarItems")
+      ->check(CLI::Range(8u, 65'536u));
+  app.add_option("--approx-build-threads", c->approx.index.build_threads,
+                 "Threads that build a new version's indexes, at a lower CPU priority than "
+                 "requests")
+      ->check(CLI::Range(1u, 256u));
+  app.add_option("--approx-max-overfetch", c->approx.max_overfetch,
+                 "Most excluded items a call asks the index to make up for; a call that "
+                 "loses more to exclusions is answered by the exact scan")
+      ->check(CLI::Range(0u, 1'000'000u));
   app.add_option("--fold-in-confidence", c->fold_in.confidence,
                  "Fold-in: confidence weight of an unknown user's recent items")
       ->check(CLI::Range(0.0, 1e6));
@@ -188,6 +222,10 @@ int ParseServeConfig(int argc, const char* const* argv, ServeConfig* config, std
                        30LL * 86'400'000, &ms, err))
     return 2;
   config->exposure.window_seconds = static_cast<double>(ms) / 1000.0;
+  if (!ConvertDuration("--status-history-step", durations.status_history_step, 1000, 3'600'000, &ms,
+                       err))
+    return 2;
+  config->status_history_step_ms = ms;
   return -1;
 }
 

@@ -133,6 +133,12 @@ std::vector<prometheus::MetricFamily> ServingMetrics::Collect() const {
     families.push_back(Single("plumb_model_version",
                               "Embedding version serving requests (0 before the first load)",
                               MetricType::Gauge, version));
+    std::shared_ptr<const WithdrawnItems> withdrawn = holder_->GetWithdrawn();
+    families.push_back(Single("plumb_withdrawn_items",
+                              "Items withdrawn from serving (never returned; no new version "
+                              "needed), as of the last catch-up",
+                              MetricType::Gauge,
+                              withdrawn ? static_cast<double>(withdrawn->size()) : 0.0));
     if (snap != nullptr) {
       families.push_back(Single("plumb_model_age_seconds",
                                 "Seconds since the serving version was created by the trainer",

@@ -3,7 +3,7 @@
 // Request counts and latencies are recorded by the service as requests finish; the model
 // version, its age, swap and load-failure counts and the served-exposure counters are read
 // from their owners (SnapshotHolder, CatchUpLoop, ExposureCounter) at scrape time, so that
-// nothing has to remember to update them. Register the object with a prometheus::Exposer
+// nothing has to remember to update them. Register the object with a status::StatusEndpoint
 // (or call Collect() directly in tests).
 //
 // Exposed:
@@ -76,7 +76,7 @@ class ServingMetrics final : public prometheus::Collectable {
   // first Collect().
   void set_admission(const AdmissionQueue* queue) { admission_ = queue; }
 
-  // All families above. Thread-safe (called by the exposer's HTTP thread).
+  // All families above. Thread-safe (called by the metrics endpoint's HTTP threads).
   std::vector<prometheus::MetricFamily> Collect() const override;
 
  private:

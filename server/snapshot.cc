@@ -169,13 +169,36 @@ Status Snapshot::Build(SnapshotParts parts, std::shared_ptr<const Snapshot>* out
   snap->seen_offsets_ = std::move(parts.seen_offsets);
   snap->seen_items_ = std::move(parts.seen_items);
   snap->target_group_shares_ = std::move(parts.target_group_shares);
+  if (parts.approx.min_items > 0 && num_items >= parts.approx.min_items) {
+    // Both from the same rows; the cosine one waits for the dot one (the build threads are
+    // already the configured share of the machine).
+    Status built = ApproxIndex::Build(snap->items_.view(), ApproxIndex::Metric::kDot,
+                                      parts.approx.index, &snap->dot_index_);
+    if (built.ok() && parts.approx.similar_items) {
+      ApproxIndexOptions cosine = parts.approx.index;
+      cosine.search_breadth = parts.approx.similar_search_breadth;
+      built = ApproxIndex::Build(snap->items_.view(), ApproxIndex::Metric::kCosine, cosine,
+                                 &snap->cosine_index_);
+    }
+    if (!built.ok()) {
+      // The rows were checked above, so what remains is a lack of memory.
+      return Status::ResourceExhausted(where + built.message());
+    }
+    snap->max_overfetch_ = parts.approx.max_overfetch;
+  }
   snap->loaded_ms_ = NowMs();
   *out = std::move(snap);
   return Status::Ok();
 }
 
+double Snapshot::approx_build_seconds() const {
+  return (dot_index_ ? dot_index_->build_seconds() : 0.0) +
+         (cosine_index_ ? cosine_index_->build_seconds() : 0.0);
+}
+
 size_t Snapshot::memory_bytes() const {
-  return (items_.rows() + users_.rows()) * items_.dim() * sizeof(float) + item_codes_.bytes() +
+  return (dot_index_ ? dot_index_->memory_bytes() : 0) +
+         (cosine_index_ ? cosine_index_->memory_bytes() : 0) + (items_.rows() + users_.rows()) * items_.dim() * sizeof(float) + item_codes_.bytes() +
          item_norms_.capacity() * sizeof(float) + item_gram_.capacity() * sizeof(double) +
          item_index_.memory_bytes() + user_index_.memory_bytes() +
          item_degrees_.capacity() * sizeof(uint64_t) +
@@ -184,7 +207,7 @@ size_t Snapshot::memory_bytes() const {
 }
 
 Status LoadSnapshot(const store::Store& store, uint64_t version,
-                    std::shared_ptr<const Snapshot>* out) {
+                    std::shared_ptr<const Snapshot>* out, const ApproxServingOptions& approx) {
   store::VersionManifest manifest;
   PLUMB_RETURN_IF_ERROR(store.ReadManifest(version, &manifest));
   const std::string where = "version " + std::to_string(version) + ": ";
@@ -250,6 +273,7 @@ Status LoadSnapshot(const store::Store& store, uint64_t version,
       });
   PLUMB_RETURN_IF_ERROR(s);
 
+  parts.approx = approx;
   return Snapshot::Build(std::move(parts), out);
 }
 

@@ -5,12 +5,15 @@
 // they started with and the old snapshot is freed by whichever request releases it last.
 // Built on std::atomic<std::shared_ptr<const Snapshot>> (C++20; libstdc++ 12 implements it
 // with a lock bit inside the control-block pointer, held only for the pointer copy).
+// Beside the snapshot it holds the items withdrawn from serving (WithdrawnItems), which change
+// without a new version; the catch-up thread sets both.
 #pragma once
 
 #include <atomic>
 #include <memory>
 
 #include "server/snapshot.h"
+#include "server/withdrawn_items.h"
 
 namespace plumb::server {
 
@@ -30,8 +33,18 @@ class SnapshotHolder {
     return current_.exchange(std::move(next), std::memory_order_acq_rel);
   }
 
+  // The withdrawn items (null before the first SetWithdrawn: nothing withdrawn). Thread-safe.
+  std::shared_ptr<const WithdrawnItems> GetWithdrawn() const {
+    return withdrawn_.load(std::memory_order_acquire);
+  }
+  // Makes `next` the withdrawn set. Thread-safe.
+  void SetWithdrawn(std::shared_ptr<const WithdrawnItems> next) {
+    withdrawn_.store(std::move(next), std::memory_order_release);
+  }
+
  private:
   std::atomic<std::shared_ptr<const Snapshot>> current_;
+  std::atomic<std::shared_ptr<const WithdrawnItems>> withdrawn_;
 };
 
 }  // namespace plumb::server

@@ -45,7 +45,7 @@ std::string ExternalByIdKey(IdSpace space, uint32_t index);
 // Prefix of all ExternalByIdKey keys of one space.
 std::string ExternalByIdPrefix(IdSpace space);
 
-// interactions: big-endian user + big-endian item.
+// interactions and pair_history: big-endian user + big-endian item.
 std::string InteractionKey(uint32_t user, uint32_t item);
 std::string InteractionPrefix(uint32_t user);
 
@@ -71,6 +71,14 @@ inline constexpr std::string_view kMetaNextVersion = "plumb.next_version";
 inline constexpr std::string_view kMetaLastSequence = "plumb.last_sequence";
 // The pinned versions: big-endian uint64 version numbers, ascending, concatenated.
 inline constexpr std::string_view kMetaPinnedVersions = "plumb.pinned_versions";
+// Stored bytes (key + value) of every event ever appended, Fixed64 (written with each append).
+inline constexpr std::string_view kMetaLogBytes = "plumb.log_bytes";
+// Retention totals: StoredRetention (store/retention.cc).
+inline constexpr std::string_view kMetaRetention = "plumb.retention";
+// The withdrawn items (store/availability.cc): StoredAvailability, and one value per item under
+// the prefix (+ external item id -> Fixed64 ms of the withdrawal).
+inline constexpr std::string_view kMetaAvailability = "plumb.availability";
+inline constexpr std::string_view kMetaWithdrawnPrefix = "plumb.withdrawn/";
 
 // Column family names, as created on disk.
 inline constexpr const char* kEventsFamily = "events";
@@ -80,6 +88,8 @@ inline constexpr const char* kInteractionsFamily = "interactions";
 inline constexpr const char* kDegreesFamily = "degrees";
 inline constexpr const char* kModelsFamily = "models";
 inline constexpr const char* kMetaFamily = "meta";
+// Added after the first release: a follower opens it when present (store/retention.cc).
+inline constexpr const char* kPairHistoryFamily = "pair_history";
 
 // "users" / "items" for messages.
 std::string_view MatrixName(MatrixKind kind);

@@ -208,4 +208,68 @@ bool DecodeManifest(std::string_view value, uint64_t version, VersionManifest* o
   return true;
 }
 
+std::string EncodePairHistory(const PairHistory& record) {
+  plumb::v1::storage::StoredPairHistory stored;
+  stored.set_count(record.count);
+  stored.set_first_seq(record.first_seq);
+  stored.set_last_ms(record.last_ms);
+  std::string out;
+  stored.SerializeToString(&out);
+  return out;
+}
+
+bool DecodePairHistory(std::string_view value, PairHistory* out) {
+  plumb::v1::storage::StoredPairHistory stored;
+  if (!stored.ParseFromArray(value.data(), static_cast<int>(value.size()))) return false;
+  if (stored.count() == 0) return false;
+  out->count = stored.count();
+  out->first_seq = stored.first_seq();
+  out->last_ms = stored.last_ms();
+  return true;
+}
+
+std::string EncodeRetention(const LogStats& totals) {
+  plumb::v1::storage::StoredRetention stored;
+  stored.set_removed_events(totals.removed_events);
+  stored.set_removed_bytes(totals.removed_bytes);
+  stored.set_folded_through(totals.folded_through);
+  stored.set_folded_watermark_ms(totals.folded_watermark_ms);
+  stored.set_pairs(totals.history_pairs);
+  stored.set_passes(totals.retention_passes);
+  stored.set_last_pass_ms(totals.last_retention_ms);
+  std::string out;
+  stored.SerializeToString(&out);
+  return out;
+}
+
+bool DecodeRetention(std::string_view value, LogStats* totals) {
+  plumb::v1::storage::StoredRetention stored;
+  if (!stored.ParseFromArray(value.data(), static_cast<int>(value.size()))) return false;
+  totals->removed_events = stored.removed_events();
+  totals->removed_bytes = stored.removed_bytes();
+  totals->folded_through = stored.folded_through();
+  totals->folded_watermark_ms = stored.folded_watermark_ms();
+  totals->history_pairs = stored.pairs();
+  totals->retention_passes = stored.passes();
+  totals->last_retention_ms = stored.last_pass_ms();
+  return true;
+}
+
+std::string EncodeAvailability(uint64_t generation, uint64_t withdrawn) {
+  plumb::v1::storage::StoredAvailability stored;
+  stored.set_generation(generation);
+  stored.set_withdrawn(withdrawn);
+  std::string out;
+  stored.SerializeToString(&out);
+  return out;
+}
+
+bool DecodeAvailability(std::string_view value, uint64_t* generation, uint64_t* withdrawn) {
+  plumb::v1::storage::StoredAvailability stored;
+  if (!stored.ParseFromArray(value.data(), static_cast<int>(value.size()))) return false;
+  *generation = stored.generation();
+  *withdrawn = stored.withdrawn();
+  return true;
+}
+
 }  // namespace plumb::store::records

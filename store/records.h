@@ -27,4 +27,17 @@ std::string EncodeManifest(const VersionManifest& manifest, uint32_t rows_per_bl
 bool DecodeManifest(std::string_view value, uint64_t version, VersionManifest* out,
                     uint32_t* rows_per_block, std::string* why);
 
+// pair_history values (StoredPairHistory). Decode: false for a value that does not parse or
+// has a count of 0.
+std::string EncodePairHistory(const PairHistory& record);
+bool DecodePairHistory(std::string_view value, PairHistory* out);
+
+// meta "plumb.retention" (StoredRetention); the fields LogStats carries.
+std::string EncodeRetention(const LogStats& totals);
+bool DecodeRetention(std::string_view value, LogStats* totals);
+
+// meta "plumb.availability" (StoredAvailability).
+std::string EncodeAvailability(uint64_t generation, uint64_t withdrawn);
+bool DecodeAvailability(std::string_view value, uint64_t* generation, uint64_t* withdrawn);
+
 }  // namespace plumb::store::records

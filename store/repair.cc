@@ -50,7 +50,7 @@ Status DamagedTables(const std::string& dir, std::map<std::string, std::string>*
 bool Salvageable(std::string_view family) {
   return family == keys::kEventsFamily || family == keys::kEventIdsFamily ||
          family == keys::kIdsFamily || family == keys::kInteractionsFamily ||
-         family == keys::kModelsFamily;
+         family == keys::kModelsFamily || family == keys::kPairHistoryFamily;
 }
 
 }  // namespace
@@ -133,6 +133,10 @@ Status Store::Repair(const std::string& dir, const StoreOptions& options, Repair
   Impl& d = *store->impl_;
   std::lock_guard write_lock(d.write_mu);
   const rocksdb::ReadOptions ro;
+  // Events that retention folded into pair_history stay removed: copying them back would
+  // count them twice.
+  LogStats retained;
+  if (!d.ReadRetentionTotals(ro, &retained).ok()) retained = LogStats();
 
   for (RepairReport::SetAside& aside : r.set_aside) {
     if (!Salvageable(aside.family)) continue;
@@ -151,6 +155,10 @@ Status Store::Repair(const std::string& dir, const StoreOptions& options, Repair
     while (true) {
       for (; it->Valid(); it->Next()) {
         last_good = it->key().ToString();
+        if (cf == d.events) {
+          auto seq = keys::ParseEventKey(AsView(it->key()));
+          if (seq && *seq <= retained.folded_through) continue;
+        }
         rocksdb::Status g = d.db->Get(ro, cf, it->key(), &value);
         if (g.IsNotFound()) {
           batch.Put(cf, it->key(), it->value());

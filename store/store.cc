@@ -55,6 +55,21 @@ Status Store::Impl::LoadCounters(const rocksdb::ReadOptions& ro) {
   }
   last_seq.store(last);
 
+  s = Get(ro, meta, keys::kMetaLogBytes, &value, "meta: log bytes");
+  if (s.ok()) {
+    auto recorded = keys::ParseFixed64(value);
+    if (!recorded) return Status::Corruption("meta: log bytes is not an 8-byte value");
+    log_bytes_appended.store(*recorded);
+    log_bytes_known.store(true);
+  } else if (s.IsNotFound()) {
+    // A store written before the size was recorded (or an empty one): the primary counts it
+    // once when it opens (OpenPrimary); a follower counts on demand (GetLogStats).
+    log_bytes_appended.store(0);
+    log_bytes_known.store(last == 0);
+  } else {
+    return s;
+  }
+
   // Dictionary sizes: Commit() keeps indexes gap-free, so the count is the last index + 1.
   for (IdSpace space : {IdSpace::kUser, IdSpace::kItem}) {
     const std::string prefix = keys::ExternalByIdPrefix(space);
@@ -93,6 +108,23 @@ Status Store::Impl::LoadCounters(const rocksdb::ReadOptions& ro) {
     next_version = next;
   }
   return Status::Ok();
+}
+
+void Store::Impl::AssignHandles(const std::vector<bool>& present) {
+  static_assert(kNumFamilies == 8);
+  rocksdb::ColumnFamilyHandle** slots[kNumFamilies] = {&events,  &event_ids, &ids,  &interactions,
+                                                      &degrees, &models,    &meta, &pair_history};
+  size_t next = 1;  // handles[0] is RocksDB's default family
+  for (size_t k = 0; k < kNumFamilies; ++k) {
+    *slots[k] = present[k] ? handles[next++] : nullptr;
+  }
+}
+
+Status Store::Impl::CountLogBytes(const rocksdb::ReadOptions& ro, uint64_t* bytes) const {
+  *bytes = 0;
+  std::unique_ptr<rocksdb::Iterator> it(db->NewIterator(ro, events));
+  for (it->SeekToFirst(); it->Valid(); it->Next()) *bytes += StoredEventBytes(it->value().size());
+  return FromRocks(it->status(), "events: counting the log's size");
 }
 
 Status Store::Impl::ListVersionNumbers(const rocksdb::ReadOptions& ro,
@@ -273,6 +305,11 @@ Status Store::OpenPrimary(const std::string& dir, const StoreOptions& options,
   // such families once the WAL passes it. (Found when a store holding one 100k x 64 version
   // plus 200k users took plumb-serve ~20 s to open.)
   db_options.max_total_wal_size = 256ull << 20;
+  // One budget for the memtables of every family together (RocksDB's WriteBufferManager):
+  // without it each of the nine families may hold up to two 64 MB memtables, and the
+  // trainer's resident memory creeps up by the size of whatever the slow families (ids,
+  // interactions, pair_history, meta) have buffered. A full budget flushes the largest.
+  db_options.db_write_buffer_size = 128ull << 20;
 
   rocksdb::BlockBasedTableOptions lookup_table;
   lookup_table.filter_policy.reset(rocksdb::NewBloomFilterPolicy(10));
@@ -307,16 +344,19 @@ Status Store::OpenPrimary(const std::string& dir, const StoreOptions& options,
                                   "opening store " + dir));
   impl->db = db;
   impl->handles = handles;
-  impl->events = handles[1];
-  impl->event_ids = handles[2];
-  impl->ids = handles[3];
-  impl->interactions = handles[4];
-  impl->degrees = handles[5];
-  impl->models = handles[6];
-  impl->meta = handles[7];
-  static_assert(kNumFamilies == 7);
+  impl->AssignHandles(std::vector<bool>(kNumFamilies, true));
 
   PLUMB_RETURN_IF_ERROR(impl->LoadCounters(rocksdb::ReadOptions()));
+  if (!impl->log_bytes_known.load()) {
+    // A store from before the log's size was recorded: count it once and record it.
+    uint64_t bytes = 0;
+    PLUMB_RETURN_IF_ERROR(impl->CountLogBytes(rocksdb::ReadOptions(), &bytes));
+    rocksdb::WriteBatch batch;
+    batch.Put(impl->meta, AsSlice(keys::kMetaLogBytes), AsSlice(keys::Fixed64(bytes)));
+    PLUMB_RETURN_IF_ERROR(impl->Write(&batch, "recording the event log's size"));
+    impl->log_bytes_appended.store(bytes);
+    impl->log_bytes_known.store(true);
+  }
   out->reset(new Store(std::move(impl)));
   return Status::Ok();
 }
@@ -340,15 +380,21 @@ Status Store::OpenSecondary(const std::string& dir, const std::string& scratch_d
   std::vector<std::string> existing;
   rocksdb::Status listed = rocksdb::DB::ListColumnFamilies(db_options, dir, &existing);
   if (!listed.ok()) return Status::NotFound("no plumb store at " + dir + ": " + listed.ToString());
-  for (const char* name : kFamilies) {
+  std::vector<bool> present(kNumFamilies, true);
+  std::vector<rocksdb::ColumnFamilyDescriptor> descriptors;
+  descriptors.emplace_back(rocksdb::kDefaultColumnFamilyName, rocksdb::ColumnFamilyOptions());
+  for (size_t k = 0; k < kNumFamilies; ++k) {
+    const char* name = kFamilies[k];
     if (std::find(existing.begin(), existing.end(), name) == existing.end()) {
+      if (OptionalOnFollower(name)) {
+        present[k] = false;
+        continue;
+      }
       return Status::FailedPrecondition("store at " + dir + " has no column family " + name +
                                         "; open it once as the primary");
     }
+    descriptors.emplace_back(name, rocksdb::ColumnFamilyOptions());
   }
-  std::vector<rocksdb::ColumnFamilyDescriptor> descriptors;
-  descriptors.emplace_back(rocksdb::kDefaultColumnFamilyName, rocksdb::ColumnFamilyOptions());
-  for (const char* name : kFamilies) descriptors.emplace_back(name, rocksdb::ColumnFamilyOptions());
 
   auto impl = std::make_unique<Impl>();
   impl->primary = false;
@@ -361,13 +407,7 @@ Status Store::OpenSecondary(const std::string& dir, const std::string& scratch_d
       "opening store " + dir + " as secondary"));
   impl->db = db;
   impl->handles = handles;
-  impl->events = handles[1];
-  impl->event_ids = handles[2];
-  impl->ids = handles[3];
-  impl->interactions = handles[4];
-  impl->degrees = handles[5];
-  impl->models = handles[6];
-  impl->meta = handles[7];
+  impl->AssignHandles(present);
 
   PLUMB_RETURN_IF_ERROR(impl->LoadCounters(rocksdb::ReadOptions()));
   out->reset(new Store(std::move(impl)));
@@ -406,6 +446,7 @@ Status Store::AppendEvents(std::span<const EventInput> events, AppendResult* res
   r.seqs.reserve(events.size());
   r.duplicate.reserve(events.size());
   std::string value;
+  uint64_t log_bytes = impl_->log_bytes_appended.load();
 
   for (size_t i = 0; i < events.size(); ++i) {
     const EventInput& e = events[i];
@@ -439,8 +480,9 @@ Status Store::AppendEvents(std::span<const EventInput> events, AppendResult* res
       }
     }
     ++seq;
-    batch.Put(impl_->events, AsSlice(keys::EventKey(seq)),
-              AsSlice(records::EncodeEvent(e, now_ms)));
+    const std::string encoded = records::EncodeEvent(e, now_ms);
+    log_bytes += StoredEventBytes(encoded.size());
+    batch.Put(impl_->events, AsSlice(keys::EventKey(seq)), AsSlice(encoded));
     if (!e.event_id.empty()) {
       batch.Put(impl_->event_ids, AsSlice(e.event_id), AsSlice(keys::EventIdRecord(seq, now_ms)));
       in_batch[e.event_id] = seq;
@@ -452,8 +494,10 @@ Status Store::AppendEvents(std::span<const EventInput> events, AppendResult* res
 
   if (r.appended > 0) {
     batch.Put(impl_->meta, AsSlice(keys::kMetaLastSequence), AsSlice(keys::Fixed64(seq)));
+    batch.Put(impl_->meta, AsSlice(keys::kMetaLogBytes), AsSlice(keys::Fixed64(log_bytes)));
     PLUMB_RETURN_IF_ERROR(impl_->Write(&batch, "appending events"));
     impl_->last_seq.store(seq);
+    impl_->log_bytes_appended.store(log_bytes);
   }
   r.last_seq = seq;
   *result = std::move(r);

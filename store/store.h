@@ -10,7 +10,10 @@
 //   models       'm' + big-endian version -> StoredManifest;
 //                'b' + big-endian version + kind byte + big-endian block -> float32 rows;
 //                'd' + big-endian version + big-endian block -> uint32 item degrees
-//   meta         small named values: active version, consumer cursor, next version, ...
+//   meta         small named values: active version, consumer cursor, next version, retention
+//                totals, the withdrawn items ('plumb.withdrawn/' + external item id), ...
+//   pair_history big-endian user index + big-endian item index -> StoredPairHistory: what
+//                event-log retention folded in before removing events (store/retention.cc)
 // Keys are big-endian so that iteration order is numeric order. Integers and float32 rows
 // inside values are little-endian (store/keys.h has the exact layout). Matrices and version
 // degrees are cut into blocks of StoreOptions::rows_per_block rows; the last may be shorter.
@@ -264,6 +267,85 @@ struct StateChange {
   std::vector<std::pair<std::string, std::string>> meta;
 };
 
+// Event-log retention (RetainEvents). Events leave the log from the oldest on, each one only
+// once the trainer has folded it in (sequence <= the consumer cursor), and only while it is
+// older than the age rule or the log is over its size budget. A pass stops at the first event
+// that no rule removes: an event that arrived after a newer one (a late event) waits until
+// the events before it have gone.
+struct RetentionPolicy {
+  // Remove events whose timestamp is more than this before the clock (0: no age rule).
+  int64_t max_age_ms = 0;
+  // Remove the oldest events while the log's stored bytes (LogStats::bytes) exceed this
+  // (0: no size rule).
+  uint64_t max_log_bytes = 0;
+  // The clock of the age rule, ms since the epoch. 0: the newest event timestamp the store has
+  // (the timestamp of the last event in the log, or the newest one already folded in, whichever
+  // is later): the stream's own clock, as for the training window, so that a replayed
+  // history behaves as it did live.
+  int64_t now_ms = 0;
+  // Events removed per atomic write. Smaller writes stall concurrent appends less.
+  uint32_t events_per_write = 4096;
+  // After removing, let RocksDB drop and compact the table files of the removed range, so that
+  // the disk space comes back now rather than at some later compaction.
+  bool reclaim_disk = true;
+};
+
+// What one RetainEvents pass did.
+struct RetentionReport {
+  uint64_t removed_events = 0;
+  uint64_t removed_bytes = 0;
+  uint64_t pairs_updated = 0;  // pair_history records written (new or merged)
+  uint64_t pairs_added = 0;    // of them, new records
+  uint64_t first_seq_after = 0;  // oldest event left, 0 when the log is empty
+  int64_t cut_ms = 0;            // events older than this went by age (0: no age rule)
+  // Why the pass stopped: "the log is empty", "the end of the log" (everything went), "the
+  // trainer's cursor", "an event within the age and the log within its budget", or "no rule"
+  // (a policy without rules).
+  std::string stopped_by;
+  double seconds = 0.0;
+};
+
+// The event log and what retention did (Store::GetLogStats).
+struct LogStats {
+  uint64_t first_seq = 0;  // oldest event in the log, 0 when the log is empty
+  uint64_t last_seq = 0;   // newest sequence ever given
+  uint64_t events = 0;     // events in the log now
+  uint64_t bytes = 0;      // their stored size (key + value, before compression)
+  uint64_t disk_bytes = 0;  // table files of the events family (may still hold removed events)
+  int64_t oldest_timestamp_ms = 0;  // of the oldest event in the log (0 when empty)
+  int64_t oldest_received_ms = 0;
+  // Retention, since the store began.
+  uint64_t removed_events = 0;
+  uint64_t removed_bytes = 0;
+  uint64_t folded_through = 0;      // every event up to this sequence is in pair_history
+  int64_t folded_watermark_ms = 0;  // newest timestamp among them
+  uint64_t history_pairs = 0;       // records in pair_history
+  uint64_t retention_passes = 0;    // passes that removed something
+  int64_t last_retention_ms = 0;    // when the last such pass ended
+};
+
+// One pair_history record (storage.proto StoredPairHistory).
+struct PairHistory {
+  uint64_t count = 0;
+  uint64_t first_seq = 0;
+  int64_t last_ms = 0;
+  friend bool operator==(const PairHistory&, const PairHistory&) = default;
+};
+
+// A withdrawn item (Store::ListWithdrawnItems).
+struct WithdrawnItem {
+  std::string item_id;
+  int64_t withdrawn_ms = 0;
+};
+
+// What SetItemsWithdrawn changed.
+struct AvailabilityChange {
+  uint64_t changed = 0;    // items whose state changed
+  uint64_t unchanged = 0;  // items already in the asked state (or repeated in the request)
+  uint64_t withdrawn = 0;  // items withdrawn after the write
+  uint64_t generation = 0;
+};
+
 class Store {
  public:
   // Opens `dir` read-write. Fails with IoError if another process (or another Store in this
@@ -340,6 +422,46 @@ class Store {
 
   // Highest sequence number in the log, 0 when empty.
   uint64_t LastSequence() const;
+
+  // ---- retention (store/retention.cc) ----------------------------------------------
+
+  // Removes events from the log under `policy` (see RetentionPolicy), folding each into the
+  // pair_history record of its (user, item) pair (count, first sequence, newest timestamp)
+  // in the same atomic write that removes it, so that TrainingState::Load rebuilds the same
+  // state from pair_history plus the events left. Never removes an event beyond the consumer
+  // cursor. The de-duplication records are separate and keep their window. Primary only
+  // (FailedPrecondition otherwise); one pass at a time (a second caller waits). Runs beside
+  // appends and commits without holding them up longer than one write of events_per_write
+  // events. Corruption when an event to remove is unreadable or names an id the dictionary
+  // lacks (nothing of that write is applied; earlier writes of the pass stay).
+  Status RetainEvents(const RetentionPolicy& policy, RetentionReport* report);
+
+  // The log's size, its oldest event and the retention totals. Thread-safe; on a secondary
+  // as of the last catch-up.
+  Status GetLogStats(LogStats* out) const;
+
+  // Calls fn(user, item, record) for every pair_history record, ordered by user then item.
+  // Nothing (OK) when the family does not exist (a follower opened before it was created).
+  Status ForEachPairHistory(
+      const std::function<void(uint32_t, uint32_t, const PairHistory&)>& fn) const;
+
+  // ---- item availability (store/availability.cc) -----------------------------------
+
+  // Withdraws (withdrawn = true) or restores items by external id, in one atomic write that
+  // also advances the availability generation. Ids need not be in the dictionary yet (an item
+  // can be withdrawn before its first event). InvalidArgument for an empty id (nothing
+  // written). Primary only.
+  Status SetItemsWithdrawn(std::span<const std::string> item_ids, bool withdrawn,
+                           AvailabilityChange* result);
+
+  // The withdrawn items in id order, starting after `start_after` ("" = from the first), at
+  // most `limit` (0 = all). Thread-safe.
+  Status ListWithdrawnItems(std::string_view start_after, size_t limit,
+                            std::vector<WithdrawnItem>* out) const;
+
+  // The availability generation (0: nothing ever withdrawn) and the number of withdrawn items.
+  // One small read: followers call it every catch-up to see whether to reload the list.
+  Status GetAvailability(uint64_t* generation, uint64_t* withdrawn) const;
 
   // ---- training state -------------------------------------------------------------
 

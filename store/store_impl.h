@@ -61,9 +61,17 @@ inline std::string VersionWhat(uint64_t version, std::string_view what) {
 
 inline constexpr const char* kFamilies[] = {
     keys::kEventsFamily,  keys::kEventIdsFamily, keys::kIdsFamily,  keys::kInteractionsFamily,
-    keys::kDegreesFamily, keys::kModelsFamily,   keys::kMetaFamily,
+    keys::kDegreesFamily, keys::kModelsFamily,   keys::kMetaFamily, keys::kPairHistoryFamily,
 };
 inline constexpr size_t kNumFamilies = sizeof(kFamilies) / sizeof(kFamilies[0]);
+// Families added after stores existed: a follower opens them when the primary has created
+// them and does without otherwise (their handle stays null).
+inline bool OptionalOnFollower(std::string_view family) {
+  return family == keys::kPairHistoryFamily;
+}
+
+// The stored size of one event: its key and its encoded value.
+inline uint64_t StoredEventBytes(size_t value_bytes) { return 8 + value_bytes; }
 
 inline uint64_t BlockCount(uint64_t rows, uint32_t rows_per_block) {
   return rows == 0 ? 0 : (rows + rows_per_block - 1) / rows_per_block;
@@ -101,6 +109,7 @@ struct Store::Impl {
   rocksdb::ColumnFamilyHandle* degrees = nullptr;
   rocksdb::ColumnFamilyHandle* models = nullptr;
   rocksdb::ColumnFamilyHandle* meta = nullptr;
+  rocksdb::ColumnFamilyHandle* pair_history = nullptr;  // null on a follower of an older store
 
   // Reads hold it shared; a secondary's CatchUp() holds it exclusively, so that no read
   // sees half of a catch-up. On the primary, snapshots give each read one consistent view.
@@ -113,6 +122,14 @@ struct Store::Impl {
   std::atomic<uint32_t> user_count{0};
   std::atomic<uint32_t> item_count{0};
   uint64_t next_version = 1;  // primary only, under write_mu
+  // Stored bytes of every event ever appended (meta kMetaLogBytes); log_bytes_known is false
+  // on a follower of a store whose primary never recorded it (GetLogStats then counts).
+  std::atomic<uint64_t> log_bytes_appended{0};
+  std::atomic<bool> log_bytes_known{true};
+  // One retention pass at a time (store/retention.cc).
+  std::mutex retention_mu;
+  // Serialises changes of the withdrawn set (store/availability.cc).
+  std::mutex availability_mu;
 
   ~Impl() {
     if (db == nullptr) return;
@@ -183,6 +200,17 @@ struct Store::Impl {
   };
 
   Status LoadCounters(const rocksdb::ReadOptions& ro);
+  // Sums the stored bytes of the events in the log (a full scan).
+  Status CountLogBytes(const rocksdb::ReadOptions& ro, uint64_t* bytes) const;
+  // The retention totals of meta "plumb.retention" into the retention fields of *totals
+  // (all 0 when retention never removed anything). Corruption for an unreadable record.
+  Status ReadRetentionTotals(const rocksdb::ReadOptions& ro, LogStats* totals) const;
+  // The withdrawn set's generation and size (store/availability.cc); 0 and 0 when never set.
+  Status ReadAvailability(const rocksdb::ReadOptions& ro, uint64_t* generation,
+                          uint64_t* withdrawn) const;
+  // Assigns the handles of the families in kFamilies order (handles[0] is RocksDB's default);
+  // `present` says which exist (a follower may lack the optional ones).
+  void AssignHandles(const std::vector<bool>& present);
   Status ReadManifestLocked(const rocksdb::ReadOptions& ro, uint64_t version, VersionManifest* out,
                             uint32_t* rows_per_block) const;
   // Reads the blocks of one array of a version into dest (may be null: only check them).

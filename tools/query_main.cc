@@ -2,7 +2,7 @@
 //
 //   plumb-serve (Ranker, health):  recommend, similar, rank, health
 //   plumb-train (ModelControl):    versions, status, activate, pin, unpin, auto-activate,
-//                                  retrain
+//                                  retrain, items withdraw|restore|list
 //
 // Exit status: 0 success (health: only when SERVING); 1 the call failed, with one line
 // "plumb-query: <STATUS_CODE>: <message>" on stderr; 2 usage error.
@@ -12,6 +12,7 @@
 #include <cmath>
 #include <cstdio>
 #include <ctime>
+#include <fstream>
 #include <iostream>
 #include <memory>
 #include <sstream>
@@ -170,6 +171,13 @@ int Rank(const ListArgs& a) {
     for (const auto& id : response.unknown_item_ids()) unknown += (unknown.empty() ? "" : ",") + id;
     std::printf("not known to this version: %s\n", unknown.c_str());
   }
+  if (rc == 0 && response.unavailable_item_ids_size() > 0) {
+    std::string unavailable;
+    for (const auto& id : response.unavailable_item_ids()) {
+      unavailable += (unavailable.empty() ? "" : ",") + id;
+    }
+    std::printf("withdrawn from serving: %s\n", unavailable.c_str());
+  }
   return rc;
 }
 
@@ -293,6 +301,15 @@ void PrintStatus(const plumb::v1::TrainerStatus& s) {
   std::printf("objective:         %s\n", s.objective().c_str());
   std::printf("users:             %u\n", s.num_users());
   std::printf("items:             %u\n", s.num_items());
+  std::printf("withdrawn items:   %llu\n", static_cast<unsigned long long>(s.withdrawn_items()));
+  std::printf("event log:         %llu events, %.1f MB%s%s\n",
+              static_cast<unsigned long long>(s.log_events()), s.log_bytes() / 1e6,
+              s.log_events() > 0 ? "; oldest " : "",
+              s.log_events() > 0 ? FormatTime(s.oldest_event_ms()).c_str() : "");
+  std::printf("retention:         %llu events (%.1f MB) removed, kept as %llu (user, item) pairs\n",
+              static_cast<unsigned long long>(s.retention_removed_events()),
+              s.retention_removed_bytes() / 1e6,
+              static_cast<unsigned long long>(s.retention_pairs()));
 }
 
 int Versions(const Connection& c) {
@@ -408,6 +425,122 @@ int AutoActivate(const Connection& c, const std::string& setting) {
       plumb::v1::ModelControl::NewStub(channel)->SetAutoActivate(&context, request, &response);
   if (!status.ok()) return Fail(status, c.spec.target, true);
   PrintStatus(response);
+  return 0;
+}
+
+// ---- item availability ---------------------------------------------------------------------
+
+struct ItemsArgs {
+  Connection conn{"127.0.0.1:7601"};
+  std::string item;        // --item
+  std::string items_file;  // --items-file: one id per line
+  bool json = false;       // list --json
+};
+
+// The ids of --item and --items-file (blank lines and lines starting with '#' skipped; ids are
+// trimmed of surrounding spaces and a trailing '\r').
+Status CollectItemIds(const ItemsArgs& a, std::vector<std::string>* ids) {
+  ids->clear();
+  if (!a.item.empty()) ids->push_back(a.item);
+  if (!a.items_file.empty()) {
+    std::ifstream in(a.items_file);
+    if (!in) return Status::IoError("cannot read " + a.items_file);
+    std::string line;
+    while (std::getline(in, line)) {
+      const size_t begin = line.find_first_not_of(" \t\r");
+      if (begin == std::string::npos || line[begin] == '#') continue;
+      const size_t end = line.find_last_not_of(" \t\r");
+      ids->push_back(line.substr(begin, end - begin + 1));
+    }
+  }
+  if (ids->empty()) {
+    return Status::InvalidArgument("no item ids: give --item ID or --items-file FILE");
+  }
+  return Status::Ok();
+}
+
+// Withdraws or restores in calls of at most 100000 ids (the RPC's limit).
+int SetAvailability(const ItemsArgs& a, bool withdrawn) {
+  std::vector<std::string> ids;
+  if (Status s = CollectItemIds(a, &ids); !s.ok()) return Fail(s.message());
+  constexpr size_t kPerCall = 100000;
+  uint64_t changed = 0, unchanged = 0, total = 0;
+  for (size_t from = 0; from < ids.size(); from += kPerCall) {
+    std::shared_ptr<grpc::Channel> channel;
+    grpc::ClientContext context;
+    if (Status s = Prepare(a.conn, &channel, &context); !s.ok()) return Fail(s.message());
+    plumb::v1::SetItemAvailabilityRequest request;
+    for (size_t j = from; j < std::min(ids.size(), from + kPerCall); ++j) {
+      request.add_item_ids(ids[j]);
+    }
+    request.set_withdrawn(withdrawn);
+    plumb::v1::SetItemAvailabilityResponse response;
+    const grpc::Status status = plumb::v1::ModelControl::NewStub(channel)->SetItemAvailability(
+        &context, request, &response);
+    if (!status.ok()) {
+      if (from > 0) {
+        std::fprintf(stderr, "plumb-query: the first %zu ids were %s before the error\n", from,
+                     withdrawn ? "withdrawn" : "restored");
+      }
+      return Fail(status, a.conn.spec.target, true);
+    }
+    changed += response.changed();
+    unchanged += response.unchanged();
+    total = response.withdrawn_items();
+  }
+  std::printf("%s %llu items (%llu already %s); %llu items withdrawn in all\n",
+              withdrawn ? "withdrew" : "restored", static_cast<unsigned long long>(changed),
+              static_cast<unsigned long long>(unchanged), withdrawn ? "withdrawn" : "available",
+              static_cast<unsigned long long>(total));
+  return 0;
+}
+
+int ListWithdrawn(const ItemsArgs& a) {
+  std::string start_after;
+  std::vector<plumb::v1::WithdrawnItem> items;
+  do {
+    std::shared_ptr<grpc::Channel> channel;
+    grpc::ClientContext context;
+    if (Status s = Prepare(a.conn, &channel, &context); !s.ok()) return Fail(s.message());
+    plumb::v1::ListWithdrawnItemsRequest request;
+    request.set_start_after(start_after);
+    request.set_limit(10000);
+    plumb::v1::ListWithdrawnItemsResponse response;
+    const grpc::Status status = plumb::v1::ModelControl::NewStub(channel)->ListWithdrawnItems(
+        &context, request, &response);
+    if (!status.ok()) return Fail(status, a.conn.spec.target, true);
+    for (const auto& item : response.items()) items.push_back(item);
+    start_after = response.next_start_after();
+  } while (!start_after.empty());
+  if (a.json) {
+    std::printf("{\"withdrawn_items\": [");
+    for (size_t j = 0; j < items.size(); ++j) {
+      std::string escaped;
+      for (char ch : items[j].item_id()) {
+        if (ch == '"' || ch == '\\') escaped += '\\';
+        if (static_cast<unsigned char>(ch) < 0x20) {
+          char buf[8];
+          std::snprintf(buf, sizeof buf, "\\u%04x", ch);
+          escaped += buf;
+          continue;
+        }
+        escaped += ch;
+      }
+      std::printf("%s{\"item\": \"%s\", \"withdrawn_ms\": %lld}", j == 0 ? "" : ", ",
+                  escaped.c_str(), static_cast<long long>(items[j].withdrawn_ms()));
+    }
+    std::printf("]}\n");
+    return 0;
+  }
+  if (items.empty()) {
+    std::printf("no items withdrawn\n");
+    return 0;
+  }
+  for (const auto& item : items) {
+    std::printf("%s  withdrawn %s\n", item.item_id().c_str(),
+                FormatTime(item.withdrawn_ms()).c_str());
+  }
+  std::printf("%zu items withdrawn\n", items.size());
   return 0;
 }
 
@@ -539,6 +672,25 @@ int main(int argc, char** argv) {
   AddConnection(retrain, &control, true);
   retrain->add_option("--reason", retrain_reason, "Why (shown in status and the trainer's log)");
 
+  ItemsArgs items_args;
+  CLI::App* items = app.add_subcommand(
+      "items", "Withdraw items from serving, restore them, or list the withdrawn ones");
+  items->require_subcommand(1);
+  CLI::App* withdraw = items->add_subcommand(
+      "withdraw",
+      "Stop serving items (sold out, deleted, banned) without a new version "
+      "(ModelControl/SetItemAvailability)");
+  CLI::App* restore = items->add_subcommand("restore", "Serve withdrawn items again");
+  for (CLI::App* cmd : {withdraw, restore}) {
+    AddConnection(cmd, &items_args.conn, true);
+    cmd->add_option("--item", items_args.item, "External item id");
+    cmd->add_option("--items-file", items_args.items_file, "Item ids, one per line (bulk form)")
+        ->check(CLI::ExistingFile);
+  }
+  CLI::App* list_withdrawn = items->add_subcommand("list", "The withdrawn items, in id order");
+  AddConnection(list_withdrawn, &items_args.conn, true);
+  list_withdrawn->add_flag("--json", items_args.json, "Print JSON instead of text");
+
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {
@@ -548,7 +700,8 @@ int main(int argc, char** argv) {
   }
   // A --deadline that is not a duration is a usage error (every other connection keeps its
   // valid default).
-  for (const Connection* c : {&rec.conn, &sim.conn, &rk.conn, &health_conn, &control}) {
+  for (const Connection* c :
+       {&rec.conn, &sim.conn, &rk.conn, &health_conn, &control, &items_args.conn}) {
     int64_t ms = 0;
     if (Status s = plumb::ParseDurationIn("--deadline", c->deadline, 1, 3'600'000, &ms); !s.ok()) {
       std::cerr << "plumb-query: " << s.message() << " (see --help)\n";
@@ -563,6 +716,9 @@ int main(int argc, char** argv) {
   if (*status) return TrainerStatus(control);
   if (*activate) return Activate(control, version);
   if (*retrain) return Retrain(control, retrain_reason);
+  if (*withdraw) return SetAvailability(items_args, true);
+  if (*restore) return SetAvailability(items_args, false);
+  if (*list_withdrawn) return ListWithdrawn(items_args);
   if (*pin) return Pin(control, pin_version, true);
   if (*unpin) return Pin(control, pin_version, false);
   return AutoActivate(control, setting);

@@ -21,10 +21,10 @@ BINARIES = {"plumb": "cli/plumb", "plumb-serve": "server/plumb-serve",
             "plumb-train": "trainer/online/plumb-train", "plumb-query": "tools/plumb-query",
             "plumb-load": "tools/plumb-load"}
 SUBCOMMANDS = {
-    "plumb": {"synth", "import", "fit", "eval", "compare", "versions", "activate", "pin", "unpin",
-              "inspect", "export", "top"},
+    "plumb": {"synth", "import", "split", "fit", "tune", "eval", "compare", "versions",
+              "activate", "pin", "unpin", "inspect", "repair", "export", "top"},
     "plumb-query": {"recommend", "similar", "rank", "health", "versions", "status", "activate",
-                    "pin", "unpin", "auto-activate"},
+                    "pin", "unpin", "auto-activate", "retrain"},
     "plumb-load": {"replay"},
 }
 TOP_DIRS = {e for e in os.listdir(SRC) if os.path.isdir(os.path.join(SRC, e)) and

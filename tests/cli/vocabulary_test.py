@@ -19,13 +19,15 @@ import sys
 
 DOC, BIN = sys.argv[1], sys.argv[2]
 PROGRAMS = {
-    "plumb": (BIN + "/cli/plumb", ["synth", "import", "fit", "eval", "compare", "versions",
-                                   "activate", "pin", "unpin", "inspect", "export", "top"]),
+    "plumb": (BIN + "/cli/plumb", ["synth", "import", "split", "fit", "tune", "eval",
+                                   "compare", "versions", "activate", "pin", "unpin", "inspect",
+                                   "repair", "export", "top"]),
     "plumb-serve": (BIN + "/server/plumb-serve", []),
     "plumb-train": (BIN + "/trainer/online/plumb-train", []),
     "plumb-query": (BIN + "/tools/plumb-query", ["recommend", "similar", "rank", "health",
                                                  "versions", "status", "activate", "pin",
-                                                 "unpin", "auto-activate"]),
+                                                 "unpin", "auto-activate", "retrain",
+                                                 "items withdraw", "items restore", "items list"]),
     "plumb-load": (BIN + "/tools/plumb-load", ["replay"]),
 }
 DURATION = re.compile(r"^(0|[0-9]+(\.[0-9]+)?(ms|s|m|h|d))$")
@@ -66,7 +68,7 @@ def run(args):
 
 
 def check_help(program, binary, sub):
-    args = [binary] + ([sub] if sub else []) + ["--help"]
+    args = [binary] + (sub.split() if sub else []) + ["--help"]
     result = run(args)
     where = program + (" " + sub if sub else "")
     if result.returncode != 0:
@@ -132,7 +134,7 @@ for program, (binary, subs) in PROGRAMS.items():
                                                 result.stdout):
         fail("%s --version: exit %d, printed %r" % (program, result.returncode, result.stdout))
     for sub in [None] + subs:
-        args = [binary] + ([sub] if sub else []) + ["--no-such-flag"]
+        args = [binary] + (sub.split() if sub else []) + ["--no-such-flag"]
         result = run(args)
         if result.returncode != 2:
             fail("%s: an unknown flag exits %d, not 2" % (" ".join(args[:-1]), result.returncode))

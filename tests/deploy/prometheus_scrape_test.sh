@@ -208,7 +208,8 @@ except SystemExit:
 # 3. The alert rules from deploy/ are loaded and evaluate without error.
 expected_alerts = {"PlumbServerDown", "PlumbTrainerDown", "PlumbServingErrors",
                    "PlumbModelStale", "PlumbTrainerLagging", "PlumbGateFailures",
-                   "PlumbPopularityDrift", "PlumbExposureDrift", "PlumbExposureGiniHigh",
+                   "PlumbUnderCorrected", "PlumbOverCorrected", "PlumbPopularityDrift",
+                   "PlumbExposureGiniHigh",
                    "PlumbServingOverloaded", "PlumbStoreDamaged"}
 
 

@@ -193,6 +193,67 @@ TEST_F(ControlServiceTest, StatusVersionsPromotionAndRollback) {
   EXPECT_NE(Status().auto_activate_reason().find("activated by request"), std::string::npos);
 }
 
+// SetItemAvailability and ListWithdrawnItems: counts by hand from the ids sent; every invalid
+// request is refused whole (the withdrawn set is unchanged afterwards); the set shows in the
+// status; events for a withdrawn item are still accepted.
+TEST_F(ControlServiceTest, WithdrawRestoreAndListItems) {
+  auto set = [&](std::vector<std::string> ids, bool withdrawn,
+                 plumb::v1::SetItemAvailabilityResponse* response) {
+    grpc::ClientContext context;
+    plumb::v1::SetItemAvailabilityRequest request;
+    for (const std::string& id : ids) request.add_item_ids(id);
+    request.set_withdrawn(withdrawn);
+    return control_stub_->SetItemAvailability(&context, request, response);
+  };
+  plumb::v1::SetItemAvailabilityResponse r;
+  // tool-3 twice and a tool no event has named yet: 3 changed, 1 repeat.
+  ASSERT_TRUE(set({"tool-3", "tool-7", "tool-3", "tool-unseen"}, true, &r).ok());
+  EXPECT_EQ(r.changed(), 3u);
+  EXPECT_EQ(r.unchanged(), 1u);
+  EXPECT_EQ(r.withdrawn_items(), 3u);
+  ASSERT_TRUE(set({"tool-7", "tool-9"}, false, &r).ok());  // tool-9 was not withdrawn
+  EXPECT_EQ(r.changed(), 1u);
+  EXPECT_EQ(r.unchanged(), 1u);
+  EXPECT_EQ(r.withdrawn_items(), 2u);
+
+  EXPECT_EQ(set({}, true, &r).error_code(), grpc::StatusCode::INVALID_ARGUMENT);
+  EXPECT_EQ(set({"tool-1", ""}, true, &r).error_code(), grpc::StatusCode::INVALID_ARGUMENT);
+  const grpc::Status too_long = set({"tool-2", std::string(257, 'x')}, true, &r);
+  EXPECT_EQ(too_long.error_code(), grpc::StatusCode::INVALID_ARGUMENT);
+  EXPECT_NE(too_long.error_message().find("item_ids[1]"), std::string::npos)
+      << too_long.error_message();
+
+  auto list = [&](const std::string& start_after, uint32_t limit,
+                  plumb::v1::ListWithdrawnItemsResponse* response) {
+    grpc::ClientContext context;
+    plumb::v1::ListWithdrawnItemsRequest request;
+    request.set_start_after(start_after);
+    request.set_limit(limit);
+    return control_stub_->ListWithdrawnItems(&context, request, response);
+  };
+  plumb::v1::ListWithdrawnItemsResponse page;
+  ASSERT_TRUE(list("", 1, &page).ok());
+  ASSERT_EQ(page.items_size(), 1);
+  EXPECT_EQ(page.items(0).item_id(), "tool-3");  // nothing of the refused requests stuck
+  EXPECT_GT(page.items(0).withdrawn_ms(), 1'600'000'000'000);
+  EXPECT_EQ(page.next_start_after(), "tool-3");
+  EXPECT_EQ(page.withdrawn_items(), 2u);
+  plumb::v1::ListWithdrawnItemsResponse rest;
+  ASSERT_TRUE(list(page.next_start_after(), 1, &rest).ok());
+  ASSERT_EQ(rest.items_size(), 1);
+  EXPECT_EQ(rest.items(0).item_id(), "tool-unseen");
+  EXPECT_TRUE(rest.next_start_after().empty());
+  EXPECT_EQ(list("", 100001, &page).error_code(), grpc::StatusCode::INVALID_ARGUMENT);
+
+  EXPECT_EQ(Status().withdrawn_items(), 2u);
+  // Events naming a withdrawn item are accepted like any other.
+  Publish(0, 200);
+  const plumb::v1::TrainerStatus status = Status();
+  EXPECT_EQ(status.log_events(), 200u);
+  EXPECT_GT(status.log_bytes(), 200u * 8);
+  EXPECT_EQ(status.retention_removed_events(), 0u);
+}
+
 class ControlServiceWithRefitsTest : public ControlServiceTest {
  protected:
   void SetUp() override {

@@ -175,6 +175,9 @@ TEST(TrainConfig, ExampleFileCoversEveryKeyWithItsDefault) {
   EXPECT_EQ(c.max_batch_events, d.max_batch_events);
   EXPECT_EQ(c.keep_versions, d.keep_versions);
   EXPECT_EQ(c.dedup_window, d.dedup_window);
+  EXPECT_EQ(c.retention_max_age_ms, d.retention_max_age_ms);
+  EXPECT_EQ(c.retention_max_log_mb, d.retention_max_log_mb);
+  EXPECT_EQ(c.retention_interval_ms, d.retention_interval_ms);
   EXPECT_EQ(c.shutdown_grace_seconds, d.shutdown_grace_seconds);
   EXPECT_EQ(c.online.objective, d.online.objective);
   EXPECT_EQ(c.online.dim, d.online.dim);

@@ -135,3 +135,25 @@ TEST(ExposureWindowTest, TheWindowStillSlidesByCount) {
 
 }  // namespace
 }  // namespace plumb::server
+
+namespace plumb::server {
+namespace {
+
+TEST(ExposureWindowTest, ListsTheMostServedItemsMostFirstTiesBySmallerIndex) {
+  const auto snap = testing::BuildSnapshot(testing::RandomModel(10, 50, 4, 3, 1, false), 1);
+  ExposureWindow window(ExposureWindowOptions{});
+  // Hand-counted: item 7 three times, items 2 and 9 twice each, item 4 once.
+  for (uint32_t item : {7u, 9u, 7u, 2u, 4u, 9u, 2u, 7u}) {
+    window.Record(*snap, std::span<const uint32_t>(&item, 1));
+  }
+  const ExposureFigures f = window.Summarize(*snap, 3);
+  ASSERT_EQ(f.top_items.size(), 3u);
+  EXPECT_EQ(f.top_items[0], (std::pair<uint32_t, uint64_t>{7, 3}));
+  EXPECT_EQ(f.top_items[1], (std::pair<uint32_t, uint64_t>{2, 2}));
+  EXPECT_EQ(f.top_items[2], (std::pair<uint32_t, uint64_t>{9, 2}));
+  EXPECT_EQ(window.Summarize(*snap, 100).top_items.size(), 4u);  // only items served
+  EXPECT_TRUE(window.Summarize(*snap).top_items.empty());
+}
+
+}  // namespace
+}  // namespace plumb::server

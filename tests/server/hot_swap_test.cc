@@ -2,7 +2,8 @@
 // the trainer, publishes new versions into the store; the server under test follows it as a
 // RocksDB secondary. No request may fail, every answer must come from a version that was
 // active at some moment and match that version's model, and no client may see versions go
-// backwards.
+// backwards. Run twice: with the exact scan, and with the approximate indexes that large
+// catalogues get (built by the catch-up loop for each new version before its swap).
 #include <grpcpp/grpcpp.h>
 #include <gtest/gtest.h>
 
@@ -43,8 +44,10 @@ TestModel ModelForSeed(uint64_t seed) {
 
 // The expected answer of Recommend(kUser, kTop, exclude_seen) for a model: the scorer's on
 // a snapshot built in memory from the same model (same arithmetic, so even near-ties agree).
-std::vector<std::string> ExpectedTop(const TestModel& m) {
-  auto snap = testing::BuildSnapshot(m, 1);
+// With approximate indexes the snapshot is built with the same options (one build thread:
+// the graph, and so the answer, is then the same for the same rows).
+std::vector<std::string> ExpectedTop(const TestModel& m, const ApproxServingOptions& approx) {
+  auto snap = testing::BuildSnapshot(m, 1, approx);
   Scorer scorer;
   RankedList list;
   RecommendQuery q;
@@ -62,7 +65,15 @@ struct Observation {
   std::vector<std::string> ids;
 };
 
-TEST(HotSwapTest, FourClientsSeeOnlyActiveVersionsInOrderWithoutAFailure) {
+class HotSwapTest : public ::testing::TestWithParam<bool> {};
+
+TEST_P(HotSwapTest, FourClientsSeeOnlyActiveVersionsInOrderWithoutAFailure) {
+  ApproxServingOptions approx;  // min_items 0: exact only
+  if (GetParam()) {
+    approx.min_items = 1;
+    approx.index.build_threads = 1;
+    approx.index.build_breadth = 64;  // a quicker build; the answers are checked exactly
+  }
   testing::TempDir dir;
   store::StoreOptions options;
   options.sync = false;
@@ -77,7 +88,7 @@ TEST(HotSwapTest, FourClientsSeeOnlyActiveVersionsInOrderWithoutAFailure) {
     Status s = testing::CommitModel(primary.get(), m, activate, &v);
     EXPECT_TRUE(s.ok()) << s.ToString();
     if (activate) {
-      expected[v] = ExpectedTop(m);
+      expected[v] = ExpectedTop(m, approx);
     } else {
       inactive.insert(v);
     }
@@ -90,6 +101,7 @@ TEST(HotSwapTest, FourClientsSeeOnlyActiveVersionsInOrderWithoutAFailure) {
   SnapshotHolder holder;
   CatchUpOptions follow;
   follow.interval = std::chrono::milliseconds(10);
+  follow.approx = approx;
   CatchUpLoop loop(secondary.get(), &holder, follow);
   ASSERT_TRUE(loop.RunOnce().ok());
   Scorer scorer;
@@ -180,7 +192,15 @@ TEST(HotSwapTest, FourClientsSeeOnlyActiveVersionsInOrderWithoutAFailure) {
               versions_served.size(), static_cast<unsigned long long>(loop.swaps()),
               static_cast<unsigned long long>(loop.failed_loads()));
   EXPECT_GE(versions_served.size(), 3u);  // swaps really happened under load
+  if (GetParam()) {
+    EXPECT_NE(holder.Get()->dot_index(), nullptr);
+  }
 }
+
+INSTANTIATE_TEST_SUITE_P(ExactAndApproximate, HotSwapTest, ::testing::Bool(),
+                         [](const ::testing::TestParamInfo<bool>& p) {
+                           return p.param ? "Approximate" : "Exact";
+                         });
 
 }  // namespace
 }  // namespace plumb::server

@@ -308,3 +308,93 @@ TEST(ScorerTest, APassedDeadlineAbortsAndAFutureOneDoesNot) {
 
 }  // namespace
 }  // namespace plumb::server
+
+namespace plumb::server {
+namespace {
+
+// Withdrawn items (WithdrawnItems) are left out of Recommend and SimilarItems exactly as if the
+// request had excluded them (brute force with those rows excluded by hand), and RankCandidates
+// reports them instead of scoring them. Both the set's own bitmap (built for the snapshot) and
+// the fallback for a set built for another version (the instant after a swap) are checked.
+TEST(ScorerTest, WithdrawnItemsAreNeverServedWhetherTheSetWasBuiltForTheSnapshotOrNot) {
+  const TestModel m = RandomModel(6, 500, 8, 20, /*seed=*/21, /*small_integers=*/false);
+  auto snap = BuildSnapshot(m, 4);
+  Scorer scorer;
+  RankedList out;
+  std::vector<std::string> ids = {"tool-3", "tool-77", "tool-499", "tool-not-yet-known"};
+  const std::set<uint32_t> withdrawn_rows = {3, 77, 499};
+  WithdrawnItems for_snapshot(ids, 1, snap.get());
+  WithdrawnItems for_other_version(ids, 1, nullptr);
+  ASSERT_TRUE(for_snapshot.BuiltFor(4));
+  ASSERT_FALSE(for_other_version.BuiltFor(4));
+  EXPECT_EQ(for_snapshot.size(), 4u);
+
+  for (const WithdrawnItems* set : {&for_snapshot, &for_other_version}) {
+    for (uint32_t u = 0; u < m.num_users; ++u) {
+      std::vector<std::string_view> exclude = {"tool-10"};
+      RecommendQuery q;
+      q.user_id = m.user_ids[u];
+      q.count = 500;
+      q.exclude_seen = true;
+      q.exclude_item_ids = exclude;
+      q.withdrawn = set;
+      ASSERT_TRUE(scorer.Recommend(*snap, q, &out).ok());
+      std::set<uint32_t> excluded(m.seen[u].begin(), m.seen[u].end());
+      excluded.insert(10);
+      excluded.insert(withdrawn_rows.begin(), withdrawn_rows.end());
+      const auto expected = BruteForce(m, m.user(u), excluded, 500);
+      ASSERT_EQ(out.items.size(), expected.size());
+      for (size_t r = 0; r < expected.size(); ++r) {
+        ASSERT_EQ(out.items[r].index, expected[r].index) << "user " << u << " rank " << r;
+      }
+    }
+    // The most-interacted fallback leaves them out too.
+    RecommendQuery fallback;
+    fallback.user_id = "member-unknown";
+    fallback.count = 500;
+    fallback.unknown_user = UnknownUserPolicy::kMostInteracted;
+    fallback.withdrawn = set;
+    ASSERT_TRUE(scorer.Recommend(*snap, fallback, &out).ok());
+    EXPECT_EQ(out.items.size(), 497u);
+    for (const ScoredIndex& s : out.items) EXPECT_FALSE(withdrawn_rows.count(s.index));
+
+    // SimilarItems: all but the query and the withdrawn; a withdrawn item may be the query.
+    for (const char* query : {"tool-5", "tool-77"}) {
+      SimilarQuery q;
+      q.item_id = query;
+      q.count = 500;
+      q.withdrawn = set;
+      ASSERT_TRUE(scorer.SimilarItems(*snap, q, &out).ok());
+      EXPECT_EQ(out.items.size(), std::string(query) == "tool-5" ? 496u : 497u);
+      for (const ScoredIndex& s : out.items) EXPECT_FALSE(withdrawn_rows.count(s.index));
+    }
+
+    // RankCandidates: the withdrawn known candidates are reported by request position (first
+    // occurrence), unknown ones as before, the rest scored.
+    std::vector<std::string_view> candidates = {"tool-77", "tool-8", "tool-not-yet-known",
+                                                "tool-3",  "tool-77", "tool-9"};
+    CandidatesQuery c;
+    c.user_id = "member-1";
+    c.candidate_item_ids = candidates;
+    c.withdrawn = set;
+    ASSERT_TRUE(scorer.RankCandidates(*snap, c, &out).ok());
+    std::set<uint32_t> scored;
+    for (const ScoredIndex& s : out.items) scored.insert(s.index);
+    EXPECT_EQ(scored, (std::set<uint32_t>{8, 9}));
+    EXPECT_EQ(out.unavailable_candidates, (std::vector<uint32_t>{0, 3}));
+    EXPECT_EQ(out.unknown_candidates, (std::vector<uint32_t>{2}));
+  }
+
+  // An empty set changes nothing.
+  WithdrawnItems none({}, 2, snap.get());
+  RecommendQuery q;
+  q.user_id = "member-0";
+  q.count = 500;
+  q.exclude_seen = false;
+  q.withdrawn = &none;
+  ASSERT_TRUE(scorer.Recommend(*snap, q, &out).ok());
+  EXPECT_EQ(out.items.size(), 500u);
+}
+
+}  // namespace
+}  // namespace plumb::server

@@ -83,9 +83,12 @@ inline SnapshotParts ToParts(const TestModel& m, uint64_t version) {
   return p;
 }
 
-inline std::shared_ptr<const Snapshot> BuildSnapshot(const TestModel& m, uint64_t version) {
+inline std::shared_ptr<const Snapshot> BuildSnapshot(const TestModel& m, uint64_t version,
+                                                     const ApproxServingOptions& approx = {}) {
   std::shared_ptr<const Snapshot> snap;
-  Status s = Snapshot::Build(ToParts(m, version), &snap);
+  SnapshotParts parts = ToParts(m, version);
+  parts.approx = approx;
+  Status s = Snapshot::Build(std::move(parts), &snap);
   EXPECT_TRUE(s.ok()) << s.ToString();
   return snap;
 }

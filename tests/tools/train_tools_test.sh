@@ -139,4 +139,69 @@ acked=$(json "$tmp/mixed.json" 'd["publish"]["accepted"]')
 last=$("$QUERY" status --trainer "$train" --token-file "$tmp/token" | sed -n 's/^last sequence: *\([0-9]*\).*/\1/p')
 check "the trainer's log grew by exactly the acknowledged events ($events + $acked = $last)" \
   '[ "$last" = "$((events + acked))" ]'
+# ---- item availability: withdraw, served nowhere, restore --------------------------------------------
+user=$(sed -n '2s/,.*//p' "$tmp/world/events.csv")
+top_item() { "$QUERY" recommend --server "127.0.0.1:$sport" --user "$user" --count 10 2>/dev/null |
+             awk '$1 == "1" {print $2; exit}'; }
+target=$(top_item)
+check "recommend for $user names a first item ($target)" '[ -n "$target" ]'
+other=$("$QUERY" similar --server "127.0.0.1:$sport" --item "$target" --count 1 2>/dev/null |
+        awk '$1 == "1" {print $2; exit}')
+printf '# withdrawn by the tools test\n%s\n\n' "$target" >"$tmp/withdraw.txt"
+out=$("$QUERY" items withdraw --trainer "$train" --token-file "$tmp/token" \
+      --items-file "$tmp/withdraw.txt" 2>&1); rc=$?
+check "items withdraw --items-file: exit 0, one item [$out]" \
+  '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "^withdrew 1 items (0 already withdrawn); 1 items withdrawn in all"'
+gone=""
+for _ in $(seq 100); do  # plumb-serve follows the store every 500 ms by default
+  ! "$QUERY" similar --server "127.0.0.1:$sport" --item "$other" --count 150 | grep -q " $target " &&
+    gone=yes && break
+  sleep 0.1
+done
+check "the withdrawn item left similar within 10 s" '[ -n "$gone" ]'
+check "recommend never lists it" \
+  '! "$QUERY" recommend --server "127.0.0.1:$sport" --user "$user" --count 150 | grep -q " $target "'
+check "similar never lists it" \
+  '! "$QUERY" similar --server "127.0.0.1:$sport" --item "$other" --count 150 | grep -q " $target "'
+out=$("$QUERY" rank --server "127.0.0.1:$sport" --user "$user" --candidates "$target,$other" 2>&1)
+check "rank reports it withdrawn, not ranked [$out]" \
+  'printf "%s" "$out" | grep -q "^withdrawn from serving: $target$" && ! printf "%s" "$out" | grep -q "^ *[0-9]  *$target "'
+out=$("$QUERY" items list --trainer "$train" --token-file "$tmp/token" --json 2>&1)
+check "items list --json names it [$out]" \
+  '[ "$(printf "%s" "$out" | "${PYTHON3:-python3}" -c "import json,sys; print([i[\"item\"] for i in json.load(sys.stdin)[\"withdrawn_items\"]])")" = "['"'"'$target'"'"']" ]'
+check "status counts it" \
+  '"$QUERY" status --trainer "$train" --token-file "$tmp/token" | grep -q "^withdrawn items: *1$"'
+out=$("$QUERY" items withdraw --trainer "$train" --token-file "$tmp/token" 2>&1); rc=$?
+check "items withdraw without ids: exit 1, says what is missing [$out]" \
+  '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "give --item ID or --items-file FILE"'
+out=$("$QUERY" items restore --trainer "$train" --token-file "$tmp/token" --item "$target" 2>&1); rc=$?
+check "items restore --item [$out]" \
+  '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "^restored 1 items (0 already available); 0 items withdrawn in all"'
+back=""
+for _ in $(seq 100); do
+  "$QUERY" similar --server "127.0.0.1:$sport" --item "$other" --count 150 | grep -q " $target " &&
+    back=yes && break
+  sleep 0.1
+done
+check "the restored item is served again within 10 s" '[ -n "$back" ]'
+# ---- event-log retention in a running trainer -------------------------------------------------------
+# 200 events one minute apart, the newest 4 h ago; a 1 h age rule measured back from the
+# newest event removes exactly those more than 60 min older than it: k < 139 (by hand).
+base=$(( ($(date +%s) - 4 * 3600) * 1000 ))
+{ echo "user,item,ts"; for k in $(seq 0 199); do echo "r$((k % 17)),s$((k % 23)),$((base + k * 60000))"; done; } >"$tmp/old.csv"
+"$TRAIN" --db "$tmp/rdb" --listen 127.0.0.1:0 --metrics "" --dim 8 --no-sync --min-train-pairs 10 \
+  --publish-interval 500ms --retention-max-age 1h --retention-interval 200ms 2>"$tmp/rtrain.log" &
+pids+=($!)
+rport=$(wait_port "$tmp/rtrain.log" "(port" "${pids[-1]}")
+"$LOAD" replay --events "$tmp/old.csv" --trainer "127.0.0.1:$rport" --quiet >/dev/null 2>&1
+removed=""
+for _ in $(seq 150); do
+  removed=$("$QUERY" status --trainer "127.0.0.1:$rport" 2>/dev/null | sed -n 's/^retention: *\([0-9]*\) events.*/\1/p')
+  [ "$removed" = 139 ] && break
+  sleep 0.2
+done
+check "the trainer's retention removed exactly the 139 events older than the cut [$removed]" '[ "$removed" = 139 ]'
+out=$("$PLUMB" inspect --db "$tmp/rdb" 2>&1)
+check "plumb inspect shows the log left, its oldest event and what retention removed [$out]" \
+  'printf "%s" "$out" | grep -q "^event log *61 events" && printf "%s" "$out" | grep -q "^oldest event *.* (sequence 140)" && printf "%s" "$out" | grep -q "^retention *removed 139 events"'
 exit $fail

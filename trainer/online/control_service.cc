@@ -134,6 +134,81 @@ ControlService::ControlService(store::Store* store, OnlineLoop* loop,
                            return SetPinned(c, q, r);
                          },
                          observer("SetPinned")));
+  MarkMethodStreamed(
+      rpc::MethodIndex(service, "SetItemAvailability"),
+      rpc::CheckedUnary<SetItemAvailabilityRequest, SetItemAvailabilityResponse>(
+          [this](grpc::ServerContext* c, const SetItemAvailabilityRequest* q,
+                 SetItemAvailabilityResponse* r) { return SetItemAvailability(c, q, r); },
+          observer("SetItemAvailability")));
+  MarkMethodStreamed(rpc::MethodIndex(service, "ListWithdrawnItems"),
+                     rpc::CheckedUnary<ListWithdrawnItemsRequest, ListWithdrawnItemsResponse>(
+                         [this](grpc::ServerContext* c, const ListWithdrawnItemsRequest* q,
+                                ListWithdrawnItemsResponse* r) {
+                           return ListWithdrawnItems(c, q, r);
+                         },
+                         observer("ListWithdrawnItems")));
+}
+
+grpc::Status ControlService::SetItemAvailability(
+    grpc::ServerContext* context, const plumb::v1::SetItemAvailabilityRequest* request,
+    plumb::v1::SetItemAvailabilityResponse* response) {
+  InflightCalls::Scope scope;
+  if (grpc::Status s = Admit(admission_, *context, &scope); !s.ok()) return s;
+  const int n = request->item_ids_size();
+  if (n == 0 || n > kMaxAvailabilityIds) {
+    return grpc::Status(grpc::StatusCode::INVALID_ARGUMENT,
+                        "item_ids: expected 1.." + std::to_string(kMaxAvailabilityIds) +
+                            " ids, got " + std::to_string(n));
+  }
+  for (int j = 0; j < n; ++j) {
+    const std::string& id = request->item_ids(j);
+    if (id.empty() || id.size() > kMaxAvailabilityIdBytes) {
+      return grpc::Status(grpc::StatusCode::INVALID_ARGUMENT,
+                          "item_ids[" + std::to_string(j) + "]: expected 1.." +
+                              std::to_string(kMaxAvailabilityIdBytes) + " bytes, got " +
+                              std::to_string(id.size()));
+    }
+  }
+  std::vector<std::string> ids(request->item_ids().begin(), request->item_ids().end());
+  store::AvailabilityChange change;
+  if (Status s = store_->SetItemsWithdrawn(ids, request->withdrawn(), &change); !s.ok()) {
+    return ToGrpcStatus(s, request->withdrawn() ? "cannot withdraw items" : "cannot restore items");
+  }
+  response->set_changed(change.changed);
+  response->set_unchanged(change.unchanged);
+  response->set_withdrawn_items(change.withdrawn);
+  return grpc::Status::OK;
+}
+
+grpc::Status ControlService::ListWithdrawnItems(
+    grpc::ServerContext* context, const plumb::v1::ListWithdrawnItemsRequest* request,
+    plumb::v1::ListWithdrawnItemsResponse* response) {
+  InflightCalls::Scope scope;
+  if (grpc::Status s = Admit(admission_, *context, &scope); !s.ok()) return s;
+  if (request->limit() > static_cast<uint32_t>(kMaxAvailabilityIds)) {
+    return grpc::Status(grpc::StatusCode::INVALID_ARGUMENT,
+                        "limit: at most " + std::to_string(kMaxAvailabilityIds));
+  }
+  const size_t limit = request->limit() == 0 ? 1000 : request->limit();
+  std::vector<store::WithdrawnItem> items;
+  // One more than the page tells whether another page follows.
+  if (Status s = store_->ListWithdrawnItems(request->start_after(), limit + 1, &items); !s.ok()) {
+    return ToGrpcStatus(s, "cannot list withdrawn items");
+  }
+  const bool more = items.size() > limit;
+  if (more) items.resize(limit);
+  for (const store::WithdrawnItem& item : items) {
+    plumb::v1::WithdrawnItem* out = response->add_items();
+    out->set_item_id(item.item_id);
+    out->set_withdrawn_ms(item.withdrawn_ms);
+  }
+  if (more) response->set_next_start_after(items.back().item_id);
+  uint64_t generation = 0, withdrawn = 0;
+  if (Status s = store_->GetAvailability(&generation, &withdrawn); !s.ok()) {
+    return ToGrpcStatus(s, "cannot read the withdrawn set");
+  }
+  response->set_withdrawn_items(withdrawn);
+  return grpc::Status::OK;
 }
 
 grpc::Status ControlService::ListVersions(grpc::ServerContext* context,
@@ -181,6 +256,17 @@ void ControlService::FillStatus(plumb::v1::TrainerStatus* out) const {
   out->set_candidates_skipped(s.candidates_skipped);
   out->set_tuned_beta(s.tuned_beta);
   out->set_tune_reason(s.tune_reason);
+  uint64_t generation = 0, withdrawn = 0;
+  if (store_->GetAvailability(&generation, &withdrawn).ok()) out->set_withdrawn_items(withdrawn);
+  store::LogStats log;
+  if (store_->GetLogStats(&log).ok()) {
+    out->set_log_events(log.events);
+    out->set_log_bytes(log.bytes);
+    out->set_oldest_event_ms(log.events > 0 ? log.oldest_timestamp_ms : 0);
+    out->set_retention_removed_events(log.removed_events);
+    out->set_retention_removed_bytes(log.removed_bytes);
+    out->set_retention_pairs(log.history_pairs);
+  }
 }
 
 grpc::Status ControlService::GetStatus(grpc::ServerContext* context,

@@ -44,6 +44,18 @@ class ControlService final : public plumb::v1::ModelControl::Service {
   // NOT_FOUND for a version that is not kept, INVALID_ARGUMENT for version 0.
   grpc::Status SetPinned(grpc::ServerContext* context, const plumb::v1::SetPinnedRequest* request,
                          plumb::v1::VersionInfo* response) override;
+  // INVALID_ARGUMENT for no ids, more than kMaxAvailabilityIds, or an id that is empty or
+  // longer than kMaxAvailabilityIdBytes (nothing changes then).
+  grpc::Status SetItemAvailability(grpc::ServerContext* context,
+                                   const plumb::v1::SetItemAvailabilityRequest* request,
+                                   plumb::v1::SetItemAvailabilityResponse* response) override;
+  // INVALID_ARGUMENT for a limit above kMaxAvailabilityIds.
+  grpc::Status ListWithdrawnItems(grpc::ServerContext* context,
+                                  const plumb::v1::ListWithdrawnItemsRequest* request,
+                                  plumb::v1::ListWithdrawnItemsResponse* response) override;
+
+  static constexpr int kMaxAvailabilityIds = 100000;
+  static constexpr size_t kMaxAvailabilityIdBytes = 256;
 
  private:
   void FillStatus(plumb::v1::TrainerStatus* out) const;

@@ -8,13 +8,13 @@
 #include <grpcpp/health_check_service_interface.h>
 #include <grpcpp/server.h>
 #include <grpcpp/server_builder.h>
-#include <prometheus/exposer.h>
 #include <prometheus/registry.h>
 #include <pthread.h>
 #include <signal.h>
 #include <spdlog/sinks/stdout_color_sinks.h>
 #include <spdlog/spdlog.h>
 
+#include <atomic>
 #include <chrono>
 #include <cmath>
 #include <condition_variable>
@@ -26,6 +26,8 @@
 #include <thread>
 
 #include "rpc/listen_probe.h"
+#include "status/http_endpoint.h"
+#include "status/periodic_task.h"
 #include "store/store.h"
 #include "trainer/online/auth.h"
 #include "trainer/online/control_service.h"
@@ -34,6 +36,8 @@
 #include "trainer/online/ingest_service.h"
 #include "trainer/online/jetstream_source.h"
 #include "trainer/online/online_loop.h"
+#include "trainer/online/retention_runner.h"
+#include "trainer/online/status_page.h"
 #include "trainer/online/train_config.h"
 #include "trainer/online/train_metrics.h"
 
@@ -51,13 +55,19 @@ int64_t NowMs() {
 // Copies the committer's totals and the loop's status into the metrics once a second.
 class MetricsPoller {
  public:
-  MetricsPoller(TrainMetrics* metrics, GroupCommitter* committer, OnlineLoop* loop)
+  MetricsPoller(TrainMetrics* metrics, GroupCommitter* committer, OnlineLoop* loop,
+                const plumb::store::Store* store, const RetentionRunner* retention)
       : thread_([=, this] {
           std::unique_lock<std::mutex> lock(mu_);
           do {
             lock.unlock();
             const OnlineStatus status = loop->status();
             metrics->Refresh(committer->stats(), &status, NowMs());
+            plumb::store::LogStats log;
+            if (store->GetLogStats(&log).ok()) {
+              const RetentionTotals totals = retention->totals();
+              metrics->RefreshLog(log, &totals, NowMs());
+            }
             lock.lock();
           } while (!cv_.wait_for(lock, std::chrono::seconds(1), [this] { return stop_; }));
         }) {}
@@ -147,18 +157,36 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
   }
 
   // ---- metrics endpoint: fails early and cheaply when its port is taken ---------------
+  // It also serves the status page and its JSON (issue 15), once the loop runs.
   TrainMetrics metrics;
-  std::unique_ptr<prometheus::Exposer> exposer;
+  std::atomic<TrainStatusPage*> status_page{nullptr};
+  auto StatusReply = [&status_page](bool as_json) {
+    TrainStatusPage* page = status_page.load();
+    if (page == nullptr) {
+      return plumb::status::HttpReply{503, "text/plain; charset=utf-8",
+                                      "plumb-train is starting (replaying its store)\n"};
+    }
+    if (as_json) {
+      return plumb::status::HttpReply{
+          200, "application/json",
+          page->Json(NowMs()).dump(1, ' ', false, nlohmann::json::error_handler_t::replace) + "\n"};
+    }
+    return plumb::status::HttpReply{200, "text/html; charset=utf-8", page->Html(NowMs())};
+  };
+  std::unique_ptr<plumb::status::StatusEndpoint> http;
   if (!config.metrics.empty()) {
-    try {
-      exposer = std::make_unique<prometheus::Exposer>(config.metrics);
-    } catch (const std::exception& e) {
+    http = std::make_unique<plumb::status::StatusEndpoint>();
+    http->RegisterCollectable(metrics.registry());
+    // Pages are registered now and answer once the loop exists (below); until then they say
+    // the trainer is starting.
+    http->RegisterPage("/", [&] { return StatusReply(false); });
+    http->RegisterPage("/status.json", [&] { return StatusReply(true); });
+    if (Status s = http->Start(config.metrics); !s.ok()) {
       const Status why = plumb::rpc::ProbeListenAddress(config.metrics, "metrics");
       spdlog::critical("cannot serve metrics on {}: {}", config.metrics,
-                       why.ok() ? std::string(e.what()) : why.message());
+                       why.ok() ? s.message() : why.message());
       return 1;
     }
-    exposer->RegisterCollectable(metrics.registry());
   }
 
   // ---- store and training loop ------------------------------------------------------
@@ -197,7 +225,13 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
     spdlog::critical("cannot start the training loop: {}", s.ToString());
     return 1;
   }
-  loop->Start();
+  loop->Start(config.background_nice);
+  RetentionOptions retention_options;
+  retention_options.max_age_ms = config.retention_max_age_ms;
+  retention_options.max_log_bytes = config.retention_max_log_mb << 20;
+  retention_options.interval_ms = config.retention_interval_ms;
+  RetentionRunner retention(store.get(), retention_options);
+  retention.Start(config.background_nice);
 
   // ---- ingest and control -----------------------------------------------------------
   StoreEventLog event_log(store.get());
@@ -208,7 +242,8 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
       &event_log, [&loop] { loop->NotifyAppended(); }, commit_options);
   IngestLimits limits;
   limits.max_batch_events = config.max_batch_events;
-  if (Status s = plumb::ParseDuration(config.max_future_skew, &limits.max_future_skew_ms); !s.ok()) {
+  if (Status s = plumb::ParseDuration(config.max_future_skew, &limits.max_future_skew_ms);
+      !s.ok()) {
     spdlog::critical("{}", s.message());
     return 2;
   }
@@ -223,6 +258,7 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
     if (Status s = jetstream->Start(); !s.ok()) {
       spdlog::critical("{}", s.message());
       committer.Close();
+      retention.Stop();
       loop->Stop();
       return 2;
     }
@@ -250,12 +286,24 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
                      why.ok() ? "bad TLS files or address?" : why.message());
     if (jetstream) jetstream->Stop();
     committer.Close();
+    retention.Stop();
     loop->Stop();
     return 1;
   }
 
   std::unique_ptr<MetricsPoller> poller =
-      std::make_unique<MetricsPoller>(&metrics, &committer, loop.get());
+      std::make_unique<MetricsPoller>(&metrics, &committer, loop.get(), store.get(), &retention);
+  TrainStatusOptions status_options;
+  status_options.step_ms = config.status_history_step_ms;
+  status_options.trainer_address = config.listen;
+  TrainStatusPage page(store.get(), loop.get(), &metrics, status_options);
+  std::unique_ptr<plumb::status::PeriodicTask> status_sampler;
+  if (http != nullptr) {
+    status_page.store(&page);
+    status_sampler = std::make_unique<plumb::status::PeriodicTask>(
+        std::chrono::milliseconds(config.status_history_step_ms),
+        [&page] { page.Sample(NowMs()); });
+  }
   const OnlineStatus initial = loop->status();
   spdlog::info(
       "plumb-train serving {} (port {}{}{}), metrics {}; store {}: log at {}, active version "
@@ -285,6 +333,10 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
   server->Wait();
   if (jetstream) jetstream->Stop();  // acks what it handed to the committer
   committer.Close();
+  retention.Stop();
+  status_sampler.reset();
+  status_page.store(nullptr);
+  http.reset();
   loop->Stop();
   poller.reset();
   const plumb::online::CommitterStats stats = committer.stats();

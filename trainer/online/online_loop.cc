@@ -12,6 +12,7 @@
 #include <mutex>
 #include <thread>
 
+#include "core/thread_priority.h"
 #include "store/store.h"
 #include "trainer/embeddings.h"
 #include "trainer/online/gate.h"
@@ -294,11 +295,14 @@ Status OnlineLoop::Create(store::Store* store, const OnlineOptions& options,
   return Status::Ok();
 }
 
-void OnlineLoop::Start() {
+void OnlineLoop::Start(int nice) {
   Impl& impl = *impl_;
   if (impl.thread.joinable()) return;
   impl.stop = false;
-  impl.thread = std::thread([&impl] { impl.Run(); });
+  impl.thread = std::thread([&impl, nice] {
+    LowerThisThreadsPriority(nice);
+    impl.Run();
+  });
 }
 
 void OnlineLoop::Stop() {

@@ -128,8 +128,9 @@ class OnlineLoop {
   OnlineLoop& operator=(const OnlineLoop&) = delete;
   ~OnlineLoop();  // calls Stop()
 
-  // Starts the training thread.
-  void Start();
+  // Starts the training thread at niceness `nice` (core/thread_priority.h; 0: the caller's),
+  // which the refits it starts inherit (they add 10 more).
+  void Start(int nice = 0);
   // Finishes the mini-batch in hand and stops; publishes nothing half-done. Idempotent.
   void Stop();
 

@@ -1,26 +1,19 @@
 #include "trainer/online/refit.h"
 
 #include <spdlog/spdlog.h>
-#include <sys/resource.h>
-#include <sys/syscall.h>
-#include <unistd.h>
 
 #include <algorithm>
-#include <cerrno>
 #include <chrono>
 #include <limits>
+
+#include "core/thread_priority.h"
 
 namespace plumb::online {
 namespace {
 
-// Lowers the calling thread's CPU priority (threads it creates inherit it). Best effort: a
-// failure only means the refit competes with serving at normal priority.
-void LowerThreadPriority() {
-  const pid_t tid = static_cast<pid_t>(::syscall(SYS_gettid));
-  errno = 0;
-  const int now = ::getpriority(PRIO_PROCESS, static_cast<id_t>(tid));
-  if (errno == 0) ::setpriority(PRIO_PROCESS, static_cast<id_t>(tid), std::min(19, now + 10));
-}
+// Lowers the calling thread's CPU priority by 10 below the loop's (threads it creates inherit
+// it). Best effort: a failure only means the refit competes at the loop's priority.
+void LowerThreadPriority() { LowerThisThreadsPriority(std::min(19, ThisThreadsNiceness() + 10)); }
 
 }  // namespace
 

@@ -114,10 +114,16 @@ Status ResolveDurations(TrainConfig* c) {
   c->commit_window_ms = static_cast<double>(ms);
   PLUMB_RETURN_IF_ERROR(resolve("shutdown_grace", c->shutdown_grace));
   c->shutdown_grace_seconds = static_cast<double>(ms) / 1000.0;
+  PLUMB_RETURN_IF_ERROR(resolve("status_history_step", c->status_history_step));
+  c->status_history_step_ms = ms;
   PLUMB_RETURN_IF_ERROR(resolve("publish_interval", c->publish_interval));
   c->online.publish_every_seconds = static_cast<double>(ms) / 1000.0;
   PLUMB_RETURN_IF_ERROR(resolve("training_window", c->training_window));
   c->online.training_window_ms = ms;
+  PLUMB_RETURN_IF_ERROR(resolve("retention_max_age", c->retention_max_age));
+  c->retention_max_age_ms = ms;
+  PLUMB_RETURN_IF_ERROR(resolve("retention_interval", c->retention_interval));
+  c->retention_interval_ms = ms;
   return Status::Ok();
 }
 
@@ -133,6 +139,11 @@ Status CheckTrainConfig(const TrainConfig& c) {
     return bad("max_batch_events must be within [1, 100000]");
   }
   if (c.keep_versions < 1) return bad("keep_versions must be at least 1");
+  if (c.retention_interval_ms < 100) return bad("retention_interval must be at least 100ms");
+  if (c.background_nice < 0 || c.background_nice > 19) {
+    return bad("background_nice must be within [0, 19]");
+  }
+  if (c.retention_max_log_mb > (uint64_t{1} << 40)) return bad("retention_max_log_mb is too large");
   int64_t ms;
   PLUMB_RETURN_IF_ERROR(ParseDuration(c.dedup_window, &ms));
   if (Status s = ParseDuration(c.keep_versions_for, &ms); !s.ok()) {
@@ -161,6 +172,9 @@ Status CheckTrainConfig(const TrainConfig& c) {
     if (Status s = ParseDuration(c.jetstream_ack_wait, &ms); !s.ok() || ms < 1000) {
       return bad("jetstream_ack_wait must be a duration of at least 1s");
     }
+  }
+  if (c.status_history_step_ms < 1000 || c.status_history_step_ms > 3'600'000) {
+    return bad("status_history_step must be within [1s, 1h]");
   }
   if (!(c.shutdown_grace_seconds >= 0 && c.shutdown_grace_seconds <= 600)) {
     return bad("shutdown_grace must be within [0, 10m]");
@@ -221,7 +235,10 @@ std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConf
   const std::string s = "Store and transport";
   Bind(app, &keys, s, "db", &c.db, "Database directory (opened as the primary; required)");
   Bind(app, &keys, s, "listen", &c.listen, "gRPC address HOST:PORT (or unix:PATH)");
-  Bind(app, &keys, s, "metrics", &c.metrics, "Prometheus /metrics address HOST:PORT; empty = off");
+  Bind(app, &keys, s, "metrics", &c.metrics,
+       "Prometheus /metrics and status page (/) address HOST:PORT; empty = off");
+  Bind(app, &keys, s, "status_history_step", &c.status_history_step,
+       "Spacing of the status page's history points; the last 1440 are kept (1s .. 1h)");
   Bind(app, &keys, s, "sync", &c.sync, "fsync the event log before acknowledging");
   Bind(app, &keys, s, "commit_window", &c.commit_window,
        "Group commit: wait this long for more events before a log write (0 = none; at most "
@@ -235,9 +252,20 @@ std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConf
        "only); active and pinned versions are always kept");
   Bind(app, &keys, s, "dedup_window", &c.dedup_window,
        "event_id de-duplication window (250ms, 90s, 30m, 24h, 7d; 0 = forever)");
+  Bind(app, &keys, s, "retention_max_age", &c.retention_max_age,
+       "Remove events this much older than the newest event from the log once trained on; "
+       "their pairs stay in the store's pair history (30m, 24h, 7d; 0 = no age rule)");
+  Bind(app, &keys, s, "retention_max_log_mb", &c.retention_max_log_mb,
+       "Remove the oldest trained-on events while the log holds more than this many MB "
+       "(0 = no size rule)");
+  Bind(app, &keys, s, "retention_interval", &c.retention_interval,
+       "Pause between two retention passes (at least 100ms)");
   Bind(app, &keys, s, "max_future_skew", &c.max_future_skew,
        "Events whose timestamp is more than this after their receipt are rejected "
        "(REJECT_FUTURE_TIMESTAMP; 90s, 30m, 1h, 1d; 0 = no limit)");
+  Bind(app, &keys, s, "background_nice", &c.background_nice,
+       "CPU niceness of training, refits (10 more) and retention, so that serving on the "
+       "same host keeps the CPU (0 = as the process, at most 19)");
   Bind(app, &keys, s, "min_free_disk_mb", &c.min_free_disk_mb,
        "Free space (MB) kept on the store's disk: writes that would cut into it are refused "
        "(RESOURCE_EXHAUSTED) until space is freed; 0 = no check");

@@ -31,6 +31,7 @@ struct TrainConfig {
   std::string keep_versions_for = "2h";    // ...and every version younger than this
   std::string dedup_window = "24h";        // event_id de-duplication window; "0" = forever
   std::string max_future_skew = "1h";      // event timestamps ahead of receipt; "0" = no limit
+  int background_nice = 10;  // niceness of training, refit and retention threads (0..19)
   uint64_t min_free_disk_mb = 128;         // free space kept on the store's disk; 0 = no check
   std::string token_file;                  // bearer token file; "" = no token
   std::string tls_cert;                    // PEM certificate chain; "" = no TLS
@@ -38,6 +39,7 @@ struct TrainConfig {
   bool allow_insecure_remote = false;      // serve a non-loopback address without a token
   std::string shutdown_grace = "5s";       // how long in-flight calls get at shutdown
   std::string log_level = "info";          // trace|debug|info|warn|error|critical|off
+  std::string status_history_step = "1m";  // status page history spacing; 1440 points kept
 
   // Events from a NATS JetStream stream as well as over gRPC (JetStreamSource); off while
   // jetstream_servers is empty. deploy/plumb-train.toml explains each key.
@@ -60,9 +62,18 @@ struct TrainConfig {
   std::string publish_interval = "30s";  // publish a candidate at least this often
   std::string training_window = "0";     // sets online.training_window_ms; "0" = all history
 
+  // Event-log retention (RetentionRunner): events older than retention_max_age (measured back
+  // from the newest event) or beyond retention_max_log_mb leave the log once trained on.
+  std::string retention_max_age = "0";    // "0" = no age rule
+  uint64_t retention_max_log_mb = 0;      // 0 = no size rule
+  std::string retention_interval = "1m";  // pause between passes
+
   // Filled by ParseTrainConfig from the duration texts above.
   double commit_window_ms = 2.0;
   double shutdown_grace_seconds = 5.0;
+  int64_t retention_max_age_ms = 0;
+  int64_t retention_interval_ms = 60'000;
+  int64_t status_history_step_ms = 60000;
 };
 
 // Parses the command line (and the TOML file it names), then checks the result. Returns

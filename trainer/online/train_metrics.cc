@@ -150,6 +150,67 @@ TrainMetrics::TrainMetrics() : registry_(std::make_shared<prometheus::Registry>(
                        .Help("Unix time of the last published version")
                        .Register(r)
                        .Add({});
+  log_events_ = &BuildGauge()
+                     .Name("plumb_event_log_events")
+                     .Help("Events in the event log now (retention removes trained-on ones)")
+                     .Register(r)
+                     .Add({});
+  log_bytes_ = &BuildGauge()
+                    .Name("plumb_event_log_bytes")
+                    .Help("Stored size of the events in the log (keys and values, before "
+                          "compression)")
+                    .Register(r)
+                    .Add({});
+  log_oldest_age_ = &BuildGauge()
+                         .Name("plumb_event_log_oldest_event_age_seconds")
+                         .Help("Age of the oldest event in the log by its timestamp (0 when empty)")
+                         .Register(r)
+                         .Add({});
+  pair_history_ = &BuildGauge()
+                       .Name("plumb_pair_history_pairs")
+                       .Help("(user, item) pairs whose removed events retention folded into the "
+                             "store's pair history")
+                       .Register(r)
+                       .Add({});
+  retention_removed_.counter = &BuildCounter()
+                                    .Name("plumb_retention_removed_events_total")
+                                    .Help("Events removed from the log by retention")
+                                    .Register(r)
+                                    .Add({});
+  retention_removed_bytes_.counter =
+      &BuildCounter()
+           .Name("plumb_retention_removed_bytes_total")
+           .Help("Stored bytes of the events retention removed from the log")
+           .Register(r)
+           .Add({});
+  auto& passes = BuildCounter()
+                     .Name("plumb_retention_passes_total")
+                     .Help("Retention passes over the event log, by outcome")
+                     .Register(r);
+  retention_passes_.counter = &passes.Add({{"outcome", "done"}});
+  retention_failed_.counter = &passes.Add({{"outcome", "failed"}});
+  retention_seconds_ = &BuildGauge()
+                            .Name("plumb_retention_last_duration_seconds")
+                            .Help("Wall time of the last retention pass")
+                            .Register(r)
+                            .Add({});
+}
+
+void TrainMetrics::RefreshLog(const store::LogStats& log, const RetentionTotals* retention,
+                              int64_t now_ms) {
+  std::lock_guard<std::mutex> lock(mu_);
+  log_events_->Set(static_cast<double>(log.events));
+  log_bytes_->Set(static_cast<double>(log.bytes));
+  log_oldest_age_->Set(log.events > 0 && now_ms > log.oldest_timestamp_ms
+                           ? (now_ms - log.oldest_timestamp_ms) / 1000.0
+                           : 0.0);
+  pair_history_->Set(static_cast<double>(log.history_pairs));
+  if (retention == nullptr) return;
+  retention_removed_.Update(retention->removed_events);
+  retention_removed_bytes_.Update(retention->removed_bytes);
+  retention_passes_.Update(retention->passes - retention->failed_passes);
+  retention_failed_.Update(retention->failed_passes);
+  retention_seconds_->Set(retention->last_pass_seconds);
 }
 
 TrainMetrics::~TrainMetrics() = default;

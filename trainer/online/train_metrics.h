@@ -14,7 +14,9 @@
 
 #include "trainer/online/event_validation.h"
 #include "trainer/online/group_commit.h"
+#include "store/store.h"
 #include "trainer/online/online_loop.h"
+#include "trainer/online/retention_runner.h"
 
 namespace prometheus {
 class Counter;
@@ -33,7 +35,7 @@ class TrainMetrics {
   TrainMetrics& operator=(const TrainMetrics&) = delete;
   ~TrainMetrics();
 
-  // The registry to expose (prometheus::Exposer::RegisterCollectable). Shared ownership.
+  // The registry to expose (status::StatusEndpoint::RegisterCollectable). Shared ownership.
   std::shared_ptr<prometheus::Registry> registry() const { return registry_; }
 
   // plumb_events_rejected_total{reason} += n.
@@ -50,6 +52,10 @@ class TrainMetrics {
   // without a training loop, in tests). Counters only ever increase: a total lower than
   // the last one seen (cannot happen within one process) is ignored.
   void Refresh(const CommitterStats& committer, const OnlineStatus* loop, int64_t now_ms);
+
+  // The event log's gauges from `log` (Store::GetLogStats) and the retention counters from
+  // the runner's totals (`retention` may be null: retention off).
+  void RefreshLog(const store::LogStats& log, const RetentionTotals* retention, int64_t now_ms);
 
   // Current values, for tests and logs.
   double rejected(RejectReason reason) const;
@@ -93,6 +99,12 @@ class TrainMetrics {
   prometheus::Gauge* recall_candidate_ = nullptr;
   prometheus::Gauge* active_version_ = nullptr;
   prometheus::Gauge* last_publish_ = nullptr;
+  prometheus::Gauge* log_events_ = nullptr;
+  prometheus::Gauge* log_bytes_ = nullptr;
+  prometheus::Gauge* log_oldest_age_ = nullptr;
+  prometheus::Gauge* pair_history_ = nullptr;
+  prometheus::Gauge* retention_seconds_ = nullptr;
+  TotalFeed retention_removed_, retention_removed_bytes_, retention_passes_, retention_failed_;
 };
 
 }  // namespace plumb::online

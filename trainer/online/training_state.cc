@@ -57,8 +57,18 @@ Status TrainingState::Load(const store::Store& store, double holdout_fraction, T
   const uint32_t stored_items = state.items_.size();
   PLUMB_RETURN_IF_ERROR(state.train_.EnsureShape(stored_users, stored_items));
 
+  store::LogStats log;
+  PLUMB_RETURN_IF_ERROR(store.GetLogStats(&log));
+  if (log.folded_through > *cursor) {
+    return Status::Corruption("retention removed events up to " +
+                              std::to_string(log.folded_through) + ", beyond the cursor " +
+                              std::to_string(*cursor));
+  }
+  // Events up to folded_through are in pair_history; the log holds the rest.
+  if (log.folded_through > 0) PLUMB_RETURN_IF_ERROR(state.LoadHistory(store, log, *cursor));
+
   std::vector<store::Event> batch;
-  uint64_t after = 0;
+  uint64_t after = log.folded_through;
   while (after < *cursor) {
     PLUMB_RETURN_IF_ERROR(store.ReadEvents(after, 8192, &batch));
     if (batch.empty()) break;
@@ -85,6 +95,69 @@ Status TrainingState::Load(const store::Store& store, double holdout_fraction, T
   state.persisted_pairs_ = state.train_.size();
   PLUMB_RETURN_IF_ERROR(state.Compact(nullptr));
   *out = std::move(state);
+  return Status::Ok();
+}
+
+Status TrainingState::LoadHistory(const store::Store& store, const store::LogStats& log,
+                                  uint64_t cursor) {
+  auto key_of = [](uint32_t u, uint32_t i) { return (static_cast<uint64_t>(u) << 32) | i; };
+  // With a window, leave out the pairs the final Compact would drop anyway, so that loading
+  // needs memory for the pairs in the window, not for every pair ever seen. That takes the
+  // final watermark and the pairs the remaining events touch (a touched pair is kept: its
+  // newer events may bring it back into the window), from one pass over the log.
+  std::unordered_set<uint64_t> touched;
+  int64_t watermark = log.folded_watermark_ms;
+  if (window_ms_ > 0) {
+    std::vector<store::Event> batch;
+    uint64_t after = log.folded_through;
+    while (after < cursor) {
+      PLUMB_RETURN_IF_ERROR(store.ReadEvents(after, 8192, &batch));
+      if (batch.empty()) break;
+      for (const store::Event& ev : batch) {
+        if (ev.seq > cursor) break;
+        after = ev.seq;
+        watermark = std::max(watermark, ev.timestamp_ms);
+        uint32_t u = 0, i = 0;
+        if (users_.Find(ev.user_id, &u) && items_.Find(ev.item_id, &i)) touched.insert(key_of(u, i));
+      }
+      if (batch.back().seq > cursor) break;
+    }
+  }
+  const int64_t cutoff = watermark - window_ms_;
+
+  struct Entry {
+    uint64_t first_seq;
+    uint32_t user, item;
+    int64_t last_ms;
+  };
+  std::vector<Entry> entries;
+  bool bad_index = false;
+  PLUMB_RETURN_IF_ERROR(store.ForEachPairHistory(
+      [&](uint32_t u, uint32_t i, const store::PairHistory& h) {
+        if (u >= users_.size() || i >= items_.size()) {
+          bad_index = true;
+          return;
+        }
+        if (window_ms_ > 0 && h.last_ms < cutoff && !touched.contains(key_of(u, i))) return;
+        entries.push_back({h.first_seq, u, i, h.last_ms});
+      }));
+  if (bad_index) {
+    return Status::Corruption("pair_history names a user or item the dictionary does not have");
+  }
+  std::unordered_set<uint64_t>().swap(touched);
+  // The order a replay of the removed events would have given: by each pair's first event.
+  std::sort(entries.begin(), entries.end(),
+            [](const Entry& a, const Entry& b) { return a.first_seq < b.first_seq; });
+  for (const Entry& e : entries) {
+    const uint64_t key = key_of(e.user, e.item);
+    if (window_ms_ > 0) last_ms_[key] = e.last_ms;
+    if (IsHeldOut(users_.name(e.user), items_.name(e.item), holdout_fraction_)) {
+      if (validation_keys_.insert(key).second) validation_.push_back({e.user, e.item});
+    } else {
+      PLUMB_RETURN_IF_ERROR(train_.Add(e.user, e.item));
+    }
+  }
+  watermark_ms_ = std::max(watermark_ms_, log.folded_watermark_ms);
   return Status::Ok();
 }
 

@@ -56,9 +56,15 @@ class TrainingState {
   explicit TrainingState(double holdout_fraction = 0.0) : holdout_fraction_(holdout_fraction) {}
 
   // Rebuilds the state of `store` as of its cursor: loads the dictionaries (so indexes match
-  // the store's), replays events 1..cursor, and marks everything as already persisted.
-  // *cursor receives the cursor. Corruption if the log and the dictionaries disagree.
-  // With window_ms > 0 the loaded state is compacted to the window at the end.
+  // the store's), takes the events that retention removed from the store's pair_history
+  // (Store::RetainEvents: per pair its count, first sequence and newest timestamp), replays
+  // the events left up to the cursor, and marks everything as already persisted. The result
+  // is the state a replay of every event 1..cursor gives: the same training and held-out
+  // pairs in the same order (by first event), the same newest times and watermark.
+  // *cursor receives the cursor. Corruption if the log, pair_history and the dictionaries
+  // disagree. With window_ms > 0 the loaded state is compacted to the window at the end, and
+  // pairs of pair_history that would leave then are never loaded (memory for the window's
+  // pairs only).
   static Status Load(const store::Store& store, double holdout_fraction, TrainingState* out,
                      uint64_t* cursor, int64_t window_ms = 0);
 
@@ -87,11 +93,20 @@ class TrainingState {
 
   const trainer::Interactions& train() const { return train_; }
   const std::vector<trainer::Pair>& validation() const { return validation_; }
+  // With a window: the newest event time of a pair in the state (0 when unknown).
+  int64_t last_event_ms(uint32_t user, uint32_t item) const {
+    auto it = last_ms_.find((static_cast<uint64_t>(user) << 32) | item);
+    return it == last_ms_.end() ? 0 : it->second;
+  }
   const IdDictionary& users() const { return users_; }
   const IdDictionary& items() const { return items_; }
   double holdout_fraction() const { return holdout_fraction_; }
 
  private:
+  // Load's first part after retention: the pairs of pair_history (events up to
+  // log.folded_through), in first-event order.
+  Status LoadHistory(const store::Store& store, const store::LogStats& log, uint64_t cursor);
+
   double holdout_fraction_;
   int64_t window_ms_ = 0;
   int64_t watermark_ms_ = 0;

@@ -1,0 +1,370 @@
+// bench_catalogue: Recommend and SimilarItems on a large catalogue, the exact pruned scan
+// against the approximate index, on trained embeddings.
+//
+// A synthetic world (members x tools, Zipf-skewed popularity) is fitted with CPR (plumb's
+// default objective) so that the item vectors have a trained model's uneven norms; with
+// --tile T the fitted catalogue is repeated T times with Gaussian noise (--tile-noise, relative
+// to each row's length) to reach sizes whose fit would take hours here, and the report says
+// so. One snapshot holds both structures; a Scorer that ignores the index is the reference.
+//
+// Printed per call kind: server-side latency (nearest-rank percentiles, as everywhere in
+// plumb), rows the exact scan confirmed with float scores per call, and for each search
+// breadth recall@K against exact and each popularity group's share of the answers' slots
+// next to exact's. The floor printed beside the exact scan is one read of the int8 codes
+// (what any exact scan must touch), measured in the same run.
+#include <CLI/CLI.hpp>
+
+#include <algorithm>
+#include <chrono>
+#include <cmath>
+#include <cstdio>
+#include <fstream>
+#include <random>
+#include <sstream>
+#include <string>
+#include <vector>
+
+#include "core/metrics.h"
+#include "core/scan.h"
+#include "server/scorer.h"
+#include "server/snapshot.h"
+#include "tools/latency_record.h"
+#include "trainer/embeddings.h"
+#include "trainer/synth.h"
+#include "trainer/trainer.h"
+
+namespace plumb::server {
+namespace {
+
+using Clock = std::chrono::steady_clock;
+
+struct Args {
+  uint32_t users = 20'000;
+  uint32_t items = 1'000'000;
+  uint32_t dim = 64;
+  uint64_t interactions = 2'000'000;
+  double zipf = 1.0;
+  uint32_t epochs = 8;
+  uint32_t tile = 1;
+  double tile_noise = 0.05;
+  uint32_t queries = 2000;
+  uint32_t count = 20;
+  std::vector<uint32_t> breadths = {32, 64, 128, 256};
+  uint32_t links = 16;
+  uint32_t build_breadth = 200;
+  uint32_t build_threads = 2;
+  uint32_t train_threads = 2;
+  uint64_t seed = 7;
+  bool similar = true;
+};
+
+double Seconds(Clock::time_point since) {
+  return std::chrono::duration<double>(Clock::now() - since).count();
+}
+
+// Resident and peak resident memory of this process, MB (Linux /proc/self/status).
+std::pair<double, double> RssMb() {
+  std::ifstream status("/proc/self/status");
+  std::string line;
+  double rss = 0, hwm = 0;
+  while (std::getline(status, line)) {
+    if (line.starts_with("VmRSS:")) rss = std::stod(line.substr(6)) / 1024.0;
+    if (line.starts_with("VmHWM:")) hwm = std::stod(line.substr(6)) / 1024.0;
+  }
+  return {rss, hwm};
+}
+
+// The fitted world as snapshot parts, tiled `tile` times.
+Status MakeParts(const Args& a, SnapshotParts* p) {
+  trainer::SynthOptions so;
+  so.users = a.users;
+  so.items = a.items;
+  so.zipf = a.zipf;
+  so.target_interactions = a.interactions;
+  so.seed = a.seed;
+  trainer::SynthWorld world;
+  Clock::time_point t0 = Clock::now();
+  PLUMB_RETURN_IF_ERROR(trainer::GenerateSynthWorld(so, &world));
+  trainer::Interactions train;
+  PLUMB_RETURN_IF_ERROR(world.TrainInteractions(&train));
+  trainer::Embeddings model;
+  PLUMB_RETURN_IF_ERROR(trainer::Embeddings::Create(a.dim, a.users, a.items, a.seed, &model));
+  trainer::TrainOptions o;  // CPR, beta 3: plumb's default objective
+  o.learning_rate = 0.05f;
+  o.l2 = 1e-3f;
+  o.batch_size = 256;
+  o.threads = a.train_threads;
+  std::unique_ptr<trainer::FitLoop> loop;
+  PLUMB_RETURN_IF_ERROR(trainer::FitLoop::Create(o, &model, &train, &loop));
+  std::printf("world: %u members x %u tools, %zu training pairs, dim %u; generated in %.1f s\n",
+              a.users, a.items, train.size(), a.dim, Seconds(t0));
+  t0 = Clock::now();
+  for (uint32_t e = 0; e < a.epochs; ++e) {
+    PLUMB_RETURN_IF_ERROR(loop->RunEpochs(1));
+    std::printf("  CPR epoch %u/%u, %.0f s\n", e + 1, a.epochs, Seconds(t0));
+    std::fflush(stdout);
+  }
+  const uint32_t dim = a.dim, base = a.items, items = base * a.tile;
+  p->version = 1;
+  p->items = ItemMatrix(items, dim);
+  p->users = ItemMatrix(a.users, dim);
+  std::copy(model.users().data(), model.users().data() + size_t{a.users} * dim, p->users.data());
+  std::mt19937_64 rng(a.seed + 1);
+  std::normal_distribution<float> gauss(0.0f, 1.0f);
+  for (uint32_t c = 0; c < a.tile; ++c) {
+    for (uint32_t i = 0; i < base; ++i) {
+      const float* src = model.items().data() + size_t{i} * dim;
+      float* dst = p->items.data() + (size_t{c} * base + i) * dim;
+      double norm = 0;
+      for (uint32_t d = 0; d < dim; ++d) norm += double{src[d]} * src[d];
+      const float sigma = c == 0 ? 0.0f
+                                 : static_cast<float>(a.tile_noise * std::sqrt(norm / dim));
+      for (uint32_t d = 0; d < dim; ++d) dst[d] = src[d] + sigma * gauss(rng);
+      p->item_ids.push_back(c == 0 ? trainer::ToolLabel(i)
+                                   : trainer::ToolLabel(i) + "#" + std::to_string(c));
+      p->item_degrees.push_back(train.item_degree(i));
+    }
+  }
+  p->seen_offsets.push_back(0);
+  for (uint32_t u = 0; u < a.users; ++u) {
+    p->user_ids.push_back(trainer::MemberLabel(u));
+    std::vector<uint32_t> seen(train.items_of(u).begin(), train.items_of(u).end());
+    std::sort(seen.begin(), seen.end());
+    p->seen_items.insert(p->seen_items.end(), seen.begin(), seen.end());
+    p->seen_offsets.push_back(p->seen_items.size());
+  }
+  if (a.tile > 1) {
+    std::printf("catalogue tiled %u times to %u items (copies: the fitted rows plus Gaussian "
+                "noise of %.0f %% of each row's RMS; same degrees)\n",
+                a.tile, items, 100 * a.tile_noise);
+  }
+  return Status::Ok();
+}
+
+struct Sweep {
+  tools::LatencySummary latency;
+  double recall = 0;
+  double approximate_share = 0;
+  std::vector<double> shares;
+};
+
+double Overlap(const RankedList& a, const RankedList& b) {
+  size_t hit = 0;
+  for (const ScoredIndex& x : a.items) {
+    for (const ScoredIndex& y : b.items) hit += x.index == y.index;
+  }
+  return b.items.empty() ? 1.0 : static_cast<double>(hit) / b.items.size();
+}
+
+std::string Ms(int64_t ns) {
+  char buf[32];
+  std::snprintf(buf, sizeof buf, "%.3f", ns / 1e6);
+  return buf;
+}
+
+void PrintRow(const std::string& label, const Sweep& s, const Sweep& exact) {
+  std::printf("%-22s %8s %8s %8s %7.4f %6.3f ", label.c_str(), Ms(s.latency.p50_ns).c_str(),
+              Ms(s.latency.p90_ns).c_str(), Ms(s.latency.p99_ns).c_str(), s.recall,
+              s.approximate_share);
+  // The largest relative change of a group's share against exact's, over the groups holding
+  // at least 2 % of exact's slots (smaller shares are a few slots in a run of this length),
+  // and the tail group's ratio on its own, whatever its size.
+  double worst = 0;
+  for (size_t g = 0; g < s.shares.size(); ++g) {
+    std::printf(" %6.4f", s.shares[g]);
+    if (exact.shares[g] >= 0.02) {
+      worst = std::max(worst, std::abs(s.shares[g] / exact.shares[g] - 1));
+    }
+  }
+  std::printf("  %6.1f%% %6.3f\n", 100 * worst,
+              exact.shares[0] > 0 ? s.shares[0] / exact.shares[0] : 1.0);
+}
+
+void PrintHeader(const char* what, size_t groups) {
+  std::printf("\n%s\n%-22s %8s %8s %8s %7s %6s ", what, "path", "p50 ms", "p90 ms", "p99 ms",
+              "recall", "index");
+  for (size_t g = 0; g < groups; ++g) std::printf(" share%zu", g + 1);
+  std::printf("  worst>=2%%  tail/exact\n");
+}
+
+int Run(const Args& a) {
+  SnapshotParts parts;
+  Status s = MakeParts(a, &parts);
+  if (!s.ok()) {
+    std::fprintf(stderr, "bench_catalogue: %s\n", s.ToString().c_str());
+    return 1;
+  }
+  parts.approx.min_items = 1;
+  parts.approx.index.links = a.links;
+  parts.approx.index.build_breadth = a.build_breadth;
+  parts.approx.index.build_threads = a.build_threads;
+  parts.approx.similar_items = a.similar;
+  const auto [rss_before, hwm_before] = RssMb();
+  Clock::time_point t0 = Clock::now();
+  std::shared_ptr<const Snapshot> snap;
+  s = Snapshot::Build(std::move(parts), &snap);
+  if (!s.ok()) {
+    std::fprintf(stderr, "bench_catalogue: %s\n", s.ToString().c_str());
+    return 1;
+  }
+  const double build_total = Seconds(t0);
+  const auto [rss_after, hwm_after] = RssMb();
+  const uint32_t items = snap->num_items(), dim = snap->dim();
+  std::printf("\nsnapshot of %u items x %u: built in %.1f s, of which the two approximate "
+              "indexes %.1f s (%u build threads, links %u, build breadth %u)\n",
+              items, dim, build_total, snap->approx_build_seconds(), a.build_threads, a.links,
+              a.build_breadth);
+  std::printf("memory: float rows %.0f MB, index (dot) %.0f MB, index (cosine) %.0f MB; "
+              "process RSS %.0f -> %.0f MB, peak %.0f MB\n",
+              items * dim * 4.0 / 1e6, snap->dot_index()->memory_bytes() / 1e6,
+              snap->cosine_index() ? snap->cosine_index()->memory_bytes() / 1e6 : 0.0,
+              rss_before, rss_after, hwm_after);
+  std::vector<uint32_t> group_of;
+  constexpr size_t kGroups = 5;
+  if (!popularity_groups(snap->item_degrees(), kGroups, &group_of).ok()) return 1;
+
+  // The floor: streaming as many bytes as the int8 copy of the items holds (the least any
+  // exact scan of this catalogue reads), from a buffer of that size, measured now.
+  {
+    std::vector<int64_t> buffer(snap->item_codes().bytes() / sizeof(int64_t), 1);
+    tools::LatencyRecord floor;
+    int64_t keep = 0;
+    for (int r = 0; r < 50; ++r) {
+      const Clock::time_point c0 = Clock::now();
+      int64_t acc = 0;
+      for (int64_t v : buffer) acc += v;
+      keep += acc;
+      floor.Add(std::chrono::duration_cast<std::chrono::nanoseconds>(Clock::now() - c0).count());
+    }
+    std::printf("floor: reading %.0f MB (the int8 copy's size) p50 %s ms (checksum %lld)\n",
+                buffer.size() * 8 / 1e6, Ms(floor.Percentile(50)).c_str(),
+                static_cast<long long>(keep % 7));
+  }
+
+  std::mt19937_64 rng(a.seed + 3);
+  std::vector<uint32_t> users(a.queries), uniform_items(a.queries), viewed_items(a.queries);
+  for (uint32_t& u : users) u = static_cast<uint32_t>(rng() % snap->num_users());
+  for (uint32_t& i : uniform_items) i = static_cast<uint32_t>(rng() % items);
+  {
+    // Items drawn in proportion to their interactions: the pages people look at, where a
+    // "similar items" box is asked for.
+    std::discrete_distribution<uint32_t> by_degree(snap->item_degrees().begin(),
+                                                   snap->item_degrees().end());
+    for (uint32_t& i : viewed_items) i = by_degree(rng);
+  }
+
+  // kind 0: Recommend; 1: SimilarItems of uniformly drawn items; 2: of interaction-drawn ones.
+  for (int kind = 0; kind < (a.similar ? 3 : 1); ++kind) {
+    const std::vector<uint32_t>& probe_items = kind == 1 ? uniform_items : viewed_items;
+    auto run = [&](const Scorer& scorer, std::vector<RankedList>* answers, const Sweep* exact,
+                   Sweep* out) {
+      out->shares.assign(kGroups, 0.0);
+      tools::LatencyRecord rec;
+      size_t slots = 0, by_index = 0;
+      answers->resize(a.queries);
+      for (uint32_t q = 0; q < a.queries; ++q) {
+        RankedList& r = (*answers)[q];
+        const std::string id(kind == 0 ? snap->user_id(users[q]) : snap->item_id(probe_items[q]));
+        const Clock::time_point c0 = Clock::now();
+        Status st;
+        if (kind == 0) {
+          RecommendQuery rq;
+          rq.user_id = id;
+          rq.count = a.count;
+          st = scorer.Recommend(*snap, rq, &r);
+        } else {
+          SimilarQuery sq;
+          sq.item_id = id;
+          sq.count = a.count;
+          st = scorer.SimilarItems(*snap, sq, &r);
+        }
+        rec.Add(std::chrono::duration_cast<std::chrono::nanoseconds>(Clock::now() - c0).count());
+        if (!st.ok()) {
+          r.items.clear();
+          continue;
+        }
+        by_index += r.approximate;
+        for (const ScoredIndex& x : r.items) out->shares[group_of[x.index]] += 1;
+        slots += r.items.size();
+      }
+      for (double& v : out->shares) v /= std::max<size_t>(1, slots);
+      out->latency = rec.Summarize();
+      out->approximate_share = static_cast<double>(by_index) / a.queries;
+      (void)exact;
+    };
+    std::vector<RankedList> exact_answers, answers;
+    Sweep exact;
+    run(Scorer({}, ApproxQueryOptions{.use_index = false}), &exact_answers, nullptr, &exact);
+    exact.recall = 1.0;
+    PrintHeader(kind == 0   ? "Recommend (top 20, seen items excluded), server-side, 1 thread"
+                : kind == 1 ? "SimilarItems (top 20 by cosine) of items drawn uniformly, "
+                              "server-side, 1 thread"
+                            : "SimilarItems (top 20 by cosine) of items drawn by their "
+                              "interactions, server-side, 1 thread",
+                kGroups);
+    PrintRow("exact pruned scan", exact, exact);
+    if (kind == 0) {
+      // Rows the pruned scan had to confirm with float scores, per call.
+      std::vector<float> block(kDefaultScanBlockRows);
+      TopKSelector sel(a.count);
+      double confirmed = 0;
+      const uint32_t n = std::min<uint32_t>(a.queries, 200);
+      for (uint32_t q = 0; q < n; ++q) {
+        sel.Reset(a.count);
+        ScanOutcome outcome;
+        const auto seen = snap->seen_items(users[q]);
+        if (top_k_by_dot_pruned(snap->items(), snap->item_codes(), snap->user_vector(users[q]),
+                                Exclusions{{}, seen}, block, &sel, &outcome)
+                .ok()) {
+          confirmed += outcome.rows_scored_exactly;
+        }
+      }
+      std::printf("%-22s rows confirmed with float scores per call: %.0f of %u (%.2f %%)\n", "",
+                  confirmed / n, items, 100.0 * confirmed / n / items);
+    }
+    for (uint32_t breadth : a.breadths) {
+      Sweep approx;
+      run(Scorer({}, ApproxQueryOptions{.use_index = true, .search_breadth = breadth}), &answers,
+          &exact, &approx);
+      double recall = 0;
+      for (uint32_t q = 0; q < a.queries; ++q) recall += Overlap(answers[q], exact_answers[q]);
+      approx.recall = recall / a.queries;
+      PrintRow("index, breadth " + std::to_string(breadth), approx, exact);
+    }
+  }
+  return 0;
+}
+
+}  // namespace
+}  // namespace plumb::server
+
+int main(int argc, char** argv) {
+  plumb::server::Args a;
+  CLI::App app{"bench_catalogue: Recommend and SimilarItems at 1M-10M items, the exact pruned "
+               "scan against the approximate index, on a CPR-fitted synthetic world"};
+  app.add_option("--users", a.users, "members of the synthetic world")->capture_default_str();
+  app.add_option("--items", a.items, "tools fitted (before tiling)")->capture_default_str();
+  app.add_option("--dim", a.dim, "embedding dimension")->capture_default_str();
+  app.add_option("--interactions", a.interactions, "target training pairs")
+      ->capture_default_str();
+  app.add_option("--zipf", a.zipf, "popularity skew of the world")->capture_default_str();
+  app.add_option("--epochs", a.epochs, "CPR epochs")->capture_default_str();
+  app.add_option("--tile", a.tile, "repeat the fitted catalogue this many times")
+      ->capture_default_str();
+  app.add_option("--tile-noise", a.tile_noise, "noise of each copy, relative to the row's RMS")
+      ->capture_default_str();
+  app.add_option("--queries", a.queries, "calls per path")->capture_default_str();
+  app.add_option("--breadths", a.breadths, "search breadths to sweep")->delimiter(',')
+      ->capture_default_str();
+  app.add_option("--links", a.links, "graph links per node")->capture_default_str();
+  app.add_option("--build-breadth", a.build_breadth, "candidate list while inserting")
+      ->capture_default_str();
+  app.add_option("--build-threads", a.build_threads, "threads building each index")
+      ->capture_default_str();
+  app.add_option("--train-threads", a.train_threads, "threads fitting the world")
+      ->capture_default_str();
+  app.add_option("--seed", a.seed, "seed of the world and the queries")->capture_default_str();
+  app.add_flag("!--no-similar", a.similar, "skip SimilarItems");
+  CLI11_PARSE(app, argc, argv);
+  return plumb::server::Run(a);
+}

@@ -1,0 +1,116 @@
+#!/usr/bin/env bash
+# Serving beside the trainer: plumb-serve's latency at a fixed arrival rate (open loop, so a
+# slow server cannot hide behind a slower client) with and without a 10,000 events/s training
+# stream into plumb-train on the same host, with the background threads of both daemons at
+# normal priority (--background-nice 0) and at the default (10), alternated twice.
+#   1. a synth world of 100,000 users x 110,000 tools (~100,000 reach the model), one BPR epoch
+#      at d = 64 (the latency depends on the catalogue's size, not on quality);
+#   2. per setting: plumb-serve; the empty-RPC floor (health) and Recommend (top 20, seen items
+#      left out) at RATE calls/s; then plumb-train started on the same store (CPR, publishing a
+#      version every 10 s, which plumb-serve loads and swaps in), the same Recommend load while
+#      plumb-load publishes 10,000 events/s to it; the trainer's lag (events in the log not yet
+#      trained on) sampled every second.
+# Percentiles are nearest-rank (tools/latency_record.h). Clients and daemons share the cores.
+# Usage: bench/system/quiet_neighbour.sh BUILD_DIR [SECONDS_PER_RUN] [RATE]
+set -u
+BIN=$1; SECS=${2:-20}; RATE=${3:-1000}
+PLUMB=$BIN/cli/plumb; TRAIN=$BIN/trainer/online/plumb-train; SERVE=$BIN/server/plumb-serve
+QUERY=$BIN/tools/plumb-query; LOAD=$BIN/tools/plumb-load
+PY=/usr/bin/python3
+tmp=$(mktemp -d); pids=()
+cleanup() {
+  for p in "${pids[@]}"; do kill "$p" 2>/dev/null; done
+  sleep 0.5
+  if [ "${KEEP:-0}" = 1 ]; then echo "kept $tmp"; else rm -rf "$tmp"; fi
+}
+trap cleanup EXIT
+port() { $PY -c 'import socket; s=socket.socket(); s.bind(("127.0.0.1",0)); print(s.getsockname()[1])'; }
+S=127.0.0.1:$(port); T=127.0.0.1:$(port)
+
+echo "== world: 100,000 users x 110,000 tools, ~1.2 M interactions; one-epoch BPR fit at d = 64"
+"$PLUMB" synth --out "$tmp/w" --users 100000 --items 110000 --interactions 1200000 --seed 7 \
+  >/dev/null || exit 1
+"$PLUMB" fit --events "$tmp/w/events.csv" --db "$tmp/db" --objective bpr --epochs 1 --dim 64 \
+  2>&1 | tail -1
+cut -d, -f1 "$tmp/w/events.csv" | tail -n +2 | sort -u >"$tmp/users.txt"
+cp -r "$tmp/db" "$tmp/db0"  # every setting starts from the same store
+
+start_serve() {  # nice
+  "$SERVE" --db "$tmp/db" --listen "$S" --metrics "" --catchup-interval 500ms \
+    --background-nice "$1" >>"$tmp/serve.log" 2>&1 &
+  serve_pid=$!; pids+=($serve_pid)
+  for _ in $(seq 300); do "$QUERY" health --server "$S" >/dev/null 2>&1 && return 0; sleep 0.2; done
+  echo "plumb-serve did not become healthy; log:"; cat "$tmp/serve.log"; exit 1
+}
+start_train() {  # nice
+  "$TRAIN" --db "$tmp/db" --listen "$T" --metrics "" --dim 64 --publish-interval 10s \
+    --background-nice "$1" >"$tmp/train.log" 2>&1 &
+  train_pid=$!; pids+=($train_pid)
+  for _ in $(seq 150); do "$QUERY" status --trainer "$T" >/dev/null 2>&1 && return 0; sleep 0.2; done
+  echo "plumb-train did not start; log:"; cat "$tmp/train.log"; exit 1
+}
+stop() { kill "$1"; wait "$1" 2>/dev/null; }
+
+run() {  # name, then plumb-load flags
+  local name=$1; shift
+  "$LOAD" --server "$S" --users-file "$tmp/users.txt" --duration "${SECS}s" --warmup 2s \
+    --rate "$RATE" --json "$@" >"$tmp/$name.json" 2>"$tmp/$name.err" ||
+    { echo "run $name failed:"; cat "$tmp/$name.err"; exit 1; }
+}
+lag_sampler() {  # writes the trainer's lag once a second to $tmp/$1.lag until killed
+  while :; do
+    "$QUERY" status --trainer "$T" 2>/dev/null | sed -n 's/.*(lag \([0-9]*\) events).*/\1/p' \
+      >>"$tmp/$1.lag"
+    sleep 1
+  done
+}
+
+for round in 1 2; do
+  for nice in 0 10; do
+    tag="nice$nice-r$round"
+    echo "== background nice $nice, round $round"
+    rm -rf "$tmp/db"; cp -r "$tmp/db0" "$tmp/db"
+    start_serve "$nice"
+    run "floor-$tag" --rpc health
+    run "quiet-$tag" --rpc recommend --count 20
+    start_train "$nice"
+    lag_sampler "$tag" & sampler=$!
+    run "stream-$tag" --rpc recommend --count 20 --publish-rate 10000 \
+      --publish-events-per-call 100 --trainer "$T" --items-file "$tmp/w/items.csv"
+    kill $sampler; wait $sampler 2>/dev/null
+    "$QUERY" status --trainer "$T" >"$tmp/$tag.status" 2>&1
+    stop "$train_pid"; stop "$serve_pid"
+  done
+done
+
+$PY - "$tmp" "$RATE" <<'EOF'
+import json, os, sys
+tmp, rate = sys.argv[1], float(sys.argv[2])
+def load(name):
+    r = json.load(open(os.path.join(tmp, name + ".json")))
+    return r
+print("\nopen loop at %.0f calls/s; latency in ms (nearest rank); lag = events in the trainer's "
+      "log not yet trained on, sampled each second" % rate)
+print("%-8s %-5s %-26s %9s %7s %7s %7s %6s %9s %9s" % ("nice", "round", "run", "calls/s",
+      "p50", "p99", "p99.9", "errors", "lag max", "lag end"))
+for nice in (0, 10):
+    for rnd in (1, 2):
+        tag = "nice%d-r%d" % (nice, rnd)
+        quiet_p99 = None
+        for kind in ("floor", "quiet", "stream"):
+            r = load("%s-%s" % (kind, tag)); l = r["latency_us"]
+            lag = ""
+            if kind == "stream":
+                vals = [int(x) for x in open(os.path.join(tmp, tag + ".lag")).read().split()]
+                lag = "%9d %9d" % (max(vals) if vals else -1, vals[-1] if vals else -1)
+                p = r.get("publish", {})
+                lag += "  events acked %.0f/s" % p.get("acknowledged_per_second", 0)
+                lag += "  p99 x%.2f of quiet" % (l["p99_us"] / quiet_p99)
+            if kind == "quiet":
+                quiet_p99 = l["p99_us"]
+            label = {"floor": "health (floor)", "quiet": "Recommend, no stream",
+                     "stream": "Recommend, 10k events/s"}[kind]
+            print("%-8d %-5d %-26s %9.0f %7.2f %7.2f %7.2f %6d %s" % (
+                nice, rnd, label, r["requests_per_second"], l["p50_us"] / 1e3, l["p99_us"] / 1e3,
+                l["p999_us"] / 1e3, r["errors"], lag))
+EOF

@@ -13,6 +13,8 @@ PACKAGES=(
   # the metrics address's HTTP server (status pages beside /metrics) and JSON
   libcivetweb-dev nlohmann-json3-dev
   libgtest-dev libgmock-dev libbenchmark-dev
+  # events from NATS JetStream: the C client, and the server the tests and benchmarks run
+  libnats-dev nats-server
   # fuzzing (the Fuzz build type and CI's short fuzz runs): clang with libFuzzer
   clang libfuzzer-14-dev
   # tests and demo: a real Prometheus (promtool), Python reference checks and clients

@@ -98,6 +98,26 @@ TEST(TrainConfig, BadFilesAndValuesAreRefused) {
   EXPECT_EQ(Parse({"--db", "/x", "--shutdown-grace", "5"}, &c), 2);
 }
 
+// The JetStream keys are checked only when a source is configured, and then together.
+TEST(TrainConfig, JetStreamKeysAreChecked) {
+  auto parse = [](std::vector<std::string> extra) {
+    std::vector<std::string> args = {"--db", "/x", "--jetstream-servers", "nats://127.0.0.1:4222"};
+    args.insert(args.end(), extra.begin(), extra.end());
+    TrainConfig c;
+    return Parse(args, &c);
+  };
+  EXPECT_EQ(parse({}), std::nullopt);
+  EXPECT_EQ(parse({"--jetstream-ack-wait", "500ms"}), 2);  // below 1s
+  EXPECT_EQ(parse({"--jetstream-ack-wait", "30"}), 2);     // no unit
+  EXPECT_EQ(parse({"--jetstream-tls-cert", "c.pem"}), 2);  // key missing
+  EXPECT_EQ(parse({"--jetstream-fetch-batch", "0"}), 2);
+  EXPECT_EQ(parse({"--jetstream-create-replicas", "6"}), 2);  // JetStream allows 1..5
+  EXPECT_EQ(parse({"--jetstream-create-replicas", "3"}), std::nullopt);
+  EXPECT_EQ(parse({"--jetstream-stream", ""}), 2);
+  TrainConfig c;  // without servers the other keys are not in use
+  EXPECT_EQ(Parse({"--db", "/x", "--jetstream-ack-wait", "500ms"}, &c), std::nullopt);
+}
+
 TEST(TrainConfig, VersionPrintsTheProgramAndExitsZero) {
   TrainConfig c;
   ::testing::internal::CaptureStdout();

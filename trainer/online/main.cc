@@ -34,6 +34,7 @@
 #include "trainer/online/group_commit.h"
 #include "trainer/online/inflight_calls.h"
 #include "trainer/online/ingest_service.h"
+#include "trainer/online/jetstream_source.h"
 #include "trainer/online/online_loop.h"
 #include "trainer/online/retention_runner.h"
 #include "trainer/online/status_page.h"
@@ -85,6 +86,32 @@ class MetricsPoller {
   bool stop_ = false;
   std::thread thread_;  // last: starts after the members it uses exist
 };
+
+// The JetStream event source's options from the configuration (jetstream_* keys).
+JetStreamOptions JetStreamOptionsFrom(const TrainConfig& config, const IngestLimits& limits) {
+  JetStreamOptions o;
+  for (size_t begin = 0; begin <= config.jetstream_servers.size();) {
+    size_t end = config.jetstream_servers.find(',', begin);
+    if (end == std::string::npos) end = config.jetstream_servers.size();
+    if (end > begin) o.servers.push_back(config.jetstream_servers.substr(begin, end - begin));
+    begin = end + 1;
+  }
+  o.stream = config.jetstream_stream;
+  o.subject = config.jetstream_subject;
+  o.consumer = config.jetstream_consumer;
+  o.token_file = config.jetstream_token_file;
+  o.credentials_file = config.jetstream_credentials_file;
+  o.tls_ca = config.jetstream_tls_ca;
+  o.tls_cert = config.jetstream_tls_cert;
+  o.tls_key = config.jetstream_tls_key;
+  o.fetch_batch = static_cast<int>(config.jetstream_fetch_batch);
+  o.max_message_bytes = config.jetstream_max_message_bytes;
+  o.max_message_events = limits.max_batch_events;
+  o.create_replicas = static_cast<int>(config.jetstream_create_replicas);
+  o.max_future_skew_ms = limits.max_future_skew_ms;
+  plumb::ParseDuration(config.jetstream_ack_wait, &o.ack_wait_ms);  // checked by the config
+  return o;
+}
 
 int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
   // ---- who may call, decided before anything is opened --------------------------------
@@ -224,6 +251,19 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
   const CallAdmission admission{auth.get(), &inflight};
   IngestService ingest(&committer, &metrics, admission, limits);
   ControlService control(store.get(), loop.get(), admission, &metrics);
+  std::unique_ptr<EventSource> jetstream;
+  if (!config.jetstream_servers.empty()) {
+    jetstream = std::make_unique<JetStreamSource>(JetStreamOptionsFrom(config, limits), &committer,
+                                                  &metrics);
+    if (Status s = jetstream->Start(); !s.ok()) {
+      spdlog::critical("{}", s.message());
+      committer.Close();
+      retention.Stop();
+      loop->Stop();
+      return 2;
+    }
+    spdlog::info("events also from {}", jetstream->Describe());
+  }
 
   grpc::EnableDefaultHealthCheckService(true);
   grpc::reflection::InitProtoReflectionServerBuilderPlugin();
@@ -244,6 +284,7 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
     const Status why = plumb::rpc::ProbeListenAddress(config.listen, "gRPC");
     spdlog::critical("cannot listen on {}: {}", config.listen,
                      why.ok() ? "bad TLS files or address?" : why.message());
+    if (jetstream) jetstream->Stop();
     committer.Close();
     retention.Stop();
     loop->Stop();
@@ -290,6 +331,7 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
   grpc_server_cancel_all_calls(server->c_server());
   stopper.join();
   server->Wait();
+  if (jetstream) jetstream->Stop();  // acks what it handed to the committer
   committer.Close();
   retention.Stop();
   status_sampler.reset();

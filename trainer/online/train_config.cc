@@ -153,6 +153,26 @@ Status CheckTrainConfig(const TrainConfig& c) {
   if (c.tls_cert.empty() != c.tls_key.empty()) {
     return bad("TLS needs both tls_cert and tls_key (or neither)");
   }
+  if (!c.jetstream_servers.empty()) {
+    if (c.jetstream_stream.empty() || c.jetstream_subject.empty() || c.jetstream_consumer.empty()) {
+      return bad("jetstream_stream, jetstream_subject and jetstream_consumer must not be empty");
+    }
+    if (c.jetstream_fetch_batch < 1 || c.jetstream_fetch_batch > 100000) {
+      return bad("jetstream_fetch_batch must be within [1, 100000]");
+    }
+    if (c.jetstream_max_message_bytes < 1) {
+      return bad("jetstream_max_message_bytes must be at least 1");
+    }
+    if (c.jetstream_create_replicas > 5) {
+      return bad("jetstream_create_replicas must be within [0, 5] (JetStream's limit)");
+    }
+    if (c.jetstream_tls_cert.empty() != c.jetstream_tls_key.empty()) {
+      return bad("jetstream_tls_cert and jetstream_tls_key go together");
+    }
+    if (Status s = ParseDuration(c.jetstream_ack_wait, &ms); !s.ok() || ms < 1000) {
+      return bad("jetstream_ack_wait must be a duration of at least 1s");
+    }
+  }
   if (c.status_history_step_ms < 1000 || c.status_history_step_ms > 3'600'000) {
     return bad("status_history_step must be within [1s, 1h]");
   }
@@ -259,6 +279,32 @@ std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConf
        "At SIGTERM/SIGINT, how long in-flight calls may finish (at most 10m)");
   Bind(app, &keys, s, "log_level", &c.log_level,
        "trace, debug, info, warn, error, critical or off");
+
+  const std::string j = "Events from NATS JetStream (besides gRPC)";
+  Bind(app, &keys, j, "jetstream_servers", &c.jetstream_servers,
+       "NATS servers, comma-separated nats://HOST:PORT (tls://... for TLS); empty = off");
+  Bind(app, &keys, j, "jetstream_stream", &c.jetstream_stream, "The stream to consume");
+  Bind(app, &keys, j, "jetstream_subject", &c.jetstream_subject,
+       "The consumer's filter subject (wildcards allowed)");
+  Bind(app, &keys, j, "jetstream_consumer", &c.jetstream_consumer,
+       "Durable pull consumer name (created when missing)");
+  Bind(app, &keys, j, "jetstream_token_file", &c.jetstream_token_file,
+       "File holding the token the NATS servers require; empty = none");
+  Bind(app, &keys, j, "jetstream_credentials_file", &c.jetstream_credentials_file,
+       "NATS credentials file (.creds: user JWT and seed); empty = none");
+  Bind(app, &keys, j, "jetstream_tls_ca", &c.jetstream_tls_ca,
+       "CA to trust: connect to NATS with TLS; empty = no TLS unless tls:// URLs");
+  Bind(app, &keys, j, "jetstream_tls_cert", &c.jetstream_tls_cert,
+       "PEM client certificate chain for NATS (when the servers verify clients)");
+  Bind(app, &keys, j, "jetstream_tls_key", &c.jetstream_tls_key, "PEM key of jetstream_tls_cert");
+  Bind(app, &keys, j, "jetstream_fetch_batch", &c.jetstream_fetch_batch,
+       "Messages per pull from the consumer");
+  Bind(app, &keys, j, "jetstream_max_message_bytes", &c.jetstream_max_message_bytes,
+       "Larger messages are terminated (never redelivered) and counted");
+  Bind(app, &keys, j, "jetstream_ack_wait", &c.jetstream_ack_wait,
+       "The consumer's ack wait: an unacknowledged message is redelivered after this long");
+  Bind(app, &keys, j, "jetstream_create_replicas", &c.jetstream_create_replicas,
+       "Create the stream when missing, with this many replicas (0 = it must exist)");
 
   const std::string t = "Training";
   Bind(app, &keys, t, "objective", &o.objective, "cpr, bpr or bce");

@@ -41,6 +41,22 @@ struct TrainConfig {
   std::string log_level = "info";          // trace|debug|info|warn|error|critical|off
   std::string status_history_step = "1m";  // status page history spacing; 1440 points kept
 
+  // Events from a NATS JetStream stream as well as over gRPC (JetStreamSource); off while
+  // jetstream_servers is empty. deploy/plumb-train.toml explains each key.
+  std::string jetstream_servers;  // comma-separated nats://HOST:PORT (tls://... for TLS)
+  std::string jetstream_stream = "PLUMB_EVENTS";
+  std::string jetstream_subject = "plumb.events";
+  std::string jetstream_consumer = "plumb-train";  // durable consumer name
+  std::string jetstream_token_file;
+  std::string jetstream_credentials_file;
+  std::string jetstream_tls_ca;
+  std::string jetstream_tls_cert;
+  std::string jetstream_tls_key;
+  uint32_t jetstream_fetch_batch = 1000;
+  uint64_t jetstream_max_message_bytes = 1 << 20;
+  std::string jetstream_ack_wait = "30s";
+  uint32_t jetstream_create_replicas = 0;  // > 0: create a missing stream with these replicas
+
   // The training loop. Its publish_every_seconds is set from publish_interval.
   OnlineOptions online;
   std::string publish_interval = "30s";  // publish a candidate at least this often

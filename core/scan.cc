@@ -59,8 +59,10 @@ inline void SumEightRows(const Lanes (&a)[8], Lanes& out) {
 // The scoring kernel: out[r] = <rows[r], q> for r < n, eight rows at a time with one
 // accumulator each and one transposed horizontal sum per eight rows. The item rows are read
 // once, front to back, so the scan runs close to the speed of reading memory.
+// Not under the sanitizers: the loader runs the clones' resolver before the sanitizer's runtime
+// is set up, and an instrumented resolver can crash there (every Tsan test binary did).
 #if defined(__x86_64__) && defined(__GNUC__) && !defined(__clang__) && \
-    !defined(__SANITIZE_ADDRESS__)
+    !defined(__SANITIZE_ADDRESS__) && !defined(__SANITIZE_THREAD__)
 // One clone for AVX2 machines (x86-64-v3), one for baseline x86-64; the dynamic loader picks
 // one at start-up, so a generic build still uses the wide registers where they exist. FMA
 // contraction is off for this file (see CMakeLists.txt), so both clones round identically.

@@ -36,10 +36,12 @@
 #include <map>
 #include <random>
 #include <set>
+#include <span>
 #include <string>
 #include <thread>
 #include <vector>
 
+#include "core/percentile.h"
 #include "core/scan.h"
 #include "plumb/v1/ranker.grpc.pb.h"
 #include "server/exposure_window.h"
@@ -256,9 +258,9 @@ void MonitorSection() {
     on.push_back(b);
     ratio.push_back(b / a);
   }
-  auto median = [](std::vector<double> v) {
-    std::nth_element(v.begin(), v.begin() + static_cast<long>(v.size() / 2), v.end());
-    return v[v.size() / 2];
+  auto median = [](std::vector<double> v) {  // nearest rank: the middle one of 41 rounds
+    std::sort(v.begin(), v.end());
+    return NearestRankPercentile(std::span<const double>(v), 50);
   };
   // The monitor's own work, isolated: Record of a top-20 list, many times.
   const double record_start = ThreadCpuSeconds();
@@ -282,12 +284,11 @@ void MonitorSection() {
 struct Percentiles {
   double p50, p99;
 };
+// Nearest-rank percentiles (core/percentile.h), the definition of every figure plumb reports.
 Percentiles Summarise(std::vector<double> us) {
   std::sort(us.begin(), us.end());
-  auto at = [&](double q) {
-    return us[std::min(us.size() - 1, static_cast<size_t>(q * us.size()))];
-  };
-  return {at(0.5), at(0.99)};
+  const std::span<const double> ascending(us);
+  return {NearestRankPercentile(ascending, 50), NearestRankPercentile(ascending, 99)};
 }
 
 struct LoopbackServer {

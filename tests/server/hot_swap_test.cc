@@ -63,7 +63,7 @@ struct Observation {
 };
 
 TEST(HotSwapTest, FourClientsSeeOnlyActiveVersionsInOrderWithoutAFailure) {
-  testing::TempDir dir;
+  testing::ScratchDir dir;
   store::StoreOptions options;
   options.sync = false;
   std::unique_ptr<store::Store> primary;

@@ -21,19 +21,6 @@ std::string FormatTime(int64_t ms) {
   return buf;
 }
 
-const char* GateName(store::GateOutcome g) {
-  switch (g) {
-    case store::GateOutcome::kPassed:
-      return "passed";
-    case store::GateOutcome::kFailed:
-      return "failed";
-    case store::GateOutcome::kSkipped:
-      return "skipped";
-    default:
-      return "-";
-  }
-}
-
 }  // namespace
 
 Status RunSynth(const trainer::SynthOptions& options, const std::string& out_dir) {
@@ -74,8 +61,9 @@ Status RunVersions(const AdminArgs& args) {
     std::printf("%-3s %8llu  %-20s  %-4s %9llu %8u %8u %4u  %-10s %s%s%s\n", mark.c_str(),
                 static_cast<unsigned long long>(m.version), FormatTime(m.created_ms).c_str(),
                 m.objective.c_str(), static_cast<unsigned long long>(m.events_seen), m.num_users,
-                m.num_items, m.dim, recall, GateName(m.gate), m.gate_reason.empty() ? "" : ": ",
-                m.gate_reason.c_str());
+                m.num_items, m.dim, recall,
+                std::string(store::GateOutcomeName(m.gate, "-")).c_str(),
+                m.gate_reason.empty() ? "" : ": ", m.gate_reason.c_str());
     std::printf("%-3s %8s  trained: %s\n", "", "",
                 online::FormatTrainingConfig(m.training).c_str());
     if (std::isfinite(m.validation_shift)) {

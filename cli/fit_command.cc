@@ -14,6 +14,7 @@
 #include "cli/eval_checks.h"
 #include "cli/report_format.h"
 #include "cli/store_access.h"
+#include "core/clock.h"
 #include "core/duration.h"
 #include "trainer/online/training_config.h"
 #include "trainer/online/training_state.h"
@@ -24,12 +25,6 @@ namespace plumb::cli {
 namespace {
 
 constexpr char kHoldoutKey[] = "holdout_fraction";
-
-int64_t NowMs() {
-  return std::chrono::duration_cast<std::chrono::milliseconds>(
-             std::chrono::system_clock::now().time_since_epoch())
-      .count();
-}
 
 // What identifies an imported file's content when it has no event ids: a 64-bit FNV-1a hash
 // (Fowler, Noll, Vo) of every row's user, item, ts as written (0 without one) and weight, in

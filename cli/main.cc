@@ -27,7 +27,10 @@ void AddWorldOptions(CLI::App* cmd, trainer::SynthOptions* w) {
       ->capture_default_str();
   cmd->add_option_function<std::string>(
          "--drift",
-         [w](const std::string& name) { (void)trainer::ParseSynthDrift(name, &w->drift); },
+         [w](const std::string& name) {
+           // Cannot fail: the IsMember check below admits only the names it knows.
+           trainer::ParseSynthDrift(name, &w->drift).IgnoreError();
+         },
          "one change half-way: none, popularity (another shelf order) or tastes (members' "
          "tastes move; the test follows the late tastes)")
       ->check(CLI::IsMember({"none", "popularity", "tastes"}))

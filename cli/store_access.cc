@@ -4,6 +4,8 @@
 
 #include <filesystem>
 
+#include "store/version_reader.h"
+
 namespace plumb::cli {
 
 Status OpenForWrite(const std::string& db, const store::StoreOptions& options,
@@ -57,25 +59,27 @@ Status LoadModel(const store::Store& store, uint64_t version, LoadedModel* out) 
     PLUMB_RETURN_IF_ERROR(store.GetActiveVersion(&version));
     if (version == 0) return Status::FailedPrecondition("no version is active in this store");
   }
+  store::VersionReader reader;
+  PLUMB_RETURN_IF_ERROR(store::VersionReader::Open(store, version, &reader));
   LoadedModel m;
-  PLUMB_RETURN_IF_ERROR(store.ReadManifest(version, &m.manifest));
+  m.manifest = reader.manifest();
   const auto& man = m.manifest;
   trainer::RowMatrix users(man.num_users, man.dim);
   trainer::RowMatrix items(man.num_items, man.dim);
-  PLUMB_RETURN_IF_ERROR(store.ReadMatrix(version, store::MatrixKind::kUsers,
-                                         std::span<float>(users.data(), users.size())));
-  PLUMB_RETURN_IF_ERROR(store.ReadMatrix(version, store::MatrixKind::kItems,
-                                         std::span<float>(items.data(), items.size())));
+  PLUMB_RETURN_IF_ERROR(
+      reader.ReadMatrix(store::MatrixKind::kUsers, std::span<float>(users.data(), users.size())));
+  PLUMB_RETURN_IF_ERROR(
+      reader.ReadMatrix(store::MatrixKind::kItems, std::span<float>(items.data(), items.size())));
   PLUMB_RETURN_IF_ERROR(
       trainer::Embeddings::FromMatrices(std::move(users), std::move(items), 1, &m.model));
   std::vector<trainer::Pair> pairs;
-  PLUMB_RETURN_IF_ERROR(store.ForEachInteraction([&](uint32_t u, uint32_t i) {
-    if (u < man.num_users && i < man.num_items) pairs.push_back({u, i});
+  PLUMB_RETURN_IF_ERROR(reader.ForEachInteraction([&](uint32_t u, uint32_t i) {
+    pairs.push_back({u, i});
   }));
   PLUMB_RETURN_IF_ERROR(
       trainer::Interactions::Build(pairs, man.num_users, man.num_items, &m.train));
-  PLUMB_RETURN_IF_ERROR(store.LoadIds(store::IdSpace::kUser, man.num_users, &m.user_ids));
-  PLUMB_RETURN_IF_ERROR(store.LoadIds(store::IdSpace::kItem, man.num_items, &m.item_ids));
+  PLUMB_RETURN_IF_ERROR(reader.LoadIds(store::IdSpace::kUser, &m.user_ids));
+  PLUMB_RETURN_IF_ERROR(reader.LoadIds(store::IdSpace::kItem, &m.item_ids));
   *out = std::move(m);
   return Status::Ok();
 }

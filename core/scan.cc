@@ -1,245 +1,31 @@
+// The scan drivers: the full float scans (dot, cosine) and the pruned exact scans over the
+// int8 copy. The kernels they drive: core/float_kernel (float dot products),
+// core/int8_kernel (QuantizedItems, int8 dot products, quantisation) and
+// core/exclusion_cursor.h.
 #include "core/scan.h"
 
 #include <algorithm>
-#include <bit>
 #include <cmath>
 #include <cstring>
-#if defined(__x86_64__)
-#include <immintrin.h>
-#endif
 #include <limits>
 #include <string>
-#include <type_traits>
+#include <vector>
+
+#include "core/exclusion_cursor.h"
+#include "core/float_kernel.h"
+#include "core/int8_kernel.h"
 
 namespace plumb {
 namespace {
 
-// Eight float lanes as a GCC/Clang vector type: the compiler lowers it to two SSE registers on
-// baseline x86-64 and to one AVX register in the AVX2 clone below. Plain loops would not
-// vectorise a float reduction without -ffast-math (reassociation changes rounding); with
-// explicit lanes the summation order is ours and fixed.
-typedef float Lanes __attribute__((vector_size(32)));
-constexpr std::size_t kLanes = 8;
-
-// The helpers take and give Lanes by reference: passing a 32-byte vector by value has an ABI
-// that differs with and without AVX, which GCC warns about (-Wpsabi).
-inline void LoadLanes(const float* p, Lanes& v) {
-  std::memcpy(&v, p, sizeof(v));  // unaligned-safe; compiles to vector loads
-}
-
-// Lane sum in a fixed tree, ((v0+v1)+(v2+v3)) + ((v4+v5)+(v6+v7)): the same tree that
-// SumEightRows applies to each of its rows, so a row scores identically on either path.
-inline float SumLanes(const Lanes& v) {
-  return ((v[0] + v[1]) + (v[2] + v[3])) + ((v[4] + v[5]) + (v[6] + v[7]));
-}
-
-// Out lane i = SumLanes(a[i]) for eight accumulators at once, by a transpose-and-add tree
-// (7 vector adds, 14 shuffles) instead of eight separate horizontal sums.
-inline void SumEightRows(const Lanes (&a)[8], Lanes& out) {
-#if defined(__clang__)
-  // Clang spells the shuffle differently; the plain form rounds the same way.
-  for (int i = 0; i < 8; ++i) out[i] = SumLanes(a[i]);
-#else
-  typedef int Index __attribute__((vector_size(32)));
-  const Index even = {0, 8, 2, 10, 4, 12, 6, 14}, odd = {1, 9, 3, 11, 5, 13, 7, 15};
-  // t01 = [x0+x1, y0+y1, x2+x3, y2+y3, x4+x5, y4+y5, x6+x7, y6+y7] for rows x = 0, y = 1.
-  const Lanes t01 = __builtin_shuffle(a[0], a[1], even) + __builtin_shuffle(a[0], a[1], odd);
-  const Lanes t23 = __builtin_shuffle(a[2], a[3], even) + __builtin_shuffle(a[2], a[3], odd);
-  const Lanes t45 = __builtin_shuffle(a[4], a[5], even) + __builtin_shuffle(a[4], a[5], odd);
-  const Lanes t67 = __builtin_shuffle(a[6], a[7], even) + __builtin_shuffle(a[6], a[7], odd);
-  // u = [(r0 low half), r1, r2, r3, (r0 high half), r1, r2, r3], each half summed in pairs.
-  const Index lo = {0, 1, 8, 9, 4, 5, 12, 13}, hi = {2, 3, 10, 11, 6, 7, 14, 15};
-  const Lanes u = __builtin_shuffle(t01, t23, lo) + __builtin_shuffle(t01, t23, hi);
-  const Lanes v = __builtin_shuffle(t45, t67, lo) + __builtin_shuffle(t45, t67, hi);
-  const Index first = {0, 1, 2, 3, 8, 9, 10, 11}, second = {4, 5, 6, 7, 12, 13, 14, 15};
-  out = __builtin_shuffle(u, v, first) + __builtin_shuffle(u, v, second);
-#endif
-}
-
-// The scoring kernel: out[r] = <rows[r], q> for r < n, eight rows at a time with one
-// accumulator each and one transposed horizontal sum per eight rows. The item rows are read
-// once, front to back, so the scan runs close to the speed of reading memory.
-#if defined(__x86_64__) && defined(__GNUC__) && !defined(__clang__) && \
-    !defined(__SANITIZE_ADDRESS__)
-// One clone for AVX2 machines (x86-64-v3), one for baseline x86-64; the dynamic loader picks
-// one at start-up, so a generic build still uses the wide registers where they exist. FMA
-// contraction is off for this file (see CMakeLists.txt), so both clones round identically.
-#define PLUMB_SCAN_CLONES __attribute__((target_clones("arch=x86-64-v3", "default")))
-#else
-#define PLUMB_SCAN_CLONES
-#endif
-
-PLUMB_SCAN_CLONES
-void ScoreRows(const float* rows, std::size_t n, std::size_t dim, const float* q, float* out) {
-  const std::size_t full = dim - dim % kLanes;
-  std::size_t r = 0;
-  for (; r + 8 <= n; r += 8) {
-    const float* base = rows + r * dim;
-    Lanes a[8] = {};
-    // Row by row, so each row's 4 cache lines (at dim 64) are read consecutively, which the
-    // hardware prefetcher follows best; the eight independent accumulators still let the
-    // out-of-order core overlap the rows' add chains. Measured ~15% faster than stepping
-    // all eight rows together through the dimensions.
-    for (std::size_t i = 0; i < 8; ++i) {
-      const float* row = base + i * dim;
-      for (std::size_t d = 0; d < full; d += kLanes) {
-        Lanes x, qv;
-        LoadLanes(row + d, x);
-        LoadLanes(q + d, qv);
-        a[i] += x * qv;
-      }
-    }
-    Lanes sums;
-    SumEightRows(a, sums);
-    for (std::size_t i = 0; i < 8; ++i) {
-      float s = sums[i];
-      for (std::size_t d = full; d < dim; ++d) s += base[i * dim + d] * q[d];
-      out[r + i] = s;
-    }
-  }
-  for (; r < n; ++r) {
-    const float* row = rows + r * dim;
-    Lanes a = {};
-    for (std::size_t d = 0; d < full; d += kLanes) {
-      Lanes x, qv;
-      LoadLanes(row + d, x);
-      LoadLanes(q + d, qv);
-      a += x * qv;
-    }
-    float s = SumLanes(a);
-    for (std::size_t d = full; d < dim; ++d) s += row[d] * q[d];
-    out[r] = s;
-  }
-}
-
-// One dot product with the same arithmetic as ScoreRows (same lanes, same order), so a
-// gathered score equals the scanned score of the same row bit for bit.
-float DotRow(const float* row, std::size_t dim, const float* q) {
-  float s;
-  ScoreRows(row, 1, dim, q, &s);
-  return s;
-}
-
-constexpr float kNaN = std::numeric_limits<float>::quiet_NaN();
-
-// Integer dot products of int8 rows (stride bytes each, zero padded) with an int8 query:
-// exact in int32, so every code path below gives the same sums.
-//
-// Portable path: plain loops the compiler vectorises in each clone.
-PLUMB_SCAN_CLONES
-void CodeDotsPortable(const int8_t* codes, std::size_t n, std::size_t stride, const int8_t* q,
-                      int32_t* out) {
-  for (std::size_t r = 0; r < n; ++r) {
-    const int8_t* row = codes + r * stride;
-    int32_t acc = 0;
-    for (std::size_t j = 0; j < stride; ++j) acc += int32_t{row[j]} * int32_t{q[j]};
-    out[r] = acc;
-  }
-}
-
-#if defined(__x86_64__) && (defined(__GNUC__) || defined(__clang__))
-#define PLUMB_HAVE_AVX2_CODE_DOTS 1
-// AVX2 path for strides that are multiples of 32 (the compiler's own vectorisation of the
-// loop above was measured 3x slower: it reduces every row horizontally on its own).
-// maddubs multiplies unsigned by signed bytes, so each row chunk a enters as |a| and the
-// query as sign(p, a) (p negated where a < 0, zeroed where a == 0): |a| * sign(p, a) = a * p.
-// Adjacent pairs sum to int16 without saturation since |a|, |p| <= 127 (2 * 127^2 < 2^15);
-// madd with ones widens them to int32. Eight rows are reduced together by horizontal adds.
-__attribute__((target("avx2"))) void CodeDotsAvx2(const int8_t* codes, std::size_t n,
-                                                  std::size_t stride, const int8_t* q,
-                                                  int32_t* out) {
-  const __m256i ones = _mm256_set1_epi16(1);
-  std::size_t r = 0;
-  for (; r + 8 <= n; r += 8) {
-    __m256i acc[8];
-    for (std::size_t i = 0; i < 8; ++i) {
-      const int8_t* row = codes + (r + i) * stride;
-      acc[i] = _mm256_setzero_si256();
-      for (std::size_t c = 0; c < stride; c += 32) {
-        const __m256i a = _mm256_loadu_si256(reinterpret_cast<const __m256i*>(row + c));
-        const __m256i p = _mm256_loadu_si256(reinterpret_cast<const __m256i*>(q + c));
-        const __m256i pairs = _mm256_maddubs_epi16(_mm256_abs_epi8(a), _mm256_sign_epi8(p, a));
-        acc[i] = _mm256_add_epi32(acc[i], _mm256_madd_epi16(pairs, ones));
-      }
-    }
-    const __m256i s01 = _mm256_hadd_epi32(acc[0], acc[1]);
-    const __m256i s23 = _mm256_hadd_epi32(acc[2], acc[3]);
-    const __m256i s45 = _mm256_hadd_epi32(acc[4], acc[5]);
-    const __m256i s67 = _mm256_hadd_epi32(acc[6], acc[7]);
-    // Each 128-bit half of s0123 holds partial sums of rows 0..3; of s4567, rows 4..7.
-    const __m256i s0123 = _mm256_hadd_epi32(s01, s23);
-    const __m256i s4567 = _mm256_hadd_epi32(s45, s67);
-    const __m256i lo = _mm256_permute2x128_si256(s0123, s4567, 0x20);
-    const __m256i hi = _mm256_permute2x128_si256(s0123, s4567, 0x31);
-    _mm256_storeu_si256(reinterpret_cast<__m256i*>(out + r), _mm256_add_epi32(lo, hi));
-  }
-  if (r < n) CodeDotsPortable(codes + r * stride, n - r, stride, q, out + r);
-}
-#endif
-
-void CodeDots(const int8_t* codes, std::size_t n, std::size_t stride, const int8_t* q,
-              int32_t* out) {
-#if defined(PLUMB_HAVE_AVX2_CODE_DOTS)
-  static const bool avx2 = __builtin_cpu_supports("avx2");
-  if (avx2 && stride % 32 == 0) {
-    CodeDotsAvx2(codes, n, stride, q, out);
-    return;
-  }
-#endif
-  CodeDotsPortable(codes, n, stride, q, out);
-}
-
-// x rounded to the nearest int8 code of step `scale` (> 0), within [-127, 127].
-int8_t Code(double x, double scale) {
-  const double c = std::nearbyint(x / scale);
-  return static_cast<int8_t>(std::clamp(c, -127.0, 127.0));
-}
-
-// A float no smaller than the non-negative double v.
-float RoundUp(double v) {
-  float f = static_cast<float>(v);
-  if (static_cast<double>(f) < v) f = std::nextafter(f, std::numeric_limits<float>::infinity());
-  return f;
-}
-
-// Walks the exclusions alongside the blocks: both are visited in ascending row order, so the
-// sorted-list cursor only moves forward over the whole scan.
-class ExclusionCursor {
- public:
-  explicit ExclusionCursor(const Exclusions& e) : e_(e) {}
-
-  // Marks excluded rows of block [begin, end) with NaN in scores (scores[0] is row begin);
-  // TopKSelector never keeps a NaN.
-  void MarkBlock(std::size_t begin, std::size_t end, float* scores) {
-    const std::size_t bits = e_.bitmap.size() * 64;
-    if (begin < bits) {
-      const std::size_t stop = std::min(end, bits);
-      std::size_t r = begin;
-      while (r < stop) {
-        const std::size_t word_index = r / 64;
-        uint64_t word = e_.bitmap[word_index] >> (r % 64);
-        const std::size_t word_end = std::min(stop, (word_index + 1) * 64);
-        while (word != 0) {
-          const std::size_t hit = r + static_cast<std::size_t>(std::countr_zero(word));
-          if (hit >= word_end) break;
-          scores[hit - begin] = kNaN;
-          word &= word - 1;
-        }
-        r = word_end;
-      }
-    }
-    const auto& list = e_.sorted_rows;
-    while (next_ < list.size() && list[next_] < begin) ++next_;
-    while (next_ < list.size() && list[next_] < end) {
-      scores[list[next_] - begin] = kNaN;
-      ++next_;
-    }
-  }
-
- private:
-  const Exclusions& e_;
-  std::size_t next_ = 0;
-};
+using scan_internal::CodeDots;
+using scan_internal::DotRow;
+using scan_internal::ExclusionCursor;
+using scan_internal::QuantizeRow;
+using scan_internal::RoundUp;
+using scan_internal::RoundUpNorm;
+using scan_internal::RowQuantization;
+using scan_internal::ScoreRows;
 
 Status CheckScanArgs(MatrixView items, std::span<const float> query, std::span<float> scratch,
                      TopKSelector* selector, ScanOutcome* outcome) {
@@ -324,6 +110,23 @@ Status InverseQueryNorm(std::span<const float> query, float* inv) {
   return Status::Ok();
 }
 
+// The pruned scan's bound constants. A row is rescored exactly when a bound on its score
+// reaches the K-th best; every rounding the bound itself suffers is added back, so that no
+// row that belongs in the top K is skipped.
+//
+// The full scan's own float rounding: a dot product of n terms summed in float is within
+// about n * 2^-24 * sum |x_j u_j| <= n * 2^-24 |x| |u| of the real value; twice that, with
+// the depth of the lane tree (16) added, covers ScoreRows' order of summation. Multiplied by
+// |u| here and by |x| per row.
+inline float FloatScanSlack(std::size_t dim) {
+  return static_cast<float>((2.0 * static_cast<double>(dim) + 16.0) * std::ldexp(1.0, -24));
+}
+// The float arithmetic of the estimate and the bound (and, for cosine, of the normalisation):
+// a few ulps each, covered by 1e-6 of their magnitude (an ulp of float is 2^-23 ~ 1.2e-7).
+constexpr float kBoundRelativeSlack = 1e-6f;
+// An absolute floor for bounds near zero, where a relative margin vanishes.
+constexpr float kBoundAbsoluteSlack = 1e-30f;
+
 struct CodeView {
   const int8_t* codes;
   std::size_t stride;
@@ -340,14 +143,7 @@ template <typename Finish, typename Exact>
 Status PrunedScan(MatrixView items, const CodeView& codes, std::span<const float> query,
                   const Exclusions& excluded, std::span<float> scratch, TopKSelector* selector,
                   ScanOutcome* outcome, StopCheck should_stop, Finish finish, Exact exact) {
-  // The query in int8 the same way: u = t p + d.
-  double max_abs = 0.0, uu = 0.0;
-  for (float v : query) {
-    if (!std::isfinite(v)) return Status::InvalidArgument("query has a non-finite value");
-    max_abs = std::max(max_abs, double{std::fabs(v)});
-    uu += double{v} * double{v};
-  }
-  const float t = static_cast<float>(max_abs / 127.0);
+  // The query quantised exactly as the rows are (QuantizeRow): u = t p + d.
   alignas(64) int8_t p[1024];   // the quantised query; larger dims use p_large
   std::vector<int8_t> p_large;  // allocates, but only for dim > 1024
   int8_t* pq = p;
@@ -357,24 +153,17 @@ Status PrunedScan(MatrixView items, const CodeView& codes, std::span<const float
   } else {
     std::fill(p, p + codes.stride, int8_t{0});
   }
-  double pp = 0.0, dd = 0.0;
-  for (std::size_t j = 0; j < query.size(); ++j) {
-    if (t > 0.0f) pq[j] = Code(query[j], t);
-    const double d = static_cast<double>(query[j]) - static_cast<double>(t) * pq[j];
-    pp += static_cast<double>(pq[j]) * pq[j];
-    dd += d * d;
-  }
+  RowQuantization uq;
+  if (!QuantizeRow(query, pq, &uq)) return Status::InvalidArgument("query has a non-finite value");
+  const float t = uq.scale;
+  double pp = 0.0;
+  for (std::size_t j = 0; j < query.size(); ++j) pp += static_cast<double>(pq[j]) * pq[j];
   // x.u = s t (q.p) + t (e.p) + x.d, with e = x - s q and d = u - t p, so
   // |x.u - s t (q.p)| <= |e| t |p| + |x| |d| (Cauchy-Schwarz on each term).
-  const float tp_norm = RoundUp(double{t} * std::sqrt(pp) * (1.0 + 1e-12));
-  const float d_norm = RoundUp(std::sqrt(dd) * (1.0 + 1e-12));
-  const float u_norm = RoundUp(std::sqrt(uu) * (1.0 + 1e-12));
-  // The exact scan's own float rounding: a dot product of n terms summed in float is within
-  // about n * 2^-24 * sum |x_j u_j| <= n * 2^-24 |x| |u| of the real value; twice that, with
-  // the lane tree's depth added, covers ScoreRows' order of summation.
-  const float scan_slack =
-      static_cast<float>((2.0 * static_cast<double>(items.dim) + 16.0) * std::ldexp(1.0, -24)) *
-      u_norm;
+  const float tp_norm = RoundUp(double{t} * std::sqrt(pp) * scan_internal::kSumOfSquaresMargin);
+  const float d_norm = RoundUpNorm(uq.residual_sq);
+  const float u_norm = RoundUpNorm(uq.norm_sq);
+  const float scan_slack = FloatScanSlack(items.dim) * u_norm;
 
   *outcome = ScanOutcome{};
   const std::size_t block = scratch.size();
@@ -398,8 +187,9 @@ Status PrunedScan(MatrixView items, const CodeView& codes, std::span<const float
         const float estimate = codes.scale[r] * t * static_cast<float>(dots[i]);
         const float bound =
             codes.residual_norm[r] * tp_norm + codes.norm[r] * d_norm + codes.norm[r] * scan_slack;
-        // The estimate's and the bound's own float rounding (a few ulps each): 1e-6 relative.
-        upper[c + i] = finish(r, estimate + bound + 1e-6f * (std::fabs(estimate) + bound) + 1e-30f);
+        upper[c + i] =
+            finish(r, estimate + bound + kBoundRelativeSlack * (std::fabs(estimate) + bound) +
+                          kBoundAbsoluteSlack);
       }
     }
     cursor.MarkBlock(begin, begin + n, upper);
@@ -485,56 +275,6 @@ Status top_k_by_dot(MatrixView items, std::span<const float> query, const Exclus
   return Status::Ok();
 }
 
-Status QuantizedItems::Build(MatrixView items, QuantizedItems* out) {
-  if (items.dim > 65536) {
-    return Status::InvalidArgument("quantised scoring supports at most 65536 dimensions, got " +
-                                   std::to_string(items.dim));
-  }
-  QuantizedItems q;
-  q.rows_ = items.rows;
-  q.dim_ = items.dim;
-  q.stride_ = (items.dim + 15) / 16 * 16;
-  try {
-    q.codes_.assign(q.rows_ * q.stride_, 0);
-    q.scale_.resize(q.rows_);
-    q.residual_norm_.resize(q.rows_);
-    q.norm_.resize(q.rows_);
-  } catch (const std::bad_alloc&) {
-    return Status::ResourceExhausted("cannot allocate the int8 copy of " +
-                                     std::to_string(items.rows) + " rows");
-  }
-  for (std::size_t r = 0; r < q.rows_; ++r) {
-    const std::span<const float> row = items.row(r);
-    float max_abs = 0.0f;
-    for (float v : row) {
-      if (!std::isfinite(v)) {
-        return Status::InvalidArgument("row " + std::to_string(r) + " has a non-finite value");
-      }
-      max_abs = std::max(max_abs, std::fabs(v));
-    }
-    const float scale = max_abs / 127.0f;
-    int8_t* codes = q.codes_.data() + r * q.stride_;
-    double residual = 0.0, norm = 0.0;
-    for (std::size_t j = 0; j < row.size(); ++j) {
-      const double x = row[j];
-      norm += x * x;
-      if (scale > 0.0f) codes[j] = Code(x, scale);
-      const double e = x - static_cast<double>(scale) * codes[j];  // exact in double
-      residual += e * e;
-    }
-    q.scale_[r] = scale;
-    // sqrt in double is correctly rounded; a relative 1e-12 covers the sums' rounding.
-    q.residual_norm_[r] = RoundUp(std::sqrt(residual) * (1.0 + 1e-12));
-    q.norm_[r] = RoundUp(std::sqrt(norm) * (1.0 + 1e-12));
-  }
-  *out = std::move(q);
-  return Status::Ok();
-}
-
-std::size_t QuantizedItems::bytes() const {
-  return codes_.size() + sizeof(float) * (scale_.size() + residual_norm_.size() + norm_.size());
-}
-
 Status top_k_by_dot_pruned(MatrixView items, const QuantizedItems& codes,
                            std::span<const float> query, const Exclusions& excluded,
                            std::span<float> scratch, TopKSelector* selector, ScanOutcome* outcome,
@@ -568,7 +308,7 @@ Status top_k_by_cosine_pruned(MatrixView items, const QuantizedItems& codes,
         const float norm = norms[r];
         if (!(norm > 0.0f)) return 0.0f;
         const float c = upper * inv_query_norm / norm;
-        return c + 1e-6f * std::fabs(c) + 1e-30f;
+        return c + kBoundRelativeSlack * std::fabs(c) + kBoundAbsoluteSlack;
       },
       [&](std::size_t r) {
         return CosineScore(DotRow(items.data + r * items.dim, items.dim, query.data()),

@@ -8,7 +8,9 @@
 
 namespace plumb {
 
-class Status {
+// [[nodiscard]]: a call whose Status is dropped does not compile (-Werror). Where ignoring an
+// error is truly right, say why in a comment and call IgnoreError() on it.
+class [[nodiscard]] Status {
  public:
   enum class Code {
     kOk = 0,
@@ -41,6 +43,10 @@ class Status {
 
   // "ok" or "<code name>: <message>".
   std::string ToString() const;
+
+  // Drops this Status on purpose. The caller's comment says why the error does not matter
+  // there (e.g. logged and counted elsewhere, or a best-effort clean-up).
+  void IgnoreError() const {}
 
  private:
   Status(Code code, std::string msg) : code_(code), message_(std::move(msg)) {}

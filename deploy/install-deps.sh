@@ -17,6 +17,8 @@ PACKAGES=(
   libnats-dev nats-server
   # fuzzing (the Fuzz build type and CI's short fuzz runs): clang with libFuzzer
   clang libfuzzer-14-dev
+  # the formatting check of changed lines (deploy/check_format.sh)
+  clang-format
   # tests and demo: a real Prometheus (promtool), Python reference checks and clients
   prometheus python3 python3-numpy python3-sklearn python3-grpcio python3-protobuf
   curl procps systemd

@@ -148,7 +148,7 @@ void CatchUpLoop::Run() {
   std::unique_lock<std::mutex> lock(mu_);
   while (!stopping_) {
     lock.unlock();
-    (void)RunOnce();  // errors are logged and counted inside
+    RunOnce().IgnoreError();  // errors are logged and counted inside
     lock.lock();
     wake_.wait_for(lock, options_.interval, [this] { return stopping_; });
   }

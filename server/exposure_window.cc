@@ -119,11 +119,13 @@ ExposureFigures ExposureWindow::Summarize(const Snapshot& snap, size_t top_items
   }
   {
     std::lock_guard<std::mutex> lock(groups_mu_);
+    // Neither call can fail: options_.groups >= 1 (the constructor clamps it), the outputs are
+    // not null and degrees, counts and group_of_item_ all hold n entries.
     if (groups_version_ != snap.version() || group_of_item_.size() != n) {
-      popularity_groups(degrees, options_.groups, &group_of_item_);
+      popularity_groups(degrees, options_.groups, &group_of_item_).IgnoreError();
       groups_version_ = snap.version();
     }
-    summarize_exposure(counts, degrees, group_of_item_, options_.groups, &f.summary);
+    summarize_exposure(counts, degrees, group_of_item_, options_.groups, &f.summary).IgnoreError();
   }
   if (top_items > 0) {
     for (uint32_t i = 0; i < n; ++i) {

@@ -5,6 +5,7 @@
 #include <vector>
 
 #include "rpc/checked_methods.h"
+#include "rpc/grpc_status.h"
 
 namespace plumb::server {
 
@@ -69,36 +70,13 @@ grpc::Status NoSnapshot() {
                       "trainer has published and activated one");
 }
 
-// The Scorer's Status codes onto gRPC's. Aborted is how the Scorer reports a passed
-// deadline; it returns no other Aborted.
+// rpc/grpc_status.h's mapping, except that Aborted is how the Scorer and the admission queue
+// report a passed deadline (they return no other Aborted): DEADLINE_EXCEEDED.
 grpc::Status ToGrpc(const Status& s) {
-  using C = Status::Code;
-  grpc::StatusCode code = grpc::StatusCode::INTERNAL;
-  switch (s.code()) {
-    case C::kOk:
-      return grpc::Status::OK;
-    case C::kNotFound:
-      code = grpc::StatusCode::NOT_FOUND;
-      break;
-    case C::kInvalidArgument:
-      code = grpc::StatusCode::INVALID_ARGUMENT;
-      break;
-    case C::kAborted:
-      code = grpc::StatusCode::DEADLINE_EXCEEDED;
-      break;
-    case C::kFailedPrecondition:
-      code = grpc::StatusCode::FAILED_PRECONDITION;
-      break;
-    case C::kUnavailable:
-      code = grpc::StatusCode::UNAVAILABLE;
-      break;
-    case C::kResourceExhausted:
-      code = grpc::StatusCode::RESOURCE_EXHAUSTED;
-      break;
-    default:
-      break;
+  if (s.code() == Status::Code::kAborted) {
+    return grpc::Status(grpc::StatusCode::DEADLINE_EXCEEDED, s.message());
   }
-  return grpc::Status(code, s.message());
+  return rpc::ToGrpcStatus(s);
 }
 
 template <typename Response>

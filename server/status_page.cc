@@ -144,7 +144,9 @@ void ServeStatusPage::Sample(int64_t now_ms) {
   }
   previous_ = now;
   have_previous_ = true;
-  ring_.Add(now_ms, v);  // a clock step backwards drops the point, nothing else
+  // v holds one value per series, so the only refusal is a clock step backwards: that point
+  // is dropped and the next sample is taken as usual.
+  ring_.Add(now_ms, v).IgnoreError();
 }
 
 nlohmann::json ServeStatusPage::Json(int64_t now_ms) const {

@@ -273,3 +273,21 @@ bool DecodeAvailability(std::string_view value, uint64_t* generation, uint64_t* 
 }
 
 }  // namespace plumb::store::records
+
+namespace plumb::store {
+
+std::string_view GateOutcomeName(GateOutcome gate, std::string_view unspecified) {
+  switch (gate) {
+    case GateOutcome::kPassed:
+      return "passed";
+    case GateOutcome::kFailed:
+      return "failed";
+    case GateOutcome::kSkipped:
+      return "skipped";
+    case GateOutcome::kUnspecified:
+      break;
+  }
+  return unspecified;
+}
+
+}  // namespace plumb::store

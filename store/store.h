@@ -58,6 +58,10 @@ enum class MatrixKind : char { kUsers = 'u', kItems = 'i' };
 // Outcome of the trainer's validation gate for a version.
 enum class GateOutcome : int { kUnspecified = 0, kPassed = 1, kFailed = 2, kSkipped = 3 };
 
+// "passed", "failed" or "skipped"; `unspecified` for kUnspecified (each screen has its own
+// word for a version whose gate was not recorded).
+std::string_view GateOutcomeName(GateOutcome gate, std::string_view unspecified);
+
 struct StoreOptions {
   // Create the directory and column families when missing (primary only).
   bool create_if_missing = true;

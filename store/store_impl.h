@@ -15,12 +15,13 @@
 #include <memory>
 #include <mutex>
 #include <optional>
-#include <shared_mutex>
 #include <set>
+#include <shared_mutex>
 #include <string>
 #include <string_view>
 #include <vector>
 
+#include "core/clock.h"
 #include "store/event_id_expiry.h"
 #include "store/keys.h"
 #include "store/store.h"
@@ -29,11 +30,7 @@ namespace plumb::store {
 
 namespace internal {
 
-inline int64_t NowMs() {
-  return std::chrono::duration_cast<std::chrono::milliseconds>(
-             std::chrono::system_clock::now().time_since_epoch())
-      .count();
-}
+using ::plumb::NowMs;  // core/clock.h
 
 inline rocksdb::Slice AsSlice(std::string_view s) { return rocksdb::Slice(s.data(), s.size()); }
 inline std::string_view AsView(const rocksdb::Slice& s) {

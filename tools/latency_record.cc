@@ -2,6 +2,9 @@
 
 #include <algorithm>
 #include <cmath>
+#include <span>
+
+#include "core/percentile.h"
 
 namespace plumb::tools {
 
@@ -34,12 +37,7 @@ int64_t LatencyRecord::Percentile(double p) {
     std::sort(samples_.begin(), samples_.end());
     sorted_ = true;
   }
-  const double n = static_cast<double>(samples_.size());
-  // The small subtraction keeps exact products (p = 50, n = 10 -> rank 5) from rounding
-  // up to the next rank through floating-point noise.
-  double rank = std::ceil(p / 100.0 * n - 1e-9);
-  rank = std::clamp(rank, 1.0, n);
-  return samples_[static_cast<size_t>(rank) - 1];
+  return NearestRankPercentile(std::span<const int64_t>(samples_), p);
 }
 
 LatencySummary LatencyRecord::Summarize() {

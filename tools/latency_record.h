@@ -9,9 +9,9 @@
 
 namespace plumb::tools {
 
-// Percentiles by the nearest-rank definition: the p-th percentile of n sorted values is
-// the value at rank ceil(p/100 * n) (1-based), so it is always an observed latency
-// (Hyndman & Fan 1996, definition 1; numpy's method="inverted_cdf").
+// Percentiles by the nearest-rank definition (core/percentile.h): the p-th percentile of n
+// sorted values is the value at rank ceil(p/100 * n) (1-based), so it is always an observed
+// latency (Hyndman & Fan 1996, definition 1; numpy's method="inverted_cdf").
 struct LatencySummary {
   uint64_t count = 0;  // calls recorded
   uint64_t kept = 0;   // samples the percentiles were taken from (== count below the cap)

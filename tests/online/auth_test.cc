@@ -8,16 +8,16 @@
 #include <sstream>
 #include <thread>
 
+#include "tests/common/scratch_dir.h"
 #include "tests/online/ingest_server.h"
 #include "tests/online/memory_event_log.h"
-#include "tests/online/scratch_dir.h"
 
 namespace plumb::online {
 namespace {
 
+using ::plumb::testing::ScratchDir;
 using testing::IngestServer;
 using testing::MemoryEventLog;
-using testing::ScratchDir;
 using testing::Stream;
 using testing::WireEvent;
 

@@ -8,8 +8,8 @@
 #include <thread>
 
 #include "store/store.h"
+#include "tests/common/scratch_dir.h"
 #include "tests/online/names.h"
-#include "tests/online/scratch_dir.h"
 #include "trainer/online/group_commit.h"
 #include "trainer/online/ingest_service.h"
 #include "trainer/online/online_loop.h"
@@ -17,8 +17,8 @@
 namespace plumb::online {
 namespace {
 
+using ::plumb::testing::ScratchDir;
 using testing::Name;
-using testing::ScratchDir;
 
 // The tool-lending scenario: members in four neighbourhoods, each borrowing mostly the
 // tools its own tool shed holds.

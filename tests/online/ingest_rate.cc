@@ -22,10 +22,10 @@
 #include <vector>
 
 #include "store/store.h"
+#include "tests/common/scratch_dir.h"
 #include "tests/online/ingest_server.h"
 #include "tests/online/memory_event_log.h"
 #include "tests/online/names.h"
-#include "tests/online/scratch_dir.h"
 
 using plumb::Status;
 
@@ -90,7 +90,7 @@ int main(int argc, char** argv) {
   }
 
   for (double window_ms : windows) {
-    plumb::online::testing::ScratchDir scratch;
+    plumb::testing::ScratchDir scratch;
     const std::string dir = base.empty() ? scratch.Sub("db") : base + "/ingest-rate-db";
     std::unique_ptr<store::Store> db;
     store::StoreOptions options;

@@ -8,20 +8,20 @@
 #include <vector>
 
 #include "store/store.h"
+#include "tests/common/scratch_dir.h"
 #include "tests/online/ingest_server.h"
 #include "tests/online/memory_event_log.h"
 #include "tests/online/names.h"
-#include "tests/online/scratch_dir.h"
 
 namespace plumb::online {
 namespace {
 
+using ::plumb::testing::ScratchDir;
 using plumb::v1::InteractionEvent;
 using plumb::v1::PublishSummary;
 using testing::IngestServer;
 using testing::MemoryEventLog;
 using testing::Name;
-using testing::ScratchDir;
 using testing::Stream;
 using testing::WireEvent;
 

@@ -18,18 +18,18 @@
 #include "plumb/v1/control.grpc.pb.h"
 #include "plumb/v1/ingest.grpc.pb.h"
 #include "store/store.h"
-#include "tests/online/child_process.h"
+#include "tests/common/child_process.h"
+#include "tests/common/scratch_dir.h"
 #include "tests/online/names.h"
-#include "tests/online/scratch_dir.h"
 
 namespace plumb::online {
 namespace {
 
-using testing::ChildProcess;
-using testing::FreeLoopbackPort;
+using ::plumb::testing::ChildProcess;
+using ::plumb::testing::FreeLoopbackPort;
+using ::plumb::testing::ReadTail;
+using ::plumb::testing::ScratchDir;
 using testing::Name;
-using testing::ReadTail;
-using testing::ScratchDir;
 
 std::vector<std::string> TrainArgs(const std::string& db, int port) {
   return {PLUMB_TRAIN_BINARY, "--db", db, "--listen", Name("127.0.0.1:", port), "--metrics", "",

@@ -9,12 +9,12 @@
 #include <vector>
 
 #include "tests/common/help_keys.h"
-#include "tests/online/scratch_dir.h"
+#include "tests/common/scratch_dir.h"
 
 namespace plumb::online {
 namespace {
 
-using testing::ScratchDir;
+using ::plumb::testing::ScratchDir;
 
 std::optional<int> Parse(std::vector<std::string> args, TrainConfig* config) {
   args.insert(args.begin(), "plumb-train");

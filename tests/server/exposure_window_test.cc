@@ -93,7 +93,7 @@ TEST(ExposureWindowTest, ASwapKeepsTheListsAlreadyInTheWindow) {
   counts[10] = 1, counts[11] = 1;
   std::vector<uint64_t> degrees(m2.degrees.begin(), m2.degrees.end());
   std::vector<uint32_t> groups;
-  popularity_groups(degrees, 2, &groups);
+  ASSERT_TRUE(popularity_groups(degrees, 2, &groups).ok());
   ExposureSummary expected;
   ASSERT_TRUE(summarize_exposure(counts, degrees, groups, 2, &expected).ok());
   EXPECT_DOUBLE_EQ(f.summary.gini, expected.gini);

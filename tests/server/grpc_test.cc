@@ -499,7 +499,7 @@ TEST_F(RankerServerTest, ReflectionDescribesTheRankerToGenericTools) {
 
 TEST(RankingServerTlsTest, ServesOverTlsAndRefusesPlaintextClients) {
   if (std::system("command -v openssl >/dev/null 2>&1") != 0) GTEST_SKIP() << "no openssl";
-  testing::TempDir dir;
+  testing::ScratchDir dir;
   const std::string cmd =
       "openssl req -x509 -newkey rsa:2048 -nodes -days 1 -subj /CN=localhost"
       " -addext subjectAltName=DNS:localhost -keyout " +

@@ -74,7 +74,7 @@ TEST_P(HotSwapTest, FourClientsSeeOnlyActiveVersionsInOrderWithoutAFailure) {
     approx.index.build_threads = 1;
     approx.index.build_breadth = 64;  // a quicker build; the answers are checked exactly
   }
-  testing::TempDir dir;
+  testing::ScratchDir dir;
   store::StoreOptions options;
   options.sync = false;
   std::unique_ptr<store::Store> primary;

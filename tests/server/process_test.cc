@@ -5,7 +5,6 @@
 #include <grpcpp/grpcpp.h>
 #include <gtest/gtest.h>
 #include <netinet/in.h>
-#include <poll.h>
 #include <signal.h>
 #include <sys/socket.h>
 #include <sys/wait.h>
@@ -13,9 +12,12 @@
 
 #include <cctype>
 #include <fstream>
+#include <iterator>
 #include <thread>
 
 #include "plumb/v1/ranker.grpc.pb.h"
+#include "tests/common/child_process.h"
+#include "tests/common/scratch_dir.h"
 #include "tests/server/generic_rpc.h"
 #include "tests/server/test_model.h"
 
@@ -26,36 +28,13 @@
 namespace plumb::server {
 namespace {
 
-using testing::TempDir;
+using testing::ScratchDir;
 
-// A plumb-serve child process whose stderr (the log) is read through a pipe.
+// A plumb-serve child process (tests/common/child_process.h) whose log is read as it grows.
 class ServeProcess {
  public:
-  explicit ServeProcess(const std::vector<std::string>& args) {
-    int fds[2];
-    if (pipe(fds) != 0) std::abort();
-    pid_ = fork();
-    if (pid_ == 0) {
-      dup2(fds[1], STDERR_FILENO);
-      close(fds[0]);
-      close(fds[1]);
-      std::vector<char*> argv;
-      argv.push_back(const_cast<char*>(PLUMB_SERVE_BINARY));
-      for (const auto& a : args) argv.push_back(const_cast<char*>(a.c_str()));
-      argv.push_back(nullptr);
-      execv(PLUMB_SERVE_BINARY, argv.data());
-      _exit(127);
-    }
-    close(fds[1]);
-    log_fd_ = fds[0];
-  }
-  ~ServeProcess() {
-    if (pid_ > 0) {
-      kill(pid_, SIGKILL);
-      waitpid(pid_, nullptr, 0);
-    }
-    close(log_fd_);
-  }
+  explicit ServeProcess(const std::vector<std::string>& args)
+      : child_(Argv(args), log_dir_.Sub("serve.log")), log_path_(log_dir_.Sub("serve.log")) {}
 
   // Reads the log until a line contains `marker`; returns the digits right after the marker
   // if there are any, else the whole line; empty after the timeout. (Plain string search:
@@ -77,36 +56,38 @@ class ServeProcess {
                      : line;
         }
       }
-      pollfd p{log_fd_, POLLIN, 0};
-      if (poll(&p, 1, 100) > 0) {
-        char chunk[4096];
-        const ssize_t n = read(log_fd_, chunk, sizeof(chunk));
-        if (n <= 0) break;
-        buffer_.append(chunk, static_cast<size_t>(n));
-      }
+      // What the child appended since the last read.
+      std::ifstream in(log_path_, std::ios::binary);
+      in.seekg(static_cast<std::streamoff>(read_), std::ios::beg);
+      std::string more((std::istreambuf_iterator<char>(in)), std::istreambuf_iterator<char>());
+      read_ += more.size();
+      buffer_ += more;
+      if (more.empty()) std::this_thread::sleep_for(std::chrono::milliseconds(20));
     }
     return {};
   }
 
   // Sends SIGTERM and returns the exit code (-1 if it did not exit within the timeout).
   int Terminate(int timeout_ms = 15000) {
-    kill(pid_, SIGTERM);
-    for (int waited = 0; waited < timeout_ms; waited += 10) {
-      int status = 0;
-      if (waitpid(pid_, &status, WNOHANG) == pid_) {
-        pid_ = -1;
-        return WIFEXITED(status) ? WEXITSTATUS(status) : -2;
-      }
-      std::this_thread::sleep_for(std::chrono::milliseconds(10));
-    }
-    return -1;
+    child_.Signal(SIGTERM);
+    int status = 0;
+    if (!child_.WaitFor(timeout_ms, &status)) return -1;
+    return WIFEXITED(status) ? WEXITSTATUS(status) : -2;
   }
 
   const std::string& log() const { return log_; }
 
  private:
-  pid_t pid_ = -1;
-  int log_fd_ = -1;
+  static std::vector<std::string> Argv(const std::vector<std::string>& args) {
+    std::vector<std::string> argv{PLUMB_SERVE_BINARY};
+    argv.insert(argv.end(), args.begin(), args.end());
+    return argv;
+  }
+
+  ::plumb::testing::ScratchDir log_dir_;
+  ::plumb::testing::ChildProcess child_;
+  const std::string log_path_;
+  size_t read_ = 0;  // bytes of the log file already in buffer_
   std::string buffer_, log_;
 };
 
@@ -155,7 +136,7 @@ v1::RecommendResponse RecommendOnce(const std::shared_ptr<grpc::Channel>& channe
 }
 
 TEST(PlumbServeProcessTest, ServesFromDiskWithoutATrainerAndStopsOnSigterm) {
-  TempDir dir;
+  ScratchDir dir;
   const uint64_t v1 = CommitVersion(dir.Sub("db"), 1);
   std::ofstream(dir.Sub("serve.toml")) << "catchup-interval = '50ms'\nlog-level = 'info'\n";
   ServeProcess serve({"--db", dir.Sub("db"), "--listen", "127.0.0.1:0", "--metrics", "127.0.0.1:0",
@@ -196,7 +177,7 @@ TEST(PlumbServeProcessTest, ServesFromDiskWithoutATrainerAndStopsOnSigterm) {
 }
 
 TEST(PlumbServeProcessTest, WithoutAVersionItIsUnavailableUntilOneIsPublished) {
-  TempDir dir;
+  ScratchDir dir;
   {
     std::unique_ptr<store::Store> primary;
     ASSERT_TRUE(store::Store::OpenPrimary(dir.Sub("db"), store::StoreOptions(), &primary).ok());
@@ -225,7 +206,7 @@ TEST(PlumbServeProcessTest, WithoutAVersionItIsUnavailableUntilOneIsPublished) {
 }
 
 TEST(PlumbServeProcessTest, RefusesToStartOnAMissingStore) {
-  TempDir dir;
+  ScratchDir dir;
   ServeProcess serve({"--db", dir.Sub("nothing-here"), "--listen", "127.0.0.1:0", "--metrics", ""});
   EXPECT_NE(serve.WaitForLog("cannot open store"), "") << serve.log();
   EXPECT_EQ(serve.Terminate(), 1);

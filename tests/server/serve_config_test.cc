@@ -39,7 +39,7 @@ TEST(ServeConfigTest, DefaultsMatchTheDocumentedLimits) {
 }
 
 TEST(ServeConfigTest, FileKeysSetOptionsAndFlagsWinOverTheFile) {
-  testing::TempDir dir;
+  testing::ScratchDir dir;
   const std::string path = dir.Sub("serve.toml");
   std::ofstream(path) << "db = '/var/lib/plumb'\n"
                          "listen = '0.0.0.0:9000'\n"
@@ -81,7 +81,7 @@ TEST(ServeConfigTest, DurationsNeedAUnitAndBooleansAreFlagPairs) {
 }
 
 TEST(ServeConfigTest, BadFilesAndFlagsAreRefusedWithAMessage) {
-  testing::TempDir dir;
+  testing::ScratchDir dir;
   std::string err;
   ServeConfig c;
   std::ofstream(dir.Sub("unknown.toml")) << "db = 'x'\nmax-cout = 3\n";

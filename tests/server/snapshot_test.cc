@@ -22,7 +22,7 @@ namespace {
 
 using testing::CommitModel;
 using testing::RandomModel;
-using testing::TempDir;
+using testing::ScratchDir;
 using testing::TestModel;
 using testing::ToParts;
 
@@ -148,7 +148,7 @@ class StoreBackedTest : public ::testing::Test {
     return v;
   }
 
-  TempDir dir_;
+  ScratchDir dir_;
   std::unique_ptr<store::Store> primary_;
   std::unique_ptr<store::Store> secondary_;
 };

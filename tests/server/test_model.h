@@ -15,6 +15,7 @@
 
 #include "server/snapshot.h"
 #include "store/store.h"
+#include "tests/common/scratch_dir.h"
 
 namespace plumb::server::testing {
 
@@ -121,25 +122,6 @@ inline Status CommitModel(store::Store* primary, const TestModel& m, bool activa
   return primary->Commit(change, version);
 }
 
-// A fresh directory under /tmp, removed with its contents at the end of the scope.
-class TempDir {
- public:
-  TempDir() {
-    std::string pattern = "/tmp/plumb-server-test-XXXXXX";
-    if (::mkdtemp(pattern.data()) == nullptr) std::abort();
-    path_ = pattern;
-  }
-  ~TempDir() {
-    std::error_code ec;
-    std::filesystem::remove_all(path_, ec);
-  }
-  TempDir(const TempDir&) = delete;
-  TempDir& operator=(const TempDir&) = delete;
-  const std::string& path() const { return path_; }
-  std::string Sub(const std::string& name) const { return path_ + "/" + name; }
-
- private:
-  std::string path_;
-};
+using ::plumb::testing::ScratchDir;  // tests/common/scratch_dir.h
 
 }  // namespace plumb::server::testing

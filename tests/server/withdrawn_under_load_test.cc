@@ -43,7 +43,7 @@ struct Answer {
 };
 
 TEST(WithdrawnUnderLoadTest, AnItemLeavesAllThreeMethodsWithinTheBoundAndComesBack) {
-  testing::TempDir dir;
+  testing::ScratchDir dir;
   store::StoreOptions options;
   options.sync = false;
   std::unique_ptr<store::Store> primary;

@@ -16,15 +16,15 @@
 #include <vector>
 
 #include "store/store.h"
+#include "tests/common/scratch_dir.h"
 #include "tests/store/lending_workload.h"
-#include "tests/store/scratch_dir.h"
 
 extern char** environ;
 
 namespace plumb::store {
 namespace {
 
-using testing::ScratchDir;
+using ::plumb::testing::ScratchDir;
 
 struct ChildRun {
   uint64_t max_ack = 0;

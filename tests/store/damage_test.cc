@@ -328,7 +328,7 @@ TEST_F(DamageTest, AFollowerFindsDamageThatAppearsLater) {
   Close();  // flushes version 3 and the meta value naming it into new table files
   const std::string victim = NewestTable(keys::kMetaFamily);
   fs::resize_file(victim, fs::file_size(victim) - 7);
-  (void)follower->CatchUp();
+  EXPECT_TRUE(follower->CatchUp().ok());  // steps around the damage: no error
   uint64_t active = 0;
   ASSERT_TRUE(follower->GetActiveVersion(&active).ok());
   EXPECT_NE(active, 3u);  // what the follower sees: the older state, no error

@@ -3,6 +3,7 @@
 #include <set>
 #include <thread>
 
+#include "core/clock.h"
 #include "tests/store/store_fixture.h"
 
 namespace plumb::store {
@@ -10,12 +11,6 @@ namespace {
 
 using testing::StoreFixture;
 using EventLogTest = StoreFixture;
-
-int64_t NowMs() {
-  return std::chrono::duration_cast<std::chrono::milliseconds>(
-             std::chrono::system_clock::now().time_since_epoch())
-      .count();
-}
 
 TEST_F(EventLogTest, AppendedEventsReadBackFieldForField) {
   const auto loans = Loans(3, 0);

@@ -9,9 +9,11 @@
 #include <vector>
 
 #include "store/store.h"
-#include "tests/store/scratch_dir.h"
+#include "tests/common/scratch_dir.h"
 
 namespace plumb::store::testing {
+
+using ::plumb::testing::ScratchDir;
 
 // A version's data kept alive for Commit(): the views of `write` point into the vectors.
 struct OwnedVersion {

@@ -1,6 +1,8 @@
 // Small fixtures shared by the trainer suites: random models and random interaction data.
 #pragma once
 
+#include <gtest/gtest.h>
+
 #include <cmath>
 #include <cstdint>
 #include <vector>
@@ -16,7 +18,7 @@ inline Embeddings RandomModel(uint32_t dim, uint32_t users, uint32_t items, uint
                               float scale = 0.5f) {
   Embeddings m;
   Status s = Embeddings::Create(dim, users, items, seed, &m, scale * std::sqrt(float(dim)));
-  (void)s;
+  EXPECT_TRUE(s.ok()) << s.ToString();
   return m;
 }
 
@@ -33,7 +35,7 @@ inline Interactions RandomData(uint32_t users, uint32_t items, double density, u
   for (size_t n = pairs.size(); n > 1; --n) std::swap(pairs[n - 1], pairs[rng.Uniform(n)]);
   Interactions d;
   Status s = Interactions::Build(pairs, users, items, &d);
-  (void)s;
+  EXPECT_TRUE(s.ok()) << s.ToString();
   return d;
 }
 

@@ -5,11 +5,14 @@
 #include <vector>
 
 #include "rpc/checked_methods.h"
+#include "rpc/grpc_status.h"
 #include "store/store.h"
 #include "trainer/online/online_loop.h"
 
 namespace plumb::online {
 namespace {
+
+using rpc::ToGrpcStatus;
 
 plumb::v1::GateOutcome WireGate(store::GateOutcome gate) {
   switch (gate) {
@@ -71,30 +74,6 @@ void FillVersionInfo(const store::VersionManifest& m, uint64_t active, plumb::v1
 }
 
 }  // namespace
-
-grpc::Status ToGrpcStatus(const Status& status, const std::string& what) {
-  const std::string message = what + ": " + status.message();
-  switch (status.code()) {
-    case Status::Code::kOk:
-      return grpc::Status::OK;
-    case Status::Code::kNotFound:
-      return grpc::Status(grpc::StatusCode::NOT_FOUND, message);
-    case Status::Code::kFailedPrecondition:
-      return grpc::Status(grpc::StatusCode::FAILED_PRECONDITION, message);
-    case Status::Code::kInvalidArgument:
-      return grpc::Status(grpc::StatusCode::INVALID_ARGUMENT, message);
-    case Status::Code::kUnavailable:
-    case Status::Code::kIoError:
-      return grpc::Status(grpc::StatusCode::UNAVAILABLE, message);
-    case Status::Code::kResourceExhausted:
-      return grpc::Status(grpc::StatusCode::RESOURCE_EXHAUSTED, message);
-    case Status::Code::kAborted:
-      return grpc::Status(grpc::StatusCode::ABORTED, message);
-    case Status::Code::kCorruption:
-      return grpc::Status(grpc::StatusCode::INTERNAL, message);
-  }
-  return grpc::Status(grpc::StatusCode::INTERNAL, message);
-}
 
 ControlService::ControlService(store::Store* store, OnlineLoop* loop,
                                const CallAdmission& admission, TrainMetrics* metrics)

@@ -65,10 +65,4 @@ class ControlService final : public plumb::v1::ModelControl::Service {
   const CallAdmission admission_;
 };
 
-// The gRPC status for a failed store or loop call: NotFound -> NOT_FOUND,
-// FailedPrecondition -> FAILED_PRECONDITION, InvalidArgument -> INVALID_ARGUMENT,
-// Unavailable / IoError -> UNAVAILABLE, anything else -> INTERNAL. `what` prefixes the
-// message.
-grpc::Status ToGrpcStatus(const Status& status, const std::string& what);
-
 }  // namespace plumb::online

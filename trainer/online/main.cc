@@ -109,7 +109,8 @@ JetStreamOptions JetStreamOptionsFrom(const TrainConfig& config, const IngestLim
   o.max_message_events = limits.max_batch_events;
   o.create_replicas = static_cast<int>(config.jetstream_create_replicas);
   o.max_future_skew_ms = limits.max_future_skew_ms;
-  plumb::ParseDuration(config.jetstream_ack_wait, &o.ack_wait_ms);  // checked by the config
+  // Checked when the configuration was read, so it cannot fail here.
+  plumb::ParseDuration(config.jetstream_ack_wait, &o.ack_wait_ms).IgnoreError();
   return o;
 }
 

@@ -57,20 +57,6 @@ std::string StepText(int64_t ms) {
   return std::to_string(ms) + " ms";
 }
 
-const char* GateName(store::GateOutcome gate) {
-  switch (gate) {
-    case store::GateOutcome::kPassed:
-      return "passed";
-    case store::GateOutcome::kFailed:
-      return "failed";
-    case store::GateOutcome::kSkipped:
-      return "skipped";
-    case store::GateOutcome::kUnspecified:
-      break;
-  }
-  return "unrecorded";
-}
-
 void Card(std::string* s, const std::string& key, const std::string& label, double value,
           const std::string& unit, int digits = 3) {
   *s += "<div class=\"card\" data-key=\"" + key + "\" data-value=\"" + ExactNumber(value) +
@@ -232,7 +218,9 @@ void TrainStatusPage::Sample(int64_t now_ms) {
   }
   previous_ = now;
   have_previous_ = true;
-  ring_.Add(now_ms, v);
+  // v holds one value per series, so the only refusal is a clock step backwards: that point
+  // is dropped and the next sample is taken as usual.
+  ring_.Add(now_ms, v).IgnoreError();
 }
 
 nlohmann::json TrainStatusPage::Json(int64_t now_ms) const {
@@ -276,7 +264,7 @@ nlohmann::json TrainStatusPage::Json(int64_t now_ms) const {
       json v;
       v["version"] = m.version;
       v["created_ms"] = m.created_ms;
-      v["gate"] = GateName(m.gate);
+      v["gate"] = std::string(store::GateOutcomeName(m.gate, "unrecorded"));
       v["gate_reason"] = m.gate_reason;
       v["validation_recall"] = Number(m.validation_recall);
       v["validation_k"] = m.validation_k;

@@ -1,4 +1,6 @@
-// Starts plumb-train as a child process for tests, with its output appended to a log file.
+// A program (plumb-train, plumb-serve) started as a child process for tests, its stdout and
+// stderr appended to a log file; and the loopback port and log-tail helpers such tests need.
+// The one child-process launcher of every suite.
 #pragma once
 
 #include <fcntl.h>
@@ -16,7 +18,7 @@
 
 extern char** environ;
 
-namespace plumb::online::testing {
+namespace plumb::testing {
 
 // A TCP port on 127.0.0.1 that was free a moment ago (the system picks it).
 inline int FreeLoopbackPort() {
@@ -65,6 +67,17 @@ class ChildProcess {
     reaped_ = true;
     return status;
   }
+  // Waits at most timeout_ms for the exit: true, with the wait status in *status, if it came.
+  bool WaitFor(int timeout_ms, int* status) {
+    for (int waited = 0; waited <= timeout_ms; waited += 10) {
+      if (::waitpid(pid_, status, WNOHANG) == pid_) {
+        reaped_ = true;
+        return true;
+      }
+      ::usleep(10'000);
+    }
+    return false;
+  }
 
  private:
   pid_t pid_ = -1;
@@ -79,4 +92,4 @@ inline std::string ReadTail(const std::string& path, size_t max_bytes = 4000) {
   return s.size() > max_bytes ? s.substr(s.size() - max_bytes) : s;
 }
 
-}  // namespace plumb::online::testing
+}  // namespace plumb::testing

@@ -1,5 +1,7 @@
 #include "core/approx_index.h"
 
+#include <hnswlib/hnswlib.h>
+
 #include <algorithm>
 #include <atomic>
 #include <chrono>
@@ -8,8 +10,6 @@
 #include <stdexcept>
 #include <string>
 #include <thread>
-
-#include <hnswlib/hnswlib.h>
 
 #include "core/thread_priority.h"
 

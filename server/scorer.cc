@@ -155,9 +155,8 @@ bool ApproxTopK(const Snapshot& snap, const ApproxIndex* index, const ApproxQuer
 // The `count` best rows of the whole item matrix by dot product with `user`: the pruned exact
 // scan (int8 estimates first, exact float scores where they can matter; same answer as a full
 // float scan, see core/scan.h).
-Status ScanTopK(const Snapshot& snap, const ApproxQueryOptions& how,
-                std::span<const float> user, uint32_t count,
-                std::span<const uint64_t> excluded_bitmap, size_t bitmap_bound,
+Status ScanTopK(const Snapshot& snap, const ApproxQueryOptions& how, std::span<const float> user,
+                uint32_t count, std::span<const uint64_t> excluded_bitmap, size_t bitmap_bound,
                 std::span<const uint32_t> excluded, Deadline deadline, Scratch& s,
                 RankedList* out) {
   if (ApproxTopK(snap, snap.dot_index(), how, user, {}, count, excluded_bitmap, bitmap_bound,
@@ -320,8 +319,8 @@ Status Scorer::SimilarItems(const Snapshot& snap, const SimilarQuery& query,
   const uint32_t self[1] = {*item};
   std::span<const uint32_t> excluded = Union(self, s.request_rows, &s.merged);
   if (ApproxTopK(snap, snap.cosine_index(), approx_, snap.item_vector(*item), snap.item_norms(),
-                 query.count, withdrawn, withdrawn.empty() ? 0 : query.withdrawn->size(),
-                 excluded, s, out)) {
+                 query.count, withdrawn, withdrawn.empty() ? 0 : query.withdrawn->size(), excluded,
+                 s, out)) {
     if (Passed(query.deadline)) return DeadlinePassed(snap.num_items(), snap.num_items());
     return Status::Ok();
   }

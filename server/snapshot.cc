@@ -198,7 +198,8 @@ double Snapshot::approx_build_seconds() const {
 
 size_t Snapshot::memory_bytes() const {
   return (dot_index_ ? dot_index_->memory_bytes() : 0) +
-         (cosine_index_ ? cosine_index_->memory_bytes() : 0) + (items_.rows() + users_.rows()) * items_.dim() * sizeof(float) + item_codes_.bytes() +
+         (cosine_index_ ? cosine_index_->memory_bytes() : 0) +
+         (items_.rows() + users_.rows()) * items_.dim() * sizeof(float) + item_codes_.bytes() +
          item_norms_.capacity() * sizeof(float) + item_gram_.capacity() * sizeof(double) +
          item_index_.memory_bytes() + user_index_.memory_bytes() +
          item_degrees_.capacity() * sizeof(uint64_t) +

@@ -165,16 +165,15 @@ class Snapshot {
 // Every block is read with RocksDB's checksum verification, so a version with a damaged
 // block is refused before it could be swapped in.
 // Errors: NotFound if the version is not kept; Corruption for missing, wrongly sized or
-// damaged (checksum) blocks, dimensions that disagree with the manifest, non-finite values; IoError from the
-// store; ResourceExhausted when the matrices cannot be allocated. *out is unchanged on error.
-// Thread-safe with respect to the store (see store.h); allocates the whole snapshot.
+// damaged (checksum) blocks, dimensions that disagree with the manifest, non-finite values; IoError
+// from the store; ResourceExhausted when the matrices cannot be allocated. *out is unchanged on
+// error. Thread-safe with respect to the store (see store.h); allocates the whole snapshot.
 //
 // The interaction sets in the store are live (they keep growing after the version was
 // trained), so "seen" includes interactions newer than the version. For exclusion that is
 // what a caller wants: an item the user took yesterday should not be recommended today.
 // `approx` says whether the snapshot also gets approximate indexes (SnapshotParts::approx).
 Status LoadSnapshot(const store::Store& store, uint64_t version,
-                    std::shared_ptr<const Snapshot>* out,
-                    const ApproxServingOptions& approx = {});
+                    std::shared_ptr<const Snapshot>* out, const ApproxServingOptions& approx = {});
 
 }  // namespace plumb::server

@@ -13,7 +13,6 @@
 // next to exact's. The floor printed beside the exact scan is one read of the int8 codes
 // (what any exact scan must touch), measured in the same run.
 #include <CLI/CLI.hpp>
-
 #include <algorithm>
 #include <chrono>
 #include <cmath>
@@ -117,8 +116,7 @@ Status MakeParts(const Args& a, SnapshotParts* p) {
       float* dst = p->items.data() + (size_t{c} * base + i) * dim;
       double norm = 0;
       for (uint32_t d = 0; d < dim; ++d) norm += double{src[d]} * src[d];
-      const float sigma = c == 0 ? 0.0f
-                                 : static_cast<float>(a.tile_noise * std::sqrt(norm / dim));
+      const float sigma = c == 0 ? 0.0f : static_cast<float>(a.tile_noise * std::sqrt(norm / dim));
       for (uint32_t d = 0; d < dim; ++d) dst[d] = src[d] + sigma * gauss(rng);
       p->item_ids.push_back(c == 0 ? trainer::ToolLabel(i)
                                    : trainer::ToolLabel(i) + "#" + std::to_string(c));
@@ -134,9 +132,10 @@ Status MakeParts(const Args& a, SnapshotParts* p) {
     p->seen_offsets.push_back(p->seen_items.size());
   }
   if (a.tile > 1) {
-    std::printf("catalogue tiled %u times to %u items (copies: the fitted rows plus Gaussian "
-                "noise of %.0f %% of each row's RMS; same degrees)\n",
-                a.tile, items, 100 * a.tile_noise);
+    std::printf(
+        "catalogue tiled %u times to %u items (copies: the fitted rows plus Gaussian "
+        "noise of %.0f %% of each row's RMS; same degrees)\n",
+        a.tile, items, 100 * a.tile_noise);
   }
   return Status::Ok();
 }
@@ -210,15 +209,17 @@ int Run(const Args& a) {
   const double build_total = Seconds(t0);
   const auto [rss_after, hwm_after] = RssMb();
   const uint32_t items = snap->num_items(), dim = snap->dim();
-  std::printf("\nsnapshot of %u items x %u: built in %.1f s, of which the two approximate "
-              "indexes %.1f s (%u build threads, links %u, build breadth %u)\n",
-              items, dim, build_total, snap->approx_build_seconds(), a.build_threads, a.links,
-              a.build_breadth);
-  std::printf("memory: float rows %.0f MB, index (dot) %.0f MB, index (cosine) %.0f MB; "
-              "process RSS %.0f -> %.0f MB, peak %.0f MB\n",
-              items * dim * 4.0 / 1e6, snap->dot_index()->memory_bytes() / 1e6,
-              snap->cosine_index() ? snap->cosine_index()->memory_bytes() / 1e6 : 0.0,
-              rss_before, rss_after, hwm_after);
+  std::printf(
+      "\nsnapshot of %u items x %u: built in %.1f s, of which the two approximate "
+      "indexes %.1f s (%u build threads, links %u, build breadth %u)\n",
+      items, dim, build_total, snap->approx_build_seconds(), a.build_threads, a.links,
+      a.build_breadth);
+  std::printf(
+      "memory: float rows %.0f MB, index (dot) %.0f MB, index (cosine) %.0f MB; "
+      "process RSS %.0f -> %.0f MB, peak %.0f MB\n",
+      items * dim * 4.0 / 1e6, snap->dot_index()->memory_bytes() / 1e6,
+      snap->cosine_index() ? snap->cosine_index()->memory_bytes() / 1e6 : 0.0, rss_before,
+      rss_after, hwm_after);
   std::vector<uint32_t> group_of;
   constexpr size_t kGroups = 5;
   if (!popularity_groups(snap->item_degrees(), kGroups, &group_of).ok()) return 1;
@@ -340,13 +341,13 @@ int Run(const Args& a) {
 
 int main(int argc, char** argv) {
   plumb::server::Args a;
-  CLI::App app{"bench_catalogue: Recommend and SimilarItems at 1M-10M items, the exact pruned "
-               "scan against the approximate index, on a CPR-fitted synthetic world"};
+  CLI::App app{
+      "bench_catalogue: Recommend and SimilarItems at 1M-10M items, the exact pruned "
+      "scan against the approximate index, on a CPR-fitted synthetic world"};
   app.add_option("--users", a.users, "members of the synthetic world")->capture_default_str();
   app.add_option("--items", a.items, "tools fitted (before tiling)")->capture_default_str();
   app.add_option("--dim", a.dim, "embedding dimension")->capture_default_str();
-  app.add_option("--interactions", a.interactions, "target training pairs")
-      ->capture_default_str();
+  app.add_option("--interactions", a.interactions, "target training pairs")->capture_default_str();
   app.add_option("--zipf", a.zipf, "popularity skew of the world")->capture_default_str();
   app.add_option("--epochs", a.epochs, "CPR epochs")->capture_default_str();
   app.add_option("--tile", a.tile, "repeat the fitted catalogue this many times")
@@ -354,7 +355,8 @@ int main(int argc, char** argv) {
   app.add_option("--tile-noise", a.tile_noise, "noise of each copy, relative to the row's RMS")
       ->capture_default_str();
   app.add_option("--queries", a.queries, "calls per path")->capture_default_str();
-  app.add_option("--breadths", a.breadths, "search breadths to sweep")->delimiter(',')
+  app.add_option("--breadths", a.breadths, "search breadths to sweep")
+      ->delimiter(',')
       ->capture_default_str();
   app.add_option("--links", a.links, "graph links per node")->capture_default_str();
   app.add_option("--build-breadth", a.build_breadth, "candidate list while inserting")

@@ -40,10 +40,20 @@ import urllib.request
 TOKEN = "loopback-test-token"
 
 
+_handed_out = set()
+
+
 def free_port():
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
+    """A loopback port free now and never handed out before by this test: a port is picked
+    long before its process binds it, and the kernel may offer a released port again (a
+    trainer once got a nats route port this way and failed with 'address in use')."""
+    while True:
+        with socket.socket() as s:
+            s.bind(("127.0.0.1", 0))
+            port = s.getsockname()[1]
+        if port not in _handed_out:
+            _handed_out.add(port)
+            return port
 
 
 def fail(msg, logs=()):

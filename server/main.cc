@@ -12,6 +12,7 @@
 #include <iostream>
 #include <memory>
 
+#include "core/clock.h"
 #include "rpc/bearer_auth.h"
 #include "rpc/listen_address.h"
 #include "rpc/listen_probe.h"
@@ -34,12 +35,7 @@
 namespace {
 
 using namespace plumb::server;
-
-int64_t NowMs() {
-  return std::chrono::duration_cast<std::chrono::milliseconds>(
-             std::chrono::system_clock::now().time_since_epoch())
-      .count();
-}
+using plumb::NowMs;
 
 // A directory of our own for the secondary's info log, removed at exit if we made it.
 class ScratchDir {

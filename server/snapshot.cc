@@ -7,6 +7,7 @@
 #include <future>
 #include <system_error>
 
+#include "core/clock.h"
 #include "core/scan.h"
 #include "server/fold_in.h"
 #include "store/store.h"
@@ -87,12 +88,6 @@ Status RunBoth(F&& side, G&& main) {
   Status b = main();
   Status a = helper.get();
   return a.ok() ? b : a;
-}
-
-int64_t NowMs() {
-  return std::chrono::duration_cast<std::chrono::milliseconds>(
-             std::chrono::system_clock::now().time_since_epoch())
-      .count();
 }
 
 }  // namespace

@@ -8,16 +8,11 @@
 #include <utility>
 #include <vector>
 
+#include "core/clock.h"
 #include "trainer/online/event_validation.h"
 
 namespace plumb::online {
 namespace {
-
-int64_t NowMs() {
-  return std::chrono::duration_cast<std::chrono::milliseconds>(
-             std::chrono::system_clock::now().time_since_epoch())
-      .count();
-}
 
 plumb::v1::RejectReason WireRejectReason(RejectReason reason) {
   switch (reason) {

@@ -18,17 +18,12 @@
 #include <sstream>
 #include <utility>
 
+#include "core/clock.h"
 #include "plumb/v1/ingest.pb.h"
 #include "rpc/message_decoding.h"
 
 namespace plumb::online {
 namespace {
-
-int64_t NowMs() {
-  return std::chrono::duration_cast<std::chrono::milliseconds>(
-             std::chrono::system_clock::now().time_since_epoch())
-      .count();
-}
 
 std::string NatsError(natsStatus s, jsErrCode jerr = static_cast<jsErrCode>(0)) {
   std::string text = natsStatus_GetText(s);

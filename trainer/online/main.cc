@@ -25,6 +25,7 @@
 #include <mutex>
 #include <thread>
 
+#include "core/clock.h"
 #include "rpc/listen_probe.h"
 #include "status/http_endpoint.h"
 #include "status/periodic_task.h"
@@ -43,14 +44,9 @@
 
 namespace {
 
+using plumb::NowMs;
 using plumb::Status;
 using namespace plumb::online;
-
-int64_t NowMs() {
-  return std::chrono::duration_cast<std::chrono::milliseconds>(
-             std::chrono::system_clock::now().time_since_epoch())
-      .count();
-}
 
 // Copies the committer's totals and the loop's status into the metrics once a second.
 class MetricsPoller {

@@ -12,6 +12,7 @@
 #include <mutex>
 #include <thread>
 
+#include "core/clock.h"
 #include "core/thread_priority.h"
 #include "store/store.h"
 #include "trainer/embeddings.h"
@@ -25,12 +26,6 @@ namespace plumb::online {
 namespace {
 
 using Clock = std::chrono::steady_clock;
-
-int64_t NowMs() {
-  return std::chrono::duration_cast<std::chrono::milliseconds>(
-             std::chrono::system_clock::now().time_since_epoch())
-      .count();
-}
 
 constexpr char kAutoActivateKey[] = "auto_activate";
 constexpr char kAutoActivateReasonKey[] = "auto_activate_reason";

@@ -6,8 +6,9 @@
 #include <fstream>
 
 #include "cli/commands.h"
-#include "trainer/online/training_config.h"
 #include "cli/store_access.h"
+#include "core/utc_time.h"
+#include "trainer/online/training_config.h"
 
 namespace plumb::cli {
 namespace {
@@ -108,14 +109,7 @@ Status RunActivate(const AdminArgs& args) {
 namespace {
 
 // "2026-12-02 21:30:05 UTC" for ms since the epoch.
-std::string FormatUtc(int64_t ms) {
-  const std::time_t seconds = static_cast<std::time_t>(ms / 1000);
-  std::tm utc{};
-  gmtime_r(&seconds, &utc);
-  char buf[48];
-  std::strftime(buf, sizeof buf, "%Y-%m-%d %H:%M:%S UTC", &utc);
-  return buf;
-}
+std::string FormatUtc(int64_t ms) { return UtcText(ms, "%Y-%m-%d %H:%M:%S UTC"); }
 
 }  // namespace
 

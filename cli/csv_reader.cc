@@ -11,7 +11,8 @@ namespace {
 constexpr size_t kMaxIdBytes = 256;
 
 std::string_view Trim(std::string_view s) {
-  while (!s.empty() && (s.back() == '\r' || s.back() == ' ' || s.back() == '\t')) s.remove_suffix(1);
+  while (!s.empty() && (s.back() == '\r' || s.back() == ' ' || s.back() == '\t'))
+    s.remove_suffix(1);
   while (!s.empty() && (s.front() == ' ' || s.front() == '\t')) s.remove_prefix(1);
   return s;
 }
@@ -81,6 +82,16 @@ Status SplitCsvHeader(const std::string& path, std::string_view line,
   return Status::Ok();
 }
 
+Status OpenCsv(const std::string& path, std::ifstream* in, std::string* header_line,
+               std::vector<std::string>* header) {
+  in->open(path);
+  if (!*in) return Status::NotFound("cannot open " + path);
+  if (!std::getline(*in, *header_line)) {
+    return Status::InvalidArgument(path + ": empty file, expected a header line");
+  }
+  return SplitCsvHeader(path, *header_line, header);
+}
+
 Status MissingColumnsError(const std::string& path, std::string_view required,
                            std::string_view header_line) {
   std::string_view shown = StripUtf8Bom(header_line);
@@ -105,21 +116,23 @@ Status ReadEventCsv(const std::string& path, const CsvReadOptions& options,
                     std::vector<CsvEvent>* out, CsvReadReport* report) {
   out->clear();
   *report = CsvReadReport{};
-  std::ifstream in(path);
-  if (!in) return Status::NotFound("cannot open " + path);
-
+  std::ifstream in;
   std::string line;
   std::vector<std::string> fields;
-  if (!std::getline(in, line)) return Status::InvalidArgument(path + ": empty file, expected a header line");
-  PLUMB_RETURN_IF_ERROR(SplitCsvHeader(path, line, &fields));
+  PLUMB_RETURN_IF_ERROR(OpenCsv(path, &in, &line, &fields));
   std::optional<size_t> col_user, col_item, col_ts, col_weight, col_event;
   for (size_t c = 0; c < fields.size(); ++c) {
     const std::string& name = fields[c];
-    if (name == "user") col_user = c;
-    else if (name == "item") col_item = c;
-    else if (name == "ts") col_ts = c;
-    else if (name == "weight") col_weight = c;
-    else if (name == "event_id") col_event = c;
+    if (name == "user")
+      col_user = c;
+    else if (name == "item")
+      col_item = c;
+    else if (name == "ts")
+      col_ts = c;
+    else if (name == "weight")
+      col_weight = c;
+    else if (name == "event_id")
+      col_event = c;
   }
   if (!col_user || !col_item) {
     return MissingColumnsError(path, "'user' and 'item'", line);
@@ -173,8 +186,8 @@ Status ReadEventCsv(const std::string& path, const CsvReadOptions& options,
     if (const std::string* ts = field(col_ts); ts && !ts->empty()) {
       auto [p, ec] = std::from_chars(ts->data(), ts->data() + ts->size(), ev.timestamp_ms);
       if (ec != std::errc() || p != ts->data() + ts->size() || ev.timestamp_ms < 0) {
-        PLUMB_RETURN_IF_ERROR(fail_or_skip("ts '" + *ts +
-                                           "' is not a non-negative integer (milliseconds)"));
+        PLUMB_RETURN_IF_ERROR(
+            fail_or_skip("ts '" + *ts + "' is not a non-negative integer (milliseconds)"));
         continue;
       }
     }

@@ -3,6 +3,7 @@
 #pragma once
 
 #include <cstdint>
+#include <fstream>
 #include <functional>
 #include <string>
 #include <string_view>
@@ -27,6 +28,12 @@ std::string_view StripUtf8Bom(std::string_view text);
 // InvalidArgument naming `path` for a malformed line.
 Status SplitCsvHeader(const std::string& path, std::string_view line,
                       std::vector<std::string>* names);
+
+// Opens the CSV file `path` and reads its header line into *header_line and, split as by
+// SplitCsvHeader, *header; *in is left at the first data line. NotFound when the file cannot
+// be opened, InvalidArgument naming `path` for an empty file or a malformed header.
+Status OpenCsv(const std::string& path, std::ifstream* in, std::string* header_line,
+               std::vector<std::string>* header);
 
 // The error for a header that lacks a required column: names the file, the columns needed
 // and the line found, and, when the line holds tabs or semicolons but no comma, says that

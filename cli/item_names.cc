@@ -9,13 +9,10 @@
 namespace plumb::cli {
 
 Status ItemNames::Read(const std::string& path, ItemNames* out) {
-  std::ifstream in(path);
-  if (!in) return Status::NotFound("cannot open " + path);
+  std::ifstream in;
   std::string line;
   std::vector<std::string> fields;
-  if (!std::getline(in, line))
-    return Status::InvalidArgument(path + ": empty file, expected a header line");
-  PLUMB_RETURN_IF_ERROR(SplitCsvHeader(path, line, &fields));
+  PLUMB_RETURN_IF_ERROR(OpenCsv(path, &in, &line, &fields));
   std::optional<size_t> item_col, name_col;
   for (size_t c = 0; c < fields.size(); ++c) {
     if (fields[c] == "item") item_col = c;

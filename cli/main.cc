@@ -114,16 +114,21 @@ int main(int argc, char** argv) {
   synth.items = 2000;
   synth.target_interactions = 150000;
   std::string synth_out;
-  auto* synth_cmd = app.add_subcommand("synth", "generate a biased demo world (a tool-lending library)");
-  synth_cmd->add_option("--out", synth_out, "directory for events.csv, test.csv, items.csv")->required();
+  auto* synth_cmd =
+      app.add_subcommand("synth", "generate a biased demo world (a tool-lending library)");
+  synth_cmd->add_option("--out", synth_out, "directory for events.csv, test.csv, items.csv")
+      ->required();
   AddWorldOptions(synth_cmd, &synth);
 
   ImportArgs import;
   auto* import_cmd = app.add_subcommand("import", "append events from a CSV file to a store's log");
-  import_cmd->add_option("--events", import.events, "CSV with columns user,item[,ts][,weight][,event_id]")
-      ->required()->check(CLI::ExistingFile);
+  import_cmd
+      ->add_option("--events", import.events, "CSV with columns user,item[,ts][,weight][,event_id]")
+      ->required()
+      ->check(CLI::ExistingFile);
   import_cmd->add_option("--db", import.db, "store directory (created if missing)")->required();
-  import_cmd->add_flag("--skip-bad", import.skip_bad, "skip and count malformed lines instead of stopping");
+  import_cmd->add_flag("--skip-bad", import.skip_bad,
+                       "skip and count malformed lines instead of stopping");
 
   SplitArgs split;
   auto* split_cmd = app.add_subcommand(
@@ -158,7 +163,8 @@ int main(int argc, char** argv) {
   split_cmd->add_flag("--skip-bad", split.skip_bad, "skip and count malformed lines");
 
   FitArgs fit;
-  auto* fit_cmd = app.add_subcommand("fit", "import events (optional), train, publish and activate a version");
+  auto* fit_cmd =
+      app.add_subcommand("fit", "import events (optional), train, publish and activate a version");
   fit_cmd->add_option("--events", fit.import.events, "CSV to import first (columns user,item[,ts])")
       ->check(CLI::ExistingFile);
   fit_cmd->add_option("--db", fit.import.db, "store directory (created if missing)")->required();
@@ -188,8 +194,9 @@ int main(int argc, char** argv) {
   tune.fit.holdout = 0.1;
   auto* tune_cmd = app.add_subcommand(
       "tune", "choose CPR's debiasing strength (beta) on a debiased validation split");
-  tune_cmd->add_option("--events", tune.fit.import.events,
-                       "CSV to import first (columns user,item[,ts])")
+  tune_cmd
+      ->add_option("--events", tune.fit.import.events,
+                   "CSV to import first (columns user,item[,ts])")
       ->check(CLI::ExistingFile);
   auto* tune_db = tune_cmd->add_option(
       "--db", tune.fit.import.db,
@@ -206,8 +213,9 @@ int main(int argc, char** argv) {
       ->delimiter(',')
       ->check(CLI::Range(1.0, 100.0))
       ->default_str("1,2,3,5");
-  tune_cmd->add_option("--tune-k3-shares", tune.k3_shares,
-                       "shares of k = 3 samples to try with each beta (comma-separated)")
+  tune_cmd
+      ->add_option("--tune-k3-shares", tune.k3_shares,
+                   "shares of k = 3 samples to try with each beta (comma-separated)")
       ->delimiter(',')
       ->check(CLI::Range(0.0, 1.0))
       ->default_str("0");
@@ -224,7 +232,9 @@ int main(int argc, char** argv) {
   auto* eval_cmd = app.add_subcommand(
       "eval", "Recall, NDCG, ARP, Gini, coverage, group shares of versions on a test file");
   eval_cmd->add_option("--db", eval.db, "store directory")->required();
-  eval_cmd->add_option("--test", eval.test, "CSV with columns user,item")->required()->check(CLI::ExistingFile);
+  eval_cmd->add_option("--test", eval.test, "CSV with columns user,item")
+      ->required()
+      ->check(CLI::ExistingFile);
   eval_cmd
       ->add_option("--model-version", eval.versions,
                    "version to evaluate (default: the active one); repeat it or give a "
@@ -263,8 +273,10 @@ int main(int argc, char** argv) {
   compare_cmd->add_flag("--skip-bad", compare.skip_bad,
                         "with --events: skip and count malformed lines");
   compare_cmd->add_option("--dim", compare.dim, "embedding dimension")->capture_default_str();
-  compare_cmd->add_option("--epochs", compare.epochs, "epochs per objective")->capture_default_str();
-  compare_cmd->add_option("--beta", compare.beta, "CPR's dynamic-sampling beta")->capture_default_str();
+  compare_cmd->add_option("--epochs", compare.epochs, "epochs per objective")
+      ->capture_default_str();
+  compare_cmd->add_option("--beta", compare.beta, "CPR's dynamic-sampling beta")
+      ->capture_default_str();
   compare_cmd->add_option("--threads", compare.threads, "threads")->capture_default_str();
   compare_cmd->add_option("--k", compare.k, "cut-off K")->capture_default_str();
   compare_cmd->add_option("--groups", compare.groups, "popularity groups")->capture_default_str();
@@ -273,7 +285,8 @@ int main(int argc, char** argv) {
   AdminArgs admin;
   auto* versions_cmd = app.add_subcommand("versions", "list the kept embedding versions");
   versions_cmd->add_option("--db", admin.db, "store directory")->required();
-  auto* activate_cmd = app.add_subcommand("activate", "make a kept version active (promote or roll back)");
+  auto* activate_cmd =
+      app.add_subcommand("activate", "make a kept version active (promote or roll back)");
   activate_cmd->add_option("--db", admin.db, "store directory")->required();
   activate_cmd->add_option("--model-version", admin.version, "version number")->required();
   auto* pin_cmd = app.add_subcommand("pin", "pin a kept version: never pruned, whatever its age");
@@ -282,17 +295,20 @@ int main(int argc, char** argv) {
   auto* unpin_cmd = app.add_subcommand("unpin", "unpin a version: the retention rules apply again");
   unpin_cmd->add_option("--db", admin.db, "store directory")->required();
   unpin_cmd->add_option("--model-version", admin.version, "version number")->required();
-  auto* inspect_cmd = app.add_subcommand("inspect", "summarise a store: log, cursor, ids, versions");
+  auto* inspect_cmd =
+      app.add_subcommand("inspect", "summarise a store: log, cursor, ids, versions");
   inspect_cmd->add_option("--db", admin.db, "store directory")->required();
   inspect_cmd->add_flag("--verify", admin.verify,
                         "read every block and record; exit non-zero when anything is damaged");
   auto* repair_cmd = app.add_subcommand(
-      "repair", "recover a damaged store: set unreadable files aside, keep every readable record, "
-                "drop incomplete versions (plumb-train must be stopped)");
+      "repair",
+      "recover a damaged store: set unreadable files aside, keep every readable record, "
+      "drop incomplete versions (plumb-train must be stopped)");
   repair_cmd->add_option("--db", admin.db, "store directory")->required();
   auto* forget_cmd = app.add_subcommand(
-      "forget", "erase a user: their events, interactions and id from the log, their row from "
-                "every kept version (plumb-train must be stopped)");
+      "forget",
+      "erase a user: their events, interactions and id from the log, their row from "
+      "every kept version (plumb-train must be stopped)");
   forget_cmd->add_option("--db", admin.db, "store directory")->required();
   forget_cmd->add_option("--user", admin.users, "external user id (repeatable)")->required();
   auto* export_cmd = app.add_subcommand(
@@ -321,27 +337,38 @@ int main(int argc, char** argv) {
   }
 
   Status s;
-  if (*synth_cmd) s = RunSynth(synth, synth_out);
-  else if (*import_cmd) s = RunImport(import);
+  if (*synth_cmd)
+    s = RunSynth(synth, synth_out);
+  else if (*import_cmd)
+    s = RunImport(import);
   else if (*split_cmd)
     s = RunSplit(split);
   else if (*fit_cmd)
     s = RunFit(fit);
   else if (*eval_cmd)
     s = RunEval(eval);
-  else if (*compare_cmd) s = RunCompare(compare);
-  else if (*tune_cmd) s = RunTune(tune);
-  else if (*versions_cmd) s = RunVersions(admin);
-  else if (*activate_cmd) s = RunActivate(admin);
+  else if (*compare_cmd)
+    s = RunCompare(compare);
+  else if (*tune_cmd)
+    s = RunTune(tune);
+  else if (*versions_cmd)
+    s = RunVersions(admin);
+  else if (*activate_cmd)
+    s = RunActivate(admin);
   else if (*pin_cmd)
     s = RunPin(admin, true);
   else if (*unpin_cmd)
     s = RunPin(admin, false);
-  else if (*inspect_cmd) s = RunInspect(admin);
-  else if (*repair_cmd) s = RunRepair(admin);
-  else if (*forget_cmd) s = RunForget(admin);
-  else if (*export_cmd) s = RunExport(admin);
-  else if (*top_cmd) s = RunTop(top);
+  else if (*inspect_cmd)
+    s = RunInspect(admin);
+  else if (*repair_cmd)
+    s = RunRepair(admin);
+  else if (*forget_cmd)
+    s = RunForget(admin);
+  else if (*export_cmd)
+    s = RunExport(admin);
+  else if (*top_cmd)
+    s = RunTop(top);
   if (!s.ok()) {
     std::fprintf(stderr, "plumb: %s\n", s.ToString().c_str());
     return 1;

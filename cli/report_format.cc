@@ -72,8 +72,7 @@ std::string FormatReportTable(const std::vector<LabelledReport>& reports) {
   });
   add("distance to test shares",
       [](const RankingReport& r) { return Fixed(r.group_shift.distance, 3); });
-  add("users evaluated",
-      [](const RankingReport& r) { return std::to_string(r.users_evaluated); });
+  add("users evaluated", [](const RankingReport& r) { return std::to_string(r.users_evaluated); });
 
   size_t name_w = 0;
   for (const auto& row : rows) name_w = std::max(name_w, row.first.size());
@@ -84,7 +83,9 @@ std::string FormatReportTable(const std::vector<LabelledReport>& reports) {
     col_w.push_back(w);
   }
   const std::string test_label = "test";
-  auto pad_left = [](const std::string& s, size_t w) { return std::string(w - std::min(w, s.size()), ' ') + s; };
+  auto pad_left = [](const std::string& s, size_t w) {
+    return std::string(w - std::min(w, s.size()), ' ') + s;
+  };
   std::string out = std::string(name_w, ' ');
   for (size_t c = 0; c < reports.size(); ++c) out += "  " + pad_left(reports[c].first, col_w[c]);
   if (groups) out += "  " + pad_left(test_label, 6);
@@ -101,8 +102,7 @@ std::string FormatReportTable(const std::vector<LabelledReport>& reports) {
   return out;
 }
 
-std::string FormatReportJson(const std::vector<LabelledReport>& reports,
-                             const std::string& extra) {
+std::string FormatReportJson(const std::vector<LabelledReport>& reports, const std::string& extra) {
   std::string out = "{";
   if (!reports.empty()) {
     out += "\"k\":" + std::to_string(reports.front().second.k) + ",";
@@ -141,8 +141,8 @@ std::string FormatTuneTable(const trainer::TuneReport& report, uint32_t k) {
     const auto& s = row.scores;
     std::snprintf(line, sizeof line, "%-6g %-7g %10.4f %10.4f %8.1f %+9.3f %9.3f %9.4f  %s%s\n",
                   row.candidate.beta, row.candidate.cpr_mix_share, s.recall, s.ndcg, s.arp,
-                  s.shift.shift, s.shift.distance, row.standard_error,
-                  row.chosen ? "chosen" : "", !row.chosen && row.near_tie ? "near-tie" : "");
+                  s.shift.shift, s.shift.distance, row.standard_error, row.chosen ? "chosen" : "",
+                  !row.chosen && row.near_tie ? "near-tie" : "");
     out += line;
   }
   out += "validation split's group shares (tail .. head):";

@@ -50,8 +50,9 @@ class ItemLists {
 double recall_at_k(std::span<const uint32_t> ranked, std::span<const uint32_t> relevant,
                    std::size_t k);
 
-// NDCG@k with binary gains (Järvelin & Kekäläinen, 2002): DCG = Σ_{rank r=1..k, hit} 1/log2(r+1),
-// normalised by the ideal DCG, which places min(k, |relevant|) hits at ranks 1, 2, ...
+// NDCG@k with binary gains (Järvelin & Kekäläinen, 2002):
+// DCG = Σ_{rank r=1..k, hit} 1/log2(r+1), normalised by the ideal DCG, which places
+// min(k, |relevant|) hits at ranks 1, 2, ...
 // Range [0, 1]. Returns 0 if relevant is empty or k == 0.
 double ndcg_at_k(std::span<const uint32_t> ranked, std::span<const uint32_t> relevant,
                  std::size_t k);

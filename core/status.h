@@ -16,8 +16,8 @@ class [[nodiscard]] Status {
     kOk = 0,
     kNotFound,
     kInvalidArgument,
-    kCorruption,       // stored data is unreadable or inconsistent
-    kIoError,          // the disk or the database refused an operation
+    kCorruption,  // stored data is unreadable or inconsistent
+    kIoError,     // the disk or the database refused an operation
     kFailedPrecondition,
     kResourceExhausted,
     kUnavailable,
@@ -27,11 +27,17 @@ class [[nodiscard]] Status {
   Status() = default;
   static Status Ok() { return Status(); }
   static Status NotFound(std::string msg) { return Status(Code::kNotFound, std::move(msg)); }
-  static Status InvalidArgument(std::string msg) { return Status(Code::kInvalidArgument, std::move(msg)); }
+  static Status InvalidArgument(std::string msg) {
+    return Status(Code::kInvalidArgument, std::move(msg));
+  }
   static Status Corruption(std::string msg) { return Status(Code::kCorruption, std::move(msg)); }
   static Status IoError(std::string msg) { return Status(Code::kIoError, std::move(msg)); }
-  static Status FailedPrecondition(std::string msg) { return Status(Code::kFailedPrecondition, std::move(msg)); }
-  static Status ResourceExhausted(std::string msg) { return Status(Code::kResourceExhausted, std::move(msg)); }
+  static Status FailedPrecondition(std::string msg) {
+    return Status(Code::kFailedPrecondition, std::move(msg));
+  }
+  static Status ResourceExhausted(std::string msg) {
+    return Status(Code::kResourceExhausted, std::move(msg));
+  }
   static Status Unavailable(std::string msg) { return Status(Code::kUnavailable, std::move(msg)); }
   static Status Aborted(std::string msg) { return Status(Code::kAborted, std::move(msg)); }
 
@@ -59,8 +65,8 @@ std::string_view CodeName(Status::Code code);
 }  // namespace plumb
 
 // Returns early from the enclosing function when `expr` yields a non-OK Status.
-#define PLUMB_RETURN_IF_ERROR(expr)        \
-  do {                                     \
-    ::plumb::Status plumb_status_ = (expr); \
+#define PLUMB_RETURN_IF_ERROR(expr)                \
+  do {                                             \
+    ::plumb::Status plumb_status_ = (expr);        \
     if (!plumb_status_.ok()) return plumb_status_; \
   } while (0)

@@ -120,7 +120,8 @@ Status CatchUpLoop::RefreshWithdrawn(bool swapped) {
     for (store::WithdrawnItem& item : items) ids.push_back(std::move(item.item_id));
   }
   const size_t before = current ? current->size() : 0;
-  holder_->SetWithdrawn(std::make_shared<const WithdrawnItems>(std::move(ids), generation, snap.get()));
+  holder_->SetWithdrawn(
+      std::make_shared<const WithdrawnItems>(std::move(ids), generation, snap.get()));
   if (current == nullptr || current->generation() != generation) {
     spdlog::info("withdrawn items: {} (was {}; generation {})", holder_->GetWithdrawn()->size(),
                  before, generation);

@@ -49,8 +49,8 @@ std::vector<prometheus::MetricFamily> ExposureMetrics::Collect() const {
          "Served popularity / interaction popularity (1 neutral, above 1 favours the head)",
          fig.lift);
   single("plumb_exposure_gini_ratio", "Gini coefficient of item exposure in the window", s.gini);
-  single("plumb_exposure_coverage_ratio", "Share of the catalogue served at least once in the window",
-         s.coverage);
+  single("plumb_exposure_coverage_ratio",
+         "Share of the catalogue served at least once in the window", s.coverage);
   prometheus::MetricFamily exp = Gauge(
       "plumb_exposure_group_share_ratio",
       "Share of served slots per popularity group (group 1 = least popular, as in plumb eval)");
@@ -78,10 +78,10 @@ std::vector<prometheus::MetricFamily> ExposureMetrics::Collect() const {
   // validation split's shares), when the trainer recorded one with as many groups.
   const std::span<const double> target = snap->target_group_shares();
   if (!target.empty() && target.size() == s.exposure_group_shares.size() && fig.slots > 0) {
-    prometheus::MetricFamily t = Gauge(
-        "plumb_validation_target_group_share_ratio",
-        "The served version's debiased validation split: share of held-out interactions per "
-        "popularity group (group 1 = least popular), the target of served exposure");
+    prometheus::MetricFamily t =
+        Gauge("plumb_validation_target_group_share_ratio",
+              "The served version's debiased validation split: share of held-out interactions per "
+              "popularity group (group 1 = least popular), the target of served exposure");
     for (size_t g = 0; g < target.size(); ++g) {
       Add(&t, target[g], {{"group", std::to_string(g + 1)}});
     }

@@ -9,8 +9,8 @@
 //
 // with Q all item vectors (QᵀQ precomputed once per version, see item_gram) and Qᵣ the
 // user's items. Compared on simulated users (bench/server, "fold-in" section) with
-// positives-only least squares p = (QᵣᵀQᵣ + λI)⁻¹Qᵣᵀ1 and with a few BPR gradient steps on
-// sampled negatives: positives-only least squares recovers clearly less of a user's own
+// positives-only least squares p = (QᵣᵀQᵣ + λI)⁻¹Qᵣᵀ1 and with a few BPR gradient
+// steps on sampled negatives: positives-only least squares recovers clearly less of a user's own
 // top-20 (it ignores what the rest of the catalogue looks like), while this method and the
 // gradient steps recover about the same; this one is deterministic and costs one d x d
 // Cholesky solve, so it is the one served.

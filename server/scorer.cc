@@ -332,9 +332,9 @@ Status Scorer::SimilarItems(const Snapshot& snap, const SimilarQuery& query,
   };
   StopCheck stop;
   if (query.deadline != kNoDeadline) stop = past_deadline;
-  PLUMB_RETURN_IF_ERROR(top_k_by_cosine_pruned(snap.items(), snap.item_codes(), snap.item_norms(),
-                                               snap.item_vector(*item), Exclusions{withdrawn, excluded},
-                                               s.block, &s.selector, &outcome, stop));
+  PLUMB_RETURN_IF_ERROR(top_k_by_cosine_pruned(
+      snap.items(), snap.item_codes(), snap.item_norms(), snap.item_vector(*item),
+      Exclusions{withdrawn, excluded}, s.block, &s.selector, &outcome, stop));
   if (outcome.stopped_early) return DeadlinePassed(outcome.rows_scanned, snap.num_items());
   std::span<const ScoredIndex> best = s.selector.SortedResult();
   out->items.assign(best.begin(), best.end());

@@ -98,7 +98,9 @@ void ServingMetrics::ObserveRejection(std::string_view method, Rejection reason)
   std::string_view name = method;
   if (name.starts_with(kRankerPrefix)) name.remove_prefix(kRankerPrefix.size());
   if (name.starts_with("/")) name.remove_prefix(1);
-  rejections_->Add({{"method", std::string(name)}, {"reason", kRejectionReasons[static_cast<int>(reason)]}})
+  rejections_
+      ->Add(
+          {{"method", std::string(name)}, {"reason", kRejectionReasons[static_cast<int>(reason)]}})
       .Increment();
   if (reason != Rejection::kThreadPool) return;
   for (int m = 0; m < kMethods; ++m) {

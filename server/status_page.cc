@@ -4,7 +4,9 @@
 #include <limits>
 
 #include "core/metrics.h"
+#include "status/history_section.h"
 #include "status/html.h"
+#include "status/page_json.h"
 #include "status/page_shell.h"
 #include "status/rates.h"
 #include "status/svg_plot.h"
@@ -13,10 +15,14 @@ namespace plumb::server {
 namespace {
 
 using nlohmann::json;
-using status::AppendEscaped;
+using status::AppendCard;
+using status::AppendTextCard;
+using status::Doubles;
 using status::ExactNumber;
-using status::FormatNumber;
 using status::FormatUtc;
+using status::JsonNumber;
+using status::JsonNumbers;
+using status::NumberAt;
 
 const double kNaN = std::numeric_limits<double>::quiet_NaN();
 
@@ -25,47 +31,8 @@ const std::vector<std::string> kSeries = {"lift",        "gini",   "coverage",
                                           "drift_js",    "shift",  "request_rate",
                                           "not_ok_rate", "p50_ms", "p99_ms"};
 
-// JSON has no NaN: null stands for "not measured".
-json Number(double v) { return std::isfinite(v) ? json(v) : json(nullptr); }
-json Numbers(const std::vector<double>& v) {
-  json a = json::array();
-  for (double x : v) a.push_back(Number(x));
-  return a;
-}
-std::vector<double> Doubles(const json& a) {
-  std::vector<double> out;
-  if (!a.is_array()) return out;
-  for (const json& x : a) out.push_back(x.is_number() ? x.get<double>() : kNaN);
-  return out;
-}
-double Get(const json& j, const char* key) {
-  return j.contains(key) && j[key].is_number() ? j[key].get<double>() : kNaN;
-}
-
 double SteadySeconds() {
   return std::chrono::duration<double>(std::chrono::steady_clock::now().time_since_epoch()).count();
-}
-
-std::string StepText(int64_t ms) {
-  if (ms % 3600000 == 0) return std::to_string(ms / 3600000) + " h";
-  if (ms % 60000 == 0) return std::to_string(ms / 60000) + " min";
-  if (ms % 1000 == 0) return std::to_string(ms / 1000) + " s";
-  return std::to_string(ms) + " ms";
-}
-
-void Card(std::string* s, const std::string& key, const std::string& label, double value,
-          const std::string& unit, int digits = 3) {
-  *s += "<div class=\"card\" data-key=\"" + key + "\" data-value=\"" + ExactNumber(value) +
-        "\"><div class=\"label\">" + label + "</div><div class=\"value\">" +
-        FormatNumber(value, digits) + "<span class=\"unit\">" + unit + "</span></div></div>";
-}
-
-void TextCard(std::string* s, const std::string& key, const std::string& label,
-              const std::string& text) {
-  *s += "<div class=\"card\" data-key=\"" + key + "\"><div class=\"label\">" + label +
-        "</div><div class=\"value\">";
-  AppendEscaped(s, text);
-  *s += "</div></div>";
 }
 
 }  // namespace
@@ -150,11 +117,7 @@ void ServeStatusPage::Sample(int64_t now_ms) {
 }
 
 nlohmann::json ServeStatusPage::Json(int64_t now_ms) const {
-  json j;
-  j["process"] = "plumb-serve";
-  j["now_ms"] = now_ms;
-  j["history_step_ms"] = options_.step_ms;
-  j["history_capacity"] = options_.history_points;
+  json j = status::PageJsonStart("plumb-serve", now_ms, options_.step_ms, options_.history_points);
   std::shared_ptr<const Snapshot> snap = holder_ ? holder_->Get() : nullptr;
   json model = json::object();
   if (snap != nullptr) {
@@ -180,23 +143,23 @@ nlohmann::json ServeStatusPage::Json(int64_t now_ms) const {
     exposure["window_lists"] = f.lists;
     exposure["window_slots"] = f.slots;
     exposure["groups"] = window_->options().groups;
-    exposure["served_popularity"] = Number(f.served_popularity);
-    exposure["interaction_popularity"] = Number(f.interaction_popularity);
+    exposure["served_popularity"] = JsonNumber(f.served_popularity);
+    exposure["interaction_popularity"] = JsonNumber(f.interaction_popularity);
     const bool served = f.slots > 0;
-    exposure["lift"] = Number(served ? f.lift : kNaN);
-    exposure["gini"] = Number(served ? s.gini : kNaN);
-    exposure["coverage"] = Number(served ? s.coverage : kNaN);
-    exposure["drift_js"] = Number(served ? s.drift_js : kNaN);
-    exposure["served_group_shares"] = served ? Numbers(s.exposure_group_shares) : json::array();
-    exposure["interaction_group_shares"] = Numbers(s.interaction_group_shares);
+    exposure["lift"] = JsonNumber(served ? f.lift : kNaN);
+    exposure["gini"] = JsonNumber(served ? s.gini : kNaN);
+    exposure["coverage"] = JsonNumber(served ? s.coverage : kNaN);
+    exposure["drift_js"] = JsonNumber(served ? s.drift_js : kNaN);
+    exposure["served_group_shares"] = served ? JsonNumbers(s.exposure_group_shares) : json::array();
+    exposure["interaction_group_shares"] = JsonNumbers(s.interaction_group_shares);
     const std::span<const double> target = snap->target_group_shares();
     const std::vector<double> target_v(target.begin(), target.end());
-    exposure["target_group_shares"] = Numbers(target_v);
+    exposure["target_group_shares"] = JsonNumbers(target_v);
     double shift = kNaN;
     if (served && !target.empty() && target.size() == s.exposure_group_shares.size()) {
       shift = group_share_shift(s.exposure_group_shares, target).shift;
     }
-    exposure["shift"] = Number(shift);
+    exposure["shift"] = JsonNumber(shift);
     std::vector<uint32_t> group_of_item;
     const bool grouped =
         popularity_groups(snap->item_degrees(), window_->options().groups, &group_of_item).ok() &&
@@ -205,7 +168,7 @@ nlohmann::json ServeStatusPage::Json(int64_t now_ms) const {
       json row;
       row["id"] = std::string(snap->item_id(item));
       row["served_slots"] = count;
-      row["share"] = Number(static_cast<double>(count) / static_cast<double>(f.slots));
+      row["share"] = JsonNumber(static_cast<double>(count) / static_cast<double>(f.slots));
       row["training_degree"] = item < snap->item_degrees().size() ? snap->item_degrees()[item] : 0;
       if (grouped) row["group"] = group_of_item[item] + 1;
       top.push_back(std::move(row));
@@ -213,15 +176,7 @@ nlohmann::json ServeStatusPage::Json(int64_t now_ms) const {
   }
   j["exposure"] = exposure;
   j["top_items"] = top;
-  const status::HistoryView h = ring_.Read(options_.plot_points);
-  json history;
-  history["time_ms"] = h.time_ms;
-  history["points"] = h.points;
-  history["points_added"] = h.added;
-  json series = json::object();
-  for (size_t s = 0; s < h.names.size(); ++s) series[h.names[s]] = Numbers(h.mean[s]);
-  history["series"] = series;
-  j["history"] = history;
+  j["history"] = status::HistoryJson(ring_.Read(options_.plot_points));
   return j;
 }
 
@@ -238,16 +193,18 @@ std::string ServeStatusPage::Html(int64_t now_ms) const {
   // ---- the version ------------------------------------------------------------------
   s += "<section><h2>Serving version</h2><div class=\"cards\">";
   if (model.contains("version")) {
-    Card(&s, "version", "active version", Get(model, "version"), "", 12);
-    TextCard(&s, "swapped_in", "swapped in", FormatUtc(model["swapped_in_ms"].get<int64_t>()));
-    TextCard(&s, "created", "created by the trainer",
-             FormatUtc(model["created_ms"].get<int64_t>()));
-    Card(&s, "items", "items", Get(model, "items"), "", 12);
-    Card(&s, "dim", "dimensions", Get(model, "dim"), "", 6);
+    AppendCard(&s, "version", "active version", NumberAt(model, "version"), "", 12);
+    AppendTextCard(&s, "swapped_in", "swapped in",
+                   FormatUtc(model["swapped_in_ms"].get<int64_t>()));
+    AppendTextCard(&s, "created", "created by the trainer",
+                   FormatUtc(model["created_ms"].get<int64_t>()));
+    AppendCard(&s, "items", "items", NumberAt(model, "items"), "", 12);
+    AppendCard(&s, "dim", "dimensions", NumberAt(model, "dim"), "", 6);
   } else {
-    TextCard(&s, "version", "active version", "none loaded yet");
+    AppendTextCard(&s, "version", "active version", "none loaded yet");
   }
-  if (model.contains("swaps")) Card(&s, "swaps", "swaps since start", Get(model, "swaps"), "", 9);
+  if (model.contains("swaps"))
+    AppendCard(&s, "swaps", "swaps since start", NumberAt(model, "swaps"), "", 9);
   s += "</div></section>";
 
   // ---- exposure now -------------------------------------------------------------------
@@ -259,12 +216,12 @@ std::string ServeStatusPage::Html(int64_t now_ms) const {
     s += "<p>No version loaded yet.</p>";
   } else {
     s += "<div class=\"cards\">";
-    Card(&s, "window_lists", "lists in the window", Get(e, "window_lists"), "", 9);
-    Card(&s, "lift", "popularity lift", Get(e, "lift"), "ratio");
-    Card(&s, "gini", "exposure Gini", Get(e, "gini"), "0..1");
-    Card(&s, "coverage", "catalogue coverage", Get(e, "coverage"), "share");
-    Card(&s, "drift_js", "drift (JS divergence)", Get(e, "drift_js"), "bits");
-    Card(&s, "shift", "exposure shift vs target", Get(e, "shift"), "of group range");
+    AppendCard(&s, "window_lists", "lists in the window", NumberAt(e, "window_lists"), "", 9);
+    AppendCard(&s, "lift", "popularity lift", NumberAt(e, "lift"), "ratio");
+    AppendCard(&s, "gini", "exposure Gini", NumberAt(e, "gini"), "0..1");
+    AppendCard(&s, "coverage", "catalogue coverage", NumberAt(e, "coverage"), "share");
+    AppendCard(&s, "drift_js", "drift (JS divergence)", NumberAt(e, "drift_js"), "bits");
+    AppendCard(&s, "shift", "exposure shift vs target", NumberAt(e, "shift"), "of group range");
     s += "</div>";
     status::BarChart bars;
     bars.id = "group-shares";
@@ -287,50 +244,28 @@ std::string ServeStatusPage::Html(int64_t now_ms) const {
   s += "</section>";
 
   // ---- history --------------------------------------------------------------------------
-  const json& h = j["history"];
-  const std::vector<int64_t> times = h["time_ms"].get<std::vector<int64_t>>();
-  auto series = [&](const char* name) { return Doubles(h["series"][name]); };
-  const std::string window_text =
-      "Points every " + StepText(options_.step_ms) + ", the last " +
-      std::to_string(options_.history_points) + " kept (" +
-      StepText(options_.step_ms * static_cast<int64_t>(options_.history_points)) + "), at most " +
-      std::to_string(options_.plot_points) +
-      " drawn (averaged); kept in memory only, so a restart starts the history afresh.";
-  s += "<section><h2>History</h2><p class=\"note\">";
-  AppendEscaped(&s, window_text);
-  s += "</p><div class=\"grid2\">";
-  auto line = [&](const char* id, const char* title, const char* y_label,
-                  std::vector<status::LineSeries> lines, bool from_zero = true,
-                  const char* note = "") {
-    status::LinePlot p;
-    p.id = id;
-    p.title = title;
-    p.y_label = y_label;
-    p.time_ms = times;
-    p.series = std::move(lines);
-    p.y_from_zero = from_zero;
-    p.note = note;
-    s += status::RenderLinePlot(p);
-  };
+  status::HistorySection history(&s, j["history"], options_.step_ms, options_.history_points,
+                                 options_.plot_points);
+  auto series = [&](const char* name) { return history.Series(name); };
   const std::string head = status::GroupColour(groups ? groups - 1 : 4, groups ? groups : 5);
   const std::string tail = status::GroupColour(0, groups ? groups : 5);
-  line("lift", "Popularity lift", "lift (ratio)", {{"lift", head, series("lift"), false, "lift"}},
-       true, "1 = serving mirrors the data.");
-  line("concentration", "Exposure Gini and catalogue coverage", "ratio (0 .. 1)",
-       {{"Gini", "#444444", series("gini"), false, "gini"},
-        {"coverage", tail, series("coverage"), true, "coverage"}});
-  line("drift", "Drift and shift", "bits; share of group range",
-       {{"drift (JS divergence, bits)", "#7d5ba6", series("drift_js"), false, "drift_js"},
-        {"shift vs validation target", head, series("shift"), true, "shift"}},
-       true, "Shift > 0: exposure leans toward the head of the validation target.");
-  line("requests", "Ranker calls", "calls per second",
-       {{"all calls", "#4a78b5", series("request_rate"), false, "request_rate"},
-        {"calls not OK", "#b23b3b", series("not_ok_rate"), true, "not_ok_rate"}});
-  line("latency", "Server-side latency (all methods)", "milliseconds",
-       {{"p50", "#1b7f79", series("p50_ms"), false, "p50_ms"},
-        {"p99", "#c2793a", series("p99_ms"), true, "p99_ms"}},
-       true, "Estimated from plumb_request_duration_seconds buckets between two points.");
-  s += "</div></section>";
+  history.Plot("lift", "Popularity lift", "lift (ratio)",
+               {{"lift", head, series("lift"), false, "lift"}}, "1 = serving mirrors the data.");
+  history.Plot("concentration", "Exposure Gini and catalogue coverage", "ratio (0 .. 1)",
+               {{"Gini", "#444444", series("gini"), false, "gini"},
+                {"coverage", tail, series("coverage"), true, "coverage"}});
+  history.Plot("drift", "Drift and shift", "bits; share of group range",
+               {{"drift (JS divergence, bits)", "#7d5ba6", series("drift_js"), false, "drift_js"},
+                {"shift vs validation target", head, series("shift"), true, "shift"}},
+               "Shift > 0: exposure leans toward the head of the validation target.");
+  history.Plot("requests", "Ranker calls", "calls per second",
+               {{"all calls", "#4a78b5", series("request_rate"), false, "request_rate"},
+                {"calls not OK", "#b23b3b", series("not_ok_rate"), true, "not_ok_rate"}});
+  history.Plot("latency", "Server-side latency (all methods)", "milliseconds",
+               {{"p50", "#1b7f79", series("p50_ms"), false, "p50_ms"},
+                {"p99", "#c2793a", series("p99_ms"), true, "p99_ms"}},
+               "Estimated from plumb_request_duration_seconds buckets between two points.");
+  history.End();
 
   // ---- top items -------------------------------------------------------------------------
   s += "<section><h2>Most-served items now</h2>";
@@ -344,13 +279,14 @@ std::string ServeStatusPage::Html(int64_t now_ms) const {
     int rank = 0;
     for (const json& row : top) {
       s += "<tr><td>" + std::to_string(++rank) + "</td><td><code>";
-      AppendEscaped(&s, row["id"].get<std::string>(), 60);
-      s += "</code></td><td class=\"num\" data-value=\"" + ExactNumber(Get(row, "served_slots")) +
-           "\">" + std::to_string(row["served_slots"].get<uint64_t>()) +
-           "</td><td class=\"num\" data-value=\"" + ExactNumber(Get(row, "share")) + "\">" +
-           FormatNumber(Get(row, "share"), 3) + "</td><td class=\"num\" data-value=\"" +
-           ExactNumber(Get(row, "training_degree")) + "\">" +
-           std::to_string(row["training_degree"].get<uint64_t>()) + "</td><td>";
+      status::AppendEscaped(&s, row["id"].get<std::string>(), 60);
+      s += "</code></td><td class=\"num\" data-value=\"" +
+           ExactNumber(NumberAt(row, "served_slots")) + "\">" +
+           std::to_string(row["served_slots"].get<uint64_t>()) +
+           "</td><td class=\"num\" data-value=\"" + ExactNumber(NumberAt(row, "share")) + "\">" +
+           status::FormatNumber(NumberAt(row, "share"), 3) +
+           "</td><td class=\"num\" data-value=\"" + ExactNumber(NumberAt(row, "training_degree")) +
+           "\">" + std::to_string(row["training_degree"].get<uint64_t>()) + "</td><td>";
       if (row.contains("group")) {
         const size_t g = row["group"].get<size_t>() - 1;
         s += "<span class=\"swatch\" style=\"background:" + status::GroupColour(g, groups) +

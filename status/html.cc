@@ -5,6 +5,8 @@
 #include <cstdlib>
 #include <ctime>
 
+#include "core/utc_time.h"
+
 namespace plumb::status {
 namespace {
 
@@ -122,21 +124,9 @@ std::string ExactNumber(double value) {
 
 std::string FormatUtc(int64_t ms) {
   if (ms <= 0) return "\xE2\x80\x93";
-  const std::time_t t = static_cast<std::time_t>(ms / 1000);
-  std::tm tm{};
-  gmtime_r(&t, &tm);
-  char buf[64];
-  std::strftime(buf, sizeof buf, "%Y-%m-%d %H:%M:%S UTC", &tm);
-  return buf;
+  return UtcText(ms, "%Y-%m-%d %H:%M:%S UTC");
 }
 
-std::string FormatUtcMinute(int64_t ms) {
-  const std::time_t t = static_cast<std::time_t>(ms / 1000);
-  std::tm tm{};
-  gmtime_r(&t, &tm);
-  char buf[16];
-  std::strftime(buf, sizeof buf, "%H:%M", &tm);
-  return buf;
-}
+std::string FormatUtcMinute(int64_t ms) { return UtcText(ms, "%H:%M"); }
 
 }  // namespace plumb::status

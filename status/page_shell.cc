@@ -58,6 +58,35 @@ std::string PageStart(const std::string& title, const std::string& subtitle, int
   return s;
 }
 
+void AppendCard(std::string* s, const std::string& key, const std::string& label, double value,
+                const std::string& unit, int digits) {
+  *s += "<div class=\"card\" data-key=\"" + key + "\" data-value=\"" + ExactNumber(value) +
+        "\"><div class=\"label\">" + label + "</div><div class=\"value\">" +
+        FormatNumber(value, digits) + "<span class=\"unit\">" + unit + "</span></div></div>";
+}
+
+void AppendTextCard(std::string* s, const std::string& key, const std::string& label,
+                    const std::string& text) {
+  *s += "<div class=\"card\" data-key=\"" + key + "\"><div class=\"label\">" + label +
+        "</div><div class=\"value\">";
+  AppendEscaped(s, text);
+  *s += "</div></div>";
+}
+
+std::string StepText(int64_t ms) {
+  if (ms % 3600000 == 0) return std::to_string(ms / 3600000) + " h";
+  if (ms % 60000 == 0) return std::to_string(ms / 60000) + " min";
+  if (ms % 1000 == 0) return std::to_string(ms / 1000) + " s";
+  return std::to_string(ms) + " ms";
+}
+
+std::string HistoryNote(int64_t step_ms, size_t history_points, size_t plot_points) {
+  return "Points every " + StepText(step_ms) + ", the last " + std::to_string(history_points) +
+         " kept (" + StepText(step_ms * static_cast<int64_t>(history_points)) + "), at most " +
+         std::to_string(plot_points) +
+         " drawn (averaged); kept in memory only, so a restart starts the history afresh.";
+}
+
 std::string PageEnd(const std::string& json_path) {
   return "</main><footer>The same figures as JSON: <a href=\"" + json_path + "\">" + json_path +
          "</a>. Prometheus metrics: <a href=\"/metrics\">/metrics</a>. The history lives in "

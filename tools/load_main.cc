@@ -331,7 +331,8 @@ int main(int argc, char** argv) {
       ->group(pub);
   app.add_flag("--event-ids", a.event_ids, "Give published events unique event ids")->group(pub);
   app.add_option("--trainer", a.train.target, "plumb-train address HOST:PORT")->group(pub);
-  app.add_option("--trainer-token-file", a.trainer_token_file, "File with plumb-train's bearer token")
+  app.add_option("--trainer-token-file", a.trainer_token_file,
+                 "File with plumb-train's bearer token")
       ->check(CLI::ExistingFile)
       ->group(pub);
   AddTlsOptions(&app, &a.train, "--trainer-tls-ca", "plumb-train")->group(pub);

@@ -19,10 +19,12 @@
 
 #include "cli/item_names.h"
 #include "core/duration.h"
+#include "core/utc_time.h"
 #include "grpc/health/v1/health.grpc.pb.h"
 #include "plumb/v1/control.grpc.pb.h"
 #include "plumb/v1/ranker.grpc.pb.h"
 #include "tools/client_channel.h"
+#include "tools/load_report.h"
 
 namespace {
 
@@ -44,17 +46,25 @@ int Fail(const std::string& message) {
 
 int Fail(const grpc::Status& status) { return Fail(DescribeStatus(status)); }
 
-// A call to the wrong process gets UNIMPLEMENTED from gRPC, with no word of why: say which
-// process answers it. `control`: a ModelControl command (plumb-train), else a Ranker or
-// health command (plumb-serve).
-int Fail(const grpc::Status& status, const std::string& target, bool control) {
-  if (status.error_code() != grpc::StatusCode::UNIMPLEMENTED) return Fail(status);
+// Which process answers a command; a call to the wrong one gets UNIMPLEMENTED from gRPC, with
+// no word of why, so the message then says which process answers it.
+enum class Answerer {
+  kUnnamed,  // the message is gRPC's alone
+  kServe,    // a Ranker command: plumb-serve
+  kTrain,    // a ModelControl command: plumb-train
+};
+
+int Fail(const grpc::Status& status, const std::string& target, Answerer answerer) {
+  if (answerer == Answerer::kUnnamed || status.error_code() != grpc::StatusCode::UNIMPLEMENTED) {
+    return Fail(status);
+  }
   return Fail(DescribeStatus(status) + " (" + target + " does not serve " +
-              (control ? "plumb.v1.ModelControl: versions, status, activate, pin, unpin and "
-                         "auto-activate are answered by plumb-train, at its --listen address "
-                         "(default 127.0.0.1:7601)"
-                       : "plumb.v1.Ranker: recommend, similar and rank are answered by "
-                         "plumb-serve, at its --listen address (default 127.0.0.1:7400)") +
+              (answerer == Answerer::kTrain
+                   ? "plumb.v1.ModelControl: versions, status, activate, pin, unpin and "
+                     "auto-activate are answered by plumb-train, at its --listen address "
+                     "(default 127.0.0.1:7601)"
+                   : "plumb.v1.Ranker: recommend, similar and rank are answered by "
+                     "plumb-serve, at its --listen address (default 127.0.0.1:7400)") +
               "; is this the other process?)");
 }
 
@@ -72,6 +82,23 @@ Status Prepare(const Connection& c, std::shared_ptr<grpc::Channel>* channel,
     AttachBearerToken(token, context);
   }
   return Status::Ok();
+}
+
+// One call of `Service`'s `method` to the process at `c`, on a fresh channel with c's
+// deadline and token. Returns 0 with *response filled, or 1 after printing why (first
+// `note`, when not empty, on a line of its own).
+template <typename Service, typename Request, typename Response>
+int Call(const Connection& c, Answerer answerer,
+         grpc::Status (Service::Stub::*method)(grpc::ClientContext*, const Request&, Response*),
+         const Request& request, Response* response, const std::string& note = "") {
+  std::shared_ptr<grpc::Channel> channel;
+  grpc::ClientContext context;
+  if (Status s = Prepare(c, &channel, &context); !s.ok()) return Fail(s.message());
+  const auto stub = Service::NewStub(channel);
+  const grpc::Status status = (stub.get()->*method)(&context, request, response);
+  if (status.ok()) return 0;
+  if (!note.empty()) std::cerr << "plumb-query: " << note << "\n";
+  return Fail(status, c.spec.target, answerer);
 }
 
 // ---- ranker ----------------------------------------------------------------------------
@@ -108,9 +135,6 @@ int PrintItems(const google::protobuf::RepeatedPtrField<plumb::v1::ScoredItem>& 
 }
 
 int Recommend(const ListArgs& a) {
-  std::shared_ptr<grpc::Channel> channel;
-  grpc::ClientContext context;
-  if (Status s = Prepare(a.conn, &channel, &context); !s.ok()) return Fail(s.message());
   plumb::v1::RecommendRequest request;
   request.set_user_id(a.id);
   request.set_count(a.count);
@@ -119,9 +143,10 @@ int Recommend(const ListArgs& a) {
   for (const auto& item : a.exclude) request.add_exclude_item_ids(item);
   if (a.fallback) request.set_unknown_user(plumb::v1::UNKNOWN_USER_MOST_INTERACTED);
   plumb::v1::RecommendResponse response;
-  const grpc::Status status =
-      plumb::v1::Ranker::NewStub(channel)->Recommend(&context, request, &response);
-  if (!status.ok()) return Fail(status, a.conn.spec.target, false);
+  if (int rc = Call<plumb::v1::Ranker>(a.conn, Answerer::kServe,
+                                       &plumb::v1::Ranker::Stub::Recommend, request, &response)) {
+    return rc;
+  }
   std::printf("model version %llu, user %s, %d items%s\n",
               static_cast<unsigned long long>(response.model_version()), a.id.c_str(),
               response.items_size(),
@@ -132,17 +157,15 @@ int Recommend(const ListArgs& a) {
 }
 
 int Similar(const ListArgs& a) {
-  std::shared_ptr<grpc::Channel> channel;
-  grpc::ClientContext context;
-  if (Status s = Prepare(a.conn, &channel, &context); !s.ok()) return Fail(s.message());
   plumb::v1::SimilarItemsRequest request;
   request.set_item_id(a.id);
   request.set_count(a.count);
   for (const auto& item : a.exclude) request.add_exclude_item_ids(item);
   plumb::v1::SimilarItemsResponse response;
-  const grpc::Status status =
-      plumb::v1::Ranker::NewStub(channel)->SimilarItems(&context, request, &response);
-  if (!status.ok()) return Fail(status, a.conn.spec.target, false);
+  if (int rc = Call<plumb::v1::Ranker>(
+          a.conn, Answerer::kServe, &plumb::v1::Ranker::Stub::SimilarItems, request, &response)) {
+    return rc;
+  }
   std::printf("model version %llu, items like %s (cosine), %d items\n",
               static_cast<unsigned long long>(response.model_version()), a.id.c_str(),
               response.items_size());
@@ -150,17 +173,15 @@ int Similar(const ListArgs& a) {
 }
 
 int Rank(const ListArgs& a) {
-  std::shared_ptr<grpc::Channel> channel;
-  grpc::ClientContext context;
-  if (Status s = Prepare(a.conn, &channel, &context); !s.ok()) return Fail(s.message());
   plumb::v1::RankCandidatesRequest request;
   request.set_user_id(a.id);
   for (const auto& item : a.candidates) request.add_candidate_item_ids(item);
   for (const auto& item : a.recent) request.add_recent_item_ids(item);
   plumb::v1::RankCandidatesResponse response;
-  const grpc::Status status =
-      plumb::v1::Ranker::NewStub(channel)->RankCandidates(&context, request, &response);
-  if (!status.ok()) return Fail(status, a.conn.spec.target, false);
+  if (int rc = Call<plumb::v1::Ranker>(
+          a.conn, Answerer::kServe, &plumb::v1::Ranker::Stub::RankCandidates, request, &response)) {
+    return rc;
+  }
   std::printf("model version %llu, user %s, %d of %zu candidates ranked%s\n",
               static_cast<unsigned long long>(response.model_version()), a.id.c_str(),
               response.items_size(), a.candidates.size(),
@@ -182,15 +203,13 @@ int Rank(const ListArgs& a) {
 }
 
 int Health(const Connection& c, const std::string& service) {
-  std::shared_ptr<grpc::Channel> channel;
-  grpc::ClientContext context;
-  if (Status s = Prepare(c, &channel, &context); !s.ok()) return Fail(s.message());
   grpc::health::v1::HealthCheckRequest request;
   request.set_service(service);
   grpc::health::v1::HealthCheckResponse response;
-  const grpc::Status status =
-      grpc::health::v1::Health::NewStub(channel)->Check(&context, request, &response);
-  if (!status.ok()) return Fail(status);
+  if (int rc = Call<grpc::health::v1::Health>(
+          c, Answerer::kUnnamed, &grpc::health::v1::Health::Stub::Check, request, &response)) {
+    return rc;
+  }
   const std::string name =
       grpc::health::v1::HealthCheckResponse::ServingStatus_Name(response.status());
   std::printf("%s\n", name.c_str());
@@ -199,14 +218,7 @@ int Health(const Connection& c, const std::string& service) {
 
 // ---- model control -----------------------------------------------------------------------
 
-std::string FormatTime(int64_t ms) {
-  const std::time_t t = static_cast<std::time_t>(ms / 1000);
-  std::tm tm{};
-  gmtime_r(&t, &tm);
-  char text[32];
-  std::strftime(text, sizeof text, "%Y-%m-%d %H:%M:%SZ", &tm);
-  return text;
-}
+std::string FormatTime(int64_t ms) { return plumb::UtcText(ms, "%Y-%m-%d %H:%M:%SZ"); }
 
 const char* GateName(plumb::v1::GateOutcome gate) {
   switch (gate) {
@@ -240,15 +252,16 @@ std::string FormatTraining(const plumb::v1::TrainingConfig& c) {
                 static_cast<unsigned long long>(c.seed()));
   std::string out = buf;
   if (c.tune_betas_size() > 0) {
-    out.replace(out.find(" dim="), 0, " (tuned from " + [&] {
-      std::string l;
-      char b[32];
-      for (double x : c.tune_betas()) {
-        std::snprintf(b, sizeof b, "%s%g", l.empty() ? "" : ",", x);
-        l += b;
-      }
-      return l;
-    }() + ")");
+    out.replace(
+        out.find(" dim="), 0, " (tuned from " + [&] {
+          std::string l;
+          char b[32];
+          for (double x : c.tune_betas()) {
+            std::snprintf(b, sizeof b, "%s%g", l.empty() ? "" : ",", x);
+            l += b;
+          }
+          return l;
+        }() + ")");
   }
   if (c.origin() == "online") {
     std::snprintf(buf, sizeof buf, " replay=%g", c.replay_ratio());
@@ -259,7 +272,8 @@ std::string FormatTraining(const plumb::v1::TrainingConfig& c) {
     out += buf;
   }
   if (c.training_window_ms() > 0) {
-    std::snprintf(buf, sizeof buf, " window=%gh", static_cast<double>(c.training_window_ms()) / 3.6e6);
+    std::snprintf(buf, sizeof buf, " window=%gh",
+                  static_cast<double>(c.training_window_ms()) / 3.6e6);
     out += buf;
   }
   return out;
@@ -279,18 +293,19 @@ void PrintStatus(const plumb::v1::TrainerStatus& s) {
   std::printf("idle:              %s\n", s.idle() ? "yes (caught up, everything published)" : "no");
   std::printf("training:          %s\n", FormatTraining(s.training()).c_str());
   if (!s.pending_config_change().empty()) {
-    std::printf("config change:     %s; publishing waits for the rebuild, the active version "
-                "stays in charge\n",
-                s.pending_config_change().c_str());
+    std::printf(
+        "config change:     %s; publishing waits for the rebuild, the active version "
+        "stays in charge\n",
+        s.pending_config_change().c_str());
   }
-  std::printf("refits:            %llu done, %llu failed%s%s; last took %.1f s; the model's last "
-              "refit covered %llu of %llu training pairs\n",
-              static_cast<unsigned long long>(s.refits_completed()),
-              static_cast<unsigned long long>(s.refits_failed()),
-              s.refit_running() ? "; running: " : "",
-              s.refit_running() ? s.refit_reason().c_str() : "", s.last_refit_seconds(),
-              static_cast<unsigned long long>(s.refit_pairs()),
-              static_cast<unsigned long long>(s.train_pairs()));
+  std::printf(
+      "refits:            %llu done, %llu failed%s%s; last took %.1f s; the model's last "
+      "refit covered %llu of %llu training pairs\n",
+      static_cast<unsigned long long>(s.refits_completed()),
+      static_cast<unsigned long long>(s.refits_failed()), s.refit_running() ? "; running: " : "",
+      s.refit_running() ? s.refit_reason().c_str() : "", s.last_refit_seconds(),
+      static_cast<unsigned long long>(s.refit_pairs()),
+      static_cast<unsigned long long>(s.train_pairs()));
   if (s.tuned_beta() > 0) {
     std::printf("tuned beta:        %g - %s\n", s.tuned_beta(), s.tune_reason().c_str());
   }
@@ -313,13 +328,12 @@ void PrintStatus(const plumb::v1::TrainerStatus& s) {
 }
 
 int Versions(const Connection& c) {
-  std::shared_ptr<grpc::Channel> channel;
-  grpc::ClientContext context;
-  if (Status s = Prepare(c, &channel, &context); !s.ok()) return Fail(s.message());
   plumb::v1::ListVersionsResponse response;
-  const grpc::Status status = plumb::v1::ModelControl::NewStub(channel)->ListVersions(
-      &context, plumb::v1::ListVersionsRequest(), &response);
-  if (!status.ok()) return Fail(status, c.spec.target, true);
+  if (int rc = Call<plumb::v1::ModelControl>(c, Answerer::kTrain,
+                                             &plumb::v1::ModelControl::Stub::ListVersions,
+                                             plumb::v1::ListVersionsRequest(), &response)) {
+    return rc;
+  }
   if (response.versions().empty()) {
     std::printf("no versions kept\n");
     return 0;
@@ -354,43 +368,39 @@ int Versions(const Connection& c) {
 }
 
 int Retrain(const Connection& c, const std::string& reason) {
-  std::shared_ptr<grpc::Channel> channel;
-  grpc::ClientContext context;
-  if (Status s = Prepare(c, &channel, &context); !s.ok()) return Fail(s.message());
   plumb::v1::RetrainRequest request;
   request.set_reason(reason);
   plumb::v1::TrainerStatus response;
-  const grpc::Status status =
-      plumb::v1::ModelControl::NewStub(channel)->Retrain(&context, request, &response);
-  if (!status.ok()) return Fail(status);
-  std::printf("rebuild from the whole event log requested; it is published as a gated "
-              "candidate when it lands\n");
+  if (int rc = Call<plumb::v1::ModelControl>(
+          c, Answerer::kUnnamed, &plumb::v1::ModelControl::Stub::Retrain, request, &response)) {
+    return rc;
+  }
+  std::printf(
+      "rebuild from the whole event log requested; it is published as a gated "
+      "candidate when it lands\n");
   PrintStatus(response);
   return 0;
 }
 
 int TrainerStatus(const Connection& c) {
-  std::shared_ptr<grpc::Channel> channel;
-  grpc::ClientContext context;
-  if (Status s = Prepare(c, &channel, &context); !s.ok()) return Fail(s.message());
   plumb::v1::TrainerStatus response;
-  const grpc::Status status = plumb::v1::ModelControl::NewStub(channel)->GetStatus(
-      &context, plumb::v1::GetStatusRequest(), &response);
-  if (!status.ok()) return Fail(status, c.spec.target, true);
+  if (int rc = Call<plumb::v1::ModelControl>(c, Answerer::kTrain,
+                                             &plumb::v1::ModelControl::Stub::GetStatus,
+                                             plumb::v1::GetStatusRequest(), &response)) {
+    return rc;
+  }
   PrintStatus(response);
   return 0;
 }
 
 int Activate(const Connection& c, uint64_t version) {
-  std::shared_ptr<grpc::Channel> channel;
-  grpc::ClientContext context;
-  if (Status s = Prepare(c, &channel, &context); !s.ok()) return Fail(s.message());
   plumb::v1::ActivateRequest request;
   request.set_version(version);
   plumb::v1::ActivateResponse response;
-  const grpc::Status status =
-      plumb::v1::ModelControl::NewStub(channel)->Activate(&context, request, &response);
-  if (!status.ok()) return Fail(status, c.spec.target, true);
+  if (int rc = Call<plumb::v1::ModelControl>(
+          c, Answerer::kTrain, &plumb::v1::ModelControl::Stub::Activate, request, &response)) {
+    return rc;
+  }
   std::printf("active version %llu (was %llu)\n",
               static_cast<unsigned long long>(response.active_version()),
               static_cast<unsigned long long>(response.previous_version()));
@@ -398,16 +408,14 @@ int Activate(const Connection& c, uint64_t version) {
 }
 
 int Pin(const Connection& c, uint64_t version, bool pinned) {
-  std::shared_ptr<grpc::Channel> channel;
-  grpc::ClientContext context;
-  if (Status s = Prepare(c, &channel, &context); !s.ok()) return Fail(s.message());
   plumb::v1::SetPinnedRequest request;
   request.set_version(version);
   request.set_pinned(pinned);
   plumb::v1::VersionInfo response;
-  const grpc::Status status =
-      plumb::v1::ModelControl::NewStub(channel)->SetPinned(&context, request, &response);
-  if (!status.ok()) return Fail(status, c.spec.target, true);
+  if (int rc = Call<plumb::v1::ModelControl>(
+          c, Answerer::kTrain, &plumb::v1::ModelControl::Stub::SetPinned, request, &response)) {
+    return rc;
+  }
   std::printf(
       "version %llu is %s\n", static_cast<unsigned long long>(response.version()),
       response.pinned() ? "pinned: never pruned" : "unpinned: pruned by the retention rules");
@@ -415,15 +423,14 @@ int Pin(const Connection& c, uint64_t version, bool pinned) {
 }
 
 int AutoActivate(const Connection& c, const std::string& setting) {
-  std::shared_ptr<grpc::Channel> channel;
-  grpc::ClientContext context;
-  if (Status s = Prepare(c, &channel, &context); !s.ok()) return Fail(s.message());
   plumb::v1::SetAutoActivateRequest request;
   request.set_enabled(setting == "on");
   plumb::v1::TrainerStatus response;
-  const grpc::Status status =
-      plumb::v1::ModelControl::NewStub(channel)->SetAutoActivate(&context, request, &response);
-  if (!status.ok()) return Fail(status, c.spec.target, true);
+  if (int rc = Call<plumb::v1::ModelControl>(c, Answerer::kTrain,
+                                             &plumb::v1::ModelControl::Stub::SetAutoActivate,
+                                             request, &response)) {
+    return rc;
+  }
   PrintStatus(response);
   return 0;
 }
@@ -466,23 +473,20 @@ int SetAvailability(const ItemsArgs& a, bool withdrawn) {
   constexpr size_t kPerCall = 100000;
   uint64_t changed = 0, unchanged = 0, total = 0;
   for (size_t from = 0; from < ids.size(); from += kPerCall) {
-    std::shared_ptr<grpc::Channel> channel;
-    grpc::ClientContext context;
-    if (Status s = Prepare(a.conn, &channel, &context); !s.ok()) return Fail(s.message());
     plumb::v1::SetItemAvailabilityRequest request;
     for (size_t j = from; j < std::min(ids.size(), from + kPerCall); ++j) {
       request.add_item_ids(ids[j]);
     }
     request.set_withdrawn(withdrawn);
     plumb::v1::SetItemAvailabilityResponse response;
-    const grpc::Status status = plumb::v1::ModelControl::NewStub(channel)->SetItemAvailability(
-        &context, request, &response);
-    if (!status.ok()) {
-      if (from > 0) {
-        std::fprintf(stderr, "plumb-query: the first %zu ids were %s before the error\n", from,
-                     withdrawn ? "withdrawn" : "restored");
-      }
-      return Fail(status, a.conn.spec.target, true);
+    const std::string note = from == 0
+                                 ? ""
+                                 : "the first " + std::to_string(from) + " ids were " +
+                                       (withdrawn ? "withdrawn" : "restored") + " before the error";
+    if (int rc = Call<plumb::v1::ModelControl>(a.conn, Answerer::kTrain,
+                                               &plumb::v1::ModelControl::Stub::SetItemAvailability,
+                                               request, &response, note)) {
+      return rc;
     }
     changed += response.changed();
     unchanged += response.unchanged();
@@ -499,35 +503,24 @@ int ListWithdrawn(const ItemsArgs& a) {
   std::string start_after;
   std::vector<plumb::v1::WithdrawnItem> items;
   do {
-    std::shared_ptr<grpc::Channel> channel;
-    grpc::ClientContext context;
-    if (Status s = Prepare(a.conn, &channel, &context); !s.ok()) return Fail(s.message());
     plumb::v1::ListWithdrawnItemsRequest request;
     request.set_start_after(start_after);
     request.set_limit(10000);
     plumb::v1::ListWithdrawnItemsResponse response;
-    const grpc::Status status = plumb::v1::ModelControl::NewStub(channel)->ListWithdrawnItems(
-        &context, request, &response);
-    if (!status.ok()) return Fail(status, a.conn.spec.target, true);
+    if (int rc = Call<plumb::v1::ModelControl>(a.conn, Answerer::kTrain,
+                                               &plumb::v1::ModelControl::Stub::ListWithdrawnItems,
+                                               request, &response)) {
+      return rc;
+    }
     for (const auto& item : response.items()) items.push_back(item);
     start_after = response.next_start_after();
   } while (!start_after.empty());
   if (a.json) {
     std::printf("{\"withdrawn_items\": [");
     for (size_t j = 0; j < items.size(); ++j) {
-      std::string escaped;
-      for (char ch : items[j].item_id()) {
-        if (ch == '"' || ch == '\\') escaped += '\\';
-        if (static_cast<unsigned char>(ch) < 0x20) {
-          char buf[8];
-          std::snprintf(buf, sizeof buf, "\\u%04x", ch);
-          escaped += buf;
-          continue;
-        }
-        escaped += ch;
-      }
-      std::printf("%s{\"item\": \"%s\", \"withdrawn_ms\": %lld}", j == 0 ? "" : ", ",
-                  escaped.c_str(), static_cast<long long>(items[j].withdrawn_ms()));
+      std::printf("%s{\"item\": %s, \"withdrawn_ms\": %lld}", j == 0 ? "" : ", ",
+                  JsonString(items[j].item_id()).c_str(),
+                  static_cast<long long>(items[j].withdrawn_ms()));
     }
     std::printf("]}\n");
     return 0;
@@ -676,10 +669,10 @@ int main(int argc, char** argv) {
   CLI::App* items = app.add_subcommand(
       "items", "Withdraw items from serving, restore them, or list the withdrawn ones");
   items->require_subcommand(1);
-  CLI::App* withdraw = items->add_subcommand(
-      "withdraw",
-      "Stop serving items (sold out, deleted, banned) without a new version "
-      "(ModelControl/SetItemAvailability)");
+  CLI::App* withdraw =
+      items->add_subcommand("withdraw",
+                            "Stop serving items (sold out, deleted, banned) without a new version "
+                            "(ModelControl/SetItemAvailability)");
   CLI::App* restore = items->add_subcommand("restore", "Serve withdrawn items again");
   for (CLI::App* cmd : {withdraw, restore}) {
     AddConnection(cmd, &items_args.conn, true);

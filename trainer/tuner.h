@@ -12,8 +12,8 @@
 // debiased validation Recall@K; a candidate whose recall is within one standard error of the
 // paired difference to the best (two by default) is a near-tie (noise), and among near-ties the
 // one whose recommended group shares are closest (earth mover's distance over the ordered
-// groups) to the validation sample's own shares wins. That breaks ties toward the candidate that neither
-// over- nor under-corrects.
+// groups) to the validation sample's own shares wins. That breaks ties toward the candidate that
+// neither over- nor under-corrects.
 //
 // Thread safety: Tune is a pure function of its inputs; it runs options.threads threads.
 #pragma once

@@ -24,12 +24,14 @@ import json
 import os
 import random
 import shutil
-import socket
 import statistics
 import subprocess
 import sys
 import tempfile
 import time
+
+sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
+from bench_support import free_port  # noqa: E402
 
 # name: synth options, stream order, embedding dim. "time" = timestamp order; "shuffled" = a
 # random permutation; "bursty" = each member's events in sessions of up to 8, sessions in
@@ -53,14 +55,6 @@ WORLDS = {
 DEFAULT_WORLDS = ["strong-time", "mild-shuffled", "strong-bursty", "popularity-drift",
                   "tastes-move"]
 HOLDOUT = 0.02
-
-
-def free_port():
-    s = socket.socket()
-    s.bind(("127.0.0.1", 0))
-    port = s.getsockname()[1]
-    s.close()
-    return port
 
 
 def run(cmd, **kw):

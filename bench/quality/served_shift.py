@@ -27,12 +27,14 @@ import json
 import os
 import shutil
 import signal
-import socket
 import subprocess
 import sys
 import tempfile
 import time
 import urllib.request
+
+sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
+from bench_support import free_port  # noqa: E402
 
 WORLD_SIZE = ["--users", "3000", "--items", "1500", "--interactions", "120000"]
 WORLDS = {
@@ -57,12 +59,6 @@ FITS = [("cpr b=1", ["--objective", "cpr", "--beta", "1"]),
         ("bpr", ["--objective", "bpr"]),
         ("bce", ["--objective", "bce"])]
 FIT_FLAGS = ["--dim", "32", "--epochs", "20", "--holdout-fraction", "0.02"]
-
-
-def free_port():
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
 
 
 def run(args, **kw):

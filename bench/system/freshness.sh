@@ -6,12 +6,7 @@
 # Usage: bench/system/freshness.sh BUILD_DIR [ROUNDS] [PUBLISH_EVERY_SECONDS]
 set -u
 BIN=$1; ROUNDS=${2:-20}; EVERY=${3:-1}
-PLUMB=$BIN/cli/plumb; TRAIN=$BIN/trainer/online/plumb-train; SERVE=$BIN/server/plumb-serve
-QUERY=$BIN/tools/plumb-query; LOAD=$BIN/tools/plumb-load
-PY=/usr/bin/python3
-tmp=$(mktemp -d); pids=()
-trap 'for p in "${pids[@]}"; do kill "$p" 2>/dev/null; done; sleep 0.3; rm -rf "$tmp"' EXIT
-port() { $PY -c 'import socket; s=socket.socket(); s.bind(("127.0.0.1",0)); print(s.getsockname()[1])'; }
+. "$(dirname "$0")/common.sh"
 T=127.0.0.1:$(port); S=127.0.0.1:$(port)
 "$PLUMB" synth --out "$tmp/w" --users 1000 --items 500 --interactions 20000 --seed 2 >/dev/null 2>&1
 "$TRAIN" --db "$tmp/db" --listen "$T" --metrics "" --dim 32 --publish-interval "${EVERY}s" \
@@ -19,7 +14,7 @@ T=127.0.0.1:$(port); S=127.0.0.1:$(port)
 sleep 1
 "$LOAD" replay --events "$tmp/w/events.csv" --trainer "$T" --quiet >/dev/null 2>&1
 "$SERVE" --db "$tmp/db" --listen "$S" --metrics "" --catchup-interval 100ms >"$tmp/serve.log" 2>&1 & pids+=($!)
-for _ in $(seq 100); do "$QUERY" health --server "$S" >/dev/null 2>&1 && break; sleep 0.2; done
+wait_serving "$S" 100
 results=()
 for r in $(seq "$ROUNDS"); do
   printf 'user,item\nfresh%s,t%s\n' "$r" "$((r % 50))" > "$tmp/e.csv"

@@ -16,17 +16,7 @@
 # Usage: bench/system/large_catalogue.sh BUILD_DIR [SECONDS_PER_RUN]
 set -u
 BIN=$1; SECS=${2:-10}
-PLUMB=$BIN/cli/plumb; SERVE=$BIN/server/plumb-serve
-QUERY=$BIN/tools/plumb-query; LOAD=$BIN/tools/plumb-load
-PY=/usr/bin/python3
-tmp=$(mktemp -d); pids=()
-cleanup() {
-  for p in "${pids[@]}"; do kill "$p" 2>/dev/null; done
-  sleep 0.5
-  if [ "${KEEP:-0}" = 1 ]; then echo "kept $tmp"; else rm -rf "$tmp"; fi
-}
-trap cleanup EXIT
-port() { $PY -c 'import socket; s=socket.socket(); s.bind(("127.0.0.1",0)); print(s.getsockname()[1])'; }
+. "$(dirname "$0")/common.sh"
 S=127.0.0.1:$(port)
 
 echo "== world: 20,000 members x 1,000,000 tools, ~2 M borrowings; CPR fit at d = 64, 8 epochs"
@@ -45,10 +35,7 @@ start_serve() {  # label, extra flags
   local t0; t0=$(date +%s.%N)
   "$SERVE" --db "$tmp/db" --listen "$S" --metrics "" "$@" >"$tmp/serve-$label.log" 2>&1 &
   serve_pid=$!; pids+=($serve_pid)
-  for _ in $(seq 3000); do
-    "$QUERY" health --server "$S" >/dev/null 2>&1 && break; sleep 0.2
-  done
-  "$QUERY" health --server "$S" >/dev/null 2>&1 ||
+  wait_serving "$S" 3000 ||
     { echo "plumb-serve did not become healthy; log:"; cat "$tmp/serve-$label.log"; exit 1; }
   printf "  %-9s serving after %.1f s; RSS %s MB; %s\n" "$label" \
     "$($PY -c "import sys; print(float(sys.argv[1]) - float(sys.argv[2]))" "$(date +%s.%N)" "$t0")" \

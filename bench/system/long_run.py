@@ -30,43 +30,17 @@ import os
 import random
 import re
 import shutil
-import socket
 import subprocess
 import sys
 import tempfile
 import time
 
+sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
+from bench_support import dir_bytes, free_port, memory_mb  # noqa: E402
+
 DAY_MS = 86_400_000
 
 
-def free_port():
-    s = socket.socket()
-    s.bind(("127.0.0.1", 0))
-    port = s.getsockname()[1]
-    s.close()
-    return port
-
-
-def dir_bytes(path, suffix=""):
-    total = 0
-    for root, _, files in os.walk(path):
-        for f in files:
-            if not f.endswith(suffix):
-                continue
-            try:
-                total += os.path.getsize(os.path.join(root, f))
-            except OSError:
-                pass
-    return total
-
-
-def rss_mb(pid):
-    out = {}
-    with open("/proc/%d/status" % pid) as f:
-        for line in f:
-            if line.startswith(("VmRSS:", "VmHWM:")):
-                out[line.split(":")[0]] = int(line.split()[1]) / 1024.0
-    return out.get("VmRSS", 0.0), out.get("VmHWM", 0.0)
 
 
 class World:
@@ -189,7 +163,7 @@ def run_config(args, name, flags, tmp, start_ms, world_seed=7):
         # (every 1 s) can then remove what was trained on.
         time.sleep(8.0)
         s = trainer.status()
-        rss, hwm = rss_mb(trainer.proc.pid)
+        rss, hwm = memory_mb(trainer.proc.pid)
         log_mb = number(s["event log"].split(",")[1]) if "event log" in s else 0.0
         row = {
             "day": day + 1,

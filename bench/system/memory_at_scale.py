@@ -15,32 +15,15 @@ Usage: bench/system/memory_at_scale.py BUILD_DIR [--users 1000000] [--items 1000
 import argparse
 import os
 import shutil
-import socket
 import subprocess
 import sys
 import tempfile
 import time
 
-
-def free_port():
-    s = socket.socket()
-    s.bind(("127.0.0.1", 0))
-    port = s.getsockname()[1]
-    s.close()
-    return port
+sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
+from bench_support import dir_bytes, free_port, memory_mb  # noqa: E402
 
 
-def mem_mb(pid):
-    out = {}
-    with open("/proc/%d/status" % pid) as f:
-        for line in f:
-            if line.startswith(("VmRSS:", "VmHWM:")):
-                out[line.split(":")[0]] = int(line.split()[1]) / 1024.0
-    return out["VmRSS"], out["VmHWM"]
-
-
-def dir_mb(path):
-    return sum(os.path.getsize(os.path.join(r, f)) for r, _, fs in os.walk(path) for f in fs) / 1e6
 
 
 def query(build, *args):
@@ -100,7 +83,7 @@ def main():
         peak_during = 0.0
         while True:
             st = query(build, "status", "--trainer", train_addr).stdout
-            peak_during = max(peak_during, mem_mb(trainer.pid)[0])
+            peak_during = max(peak_during, memory_mb(trainer.pid)[0])
             if status_field(st, "idle") == "yes" and \
                     int(status_field(st, "trained sequence")) >= events:
                 break
@@ -108,7 +91,7 @@ def main():
                 sys.exit("plumb-train exited; see " + tmp + "/train.log")
             time.sleep(2)
         idle_s = time.time() - t0
-        train_rss, train_hwm = mem_mb(trainer.pid)
+        train_rss, train_hwm = memory_mb(trainer.pid)
         print("plumb-train: replay %.0f s (%.0f events/s); trained on everything and published "
               "%.0f s after the start; RSS %.0f MB, peak %.0f MB" % (
                   replay_s, events / replay_s, idle_s, train_rss, train_hwm), flush=True)
@@ -128,7 +111,7 @@ def main():
             if trainer.poll() is not None:
                 sys.exit("plumb-train exited; see " + tmp + "/train.log")
             time.sleep(0.2)
-        restart_rss, restart_hwm = mem_mb(trainer.pid)
+        restart_rss, restart_hwm = memory_mb(trainer.pid)
         print("plumb-train restarted: serving again after %.1f s; RSS %.0f MB, peak %.0f MB" %
               (time.time() - t0, restart_rss, restart_hwm), flush=True)
 
@@ -145,10 +128,10 @@ def main():
             time.sleep(0.5)
         serve_s = time.time() - t0
         r = query(build, "recommend", "--server", serve_addr, "--user", "m1", "--count", "20")
-        serve_rss, serve_hwm = mem_mb(server.pid)
+        serve_rss, serve_hwm = memory_mb(server.pid)
         print("plumb-serve: serving after %.1f s; RSS %.0f MB, peak %.0f MB (a Recommend: %s)"
               % (serve_s, serve_rss, serve_hwm, "ok" if r.returncode == 0 else r.stderr.strip()))
-        print("store on disk: %.0f MB (one version kept)" % dir_mb(tmp + "/db"))
+        print("store on disk: %.0f MB (one version kept)" % dir_bytes(tmp + "/db") / 1e6)
     finally:
         for p in procs:
             p.terminate()

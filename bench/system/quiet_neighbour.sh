@@ -14,17 +14,7 @@
 # Usage: bench/system/quiet_neighbour.sh BUILD_DIR [SECONDS_PER_RUN] [RATE]
 set -u
 BIN=$1; SECS=${2:-20}; RATE=${3:-1000}
-PLUMB=$BIN/cli/plumb; TRAIN=$BIN/trainer/online/plumb-train; SERVE=$BIN/server/plumb-serve
-QUERY=$BIN/tools/plumb-query; LOAD=$BIN/tools/plumb-load
-PY=/usr/bin/python3
-tmp=$(mktemp -d); pids=()
-cleanup() {
-  for p in "${pids[@]}"; do kill "$p" 2>/dev/null; done
-  sleep 0.5
-  if [ "${KEEP:-0}" = 1 ]; then echo "kept $tmp"; else rm -rf "$tmp"; fi
-}
-trap cleanup EXIT
-port() { $PY -c 'import socket; s=socket.socket(); s.bind(("127.0.0.1",0)); print(s.getsockname()[1])'; }
+. "$(dirname "$0")/common.sh"
 S=127.0.0.1:$(port); T=127.0.0.1:$(port)
 
 echo "== world: 100,000 users x 110,000 tools, ~1.2 M interactions; one-epoch BPR fit at d = 64"
@@ -39,14 +29,14 @@ start_serve() {  # nice
   "$SERVE" --db "$tmp/db" --listen "$S" --metrics "" --catchup-interval 500ms \
     --background-nice "$1" >>"$tmp/serve.log" 2>&1 &
   serve_pid=$!; pids+=($serve_pid)
-  for _ in $(seq 300); do "$QUERY" health --server "$S" >/dev/null 2>&1 && return 0; sleep 0.2; done
+  wait_serving "$S" && return 0
   echo "plumb-serve did not become healthy; log:"; cat "$tmp/serve.log"; exit 1
 }
 start_train() {  # nice
   "$TRAIN" --db "$tmp/db" --listen "$T" --metrics "" --dim 64 --publish-interval 10s \
     --background-nice "$1" >"$tmp/train.log" 2>&1 &
   train_pid=$!; pids+=($train_pid)
-  for _ in $(seq 150); do "$QUERY" status --trainer "$T" >/dev/null 2>&1 && return 0; sleep 0.2; done
+  wait_training "$T" 150 && return 0
   echo "plumb-train did not start; log:"; cat "$tmp/train.log"; exit 1
 }
 stop() { kill "$1"; wait "$1" 2>/dev/null; }

@@ -14,17 +14,7 @@
 # Usage: bench/system/serving_load.sh BUILD_DIR [SECONDS_PER_RUN]
 set -u
 BIN=$1; SECS=${2:-8}
-PLUMB=$BIN/cli/plumb; TRAIN=$BIN/trainer/online/plumb-train; SERVE=$BIN/server/plumb-serve
-QUERY=$BIN/tools/plumb-query; LOAD=$BIN/tools/plumb-load
-PY=/usr/bin/python3
-tmp=$(mktemp -d); pids=()
-cleanup() {
-  for p in "${pids[@]}"; do kill "$p" 2>/dev/null; done
-  sleep 0.5
-  if [ "${KEEP:-0}" = 1 ]; then echo "kept $tmp"; else rm -rf "$tmp"; fi
-}
-trap cleanup EXIT
-port() { $PY -c 'import socket; s=socket.socket(); s.bind(("127.0.0.1",0)); print(s.getsockname()[1])'; }
+. "$(dirname "$0")/common.sh"
 S=127.0.0.1:$(port); T=127.0.0.1:$(port)
 
 echo "== world: 200,000 users x 110,000 tools, ~2.4 M interactions; one-epoch BPR fit at d = 64"
@@ -38,7 +28,7 @@ start_serve() {  # extra flags for plumb-serve
   "$SERVE" --db "$tmp/db" --listen "$S" --metrics "" --catchup-interval 500ms "$@" \
     >>"$tmp/serve.log" 2>&1 &
   serve_pid=$!; pids+=($serve_pid)
-  for _ in $(seq 300); do "$QUERY" health --server "$S" >/dev/null 2>&1 && return 0; sleep 0.2; done
+  wait_serving "$S" && return 0
   echo "plumb-serve did not become healthy; log:"; cat "$tmp/serve.log"; exit 1
 }
 stop_serve() { kill "$serve_pid"; wait "$serve_pid" 2>/dev/null; }
@@ -82,7 +72,7 @@ start_serve
 "$TRAIN" --db "$tmp/db" --listen "$T" --metrics "" --objective bpr --dim 64 --threads 1 \
   --publish-interval 10s --idle-replay-passes 0 >"$tmp/train.log" 2>&1 &
 pids+=($!)
-for _ in $(seq 150); do "$QUERY" status --trainer "$T" >/dev/null 2>&1 && break; sleep 0.2; done
+wait_training "$T" 150
 stream=(--publish-rate 10000 --publish-events-per-call 100 --trainer "$T" --items-file "$tmp/w/items.csv")
 run "floor-c4-events" --rpc health --concurrency 4 "${stream[@]}"
 run "recommend-c1-events" --rpc recommend --count 20 --concurrency 1 "${stream[@]}"

@@ -11,17 +11,13 @@
 # Not part of CI. Usage: bench/system/soak.sh BUILD_DIR [MINUTES] [QUERIES_PER_S] [EVENTS_PER_S]
 set -u
 BIN=$1; MINUTES=${2:-60}; QPS=${3:-200}; EPS=${4:-500}
-PLUMB=$BIN/cli/plumb; TRAIN=$BIN/trainer/online/plumb-train; SERVE=$BIN/server/plumb-serve
-QUERY=$BIN/tools/plumb-query; LOAD=$BIN/tools/plumb-load
-PY=/usr/bin/python3
-tmp=$(mktemp -d); train_pid=; serve_pid=; load_pid=
+. "$(dirname "$0")/common.sh"
+train_pid=; serve_pid=; load_pid=
 cleanup() {
   for p in $load_pid $serve_pid $train_pid; do kill -TERM "$p" 2>/dev/null; done; sleep 1
   for p in $load_pid $serve_pid $train_pid; do kill -KILL "$p" 2>/dev/null; done
   if [ "${KEEP:-0}" = 1 ]; then echo "kept $tmp"; else rm -rf "$tmp"; fi
 }
-trap cleanup EXIT
-port() { $PY -c 'import socket; s=socket.socket(); s.bind(("127.0.0.1",0)); print(s.getsockname()[1])'; }
 fail() { echo "FAIL: $*"; tail -5 "$tmp"/*.log; exit 1; }
 rss_mb() { awk '/^VmRSS/ {printf "%.1f", $2 / 1024}' "/proc/$1/status" 2>/dev/null; }
 metric() { curl -s "http://$1/metrics" | awk -v m="$2" '$1 == m {printf "%d", $2}'; }
@@ -40,11 +36,8 @@ initial=$("$PLUMB" inspect --db "$tmp/db" | awk '/^event log/ {print $3}')
 train_pid=$!
 "$SERVE" --db "$tmp/db" --listen "$S" --metrics "$SM" >"$tmp/serve.log" 2>&1 &
 serve_pid=$!
-for _ in $(seq 300); do
-  "$QUERY" health --server "$S" >/dev/null 2>&1 && "$QUERY" status --trainer "$T" >/dev/null 2>&1 && break
-  sleep 0.2
-done
-"$QUERY" health --server "$S" >/dev/null 2>&1 || fail "plumb-serve not healthy"
+wait_training "$T"
+wait_serving "$S" || fail "plumb-serve not healthy"
 
 seconds=$(( MINUTES * 60 ))
 echo "== $MINUTES min: Recommend at $QPS/s, $EPS events/s, a version a minute"

@@ -43,7 +43,8 @@ TEST(ReadEventCsv, ColumnsInAnyOrderWithOptionalFields) {
 }
 
 TEST(ReadEventCsv, BadLineStopsWithFileLineAndReasonAndKeepsNothing) {
-  const std::string path = WriteTemp("bad.csv", "user,item,ts\nm1,t1,10\nm2,t2,yesterday\nm3,t3,5\n");
+  const std::string path =
+      WriteTemp("bad.csv", "user,item,ts\nm1,t1,10\nm2,t2,yesterday\nm3,t3,5\n");
   std::vector<CsvEvent> ev;
   CsvReadReport rep;
   Status s = ReadEventCsv(path, {}, &ev, &rep);

@@ -35,15 +35,20 @@ std::set<PairKey> PairsOf(const std::vector<CsvEvent>& rows, const std::vector<s
   return out;
 }
 
+// The history of the two hand-worked temporal cases below.
+std::vector<CsvEvent> TemporalHistory() {
+  return {
+      Ev("a", "y", 2), Ev("b", "p", 10), Ev("a", "x", 1), Ev("a", "v", 5), Ev("b", "q", 10),
+      Ev("a", "w", 4), Ev("c", "x", 7),  Ev("a", "z", 3), Ev("a", "x", 6),
+  };
+}
+
 // Hand-worked: user a has pairs (by earliest ts) x@1, y@2, z@3, w@4, v@5 (x twice: ts 1 and
 // 6, so its earliest is 1); user b has p@10, q@10 (a tie: file order decides, p first);
 // user c has one pair. holdout 0.4: a holds out round(0.4 · 5) = 2 pairs (w, v), b
 // round(0.8) = 1 (q), c min(round(0.4), 0) = 0.
 TEST(EventSplitTest, TemporalHoldsOutEachUsersLatestPairs) {
-  const std::vector<CsvEvent> rows = {
-      Ev("a", "y", 2), Ev("b", "p", 10), Ev("a", "x", 1), Ev("a", "v", 5), Ev("b", "q", 10),
-      Ev("a", "w", 4), Ev("c", "x", 7),  Ev("a", "z", 3), Ev("a", "x", 6),
-  };
+  const std::vector<CsvEvent> rows = TemporalHistory();
   EventSplitOptions o;
   o.kind = SplitKind::kTemporal;
   o.holdout_fraction = 0.4;
@@ -63,10 +68,7 @@ TEST(EventSplitTest, TemporalHoldsOutEachUsersLatestPairs) {
 // w (earlier) and v; round(0.5 · 2) = 1 goes to validation: w. b's one: round(0.5) = 1
 // (half away from zero), so q goes to validation and b has no test pair.
 TEST(EventSplitTest, TemporalValidationTakesTheEarlierHeldOutPairs) {
-  const std::vector<CsvEvent> rows = {
-      Ev("a", "y", 2), Ev("b", "p", 10), Ev("a", "x", 1), Ev("a", "v", 5), Ev("b", "q", 10),
-      Ev("a", "w", 4), Ev("c", "x", 7),  Ev("a", "z", 3), Ev("a", "x", 6),
-  };
+  const std::vector<CsvEvent> rows = TemporalHistory();
   EventSplitOptions o;
   o.kind = SplitKind::kTemporal;
   o.holdout_fraction = 0.4;

@@ -73,8 +73,8 @@ TEST(GiniTest, KnownCases) {
   EXPECT_DOUBLE_EQ(gini(std::vector<uint64_t>{5, 5, 5, 5}), 0.0);
   EXPECT_DOUBLE_EQ(gini(std::vector<uint64_t>{0, 0, 0, 12}), 3.0 / 4.0);
   EXPECT_DOUBLE_EQ(gini(std::vector<uint64_t>{0, 9, 0, 0, 0, 0, 0, 0, 0, 0}), 9.0 / 10.0);
-  // [1, 2, 3, 4]: Σ(2i − n − 1)x = −3 − 2 + 3 + 12 = 10, n Σx = 40 -> 0.25. Cross-check with
-  // the mean-absolute-difference form Σ_i Σ_j |x_i − x_j| / (2 n² mean) = 20 / 80 = 0.25.
+  // [1, 2, 3, 4]: Σ(2i − n − 1)x = −3 − 2 + 3 + 12 = 10, n Σx = 40 -> 0.25. Cross-check
+  // with the mean-absolute-difference form Σ_i Σ_j |x_i − x_j| / (2 n² mean) = 20 / 80 = 0.25.
   EXPECT_DOUBLE_EQ(gini(std::vector<uint64_t>{4, 2, 1, 3}), 0.25);
   EXPECT_EQ(gini(std::vector<uint64_t>{}), 0.0);
   EXPECT_EQ(gini(std::vector<uint64_t>{0, 0}), 0.0);
@@ -223,8 +223,8 @@ TEST(GroupShareShiftTest, UndefinedInputsGiveNaN) {
   const std::vector<double> a = {0.5, 0.5}, b = {1.0, 0.0, 0.0}, zero = {0.0, 0.0};
   EXPECT_TRUE(std::isnan(group_share_shift(a, b).shift));
   EXPECT_TRUE(std::isnan(group_share_shift(a, zero).distance));
-  EXPECT_TRUE(std::isnan(group_share_shift(std::vector<double>{1.0}, std::vector<double>{1.0})
-                             .shift));
+  EXPECT_TRUE(
+      std::isnan(group_share_shift(std::vector<double>{1.0}, std::vector<double>{1.0}).shift));
   EXPECT_TRUE(std::isnan(group_share_shift(std::vector<double>{-1.0, 2.0}, a).shift));
 }
 
@@ -259,9 +259,9 @@ TEST(RankingReportTest, HandWorkedReport) {
   //   user 2: top [2, 3, 1], relevant {1, 3}: top-2 [2, 3], hit at rank 2.
   //           recall 1/2; NDCG = 0.630930 / (1 + 0.630930) = 0.386853.
   // recall = 0.75; NDCG = 0.508891; ARP = ((4+1)/2 + (2+4)/2) / 2 = 2.75.
-  // Exposure counts [1, 0, 1, 2]: Gini = (−3·0 − 1·1 + 1·1 + 3·2) / (4·4) = 0.375; coverage
-  // 3/4. Recommended slots per group: [2, 2] -> [½, ½]. Test interactions: items 0, 1, 3 ->
-  // [2, 1] -> [⅔, ⅓].
+  // Exposure counts [1, 0, 1, 2]: Gini = (−3·0 − 1·1 + 1·1 + 3·2) / (4·4) = 0.375;
+  // coverage 3/4. Recommended slots per group: [2, 2] -> [½, ½]. Test interactions:
+  // items 0, 1, 3 -> [2, 1] -> [⅔, ⅓].
   ItemLists top, rel;
   top.Append(Items{3, 0, 1});
   rel.Append(Items{0});

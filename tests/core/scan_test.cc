@@ -11,6 +11,12 @@
 namespace plumb {
 namespace {
 
+// A selector's result, sorted, as a vector (to compare two selections).
+std::vector<ScoredIndex> Sorted(TopKSelector& selector) {
+  const std::span<const ScoredIndex> result = selector.SortedResult();
+  return {result.begin(), result.end()};
+}
+
 // Random matrix whose entries are small multiples of 1/4: the dot products of such values
 // are exact in float32 for the dimensions used here, so equal scores (ties) occur often and
 // any summation order gives the same float. That lets the brute-force reference use a plain
@@ -231,10 +237,7 @@ TEST(TopKByDotPrunedTest, SelectorEqualsTheFullScanBitForBit) {
     ASSERT_TRUE(top_k_by_dot_pruned(m.view(), codes, q, Exclusions{{}, excluded}, scratch, &pruned,
                                     &pruned_out)
                     .ok());
-    auto a = full.SortedResult();
-    auto b = pruned.SortedResult();
-    ASSERT_EQ(std::vector<ScoredIndex>(b.begin(), b.end()),
-              std::vector<ScoredIndex>(a.begin(), a.end()))
+    ASSERT_EQ(Sorted(pruned), Sorted(full))
         << "trial " << trial << " rows=" << rows << " dim=" << dim << " k=" << k;
     EXPECT_EQ(pruned_out.rows_scanned, rows);
     EXPECT_FALSE(pruned_out.stopped_early);
@@ -307,10 +310,7 @@ TEST(TopKByCosinePrunedTest, SelectorEqualsTheFullCosineScanBitForBit) {
     ASSERT_TRUE(top_k_by_cosine_pruned(m.view(), codes, norms, q, Exclusions{{}, excluded}, scratch,
                                        &pruned, &pruned_out)
                     .ok());
-    auto a = full.SortedResult();
-    auto b = pruned.SortedResult();
-    ASSERT_EQ(std::vector<ScoredIndex>(b.begin(), b.end()),
-              std::vector<ScoredIndex>(a.begin(), a.end()))
+    ASSERT_EQ(Sorted(pruned), Sorted(full))
         << "trial " << trial << " rows=" << rows << " dim=" << dim << " k=" << k;
   }
   // A zero query has no cosine: refused like the full scan does.

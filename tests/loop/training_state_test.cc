@@ -1,11 +1,10 @@
 #include "trainer/online/training_state.h"
 
+#include <gtest/gtest.h>
 #include <unistd.h>
 
 #include <cmath>
 #include <filesystem>
-
-#include <gtest/gtest.h>
 
 namespace plumb::online {
 namespace {
@@ -95,7 +94,8 @@ TEST(TrainingState, LoadFromStoreRebuildsTheCommittedState) {
   EXPECT_EQ(loaded.users().names(), s.users().names());
   EXPECT_EQ(loaded.items().names(), s.items().names());
   ASSERT_EQ(loaded.train().size(), s.train().size());
-  for (size_t p = 0; p < s.train().size(); ++p) EXPECT_EQ(loaded.train().pair(p), s.train().pair(p));
+  for (size_t p = 0; p < s.train().size(); ++p)
+    EXPECT_EQ(loaded.train().pair(p), s.train().pair(p));
   EXPECT_EQ(loaded.validation(), s.validation());
   EXPECT_GT(s.validation().size(), 0u);
   // Nothing to persist right after a load.

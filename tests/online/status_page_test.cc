@@ -7,19 +7,14 @@
 
 #include <string>
 
+#include "tests/common/count_text.h"
 #include "tests/store/store_fixture.h"
 #include "trainer/online/online_loop.h"
 
 namespace plumb::online {
 namespace {
 
-size_t Count(const std::string& haystack, const std::string& needle) {
-  size_t n = 0;
-  for (size_t i = haystack.find(needle); i != std::string::npos; i = haystack.find(needle, i + 1)) {
-    ++n;
-  }
-  return n;
-}
+using ::plumb::testing::CountText;
 
 class TrainStatusPageTest : public store::testing::StoreFixture {
  protected:
@@ -74,21 +69,21 @@ TEST_F(TrainStatusPageTest, VersionsCommandsAndEscapedReasons) {
 
   const std::string html = page.Html(1'800'000'360'000);
   // Roll back to the newest older version, promote the newest passing newer one (v3 failed).
-  EXPECT_EQ(Count(html, "plumb-query activate --model-version 1 --trainer 127.0.0.1:7601"), 1u);
-  EXPECT_EQ(Count(html, "plumb-query activate --model-version 4 --trainer 127.0.0.1:7601"), 1u);
-  EXPECT_EQ(Count(html, "--model-version 3"), 0u);
-  EXPECT_EQ(Count(html, "&lt;b&gt;recall&lt;/b&gt; dropped &amp; &quot;worse&quot;"), 1u);
-  EXPECT_EQ(Count(html, "<b>"), 0u);
+  EXPECT_EQ(CountText(html, "plumb-query activate --model-version 1 --trainer 127.0.0.1:7601"), 1u);
+  EXPECT_EQ(CountText(html, "plumb-query activate --model-version 4 --trainer 127.0.0.1:7601"), 1u);
+  EXPECT_EQ(CountText(html, "--model-version 3"), 0u);
+  EXPECT_EQ(CountText(html, "&lt;b&gt;recall&lt;/b&gt; dropped &amp; &quot;worse&quot;"), 1u);
+  EXPECT_EQ(CountText(html, "<b>"), 0u);
   // One timeline mark per version, one of them active; the reason that occurred has a line.
-  EXPECT_EQ(Count(html, "<g class=\"version\""), 4u);
-  EXPECT_EQ(Count(html, "data-active=\"1\""), 1u);
-  EXPECT_EQ(Count(html, "data-key=\"rejected_rate_future_timestamp\" data-value"),
+  EXPECT_EQ(CountText(html, "<g class=\"version\""), 4u);
+  EXPECT_EQ(CountText(html, "data-active=\"1\""), 1u);
+  EXPECT_EQ(CountText(html, "data-key=\"rejected_rate_future_timestamp\" data-value"),
             3u);  // one mark, a cell per point (the first NaN)
-  EXPECT_EQ(Count(html, "data-key=\"rejected_rate_bad_weight\""), 0u);
+  EXPECT_EQ(CountText(html, "data-key=\"rejected_rate_bad_weight\""), 0u);
   // Read-only: no form, no button; no user ids.
-  EXPECT_EQ(Count(html, "<form"), 0u);
-  EXPECT_EQ(Count(html, "<button"), 0u);
-  EXPECT_EQ(Count(html, "member-"), 0u);
+  EXPECT_EQ(CountText(html, "<form"), 0u);
+  EXPECT_EQ(CountText(html, "<button"), 0u);
+  EXPECT_EQ(CountText(html, "member-"), 0u);
 }
 
 }  // namespace

@@ -19,6 +19,7 @@
 #include "server/ranking_server.h"
 #include "server/scorer.h"
 #include "server/snapshot_holder.h"
+#include "tests/server/loopback_server.h"
 #include "tests/server/test_model.h"
 
 namespace plumb::server {
@@ -96,24 +97,15 @@ TEST_P(HotSwapTest, FourClientsSeeOnlyActiveVersionsInOrderWithoutAFailure) {
   };
   publish(1000, true);
 
-  std::unique_ptr<store::Store> secondary;
-  ASSERT_TRUE(store::Store::OpenSecondary(dir.Sub("db"), dir.Sub("scratch"), &secondary).ok());
-  SnapshotHolder holder;
   CatchUpOptions follow;
   follow.interval = std::chrono::milliseconds(10);
   follow.approx = approx;
-  CatchUpLoop loop(secondary.get(), &holder, follow);
-  ASSERT_TRUE(loop.RunOnce().ok());
-  Scorer scorer;
-  RankerService service(&holder, &scorer, RankerLimits{}, nullptr, nullptr);
-  EndpointOptions endpoint;
-  endpoint.listen = "127.0.0.1:0";
-  std::unique_ptr<RankingServer> server;
-  ASSERT_TRUE(RankingServer::Start(endpoint, &service, &server).ok());
-  loop.Start();
+  testing::FollowingServer serving;
+  ASSERT_TRUE(serving.Start(dir.Sub("db"), dir.Sub("scratch"), follow).ok());
+  SnapshotHolder& holder = serving.holder();
+  CatchUpLoop& loop = serving.loop();
+  const std::shared_ptr<grpc::Channel> channel = serving.channel();
 
-  auto channel = grpc::CreateChannel("127.0.0.1:" + std::to_string(server->port()),
-                                     grpc::InsecureChannelCredentials());
   std::atomic<bool> stop{false};
   std::atomic<int> failures{0};
   std::atomic<uint64_t> latest[4] = {0, 0, 0, 0};  // each client's last version seen
@@ -168,7 +160,7 @@ TEST_P(HotSwapTest, FourClientsSeeOnlyActiveVersionsInOrderWithoutAFailure) {
   stop.store(true);
   for (auto& t : clients) t.join();
   loop.Stop();
-  server->Shutdown(std::chrono::milliseconds(1000));
+  serving.server().Shutdown(std::chrono::milliseconds(1000));
 
   EXPECT_EQ(failures.load(), 0);
   std::set<uint64_t> versions_served;

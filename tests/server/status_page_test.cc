@@ -9,18 +9,13 @@
 #include <cmath>
 #include <string>
 
+#include "tests/common/count_text.h"
 #include "tests/server/test_model.h"
 
 namespace plumb::server {
 namespace {
 
-size_t Count(const std::string& haystack, const std::string& needle) {
-  size_t n = 0;
-  for (size_t i = haystack.find(needle); i != std::string::npos; i = haystack.find(needle, i + 1)) {
-    ++n;
-  }
-  return n;
-}
+using ::plumb::testing::CountText;
 
 class ServeStatusPageTest : public ::testing::Test {
  protected:
@@ -52,18 +47,18 @@ TEST_F(ServeStatusPageTest, HostileIdsAreTextInTheHtmlAndWholeInTheJson) {
   EXPECT_EQ(j["model"]["version"], 7);
 
   const std::string html = page.Html(1'800'000'000'000);
-  EXPECT_EQ(Count(html, "<script"), 0u);
-  EXPECT_EQ(Count(html, "&lt;script&gt;alert(1)&lt;/script&gt;"), 1u);
-  EXPECT_EQ(Count(html, "a&quot;b&#39;c"), 1u);
-  EXPECT_EQ(Count(html, "ctl&#xFFFD;&#xFFFD;[2J"), 1u);
+  EXPECT_EQ(CountText(html, "<script"), 0u);
+  EXPECT_EQ(CountText(html, "&lt;script&gt;alert(1)&lt;/script&gt;"), 1u);
+  EXPECT_EQ(CountText(html, "a&quot;b&#39;c"), 1u);
+  EXPECT_EQ(CountText(html, "ctl&#xFFFD;&#xFFFD;[2J"), 1u);
   EXPECT_EQ(html.find('\x01'), std::string::npos);
   EXPECT_EQ(html.find('\x1b'), std::string::npos);
   // The 300-byte id is cut at 60 characters.
-  EXPECT_EQ(Count(html, std::string(60, 'x') + "\xE2\x80\xA6"), 1u);
-  EXPECT_EQ(Count(html, std::string(61, 'x')), 0u);
+  EXPECT_EQ(CountText(html, std::string(60, 'x') + "\xE2\x80\xA6"), 1u);
+  EXPECT_EQ(CountText(html, std::string(61, 'x')), 0u);
   // No user id anywhere (the model's users are member-0 .. member-7).
-  EXPECT_EQ(Count(html, "member-"), 0u);
-  EXPECT_EQ(Count(j.dump(), "member-"), 0u);
+  EXPECT_EQ(CountText(html, "member-"), 0u);
+  EXPECT_EQ(CountText(j.dump(), "member-"), 0u);
 }
 
 TEST_F(ServeStatusPageTest, LatencyQuantilesComeFromTheHistogramIncreaseBetweenSamples) {
@@ -94,8 +89,8 @@ TEST_F(ServeStatusPageTest, LatencyQuantilesComeFromTheHistogramIncreaseBetweenS
   // The page draws one point per measured value (and lists every value in its table): the
   // measured p50 as a mark and a cell, the unmeasured one as a cell only.
   const std::string html = page.Html(1'800'000'060'000);
-  EXPECT_EQ(Count(html, "data-key=\"p50_ms\" data-value=\"1.5\""), 2u);
-  EXPECT_EQ(Count(html, "data-key=\"p50_ms\" data-value=\"NaN\""), 1u);
+  EXPECT_EQ(CountText(html, "data-key=\"p50_ms\" data-value=\"1.5\""), 2u);
+  EXPECT_EQ(CountText(html, "data-key=\"p50_ms\" data-value=\"NaN\""), 1u);
 }
 
 }  // namespace

@@ -21,6 +21,7 @@
 #include "server/ranking_server.h"
 #include "server/scorer.h"
 #include "server/snapshot_holder.h"
+#include "tests/server/loopback_server.h"
 #include "tests/server/test_model.h"
 
 namespace plumb::server {
@@ -73,21 +74,12 @@ TEST(WithdrawnUnderLoadTest, AnItemLeavesAllThreeMethodsWithinTheBoundAndComesBa
   ASSERT_TRUE(std::any_of(list.items.begin(), list.items.end(),
                           [&](const ScoredIndex& s) { return m.item_ids[s.index] == target; }));
 
-  std::unique_ptr<store::Store> secondary;
-  ASSERT_TRUE(store::Store::OpenSecondary(dir.Sub("db"), dir.Sub("scratch"), &secondary).ok());
-  SnapshotHolder holder;
   CatchUpOptions follow;
   follow.interval = kInterval;
-  CatchUpLoop loop(secondary.get(), &holder, follow);
-  ASSERT_TRUE(loop.RunOnce().ok());
-  RankerService service(&holder, &scorer, RankerLimits{}, nullptr, nullptr);
-  EndpointOptions endpoint;
-  endpoint.listen = "127.0.0.1:0";
-  std::unique_ptr<RankingServer> server;
-  ASSERT_TRUE(RankingServer::Start(endpoint, &service, &server).ok());
-  loop.Start();
-  auto channel = grpc::CreateChannel("127.0.0.1:" + std::to_string(server->port()),
-                                     grpc::InsecureChannelCredentials());
+  testing::FollowingServer serving;
+  ASSERT_TRUE(serving.Start(dir.Sub("db"), dir.Sub("scratch"), follow).ok());
+  CatchUpLoop& loop = serving.loop();
+  const std::shared_ptr<grpc::Channel> channel = serving.channel();
 
   std::atomic<bool> stop{false};
   std::atomic<int> failures{0};
@@ -205,7 +197,7 @@ TEST(WithdrawnUnderLoadTest, AnItemLeavesAllThreeMethodsWithinTheBoundAndComesBa
   stop.store(true);
   for (auto& t : clients) t.join();
   loop.Stop();
-  server->Shutdown(std::chrono::milliseconds(1000));
+  serving.server().Shutdown(std::chrono::milliseconds(1000));
 
   EXPECT_EQ(failures.load(), 0);
   size_t total = 0;

@@ -5,16 +5,12 @@
 #include <cmath>
 #include <string>
 
+#include "tests/common/count_text.h"
+
 namespace plumb::status {
 namespace {
 
-size_t Count(const std::string& haystack, const std::string& needle) {
-  size_t n = 0;
-  for (size_t i = haystack.find(needle); i != std::string::npos; i = haystack.find(needle, i + 1)) {
-    ++n;
-  }
-  return n;
-}
+using ::plumb::testing::CountText;
 
 TEST(LinePlot, OnePointPerFiniteValueAndOneTableRowPerTime) {
   LinePlot p;
@@ -25,14 +21,14 @@ TEST(LinePlot, OnePointPerFiniteValueAndOneTableRowPerTime) {
   p.series = {{"lift", "#123456", {1.0, std::nan(""), 1.5, 2.0}, false, "lift"},
               {"other", "#654321", {0.5, 0.5, 0.5, 0.5}, true, "other"}};
   const std::string s = RenderLinePlot(p);
-  EXPECT_EQ(Count(s, "<circle class=\"point\""), 7u);
+  EXPECT_EQ(CountText(s, "<circle class=\"point\""), 7u);
   // The mark and its table cell.
-  EXPECT_EQ(Count(s, "data-series=\"0\" data-key=\"lift\" data-value=\"1.5\""), 2u);
-  EXPECT_EQ(Count(s, "data-key=\"other\""), 8u);
-  EXPECT_EQ(Count(s, "<tr><td>"), 4u);
+  EXPECT_EQ(CountText(s, "data-series=\"0\" data-key=\"lift\" data-value=\"1.5\""), 2u);
+  EXPECT_EQ(CountText(s, "data-key=\"other\""), 8u);
+  EXPECT_EQ(CountText(s, "<tr><td>"), 4u);
   // The gap splits the first series' line in two.
-  EXPECT_EQ(Count(s, "<polyline"), 3u);
-  EXPECT_EQ(Count(s, "<b>"), 0u);
+  EXPECT_EQ(CountText(s, "<polyline"), 3u);
+  EXPECT_EQ(CountText(s, "<b>"), 0u);
   EXPECT_NE(s.find("popularity lift &lt;b&gt;"), std::string::npos);
   EXPECT_NE(s.find("time (UTC)"), std::string::npos);
 }
@@ -47,10 +43,10 @@ TEST(BarChart, OneBarPerGroupAndSeriesInTheGroupsColours) {
               {"interactions", {0.33, 0.33, 0.34}, 1},
               {"target (not measured)", {}, 2}};
   const std::string s = RenderBarChart(c);
-  EXPECT_EQ(Count(s, "<rect class=\"bar\""), 6u);
-  EXPECT_EQ(Count(s, "target (not measured)"), 0u);  // an empty series is left out
+  EXPECT_EQ(CountText(s, "<rect class=\"bar\""), 6u);
+  EXPECT_EQ(CountText(s, "target (not measured)"), 0u);  // an empty series is left out
   for (size_t g = 0; g < 3; ++g) {
-    EXPECT_GE(Count(s, "fill=\"" + GroupColour(g, 3) + "\""), 2u) << g;
+    EXPECT_GE(CountText(s, "fill=\"" + GroupColour(g, 3) + "\""), 2u) << g;
   }
   EXPECT_NE(s.find("group 1 (tail)"), std::string::npos);
   EXPECT_NE(s.find("group 3 (head)"), std::string::npos);

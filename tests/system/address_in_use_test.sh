@@ -7,21 +7,7 @@
 # Usage: address_in_use_test.sh BIN_DIR
 set -u
 BIN=$1
-TRAIN=$BIN/trainer/online/plumb-train; SERVE=$BIN/server/plumb-serve; QUERY=$BIN/tools/plumb-query
-PY=/usr/bin/python3; [ -x $PY ] || PY=python3
-tmp=$(mktemp -d)
-pids=
-cleanup() {
-  for p in $pids; do kill -TERM "$p" 2>/dev/null; done
-  for p in $pids; do  # a clean stop removes plumb-serve's scratch directory
-    for _ in $(seq 50); do kill -0 "$p" 2>/dev/null || break; sleep 0.1; done
-    kill -KILL "$p" 2>/dev/null
-  done
-  rm -rf "$tmp"
-}
-trap cleanup EXIT
-free_port() { $PY -c 'import socket; s=socket.socket(); s.bind(("127.0.0.1",0)); print(s.getsockname()[1])'; }
-fail() { echo "FAIL: $*"; for f in "$tmp"/*.log; do echo "--- $f"; tail -8 "$f"; done; exit 1; }
+. "$(dirname "$0")/common.sh"
 
 TRAIN_ADDR=127.0.0.1:$(free_port); TRAIN_METRICS=127.0.0.1:$(free_port)
 SERVE_ADDR=127.0.0.1:$(free_port); SERVE_METRICS=127.0.0.1:$(free_port)

@@ -9,23 +9,8 @@
 # Usage: metrics_doc_test.sh BIN_DIR SOURCE_DIR
 set -u
 BIN=$1; SRC=$2
-PLUMB=$BIN/cli/plumb; TRAIN=$BIN/trainer/online/plumb-train; SERVE=$BIN/server/plumb-serve
-QUERY=$BIN/tools/plumb-query; LOAD=$BIN/tools/plumb-load
-PY=/usr/bin/python3; [ -x $PY ] || PY=python3
 PROMTOOL=$(command -v promtool) || { echo "FAIL: promtool not found (Debian package prometheus)"; exit 1; }
-tmp=$(mktemp -d)
-pids=
-cleanup() {
-  for p in $pids; do kill -TERM "$p" 2>/dev/null; done
-  for p in $pids; do
-    for _ in $(seq 50); do kill -0 "$p" 2>/dev/null || break; sleep 0.1; done
-    kill -KILL "$p" 2>/dev/null
-  done
-  rm -rf "$tmp"
-}
-trap cleanup EXIT
-free_port() { $PY -c 'import socket; s=socket.socket(); s.bind(("127.0.0.1",0)); print(s.getsockname()[1])'; }
-fail() { echo "FAIL: $*"; for f in "$tmp"/*.log; do echo "--- $f"; tail -8 "$f"; done; exit 1; }
+. "$(dirname "$0")/common.sh"
 
 "$PLUMB" synth --out "$tmp/world" --users 300 --items 150 --interactions 5000 --seed 5 \
   >/dev/null 2>&1 || fail "synth"

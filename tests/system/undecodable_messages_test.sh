@@ -5,21 +5,7 @@
 # Usage: undecodable_messages_test.sh BIN_DIR SOURCE_DIR
 set -u
 BIN=$1; SRC=$2
-TRAIN=$BIN/trainer/online/plumb-train; SERVE=$BIN/server/plumb-serve
-PY=/usr/bin/python3; [ -x $PY ] || PY=python3
-tmp=$(mktemp -d)
-pids=
-cleanup() {
-  for p in $pids; do kill -TERM "$p" 2>/dev/null; done
-  for p in $pids; do  # a clean stop removes plumb-serve's scratch directory
-    for _ in $(seq 50); do kill -0 "$p" 2>/dev/null || break; sleep 0.1; done
-    kill -KILL "$p" 2>/dev/null
-  done
-  rm -rf "$tmp"
-}
-trap cleanup EXIT
-free_port() { $PY -c 'import socket; s=socket.socket(); s.bind(("127.0.0.1",0)); print(s.getsockname()[1])'; }
-fail() { echo "FAIL: $*"; for f in "$tmp"/*.log; do echo "--- $f"; tail -8 "$f"; done; exit 1; }
+. "$(dirname "$0")/common.sh"
 metric() { curl -s "http://$1/metrics" | awk -v m="$2" '$1 == m {print $2}'; }
 
 TRAIN_ADDR=127.0.0.1:$(free_port); TRAIN_METRICS=127.0.0.1:$(free_port)

@@ -12,9 +12,7 @@ cleanup() {
   rm -rf "$tmp"
 }
 trap cleanup EXIT
-fail=0
-check() { if eval "$2"; then echo "ok: $1"; else echo "FAIL: $1"; fail=1; fi; }
-json() { "${PYTHON3:-python3}" -c "import json,sys; d=json.load(open(sys.argv[1])); print($2)" "$1"; }
+. "$(dirname "$0")/common.sh"
 
 # ---- a small store: 300 members, 150 tools --------------------------------------------------
 "$PLUMB" synth --users 300 --items 150 --interactions 5000 --out "$tmp/world" >/dev/null || exit 1
@@ -22,13 +20,7 @@ json() { "${PYTHON3:-python3}" -c "import json,sys; d=json.load(open(sys.argv[1]
 
 "$SERVE" --db "$tmp/db" --listen 127.0.0.1:0 --metrics "" 2>"$tmp/serve.log" &
 serve_pid=$!
-port=""
-for _ in $(seq 300); do  # up to 30 s
-  port=$(sed -n 's/.*listening on port \([0-9]*\).*/\1/p' "$tmp/serve.log" | head -1)
-  [ -n "$port" ] && break
-  kill -0 "$serve_pid" 2>/dev/null || break
-  sleep 0.1
-done
+port=$(wait_port "$tmp/serve.log" "listening on port" "$serve_pid")
 if [ -z "$port" ]; then echo "FAIL: plumb-serve did not start"; cat "$tmp/serve.log"; exit 1; fi
 target=127.0.0.1:$port
 echo "plumb-serve on $target"
@@ -156,13 +148,7 @@ if command -v openssl >/dev/null 2>&1 &&
   "$SERVE" --db "$tmp/db" --listen 127.0.0.1:0 --metrics "" --tls-cert "$tmp/cert.pem" \
     --tls-key "$tmp/key.pem" 2>"$tmp/tls.log" &
   tls_pid=$!
-  tls_port=""
-  for _ in $(seq 300); do
-    tls_port=$(sed -n 's/.*listening on port \([0-9]*\).*/\1/p' "$tmp/tls.log" | head -1)
-    [ -n "$tls_port" ] && break
-    kill -0 "$tls_pid" 2>/dev/null || break
-    sleep 0.1
-  done
+  tls_port=$(wait_port "$tmp/tls.log" "listening on port" "$tls_pid")
   check "TLS server started" '[ -n "$tls_port" ]'
   tls=127.0.0.1:${tls_port:-1}
   out=$("$QUERY" health --server "$tls" --tls-ca "$tmp/cert.pem" --tls-server-name localhost 2>&1); rc=$?
@@ -183,13 +169,7 @@ printf 's3cret-serve-token\n' >"$tmp/token"; chmod 600 "$tmp/token"
 "$SERVE" --db "$tmp/db" --listen 127.0.0.1:0 --metrics "" --token-file "$tmp/token" \
   2>"$tmp/token.log" &
 tls_pid=$!
-token_port=""
-for _ in $(seq 300); do
-  token_port=$(sed -n 's/.*listening on port \([0-9]*\).*/\1/p' "$tmp/token.log" | head -1)
-  [ -n "$token_port" ] && break
-  kill -0 "$tls_pid" 2>/dev/null || break
-  sleep 0.1
-done
+token_port=$(wait_port "$tmp/token.log" "listening on port" "$tls_pid")
 check "server with a token started" '[ -n "$token_port" ]'
 guarded=127.0.0.1:${token_port:-1}
 user=$(awk -F, 'NR==2 {print $1}' "$tmp/world/events.csv")

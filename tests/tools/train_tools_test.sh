@@ -12,20 +12,7 @@ cleanup() {
   rm -rf "$tmp"
 }
 trap cleanup EXIT
-fail=0
-check() { if eval "$2"; then echo "ok: $1"; else echo "FAIL: $1"; fail=1; fi; }
-json() { "${PYTHON3:-python3}" -c "import json,sys; d=json.load(open(sys.argv[1])); print($2)" "$1"; }
-# wait_port LOG PATTERN PID: the port a process logs, waiting up to 30 s.
-wait_port() {
-  local port=""
-  for _ in $(seq 300); do
-    port=$(sed -n "s/.*$2 \([0-9][0-9]*\).*/\1/p" "$1" | head -1)
-    [ -n "$port" ] && break
-    kill -0 "$3" 2>/dev/null || break
-    sleep 0.1
-  done
-  echo "$port"
-}
+. "$(dirname "$0")/common.sh"
 
 "$PLUMB" synth --users 300 --items 150 --interactions 5000 --out "$tmp/world" >/dev/null || exit 1
 events=$(($(wc -l <"$tmp/world/events.csv") - 1))

@@ -5,7 +5,9 @@
 #include <cmath>
 #include <limits>
 
+#include "status/history_section.h"
 #include "status/html.h"
+#include "status/page_json.h"
 #include "status/page_shell.h"
 #include "status/rates.h"
 #include "status/svg_plot.h"
@@ -16,10 +18,13 @@ namespace plumb::online {
 namespace {
 
 using nlohmann::json;
+using status::AppendCard;
 using status::AppendEscaped;
 using status::ExactNumber;
 using status::FormatNumber;
 using status::FormatUtc;
+using status::JsonNumber;
+using status::NumberAt;
 
 const double kNaN = std::numeric_limits<double>::quiet_NaN();
 
@@ -32,36 +37,6 @@ std::vector<std::string> SeriesNames() {
                     std::string(RejectReasonLabel(static_cast<RejectReason>(r))));
   }
   return names;
-}
-
-json Number(double v) { return std::isfinite(v) ? json(v) : json(nullptr); }
-json Numbers(const std::vector<double>& v) {
-  json a = json::array();
-  for (double x : v) a.push_back(Number(x));
-  return a;
-}
-std::vector<double> Doubles(const json& a) {
-  std::vector<double> out;
-  if (!a.is_array()) return out;
-  for (const json& x : a) out.push_back(x.is_number() ? x.get<double>() : kNaN);
-  return out;
-}
-double Get(const json& j, const char* key) {
-  return j.contains(key) && j[key].is_number() ? j[key].get<double>() : kNaN;
-}
-
-std::string StepText(int64_t ms) {
-  if (ms % 3600000 == 0) return std::to_string(ms / 3600000) + " h";
-  if (ms % 60000 == 0) return std::to_string(ms / 60000) + " min";
-  if (ms % 1000 == 0) return std::to_string(ms / 1000) + " s";
-  return std::to_string(ms) + " ms";
-}
-
-void Card(std::string* s, const std::string& key, const std::string& label, double value,
-          const std::string& unit, int digits = 3) {
-  *s += "<div class=\"card\" data-key=\"" + key + "\" data-value=\"" + ExactNumber(value) +
-        "\"><div class=\"label\">" + label + "</div><div class=\"value\">" +
-        FormatNumber(value, digits) + "<span class=\"unit\">" + unit + "</span></div></div>";
 }
 
 // The version timeline: one mark per version at its creation time, by gate outcome
@@ -129,7 +104,7 @@ std::string Timeline(const json& versions, size_t groups) {
                   "<text class=\"tick\" x=\"%.1f\" y=\"%.1f\" text-anchor=\"middle\">v%s</text>", x,
                   H - B + 16, version.c_str());
     s += buf;
-    const std::vector<double> shares = Doubles(v["validation_group_shares"]);
+    const std::vector<double> shares = status::Doubles(v["validation_group_shares"]);
     if (shares.size() == groups) {
       double y = bar_top + bar_h;
       for (size_t g = 0; g < groups; ++g) {
@@ -224,11 +199,7 @@ void TrainStatusPage::Sample(int64_t now_ms) {
 }
 
 nlohmann::json TrainStatusPage::Json(int64_t now_ms) const {
-  json j;
-  j["process"] = "plumb-train";
-  j["now_ms"] = now_ms;
-  j["history_step_ms"] = options_.step_ms;
-  j["history_capacity"] = options_.history_points;
+  json j = status::PageJsonStart("plumb-train", now_ms, options_.step_ms, options_.history_points);
   j["trainer_address"] = options_.trainer_address;
   const OnlineStatus st = loop_ ? loop_->status() : OnlineStatus{};
   json t;
@@ -240,7 +211,7 @@ nlohmann::json TrainStatusPage::Json(int64_t now_ms) const {
   t["users"] = st.num_users;
   t["items"] = st.num_items;
   t["samples_trained"] = st.samples_trained;
-  t["loss"] = Number(st.samples_trained > 0 ? st.last_loss : kNaN);
+  t["loss"] = JsonNumber(st.samples_trained > 0 ? st.last_loss : kNaN);
   t["auto_activate"] = st.auto_activate;
   t["auto_activate_reason"] = st.auto_activate_reason;
   t["refit_running"] = st.refit_running;
@@ -266,10 +237,10 @@ nlohmann::json TrainStatusPage::Json(int64_t now_ms) const {
       v["created_ms"] = m.created_ms;
       v["gate"] = std::string(store::GateOutcomeName(m.gate, "unrecorded"));
       v["gate_reason"] = m.gate_reason;
-      v["validation_recall"] = Number(m.validation_recall);
+      v["validation_recall"] = JsonNumber(m.validation_recall);
       v["validation_k"] = m.validation_k;
-      v["validation_shift"] = Number(m.validation_shift);
-      v["validation_group_shares"] = Numbers(m.validation_group_shares);
+      v["validation_shift"] = JsonNumber(m.validation_shift);
+      v["validation_group_shares"] = status::JsonNumbers(m.validation_group_shares);
       v["events_seen"] = m.events_seen;
       v["training_config"] = FormatTrainingConfig(m.training);
       v["active"] = m.version == st.active_version;
@@ -278,15 +249,7 @@ nlohmann::json TrainStatusPage::Json(int64_t now_ms) const {
     }
   }
   j["versions"] = versions;  // newest first
-  const status::HistoryView h = ring_.Read(options_.plot_points);
-  json history;
-  history["time_ms"] = h.time_ms;
-  history["points"] = h.points;
-  history["points_added"] = h.added;
-  json series = json::object();
-  for (size_t s = 0; s < h.names.size(); ++s) series[h.names[s]] = Numbers(h.mean[s]);
-  history["series"] = series;
-  j["history"] = history;
+  j["history"] = status::HistoryJson(ring_.Read(options_.plot_points));
   return j;
 }
 
@@ -299,12 +262,13 @@ std::string TrainStatusPage::Html(int64_t now_ms) const {
           FormatUtc(now_ms) + "; the page reloads every minute.",
       60);
   s += "<section><h2>Now</h2><div class=\"cards\">";
-  Card(&s, "active_version", "active version", Get(t, "active_version"), "", 12);
-  Card(&s, "log_sequence", "log sequence", Get(t, "log_sequence"), "", 12);
-  Card(&s, "trained_sequence", "trained sequence", Get(t, "trained_sequence"), "", 12);
-  Card(&s, "lag_events", "lag", Get(t, "lag_events"), "events", 12);
-  Card(&s, "events_accepted", "events accepted since start", Get(t, "events_accepted"), "", 12);
-  Card(&s, "loss", "training loss (last batch)", Get(t, "loss"), "nats", 4);
+  AppendCard(&s, "active_version", "active version", NumberAt(t, "active_version"), "", 12);
+  AppendCard(&s, "log_sequence", "log sequence", NumberAt(t, "log_sequence"), "", 12);
+  AppendCard(&s, "trained_sequence", "trained sequence", NumberAt(t, "trained_sequence"), "", 12);
+  AppendCard(&s, "lag_events", "lag", NumberAt(t, "lag_events"), "events", 12);
+  AppendCard(&s, "events_accepted", "events accepted since start", NumberAt(t, "events_accepted"),
+             "", 12);
+  AppendCard(&s, "loss", "training loss (last batch)", NumberAt(t, "loss"), "nats", 4);
   s += "<div class=\"card\" data-key=\"auto_activate\"><div class=\"label\">automatic "
        "activation</div><div class=\"value\">";
   s += t["auto_activate"].get<bool>() ? "on" : "off";
@@ -320,34 +284,16 @@ std::string TrainStatusPage::Html(int64_t now_ms) const {
   }
   s += ".</p></section>";
 
-  const json& h = j["history"];
-  const std::vector<int64_t> times = h["time_ms"].get<std::vector<int64_t>>();
-  auto series = [&](const std::string& name) { return Doubles(h["series"][name]); };
-  s += "<section><h2>History</h2><p class=\"note\">";
-  AppendEscaped(&s, "Points every " + StepText(options_.step_ms) + ", the last " +
-                        std::to_string(options_.history_points) + " kept (" +
-                        StepText(options_.step_ms * static_cast<int64_t>(options_.history_points)) +
-                        "), at most " + std::to_string(options_.plot_points) +
-                        " drawn (averaged); kept in memory only, so a restart starts the "
-                        "history afresh.");
-  s += "</p><div class=\"grid2\">";
-  auto line = [&](const char* id, const char* title, const char* y_label,
-                  std::vector<status::LineSeries> lines, const char* note = "") {
-    status::LinePlot p;
-    p.id = id;
-    p.title = title;
-    p.y_label = y_label;
-    p.time_ms = times;
-    p.series = std::move(lines);
-    p.note = note;
-    s += status::RenderLinePlot(p);
-  };
-  line("sequences", "Event log and training", "log sequence number (events)",
-       {{"log sequence (acknowledged)", "#4a78b5", series("log_sequence"), false, "log_sequence"},
-        {"trained sequence", "#1b7f79", series("trained_sequence"), true, "trained_sequence"}},
-       "The gap between the lines is the lag.");
-  line("lag", "Lag", "events behind the log",
-       {{"lag", "#c2793a", series("lag_events"), false, "lag_events"}});
+  status::HistorySection history(&s, j["history"], options_.step_ms, options_.history_points,
+                                 options_.plot_points);
+  auto series = [&](const std::string& name) { return history.Series(name); };
+  history.Plot(
+      "sequences", "Event log and training", "log sequence number (events)",
+      {{"log sequence (acknowledged)", "#4a78b5", series("log_sequence"), false, "log_sequence"},
+       {"trained sequence", "#1b7f79", series("trained_sequence"), true, "trained_sequence"}},
+      "The gap between the lines is the lag.");
+  history.Plot("lag", "Lag", "events behind the log",
+               {{"lag", "#c2793a", series("lag_events"), false, "lag_events"}});
   std::vector<status::LineSeries> events = {
       {"accepted", "#1b7f79", series("accepted_rate"), false, "accepted_rate"},
       {"duplicate (acknowledged, not stored again)", "#4a78b5", series("duplicate_rate"), true,
@@ -363,13 +309,13 @@ std::string TrainStatusPage::Html(int64_t now_ms) const {
     events.push_back({"rejected: " + label, kRejectColours[r], std::move(values), true,
                       "rejected_rate_" + label});
   }
-  line("events", "Events", "events per second", std::move(events),
-       "Rejection reasons get a line once an event was rejected for them.");
-  line("loss", "Training loss", "loss per sample (nats)",
-       {{"loss", "#444444", series("loss"), false, "loss"}});
-  line("samples", "Training throughput", "samples per second",
-       {{"samples", "#7d5ba6", series("samples_rate"), false, "samples_rate"}});
-  s += "</div></section>";
+  history.Plot("events", "Events", "events per second", std::move(events),
+               "Rejection reasons get a line once an event was rejected for them.");
+  history.Plot("loss", "Training loss", "loss per sample (nats)",
+               {{"loss", "#444444", series("loss"), false, "loss"}});
+  history.Plot("samples", "Training throughput", "samples per second",
+               {{"samples", "#7d5ba6", series("samples_rate"), false, "samples_rate"}});
+  history.End();
 
   // ---- versions -----------------------------------------------------------------------------
   const json& versions = j["versions"];
@@ -397,13 +343,13 @@ std::string TrainStatusPage::Html(int64_t now_ms) const {
       s += ": ";
       AppendEscaped(&s, v["gate_reason"].get<std::string>(), 160);
     }
-    s += "</td><td class=\"num\" data-value=\"" + ExactNumber(Get(v, "validation_recall")) + "\">" +
-         FormatNumber(Get(v, "validation_recall"), 4);
+    s += "</td><td class=\"num\" data-value=\"" + ExactNumber(NumberAt(v, "validation_recall")) +
+         "\">" + FormatNumber(NumberAt(v, "validation_recall"), 4);
     if (v["validation_k"].get<uint32_t>() > 0) {
       s += " @" + std::to_string(v["validation_k"].get<uint32_t>());
     }
-    s += "</td><td class=\"num\" data-value=\"" + ExactNumber(Get(v, "validation_shift")) + "\">" +
-         FormatNumber(Get(v, "validation_shift"), 3) + "</td><td class=\"num\">" +
+    s += "</td><td class=\"num\" data-value=\"" + ExactNumber(NumberAt(v, "validation_shift")) +
+         "\">" + FormatNumber(NumberAt(v, "validation_shift"), 3) + "</td><td class=\"num\">" +
          std::to_string(v["events_seen"].get<uint64_t>()) + "</td><td><code>";
     AppendEscaped(&s, v["training_config"].get<std::string>());
     s += "</code></td><td>";

@@ -1,99 +1,29 @@
 #include "trainer/online/train_config.h"
 
-#include <toml++/toml.h>
-
 #include <CLI/CLI.hpp>
-#include <charconv>
 #include <cstdio>
-#include <functional>
 #include <limits>
 #include <type_traits>
+#include <variant>
 #include <vector>
+
+#include "config/flag_file.h"
 
 namespace plumb::online {
 namespace {
 
-// One configuration key: its TOML name, the flag that sets it, and how to set it from a
-// TOML value (returns an error text, empty when fine).
-struct Key {
-  std::string name;
-  CLI::Option* option = nullptr;
-  std::function<std::string(const toml::node&)> assign;
+// One configuration key of plumb-train: a row of the table in ParseTrainConfig.
+using Field =
+    std::variant<std::string*, bool*, int*, uint32_t*, uint64_t*, double*, std::vector<double>*>;
+struct KeyRow {
+  const char* key;
+  Field field;
+  const char* help;
 };
-
-std::string FlagName(std::string_view key) {
-  std::string flag = "--";
-  for (char c : key) flag += c == '_' ? '-' : c;
-  return flag;
-}
-
-template <typename T>
-std::string AssignFromToml(const toml::node& node, T* field) {
-  if constexpr (std::is_same_v<T, bool>) {
-    if (auto v = node.value_exact<bool>()) {
-      *field = *v;
-      return {};
-    }
-    return "expects true or false";
-  } else if constexpr (std::is_same_v<T, std::string>) {
-    if (auto v = node.value_exact<std::string>()) {
-      *field = *v;
-      return {};
-    }
-    return "expects a string";
-  } else if constexpr (std::is_same_v<T, std::vector<double>>) {
-    const toml::array* array = node.as_array();
-    if (array == nullptr) return "expects an array of numbers, e.g. [1, 2, 3]";
-    std::vector<double> values;
-    for (const toml::node& element : *array) {
-      auto v = element.value<double>();
-      if (!v) return "expects an array of numbers, e.g. [1, 2, 3]";
-      values.push_back(*v);
-    }
-    *field = std::move(values);
-    return {};
-  } else if constexpr (std::is_integral_v<T>) {
-    auto v = node.value_exact<int64_t>();
-    if (!v) return "expects an integer";
-    if (*v < 0 && std::is_unsigned_v<T>) return "must not be negative";
-    if (static_cast<uint64_t>(*v) > static_cast<uint64_t>(std::numeric_limits<T>::max())) {
-      return "is too large";
-    }
-    *field = static_cast<T>(*v);
-    return {};
-  } else {
-    auto v = node.value<double>();  // integers are accepted for floating-point keys
-    if (!v) return "expects a number";
-    *field = static_cast<T>(*v);
-    return {};
-  }
-}
-
-template <typename T>
-void Bind(CLI::App& app, std::vector<Key>* keys, const std::string& group, const std::string& name,
-          T* field, const std::string& help) {
-  CLI::Option* option;
-  if constexpr (std::is_same_v<T, bool>) {
-    const std::string flag = FlagName(name);
-    option = app.add_flag(flag + ",!--no-" + flag.substr(2), *field,
-                          help + " [default: " + (*field ? "on" : "off") + "]");
-  } else if constexpr (std::is_same_v<T, std::vector<double>>) {
-    std::string shown;
-    for (double v : *field) {
-      char buf[32];
-      std::snprintf(buf, sizeof buf, "%s%g", shown.empty() ? "" : ",", v);
-      shown += buf;
-    }
-    option = app.add_option(FlagName(name), *field, help)
-                 ->delimiter(',')
-                 ->default_str(shown.empty() ? "none" : shown);
-  } else {
-    option = app.add_option(FlagName(name), *field, help)->capture_default_str();
-  }
-  option->group(group);
-  keys->push_back(
-      {name, option, [field](const toml::node& node) { return AssignFromToml(node, field); }});
-}
+struct KeyGroup {
+  std::string name;
+  std::vector<KeyRow> rows;
+};
 
 bool OneOf(const std::string& value, std::initializer_list<const char*> allowed) {
   for (const char* a : allowed) {
@@ -107,8 +37,7 @@ bool OneOf(const std::string& value, std::initializer_list<const char*> allowed)
 Status ResolveDurations(TrainConfig* c) {
   int64_t ms = 0;
   auto resolve = [&](const char* key, const std::string& text) {
-    Status s = ParseDuration(text, &ms);
-    return s.ok() ? s : Status::InvalidArgument(std::string(key) + ": " + s.message());
+    return ParseDurationIn(key, text, 0, std::numeric_limits<int64_t>::max(), &ms);
   };
   PLUMB_RETURN_IF_ERROR(resolve("commit_window", c->commit_window));
   c->commit_window_ms = static_cast<double>(ms);
@@ -225,133 +154,147 @@ std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConf
       "'_'); flags win over the file.",
       "plumb-train");
   app.get_formatter()->column_width(44);
-  std::vector<Key> keys;
+  config::FlagFile keys(&app);
   TrainConfig& c = *config;
   OnlineOptions& o = c.online;
 
   app.add_option("--config", c.config, "TOML configuration file")->check(CLI::ExistingFile);
   app.set_version_flag("--version", std::string("plumb-train ") + PLUMB_VERSION);
 
-  const std::string s = "Store and transport";
-  Bind(app, &keys, s, "db", &c.db, "Database directory (opened as the primary; required)");
-  Bind(app, &keys, s, "listen", &c.listen, "gRPC address HOST:PORT (or unix:PATH)");
-  Bind(app, &keys, s, "metrics", &c.metrics,
-       "Prometheus /metrics and status page (/) address HOST:PORT; empty = off");
-  Bind(app, &keys, s, "status_history_step", &c.status_history_step,
-       "Spacing of the status page's history points; the last 1440 are kept (1s .. 1h)");
-  Bind(app, &keys, s, "sync", &c.sync, "fsync the event log before acknowledging");
-  Bind(app, &keys, s, "commit_window", &c.commit_window,
-       "Group commit: wait this long for more events before a log write (0 = none; at most "
-       "1s)");
-  Bind(app, &keys, s, "max_group_events", &c.max_group_events, "Events per log write, at most");
-  Bind(app, &keys, s, "max_batch_events", &c.max_batch_events, "PublishBatch size limit");
-  Bind(app, &keys, s, "keep_versions", &c.keep_versions,
-       "Newest embedding versions always kept for rollback");
-  Bind(app, &keys, s, "keep_versions_for", &c.keep_versions_for,
-       "Also keep every version younger than this (250ms, 90s, 30m, 24h, 7d; 0 = by count "
-       "only); active and pinned versions are always kept");
-  Bind(app, &keys, s, "dedup_window", &c.dedup_window,
-       "event_id de-duplication window (250ms, 90s, 30m, 24h, 7d; 0 = forever)");
-  Bind(app, &keys, s, "retention_max_age", &c.retention_max_age,
-       "Remove events this much older than the newest event from the log once trained on; "
-       "their pairs stay in the store's pair history (30m, 24h, 7d; 0 = no age rule)");
-  Bind(app, &keys, s, "retention_max_log_mb", &c.retention_max_log_mb,
-       "Remove the oldest trained-on events while the log holds more than this many MB "
-       "(0 = no size rule)");
-  Bind(app, &keys, s, "retention_interval", &c.retention_interval,
-       "Pause between two retention passes (at least 100ms)");
-  Bind(app, &keys, s, "max_future_skew", &c.max_future_skew,
-       "Events whose timestamp is more than this after their receipt are rejected "
-       "(REJECT_FUTURE_TIMESTAMP; 90s, 30m, 1h, 1d; 0 = no limit)");
-  Bind(app, &keys, s, "background_nice", &c.background_nice,
-       "CPU niceness of training, refits (10 more) and retention, so that serving on the "
-       "same host keeps the CPU (0 = as the process, at most 19)");
-  Bind(app, &keys, s, "min_free_disk_mb", &c.min_free_disk_mb,
-       "Free space (MB) kept on the store's disk: writes that would cut into it are refused "
-       "(RESOURCE_EXHAUSTED) until space is freed; 0 = no check");
-  Bind(app, &keys, s, "token_file", &c.token_file,
-       "File holding the bearer token every call must carry; empty = no token");
-  Bind(app, &keys, s, "tls_cert", &c.tls_cert, "PEM certificate chain for TLS; empty = no TLS");
-  Bind(app, &keys, s, "tls_key", &c.tls_key, "PEM private key for TLS");
-  Bind(app, &keys, s, "allow_insecure_remote", &c.allow_insecure_remote,
-       "Serve a non-loopback address without a token");
-  Bind(app, &keys, s, "shutdown_grace", &c.shutdown_grace,
-       "At SIGTERM/SIGINT, how long in-flight calls may finish (at most 10m)");
-  Bind(app, &keys, s, "log_level", &c.log_level,
-       "trace, debug, info, warn, error, critical or off");
-
-  const std::string j = "Events from NATS JetStream (besides gRPC)";
-  Bind(app, &keys, j, "jetstream_servers", &c.jetstream_servers,
-       "NATS servers, comma-separated nats://HOST:PORT (tls://... for TLS); empty = off");
-  Bind(app, &keys, j, "jetstream_stream", &c.jetstream_stream, "The stream to consume");
-  Bind(app, &keys, j, "jetstream_subject", &c.jetstream_subject,
-       "The consumer's filter subject (wildcards allowed)");
-  Bind(app, &keys, j, "jetstream_consumer", &c.jetstream_consumer,
-       "Durable pull consumer name (created when missing)");
-  Bind(app, &keys, j, "jetstream_token_file", &c.jetstream_token_file,
-       "File holding the token the NATS servers require; empty = none");
-  Bind(app, &keys, j, "jetstream_credentials_file", &c.jetstream_credentials_file,
-       "NATS credentials file (.creds: user JWT and seed); empty = none");
-  Bind(app, &keys, j, "jetstream_tls_ca", &c.jetstream_tls_ca,
-       "CA to trust: connect to NATS with TLS; empty = no TLS unless tls:// URLs");
-  Bind(app, &keys, j, "jetstream_tls_cert", &c.jetstream_tls_cert,
-       "PEM client certificate chain for NATS (when the servers verify clients)");
-  Bind(app, &keys, j, "jetstream_tls_key", &c.jetstream_tls_key, "PEM key of jetstream_tls_cert");
-  Bind(app, &keys, j, "jetstream_fetch_batch", &c.jetstream_fetch_batch,
-       "Messages per pull from the consumer");
-  Bind(app, &keys, j, "jetstream_max_message_bytes", &c.jetstream_max_message_bytes,
-       "Larger messages are terminated (never redelivered) and counted");
-  Bind(app, &keys, j, "jetstream_ack_wait", &c.jetstream_ack_wait,
-       "The consumer's ack wait: an unacknowledged message is redelivered after this long");
-  Bind(app, &keys, j, "jetstream_create_replicas", &c.jetstream_create_replicas,
-       "Create the stream when missing, with this many replicas (0 = it must exist)");
-
-  const std::string t = "Training";
-  Bind(app, &keys, t, "objective", &o.objective, "cpr, bpr or bce");
-  Bind(app, &keys, t, "dim", &o.dim, "Embedding dimension");
-  Bind(app, &keys, t, "cpr_k", &o.cpr_k, "CPR sample size (pairs crossed per sample)");
-  Bind(app, &keys, t, "cpr_k3_share", &o.cpr_k3_share, "Share of k=3 samples in CPR batches");
-  Bind(app, &keys, t, "beta", &o.beta, "Dynamic sampling: candidates drawn per kept sample");
-  Bind(app, &keys, t, "learning_rate", &o.learning_rate, "Learning rate");
-  Bind(app, &keys, t, "l2", &o.l2, "L2 regularisation");
-  Bind(app, &keys, t, "optimizer", &o.optimizer, "sgd or adagrad");
-  Bind(app, &keys, t, "batch_size", &o.batch_size, "Samples per mini-batch");
-  Bind(app, &keys, t, "idle_replay_passes", &o.idle_replay_passes,
-       "Once caught up, passes of replay training over history (0 = none)");
-  Bind(app, &keys, t, "replay_ratio", &o.replay_ratio,
-       "Replayed history interactions per new interaction");
-  Bind(app, &keys, t, "threads", &o.threads, "Threads of a background refit");
-  Bind(app, &keys, t, "refit", &o.refit,
-       "Refit the whole history in the background at a bounded cadence");
-  Bind(app, &keys, t, "refit_epochs", &o.refit_epochs, "Epochs of a refit (as plumb fit --epochs)");
-  Bind(app, &keys, t, "refit_min_growth", &o.refit_min_growth,
-       "Refit once training pairs grew by this share since the last refit");
-  Bind(app, &keys, t, "training_window", &c.training_window,
-       "Train only on pairs whose latest event is this recent, measured back from the newest "
-       "event (e.g. 30d; 0 = all history)");
-  Bind(app, &keys, t, "tune", &o.tune,
-       "Rebuilds choose beta from tune_betas on a debiased validation split");
-  Bind(app, &keys, t, "tune_betas", &o.tune_betas,
-       "Betas a rebuild chooses from (comma-separated)");
-  Bind(app, &keys, t, "refit_max_duty", &o.refit_max_duty,
-       "Share of time refits may run on average (a refit of T s waits T(1/duty-1) s)");
-  Bind(app, &keys, t, "seed", &o.seed, "Random seed");
-  Bind(app, &keys, t, "holdout_fraction", &o.holdout_fraction,
-       "Share of (user, item) pairs held out for validation");
-  Bind(app, &keys, t, "publish_every_events", &o.publish_every_events,
-       "Publish a candidate after this many new events...");
-  Bind(app, &keys, t, "publish_interval", &c.publish_interval,
-       "...or after this long, whichever comes first");
-  Bind(app, &keys, t, "min_train_pairs", &o.min_train_pairs,
-       "No version before this many training pairs");
-  Bind(app, &keys, t, "gate_k", &o.gate_k, "Gate: K of validation Recall@K");
-  Bind(app, &keys, t, "gate_tolerance", &o.gate_tolerance,
-       "Gate: allowed absolute drop of validation Recall@K");
-  Bind(app, &keys, t, "gate_max_row_norm", &o.gate_max_row_norm, "Gate: largest row norm allowed");
-  Bind(app, &keys, t, "auto_activate", &o.auto_activate,
-       "Activate gate-passing candidates (initial value; kept in the store)");
-  Bind(app, &keys, t, "require_gate", &o.require_gate,
-       "Activate only candidates the gate compared and passed (not skipped ones)");
+  // Every key: its group in --help, its field, its help text.
+  const std::vector<KeyGroup> groups = {
+      {"Store and transport",
+       {
+           {"db", &c.db, "Database directory (opened as the primary; required)"},
+           {"listen", &c.listen, "gRPC address HOST:PORT (or unix:PATH)"},
+           {"metrics", &c.metrics,
+            "Prometheus /metrics and status page (/) address HOST:PORT; empty = off"},
+           {"status_history_step", &c.status_history_step,
+            "Spacing of the status page's history points; the last 1440 are kept (1s .. 1h)"},
+           {"sync", &c.sync, "fsync the event log before acknowledging"},
+           {"commit_window", &c.commit_window,
+            "Group commit: wait this long for more events before a log write (0 = none; at most "
+            "1s)"},
+           {"max_group_events", &c.max_group_events, "Events per log write, at most"},
+           {"max_batch_events", &c.max_batch_events, "PublishBatch size limit"},
+           {"keep_versions", &c.keep_versions,
+            "Newest embedding versions always kept for rollback"},
+           {"keep_versions_for", &c.keep_versions_for,
+            "Also keep every version younger than this (250ms, 90s, 30m, 24h, 7d; 0 = by count "
+            "only); active and pinned versions are always kept"},
+           {"dedup_window", &c.dedup_window,
+            "event_id de-duplication window (250ms, 90s, 30m, 24h, 7d; 0 = forever)"},
+           {"retention_max_age", &c.retention_max_age,
+            "Remove events this much older than the newest event from the log once trained on; "
+            "their pairs stay in the store's pair history (30m, 24h, 7d; 0 = no age rule)"},
+           {"retention_max_log_mb", &c.retention_max_log_mb,
+            "Remove the oldest trained-on events while the log holds more than this many MB "
+            "(0 = no size rule)"},
+           {"retention_interval", &c.retention_interval,
+            "Pause between two retention passes (at least 100ms)"},
+           {"max_future_skew", &c.max_future_skew,
+            "Events whose timestamp is more than this after their receipt are rejected "
+            "(REJECT_FUTURE_TIMESTAMP; 90s, 30m, 1h, 1d; 0 = no limit)"},
+           {"background_nice", &c.background_nice,
+            "CPU niceness of training, refits (10 more) and retention, so that serving on the "
+            "same host keeps the CPU (0 = as the process, at most 19)"},
+           {"min_free_disk_mb", &c.min_free_disk_mb,
+            "Free space (MB) kept on the store's disk: writes that would cut into it are refused "
+            "(RESOURCE_EXHAUSTED) until space is freed; 0 = no check"},
+           {"token_file", &c.token_file,
+            "File holding the bearer token every call must carry; empty = no token"},
+           {"tls_cert", &c.tls_cert, "PEM certificate chain for TLS; empty = no TLS"},
+           {"tls_key", &c.tls_key, "PEM private key for TLS"},
+           {"allow_insecure_remote", &c.allow_insecure_remote,
+            "Serve a non-loopback address without a token"},
+           {"shutdown_grace", &c.shutdown_grace,
+            "At SIGTERM/SIGINT, how long in-flight calls may finish (at most 10m)"},
+           {"log_level", &c.log_level, "trace, debug, info, warn, error, critical or off"},
+       }},
+      {"Events from NATS JetStream (besides gRPC)",
+       {
+           {"jetstream_servers", &c.jetstream_servers,
+            "NATS servers, comma-separated nats://HOST:PORT (tls://... for TLS); empty = off"},
+           {"jetstream_stream", &c.jetstream_stream, "The stream to consume"},
+           {"jetstream_subject", &c.jetstream_subject,
+            "The consumer's filter subject (wildcards allowed)"},
+           {"jetstream_consumer", &c.jetstream_consumer,
+            "Durable pull consumer name (created when missing)"},
+           {"jetstream_token_file", &c.jetstream_token_file,
+            "File holding the token the NATS servers require; empty = none"},
+           {"jetstream_credentials_file", &c.jetstream_credentials_file,
+            "NATS credentials file (.creds: user JWT and seed); empty = none"},
+           {"jetstream_tls_ca", &c.jetstream_tls_ca,
+            "CA to trust: connect to NATS with TLS; empty = no TLS unless tls:// URLs"},
+           {"jetstream_tls_cert", &c.jetstream_tls_cert,
+            "PEM client certificate chain for NATS (when the servers verify clients)"},
+           {"jetstream_tls_key", &c.jetstream_tls_key, "PEM key of jetstream_tls_cert"},
+           {"jetstream_fetch_batch", &c.jetstream_fetch_batch,
+            "Messages per pull from the consumer"},
+           {"jetstream_max_message_bytes", &c.jetstream_max_message_bytes,
+            "Larger messages are terminated (never redelivered) and counted"},
+           {"jetstream_ack_wait", &c.jetstream_ack_wait,
+            "The consumer's ack wait: an unacknowledged message is redelivered after this long"},
+           {"jetstream_create_replicas", &c.jetstream_create_replicas,
+            "Create the stream when missing, with this many replicas (0 = it must exist)"},
+       }},
+      {"Training",
+       {
+           {"objective", &o.objective, "cpr, bpr or bce"},
+           {"dim", &o.dim, "Embedding dimension"},
+           {"cpr_k", &o.cpr_k, "CPR sample size (pairs crossed per sample)"},
+           {"cpr_k3_share", &o.cpr_k3_share, "Share of k=3 samples in CPR batches"},
+           {"beta", &o.beta, "Dynamic sampling: candidates drawn per kept sample"},
+           {"learning_rate", &o.learning_rate, "Learning rate"},
+           {"l2", &o.l2, "L2 regularisation"},
+           {"optimizer", &o.optimizer, "sgd or adagrad"},
+           {"batch_size", &o.batch_size, "Samples per mini-batch"},
+           {"idle_replay_passes", &o.idle_replay_passes,
+            "Once caught up, passes of replay training over history (0 = none)"},
+           {"replay_ratio", &o.replay_ratio, "Replayed history interactions per new interaction"},
+           {"threads", &o.threads, "Threads of a background refit"},
+           {"refit", &o.refit, "Refit the whole history in the background at a bounded cadence"},
+           {"refit_epochs", &o.refit_epochs, "Epochs of a refit (as plumb fit --epochs)"},
+           {"refit_min_growth", &o.refit_min_growth,
+            "Refit once training pairs grew by this share since the last refit"},
+           {"training_window", &c.training_window,
+            "Train only on pairs whose latest event is this recent, measured back from the newest "
+            "event (e.g. 30d; 0 = all history)"},
+           {"tune", &o.tune, "Rebuilds choose beta from tune_betas on a debiased validation split"},
+           {"tune_betas", &o.tune_betas, "Betas a rebuild chooses from (comma-separated)"},
+           {"refit_max_duty", &o.refit_max_duty,
+            "Share of time refits may run on average (a refit of T s waits T(1/duty-1) s)"},
+           {"seed", &o.seed, "Random seed"},
+           {"holdout_fraction", &o.holdout_fraction,
+            "Share of (user, item) pairs held out for validation"},
+           {"publish_every_events", &o.publish_every_events,
+            "Publish a candidate after this many new events..."},
+           {"publish_interval", &c.publish_interval,
+            "...or after this long, whichever comes first"},
+           {"min_train_pairs", &o.min_train_pairs, "No version before this many training pairs"},
+           {"gate_k", &o.gate_k, "Gate: K of validation Recall@K"},
+           {"gate_tolerance", &o.gate_tolerance,
+            "Gate: allowed absolute drop of validation Recall@K"},
+           {"gate_max_row_norm", &o.gate_max_row_norm, "Gate: largest row norm allowed"},
+           {"auto_activate", &o.auto_activate,
+            "Activate gate-passing candidates (initial value; kept in the store)"},
+           {"require_gate", &o.require_gate,
+            "Activate only candidates the gate compared and passed (not skipped ones)"},
+       }},
+  };
+  for (const KeyGroup& group : groups) {
+    for (const KeyRow& row : group.rows) {
+      std::visit(
+          [&](auto* field) {
+            std::string help = row.help;
+            if constexpr (std::is_same_v<decltype(field), bool*>) {
+              help += std::string(" [default: ") + (*field ? "on" : "off") + "]";
+            }
+            keys.Add(row.key, field, help)->group(group.name);
+          },
+          row.field);
+    }
+  }
 
   try {
     app.parse(argc, argv);
@@ -361,33 +304,9 @@ std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConf
   }
 
   if (!c.config.empty()) {
-    toml::table table;
-    try {
-      table = toml::parse_file(c.config);
-    } catch (const toml::parse_error& e) {
-      std::fprintf(stderr, "plumb-train: %s line %u: %.*s\n", c.config.c_str(),
-                   e.source().begin.line, static_cast<int>(e.description().size()),
-                   e.description().data());
+    if (Status s = keys.Apply(c.config); !s.ok()) {
+      std::fprintf(stderr, "plumb-train: %s\n", s.message().c_str());
       return 2;
-    }
-    for (auto&& [name, node] : table) {
-      const std::string key(name.str());
-      const Key* found = nullptr;
-      for (const Key& k : keys) {
-        if (k.name == key) found = &k;
-      }
-      if (found == nullptr) {
-        std::fprintf(stderr, "plumb-train: %s line %u: unknown key '%s' (see --help)\n",
-                     c.config.c_str(), node.source().begin.line, key.c_str());
-        return 2;
-      }
-      if (found->option->count() > 0) continue;  // the command line wins
-      const std::string error = found->assign(node);
-      if (!error.empty()) {
-        std::fprintf(stderr, "plumb-train: %s line %u: %s %s\n", c.config.c_str(),
-                     node.source().begin.line, key.c_str(), error.c_str());
-        return 2;
-      }
     }
   }
 

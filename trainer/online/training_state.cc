@@ -118,7 +118,8 @@ Status TrainingState::LoadHistory(const store::Store& store, const store::LogSta
         after = ev.seq;
         watermark = std::max(watermark, ev.timestamp_ms);
         uint32_t u = 0, i = 0;
-        if (users_.Find(ev.user_id, &u) && items_.Find(ev.item_id, &i)) touched.insert(key_of(u, i));
+        if (users_.Find(ev.user_id, &u) && items_.Find(ev.item_id, &i))
+          touched.insert(key_of(u, i));
       }
       if (batch.back().seq > cursor) break;
     }
@@ -132,8 +133,8 @@ Status TrainingState::LoadHistory(const store::Store& store, const store::LogSta
   };
   std::vector<Entry> entries;
   bool bad_index = false;
-  PLUMB_RETURN_IF_ERROR(store.ForEachPairHistory(
-      [&](uint32_t u, uint32_t i, const store::PairHistory& h) {
+  PLUMB_RETURN_IF_ERROR(
+      store.ForEachPairHistory([&](uint32_t u, uint32_t i, const store::PairHistory& h) {
         if (u >= users_.size() || i >= items_.size()) {
           bad_index = true;
           return;

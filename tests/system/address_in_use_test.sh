@@ -9,17 +9,7 @@ set -u
 BIN=$1
 . "$(dirname "$0")/common.sh"
 
-TRAIN_ADDR=127.0.0.1:$(free_port); TRAIN_METRICS=127.0.0.1:$(free_port)
-SERVE_ADDR=127.0.0.1:$(free_port); SERVE_METRICS=127.0.0.1:$(free_port)
-"$TRAIN" --db "$tmp/db" --listen "$TRAIN_ADDR" --metrics "$TRAIN_METRICS" --no-sync \
-  >"$tmp/train.log" 2>&1 &
-pids="$pids $!"
-for _ in $(seq 150); do grep -q "plumb-train serving" "$tmp/train.log" && break; sleep 0.2; done
-grep -q "plumb-train serving" "$tmp/train.log" || fail "plumb-train did not start"
-"$SERVE" --db "$tmp/db" --listen "$SERVE_ADDR" --metrics "$SERVE_METRICS" >"$tmp/serve.log" 2>&1 &
-pids="$pids $!"
-for _ in $(seq 150); do grep -q "plumb-serve listening" "$tmp/serve.log" && break; sleep 0.2; done
-grep -q "plumb-serve listening" "$tmp/serve.log" || fail "plumb-serve did not start"
+start_pair
 
 # Runs a second process (NAME LOG ARGS...), which must exit non-zero within 20 s with
 # "address in use" in its log.

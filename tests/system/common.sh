@@ -19,3 +19,19 @@ cleanup() {
 trap cleanup EXIT
 free_port() { $PY -c 'import socket; s=socket.socket(); s.bind(("127.0.0.1",0)); print(s.getsockname()[1])'; }
 fail() { echo "FAIL: $*"; for f in "$tmp"/*.log; do echo "--- $f"; tail -8 "$f"; done; exit 1; }
+# start_pair: plumb-train (no fsync) and plumb-serve on the store $tmp/db at fresh loopback
+# addresses $TRAIN_ADDR, $TRAIN_METRICS, $SERVE_ADDR, $SERVE_METRICS (logs train.log and
+# serve.log in $tmp), each waited for up to 30 s; `fail` when one does not start.
+start_pair() {
+  TRAIN_ADDR=127.0.0.1:$(free_port); TRAIN_METRICS=127.0.0.1:$(free_port)
+  SERVE_ADDR=127.0.0.1:$(free_port); SERVE_METRICS=127.0.0.1:$(free_port)
+  "$TRAIN" --db "$tmp/db" --listen "$TRAIN_ADDR" --metrics "$TRAIN_METRICS" --no-sync \
+    >"$tmp/train.log" 2>&1 &
+  pids="$pids $!"
+  for _ in $(seq 150); do grep -q "plumb-train serving" "$tmp/train.log" && break; sleep 0.2; done
+  grep -q "plumb-train serving" "$tmp/train.log" || fail "plumb-train did not start"
+  "$SERVE" --db "$tmp/db" --listen "$SERVE_ADDR" --metrics "$SERVE_METRICS" >"$tmp/serve.log" 2>&1 &
+  pids="$pids $!"
+  for _ in $(seq 150); do grep -q "plumb-serve listening" "$tmp/serve.log" && break; sleep 0.2; done
+  grep -q "plumb-serve listening" "$tmp/serve.log" || fail "plumb-serve did not start"
+}

@@ -8,15 +8,7 @@ BIN=$1; SRC=$2
 . "$(dirname "$0")/common.sh"
 metric() { curl -s "http://$1/metrics" | awk -v m="$2" '$1 == m {print $2}'; }
 
-TRAIN_ADDR=127.0.0.1:$(free_port); TRAIN_METRICS=127.0.0.1:$(free_port)
-SERVE_ADDR=127.0.0.1:$(free_port); SERVE_METRICS=127.0.0.1:$(free_port)
-"$TRAIN" --db "$tmp/db" --listen "$TRAIN_ADDR" --metrics "$TRAIN_METRICS" --no-sync \
-  >"$tmp/train.log" 2>&1 &
-pids="$pids $!"
-for _ in $(seq 150); do grep -q "plumb-train serving" "$tmp/train.log" && break; sleep 0.2; done
-"$SERVE" --db "$tmp/db" --listen "$SERVE_ADDR" --metrics "$SERVE_METRICS" >"$tmp/serve.log" 2>&1 &
-pids="$pids $!"
-for _ in $(seq 150); do grep -q "plumb-serve listening" "$tmp/serve.log" && break; sleep 0.2; done
+start_pair
 
 $PY "$SRC/tests/system/undecodable_messages.py" "$TRAIN_ADDR" "$SERVE_ADDR" || fail "client checks"
 

@@ -31,7 +31,7 @@ Status OpenForWrite(const std::string& db, const store::StoreOptions& options,
   }
   Status s = store::Store::OpenPrimary(db, options, out);
   if (created != nullptr) *created = s.ok() && !existed;
-  if (!s.ok() && s.message().find("lock") != std::string::npos) {
+  if (s.code() == Status::Code::kUnavailable) {
     return Status::Unavailable(
         db + " is in use by another process (is plumb-train running? while it runs, change "
              "versions through its ModelControl service): " + s.message());

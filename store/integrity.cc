@@ -73,37 +73,19 @@ Status Store::CheckFiles(const std::string& dir, const std::string& scratch_dir)
     }
     return Status::NotFound("no plumb store at " + dir);
   }
-  // An empty directory as the WAL directory: the check is about table files, and reading
-  // the log (up to hundreds of MB) would only make it slow.
-  const fs::path no_wal = fs::path(scratch_dir) / "check-no-wal";
-  fs::create_directories(no_wal, ec);
-  if (ec) return Status::IoError("creating " + no_wal.string() + ": " + ec.message());
-
-  rocksdb::DBOptions options;
-  options.paranoid_checks = true;
-  options.max_open_files = -1;  // open every table file now: reads each footer and index
-  options.wal_dir = no_wal.string();
-  options.db_log_dir = scratch_dir;  // never rotate the primary's own LOG file
-  options.keep_log_file_num = 2;
+  DbOpenArgs args;
+  args.dir = dir;
+  args.scratch_dir = scratch_dir;
   for (int attempt = 0;; ++attempt) {
     const std::string before = ManifestState(dir);
-    std::vector<std::string> names;
-    rocksdb::Status s = rocksdb::DB::ListColumnFamilies(options, dir, &names);
-    if (s.ok()) {
-      std::vector<rocksdb::ColumnFamilyDescriptor> descriptors;
-      for (const std::string& name : names) {
-        descriptors.emplace_back(name, rocksdb::ColumnFamilyOptions());
-      }
-      std::vector<rocksdb::ColumnFamilyHandle*> handles;
-      rocksdb::DB* db = nullptr;
-      s = rocksdb::DB::OpenForReadOnly(options, dir, descriptors, &handles, &db);
-      if (s.ok()) {
-        for (auto* h : handles) db->DestroyColumnFamilyHandle(h);
-        db->Close();
-        delete db;
-        return Status::Ok();
-      }
+    OpenedDb opened;
+    rocksdb::Status s;
+    Status checked = OpenDb(DbRole::kCheck, args, &opened, &s);
+    if (checked.ok()) {
+      CloseDb(opened.db, &opened.handles, false);
+      return Status::Ok();
     }
+    if (s.ok()) return checked;  // failed before RocksDB was asked
     if (attempt < 4 && ManifestState(dir) != before) {
       // The primary changed the live files while we looked; look again.
       std::this_thread::sleep_for(std::chrono::milliseconds(20 << attempt));
@@ -297,22 +279,12 @@ Status Store::Verify(VerifyReport* report) const {
   }
 
   // 3. Meta values and counters.
+  const MetaReader stored_meta = d.Meta(ro);
   auto meta64 = [&](std::string_view key, uint64_t* value) {
-    *value = 0;
-    std::string raw;
-    Status s = d.Get(ro, d.meta, key, &raw, "meta");
-    if (s.IsNotFound()) return true;
-    if (!s.ok()) {
-      r.problems.push_back("meta value '" + std::string(key) + "': " + s.message());
-      return false;
-    }
-    auto parsed = keys::ParseFixed64(raw);
-    if (!parsed) {
-      r.problems.push_back("meta value '" + std::string(key) + "' is not an 8-byte value");
-      return false;
-    }
-    *value = *parsed;
-    return true;
+    std::optional<uint64_t> stored;
+    Status s = stored_meta.GetU64(key, &stored);
+    if (!s.ok()) r.problems.push_back(s.message());
+    *value = stored.value_or(0);
   };
   uint64_t cursor = 0, active = 0, next_version = 0, recorded_last = 0;
   meta64(keys::kMetaCursor, &cursor);

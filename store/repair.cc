@@ -53,6 +53,12 @@ bool Salvageable(std::string_view family) {
          family == keys::kModelsFamily || family == keys::kPairHistoryFamily;
 }
 
+// Repair needs the store to itself.
+Status InUse(const std::string& dir, const Status& why) {
+  return Status::Unavailable(dir + " is in use by another process (stop plumb-train before " +
+                             "repairing): " + why.message());
+}
+
 }  // namespace
 
 Status Store::Repair(const std::string& dir, const StoreOptions& options, RepairReport* report) {
@@ -85,23 +91,17 @@ Status Store::Repair(const std::string& dir, const StoreOptions& options, Repair
     rocksdb::DBOptions db_options;
     db_options.paranoid_checks = true;
     db_options.db_log_dir = scratch;
-    std::vector<rocksdb::ColumnFamilyDescriptor> descriptors;
-    descriptors.emplace_back(rocksdb::kDefaultColumnFamilyName, rocksdb::ColumnFamilyOptions());
-    for (const char* name : kFamilies)
-      descriptors.emplace_back(name, rocksdb::ColumnFamilyOptions());
+    const std::vector<rocksdb::ColumnFamilyDescriptor> descriptors =
+        FamilyDescriptors(/*tuned=*/false, nullptr);
     // RocksDB's repair: reads every table file (setting aside into <dir>/lost/ each one that
     // cannot be read in full), turns the write-ahead logs into table files, and writes a
     // new MANIFEST naming what is left. It takes the store's lock: it fails while
     // plumb-train (or a plumb command) has the store open.
-    rocksdb::Status s =
-        rocksdb::RepairDB(dir, db_options, descriptors, rocksdb::ColumnFamilyOptions());
-    if (!s.ok()) {
-      if (s.ToString().find("lock") != std::string::npos) {
-        return Status::Unavailable(dir + " is in use by another process (stop plumb-train " +
-                                   "before repairing): " + s.ToString());
-      }
-      return FromRocks(s, "RocksDB repair of " + dir);
-    }
+    Status s =
+        FromRocks(rocksdb::RepairDB(dir, db_options, descriptors, rocksdb::ColumnFamilyOptions()),
+                  "RocksDB repair of " + dir);
+    if (s.code() == Status::Code::kUnavailable) return InUse(dir, s);
+    PLUMB_RETURN_IF_ERROR(s);
     for (const std::string& name : LostFiles(dir)) {
       if (lost_before.count(name) != 0) continue;
       const fs::path path = fs::path(dir) / "lost" / name;
@@ -125,10 +125,7 @@ Status Store::Repair(const std::string& dir, const StoreOptions& options, Repair
   open_options.create_if_missing = true;
   std::unique_ptr<Store> store;
   Status opened = OpenPrimary(dir, open_options, &store);
-  if (!opened.ok() && opened.message().find("lock") != std::string::npos) {
-    return Status::Unavailable(dir + " is in use by another process (stop plumb-train before " +
-                               "repairing): " + opened.message());
-  }
+  if (opened.code() == Status::Code::kUnavailable) return InUse(dir, opened);
   PLUMB_RETURN_IF_ERROR(opened);
   Impl& d = *store->impl_;
   std::lock_guard write_lock(d.write_mu);
@@ -215,12 +212,11 @@ Status Store::Repair(const std::string& dir, const StoreOptions& options, Repair
 
   // ---- 4. The cursor within the log, the live degrees from the interactions. --------------
   {
-    std::string value;
-    Status s = d.Get(ro, d.meta, keys::kMetaCursor, &value, "meta: cursor");
-    auto parsed = s.ok() ? keys::ParseFixed64(value) : std::nullopt;
+    std::optional<uint64_t> parsed;
+    const bool unreadable = d.Meta(ro).GetU64(keys::kMetaCursor, &parsed).IsCorruption();
     r.cursor_before = parsed.value_or(0);
     r.cursor_after = std::min<uint64_t>(r.cursor_before, d.last_seq.load());
-    if (r.cursor_after != r.cursor_before || (s.ok() && !parsed)) {
+    if (r.cursor_after != r.cursor_before || unreadable) {
       fixes.Put(d.meta, AsSlice(keys::kMetaCursor), AsSlice(keys::Fixed64(r.cursor_after)));
     }
   }

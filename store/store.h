@@ -21,7 +21,9 @@
 // Errors: a value that cannot be what the store wrote (unparseable, truncated, wrong size,
 // a block missing) is reported as Corruption with a message naming the record, e.g.
 // "version 7 items matrix: block 3 is missing"; the store never crashes on one. A write on
-// a store opened as a secondary fails with FailedPrecondition.
+// a store opened as a secondary fails with FailedPrecondition. A full disk is
+// ResourceExhausted and a directory another process holds is Unavailable, whichever call
+// meets it; other failures of the disk or of RocksDB are IoError.
 //
 // One process opens the directory as the primary (the only writer: plumb-train or the
 // `plumb` command line); any number of readers open it as secondaries (plumb-serve) and
@@ -350,15 +352,17 @@ struct AvailabilityChange {
   uint64_t generation = 0;
 };
 
+struct StoreTestAccess;
+
 class Store {
  public:
-  // Opens `dir` read-write. Fails with IoError if another process (or another Store in this
-  // process) holds it, InvalidArgument for bad options, Corruption if the store's counters
-  // are unreadable or a table file is missing or damaged. With create_if_missing, a new
-  // store is created only in a directory that holds no store files: a directory with table,
-  // log or MANIFEST files but no CURRENT file is a damaged store, and creating a new one
-  // there would delete its files, so that fails with Corruption (pointing at `plumb
-  // repair`). On success *out owns the store; on failure *out is null.
+  // Opens `dir` read-write. Fails with Unavailable if another process (or another Store in
+  // this process) holds it, ResourceExhausted when the disk is full, InvalidArgument for bad
+  // options, Corruption if the store's counters are unreadable or a table file is missing or
+  // damaged. With create_if_missing, a new store is created only in a directory that holds no store
+  // files: a directory with table, log or MANIFEST files but no CURRENT file is a damaged store,
+  // and creating a new one there would delete its files, so that fails with Corruption (pointing at
+  // `plumb repair`). On success *out owns the store; on failure *out is null.
   static Status OpenPrimary(const std::string& dir, const StoreOptions& options,
                             std::unique_ptr<Store>* out);
 
@@ -531,6 +535,10 @@ class Store {
   // Named meta values set through StateChange::meta. NotFound when unset.
   Status GetMeta(std::string_view key, std::string* value) const;
 
+  // A named meta value that holds a number as decimal text (e.g. "0.2"): NotFound when
+  // unset; Corruption naming the key when the stored text is not one finite number.
+  Status GetMetaNumber(std::string_view key, double* value) const;
+
   // ---- erasure (store/forget.cc) ----------------------------------------------------
 
   // Erases what the store holds of one user (primary only): every event of theirs in the
@@ -566,6 +574,7 @@ class Store {
 
  private:
   struct Impl;
+  friend struct StoreTestAccess;  // store/failing_disk.cc (tests only)
   explicit Store(std::unique_ptr<Impl> impl);
   std::unique_ptr<Impl> impl_;
 };

@@ -1,5 +1,6 @@
-// Store::Impl and the helpers shared by the files that implement Store (store.cc,
-// integrity.cc, repair.cc, forget.cc). Private to store/: nothing outside includes it.
+// Store::Impl and the helpers shared by the files that implement Store (see the table in
+// DEVELOPERS.md). Private to store/: nothing outside includes it. The database itself is
+// opened, and its meta values read, through store/db.h.
 #pragma once
 
 #include <rocksdb/db.h>
@@ -22,6 +23,7 @@
 #include <vector>
 
 #include "core/clock.h"
+#include "store/db.h"
 #include "store/event_id_expiry.h"
 #include "store/keys.h"
 #include "store/store.h"
@@ -32,39 +34,8 @@ namespace internal {
 
 using ::plumb::NowMs;  // core/clock.h
 
-inline rocksdb::Slice AsSlice(std::string_view s) { return rocksdb::Slice(s.data(), s.size()); }
-inline std::string_view AsView(const rocksdb::Slice& s) {
-  return std::string_view(s.data(), s.size());
-}
-
-inline bool StartsWith(const rocksdb::Slice& key, std::string_view prefix) {
-  return key.size() >= prefix.size() && std::memcmp(key.data(), prefix.data(), prefix.size()) == 0;
-}
-
-// Translates a RocksDB status; `context` says what the store was doing.
-inline Status FromRocks(const rocksdb::Status& s, const std::string& context) {
-  if (s.ok()) return Status::Ok();
-  std::string msg = context + ": " + s.ToString();
-  if (s.IsNotFound()) return Status::NotFound(std::move(msg));
-  if (s.IsCorruption()) return Status::Corruption(std::move(msg));
-  if (s.IsInvalidArgument()) return Status::InvalidArgument(std::move(msg));
-  if (s.IsBusy() || s.IsTryAgain() || s.IsTimedOut()) return Status::Unavailable(std::move(msg));
-  return Status::IoError(std::move(msg));
-}
-
 inline std::string VersionWhat(uint64_t version, std::string_view what) {
   return "version " + std::to_string(version) + " " + std::string(what);
-}
-
-inline constexpr const char* kFamilies[] = {
-    keys::kEventsFamily,  keys::kEventIdsFamily, keys::kIdsFamily,  keys::kInteractionsFamily,
-    keys::kDegreesFamily, keys::kModelsFamily,   keys::kMetaFamily, keys::kPairHistoryFamily,
-};
-inline constexpr size_t kNumFamilies = sizeof(kFamilies) / sizeof(kFamilies[0]);
-// Families added after stores existed: a follower opens them when the primary has created
-// them and does without otherwise (their handle stays null).
-inline bool OptionalOnFollower(std::string_view family) {
-  return family == keys::kPairHistoryFamily;
 }
 
 // The stored size of one event: its key and its encoded value.
@@ -95,8 +66,9 @@ struct Store::Impl {
   std::string dir;
   std::string scratch_dir;  // secondary only
 
-  // Declared before `db` so that it outlives it: RocksDB holds a raw pointer.
+  // Declared before `db` so that they outlive it: RocksDB holds raw pointers.
   std::unique_ptr<EventIdExpiry> expiry;
+  std::unique_ptr<rocksdb::Env> env;  // null: RocksDB's default (tests give a failing disk)
   rocksdb::DB* db = nullptr;
   std::vector<rocksdb::ColumnFamilyHandle*> handles;  // owned, released before `db`
   rocksdb::ColumnFamilyHandle* events = nullptr;
@@ -128,19 +100,11 @@ struct Store::Impl {
   // Serialises changes of the withdrawn set (store/availability.cc).
   std::mutex availability_mu;
 
-  ~Impl() {
-    if (db == nullptr) return;
-    if (primary) {
-      // Leave the data in table files, not only in the WAL, so that the next opening (a
-      // secondary above all) does not replay it. Best effort: the WAL is durable either way.
-      rocksdb::FlushOptions flush;
-      flush.wait = true;
-      (void)db->Flush(flush, handles);
-    }
-    for (auto* h : handles) db->DestroyColumnFamilyHandle(h);
-    db->Close();
-    delete db;
-  }
+  ~Impl() { internal::CloseDb(db, &handles, primary); }
+
+  // Store::OpenPrimary with the file system of `env` (null: RocksDB's default).
+  static Status OpenPrimary(const std::string& dir, const StoreOptions& options,
+                            std::unique_ptr<rocksdb::Env> env, std::unique_ptr<Store>* out);
 
   std::atomic<uint32_t>& Count(IdSpace space) {
     return space == IdSpace::kUser ? user_count : item_count;
@@ -196,18 +160,26 @@ struct Store::Impl {
     rocksdb::ReadOptions options_;
   };
 
+  // ---- store.cc: opening and the counters ----
+  // Reads last_seq, the log's size, the dictionary sizes and (primary) next_version.
   Status LoadCounters(const rocksdb::ReadOptions& ro);
+  // Opens the database as `role` (store/db.h) and takes its handles.
+  Status Attach(internal::DbRole role, const internal::DbOpenArgs& args);
+  // Typed reads of meta values under `ro`.
+  internal::MetaReader Meta(const rocksdb::ReadOptions& ro) const {
+    return internal::MetaReader(db, meta, ro);
+  }
+  // ---- event_log.cc ----
   // Sums the stored bytes of the events in the log (a full scan).
   Status CountLogBytes(const rocksdb::ReadOptions& ro, uint64_t* bytes) const;
+  // ---- retention.cc, availability.cc ----
   // The retention totals of meta "plumb.retention" into the retention fields of *totals
   // (all 0 when retention never removed anything). Corruption for an unreadable record.
   Status ReadRetentionTotals(const rocksdb::ReadOptions& ro, LogStats* totals) const;
   // The withdrawn set's generation and size (store/availability.cc); 0 and 0 when never set.
   Status ReadAvailability(const rocksdb::ReadOptions& ro, uint64_t* generation,
                           uint64_t* withdrawn) const;
-  // Assigns the handles of the families in kFamilies order (handles[0] is RocksDB's default);
-  // `present` says which exist (a follower may lack the optional ones).
-  void AssignHandles(const std::vector<bool>& present);
+  // ---- versions.cc ----
   Status ReadManifestLocked(const rocksdb::ReadOptions& ro, uint64_t version, VersionManifest* out,
                             uint32_t* rows_per_block) const;
   // Reads the blocks of one array of a version into dest (may be null: only check them).
@@ -220,8 +192,41 @@ struct Store::Impl {
   Status DeleteVersion(const rocksdb::ReadOptions& ro, uint64_t version,
                        rocksdb::WriteBatch* batch) const;
   Status PinnedVersions(const rocksdb::ReadOptions& ro, std::set<uint64_t>* out) const;
+  // ---- dictionary.cc ----
+  // Checks one dictionary extension; `count` is the dictionary size before the change.
   Status CheckNewIds(IdSpace space, uint32_t count,
                      const std::vector<std::pair<uint32_t, std::string>>& entries) const;
+
+  // ---- the steps of Commit (store/commit.cc), all under write_mu ----
+  // What a commit will write, worked out before anything is.
+  struct CommitPlan {
+    uint32_t users_after = 0;
+    uint32_t items_after = 0;
+    VersionManifest manifest;  // of the published version: numbered and dated
+    uint64_t version = 0;      // its number, 0 when none is published
+    uint64_t active = 0;       // the active version before and after
+    uint64_t new_active = 0;
+  };
+  // InvalidArgument unless the dictionary extensions, interactions, degrees, cursor, meta
+  // keys and the version's shape are consistent with the stored state.
+  Status ValidateChange(const StateChange& change, CommitPlan* plan) const;
+  // Dates the published version (created_ms 0: now) and gives it its number.
+  Status NumberVersion(const StateChange& change, CommitPlan* plan) const;
+  // The active version after the change.
+  Status ChooseActive(const rocksdb::ReadOptions& ro, const StateChange& change,
+                      CommitPlan* plan) const;
+  // NotFound for a version not kept, FailedPrecondition naming the damage for an incomplete
+  // one: what both Commit's and Activate's activation require.
+  Status CheckActivatable(const rocksdb::ReadOptions& ro, uint64_t version) const;
+  // Puts the dictionary entries, interactions, degrees, cursor and meta values.
+  void PutState(const StateChange& change, rocksdb::WriteBatch* batch) const;
+  // Puts the manifest and every block of the published version and the next version number.
+  void PutVersion(const CommitPlan& plan, const VersionWrite& write,
+                  rocksdb::WriteBatch* batch) const;
+  // Deletes the versions the keep rules no longer keep once plan.version is published.
+  Status PruneVersions(const rocksdb::ReadOptions& ro, const CommitPlan& plan,
+                       rocksdb::WriteBatch* batch) const;
+  void PutActive(uint64_t version, rocksdb::WriteBatch* batch) const;
 };
 
 }  // namespace plumb::store

@@ -189,8 +189,10 @@ TEST(IngestService, StoreFailureAcknowledgesNothing) {
   status = stub->PublishBatch(&context, request, &summary);
   EXPECT_EQ(status.error_code(), grpc::StatusCode::UNAVAILABLE);
 
-  // A full disk as RocksDB words it.
-  log.set_failure(Status::IoError("While appending to file: 000007.log: No space left on device"));
+  // A full disk, as the store reports it.
+  log.set_failure(Status::ResourceExhausted(
+      "appending events: IO error: No space left on device: While appending to file: "
+      "000007.log"));
   grpc::ClientContext context2;
   status = stub->PublishBatch(&context2, request, &summary);
   EXPECT_EQ(status.error_code(), grpc::StatusCode::RESOURCE_EXHAUSTED) << status.error_message();
@@ -233,17 +235,25 @@ TEST(IngestService, FailureMidStreamAfterDurableChunksStillFailsTheCall) {
   EXPECT_EQ(log.events().size(), events.size());
 }
 
+// The code decides, through rpc/grpc_status.h, never the wording: an IoError that happens to
+// mention a full disk is still an I/O error (the store itself reports a full disk as
+// ResourceExhausted).
 TEST(IngestService, ErrorMapping) {
   EXPECT_EQ(AppendErrorToGrpc(Status::ResourceExhausted("quota")).error_code(),
             grpc::StatusCode::RESOURCE_EXHAUSTED);
   EXPECT_EQ(AppendErrorToGrpc(Status::IoError("IO error: No space left on device")).error_code(),
-            grpc::StatusCode::RESOURCE_EXHAUSTED);
+            grpc::StatusCode::UNAVAILABLE);
   EXPECT_EQ(AppendErrorToGrpc(Status::IoError("Input/output error")).error_code(),
             grpc::StatusCode::UNAVAILABLE);
   EXPECT_EQ(AppendErrorToGrpc(Status::Unavailable("shutting down")).error_code(),
             grpc::StatusCode::UNAVAILABLE);
   EXPECT_EQ(AppendErrorToGrpc(Status::InvalidArgument("bad")).error_code(),
             grpc::StatusCode::INVALID_ARGUMENT);
+  EXPECT_EQ(AppendErrorToGrpc(Status::Corruption("event_ids: unreadable record")).error_code(),
+            grpc::StatusCode::INTERNAL);
+  const grpc::Status full = AppendErrorToGrpc(Status::ResourceExhausted("No space left"));
+  EXPECT_NE(full.error_message().find("acknowledges nothing"), std::string::npos);
+  EXPECT_NE(full.error_message().find("No space left"), std::string::npos);
 }
 
 // The same paths over the real store: duplicates by event_id are reported and the log

@@ -190,7 +190,7 @@ TEST_F(EventLogTest, ConcurrentAppendsGetDistinctConsecutiveSequences) {
 TEST_F(EventLogTest, SecondPrimaryOnTheSameDirectoryIsRefused) {
   std::unique_ptr<Store> other;
   Status s = Store::OpenPrimary(dir_, StoreOptions(), &other);
-  EXPECT_EQ(s.code(), Status::Code::kIoError) << s.ToString();
+  EXPECT_EQ(s.code(), Status::Code::kUnavailable) << s.ToString();
   EXPECT_EQ(other, nullptr);
 }
 

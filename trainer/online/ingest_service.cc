@@ -9,6 +9,7 @@
 #include <vector>
 
 #include "core/clock.h"
+#include "rpc/grpc_status.h"
 #include "trainer/online/event_validation.h"
 
 namespace plumb::online {
@@ -36,27 +37,15 @@ plumb::v1::RejectReason WireRejectReason(RejectReason reason) {
   return plumb::v1::REJECT_REASON_UNSPECIFIED;
 }
 
-bool MentionsFullDisk(const std::string& message) {
-  // RocksDB reports a full disk as an IOError whose message carries strerror(ENOSPC)
-  // ("No space left on device"), sometimes tagged "NoSpace".
-  return message.find("No space") != std::string::npos ||
-         message.find("NoSpace") != std::string::npos ||
-         message.find("ENOSPC") != std::string::npos;
-}
-
 }  // namespace
 
 grpc::Status AppendErrorToGrpc(const Status& status) {
-  const std::string message = "the event log could not be written (" + status.ToString() +
-                              "); this call acknowledges nothing: resend its events with "
-                              "the same event_ids";
-  if (status.code() == Status::Code::kResourceExhausted || MentionsFullDisk(status.message())) {
-    return grpc::Status(grpc::StatusCode::RESOURCE_EXHAUSTED, message);
-  }
-  if (status.code() == Status::Code::kInvalidArgument) {
-    return grpc::Status(grpc::StatusCode::INVALID_ARGUMENT, message);
-  }
-  return grpc::Status(grpc::StatusCode::UNAVAILABLE, message);
+  // The store says what failed by its code (a full disk is ResourceExhausted, a bad event
+  // InvalidArgument); rpc/grpc_status maps codes for every service.
+  return grpc::Status(rpc::ToGrpcCode(status.code()),
+                      "the event log could not be written (" + status.ToString() +
+                          "); this call acknowledges nothing: resend its events with the "
+                          "same event_ids");
 }
 
 // The state of one Publish or PublishBatch call: validates events as they come, submits

@@ -34,9 +34,10 @@ struct IngestLimits {
   int64_t max_future_skew_ms = kDefaultMaxFutureSkewMs;
 };
 
-// Maps a failed append to the gRPC status the client sees: RESOURCE_EXHAUSTED when the
-// disk is full, INVALID_ARGUMENT when the store refused the events themselves,
-// UNAVAILABLE otherwise (I/O errors, shutdown).
+// Maps a failed append to the gRPC status the client sees, by its code through
+// rpc/grpc_status.h: RESOURCE_EXHAUSTED when the disk is full, INVALID_ARGUMENT when the
+// store refused the events themselves, UNAVAILABLE for I/O errors and shutdown, INTERNAL
+// for a damaged store.
 grpc::Status AppendErrorToGrpc(const Status& status);
 
 class IngestService final : public plumb::v1::EventIngest::Service {

@@ -208,9 +208,8 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
                                       mkdir_error);  // the store creates the last level
   std::unique_ptr<plumb::store::Store> store;
   if (Status s = plumb::store::Store::OpenPrimary(config.db, store_options, &store); !s.ok()) {
-    // RocksDB words a held directory as "While lock file: .../LOCK: Resource temporarily
-    // unavailable".
-    const bool held = s.message().find("lock") != std::string::npos;
+    // The store reports a directory another process holds as Unavailable.
+    const bool held = s.code() == plumb::Status::Code::kUnavailable;
     spdlog::critical("cannot open the store at {} as the primary: {}{}", config.db, s.ToString(),
                      held ? " (another plumb-train or plumb command is writing it; only one "
                             "process may)"

@@ -145,20 +145,6 @@ Status RunImport(const ImportArgs& args) {
   return s;
 }
 
-Status MakeTrainOptions(const FitArgs& args, trainer::TrainOptions* out) {
-  return trainer::MakeTrainOptions({.objective = args.objective,
-                                    .optimizer = args.optimizer,
-                                    .cpr_k = args.k,
-                                    .cpr_k3_share = args.k3_share,
-                                    .beta = args.beta,
-                                    .learning_rate = args.learning_rate,
-                                    .l2 = args.l2,
-                                    .batch_size = args.batch_size,
-                                    .threads = args.threads,
-                                    .seed = args.seed},
-                                   out);
-}
-
 namespace {
 
 // What fit and tune share: options checked, the store opened (and the events imported), the
@@ -174,7 +160,7 @@ struct Prepared {
 };
 
 Status Prepare(const FitArgs& args, const char* who, Prepared* p) {
-  PLUMB_RETURN_IF_ERROR(MakeTrainOptions(args, &p->train_options));
+  PLUMB_RETURN_IF_ERROR(trainer::MakeTrainOptions(args, &p->train_options));
   if (args.holdout < 0.0 || args.holdout > 0.5) {
     return Status::InvalidArgument("--holdout-fraction must be in [0, 0.5]");
   }

@@ -154,18 +154,9 @@ Status OnlineLoop::Create(store::Store* store, const OnlineOptions& options,
   impl.idle_budget = IdleReplayBudget(options.idle_replay_passes);
 
   trainer::TrainOptions& t = impl.train_options;
-  PLUMB_RETURN_IF_ERROR(
-      trainer::MakeTrainOptions({.objective = options.objective,
-                                 .optimizer = options.optimizer,
-                                 .cpr_k = options.cpr_k,
-                                 .cpr_k3_share = options.cpr_k3_share,
-                                 .beta = options.beta,
-                                 .learning_rate = options.learning_rate,
-                                 .l2 = options.l2,
-                                 .batch_size = options.batch_size,
-                                 .threads = 1,  // StepBatch runs on the training thread
-                                 .seed = options.seed},
-                                &t));
+  trainer::TrainSettings settings = options;
+  settings.threads = 1;  // StepBatch runs on the training thread; options.threads are a refit's
+  PLUMB_RETURN_IF_ERROR(trainer::MakeTrainOptions(settings, &t));
   if (options.holdout_fraction < 0.0 || options.holdout_fraction >= 1.0) {
     return Status::InvalidArgument("holdout_fraction must be in [0, 1)");
   }

@@ -9,6 +9,7 @@
 
 #include "core/status.h"
 #include "trainer/synth.h"
+#include "trainer/train_settings.h"
 #include "trainer/trainer.h"
 
 namespace plumb::cli {
@@ -20,20 +21,13 @@ struct ImportArgs {
   bool sync = true;
 };
 
-struct FitArgs {
+// The training choices (objective, optimizer, cpr_k, cpr_k3_share, beta, learning_rate, l2,
+// batch_size, threads, seed) are the TrainSettings every trainer shares.
+struct FitArgs : trainer::TrainSettings {
+  FitArgs() { threads = 2; }
   ImportArgs import;  // import.events may be empty: train on what the store holds
-  std::string objective = "cpr";
-  std::string optimizer = "adagrad";
   uint32_t dim = 64;
   uint32_t epochs = 20;
-  uint32_t k = 2;         // CPR sample size
-  double k3_share = 0.0;  // share of k=3 samples mixed in
-  double beta = 3.0;
-  double learning_rate = 0.05;
-  double l2 = 1e-4;
-  uint32_t batch_size = 1024;
-  uint32_t threads = 2;
-  uint64_t seed = 1;
   double holdout = 0.0;  // share of pairs held out (stored as the store's holdout)
   bool activate = true;
   uint32_t keep_versions = 5;
@@ -136,7 +130,5 @@ Status RunForget(const AdminArgs& args);
 Status RunExport(const AdminArgs& args);
 Status RunTop(const TopArgs& args);
 
-// Fills trainer options from the fit arguments (shared by fit and compare).
-Status MakeTrainOptions(const FitArgs& args, trainer::TrainOptions* out);
 
 }  // namespace plumb::cli

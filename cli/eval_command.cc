@@ -244,7 +244,7 @@ Status RunCompare(const CompareArgs& args) {
     fa.threads = args.threads;
     fa.seed = args.world.seed;
     trainer::TrainOptions base;
-    PLUMB_RETURN_IF_ERROR(MakeTrainOptions(fa, &base));
+    PLUMB_RETURN_IF_ERROR(trainer::MakeTrainOptions(fa, &base));
     std::vector<trainer::TuneCandidate> candidates;
     for (double b : args.tune_betas) candidates.push_back({b, 0.0});
     trainer::TuneOptions topt;
@@ -303,7 +303,7 @@ Status RunCompare(const CompareArgs& args) {
     fa.threads = args.threads;
     fa.seed = args.world.seed;
     trainer::TrainOptions to;
-    PLUMB_RETURN_IF_ERROR(MakeTrainOptions(fa, &to));
+    PLUMB_RETURN_IF_ERROR(trainer::MakeTrainOptions(fa, &to));
     trainer::Embeddings model;
     PLUMB_RETURN_IF_ERROR(trainer::Embeddings::Create(args.dim, train.num_users(),
                                                       train.num_items(), fa.seed, &model));

@@ -8,6 +8,7 @@
 #include <cstdlib>
 #include <filesystem>
 #include <limits>
+#include <optional>
 
 #include "cli/commands.h"
 #include "cli/csv_reader.h"
@@ -16,15 +17,16 @@
 #include "cli/store_access.h"
 #include "core/clock.h"
 #include "core/duration.h"
+#include "trainer/online/holdout_meta.h"
 #include "trainer/online/training_config.h"
 #include "trainer/online/training_state.h"
+#include "trainer/online/version_writer.h"
+#include "trainer/train_settings.h"
 #include "trainer/tuner.h"
 #include "trainer/validation.h"
 
 namespace plumb::cli {
 namespace {
-
-constexpr char kHoldoutKey[] = "holdout_fraction";
 
 // What identifies an imported file's content when it has no event ids: a 64-bit FNV-1a hash
 // (Fowler, Noll, Vo) of every row's user, item, ts as written (0 without one) and weight, in
@@ -143,24 +145,6 @@ Status RunImport(const ImportArgs& args) {
   return s;
 }
 
-Status MakeTrainOptions(const FitArgs& args, trainer::TrainOptions* out) {
-  trainer::TrainOptions t;
-  PLUMB_RETURN_IF_ERROR(trainer::ParseObjectiveKind(args.objective, &t.objective));
-  PLUMB_RETURN_IF_ERROR(trainer::ParseOptimizerKind(args.optimizer, &t.optimizer));
-  t.cpr_k = args.k;
-  t.cpr_mix_k = 3;
-  t.cpr_mix_share = args.k3_share;
-  t.beta = args.beta;
-  t.learning_rate = static_cast<float>(args.learning_rate);
-  t.l2 = static_cast<float>(args.l2);
-  t.batch_size = args.batch_size;
-  t.threads = args.threads;
-  t.seed = args.seed;
-  PLUMB_RETURN_IF_ERROR(trainer::ValidateTrainOptions(t));
-  *out = t;
-  return Status::Ok();
-}
-
 namespace {
 
 // What fit and tune share: options checked, the store opened (and the events imported), the
@@ -176,7 +160,7 @@ struct Prepared {
 };
 
 Status Prepare(const FitArgs& args, const char* who, Prepared* p) {
-  PLUMB_RETURN_IF_ERROR(MakeTrainOptions(args, &p->train_options));
+  PLUMB_RETURN_IF_ERROR(trainer::MakeTrainOptions(args, &p->train_options));
   if (args.holdout < 0.0 || args.holdout > 0.5) {
     return Status::InvalidArgument("--holdout-fraction must be in [0, 0.5]");
   }
@@ -209,20 +193,14 @@ Status Prepare(const FitArgs& args, const char* who, Prepared* p) {
   // The hold-out share is a property of the store: replaying the log with another share
   // would disagree with the interaction sets already written.
   p->holdout = args.holdout;
-  std::string stored;
-  if (Status s = p->store->GetMeta(kHoldoutKey, &stored); s.ok()) {
-    char* end = nullptr;
-    const double value = std::strtod(stored.c_str(), &end);
-    if (end == stored.c_str() || *end != '\0' || !(value >= 0.0 && value < 1.0)) {
-      return Status::Corruption("meta holdout_fraction holds '" + stored + "'");
-    }
-    if (value != args.holdout) {
+  std::optional<double> stored;
+  PLUMB_RETURN_IF_ERROR(online::ReadHoldoutFraction(*p->store, &stored));
+  if (stored.has_value()) {
+    if (*stored != args.holdout) {
       std::fprintf(stderr, "%s: this store holds out %g of pairs; using that, not %g\n", who,
-                   value, args.holdout);
+                   *stored, args.holdout);
     }
-    p->holdout = value;
-  } else if (!s.IsNotFound()) {
-    return s;
+    p->holdout = *stored;
   }
 
   PLUMB_RETURN_IF_ERROR(online::TrainingState::Load(*p->store, p->holdout, &p->state, &p->cursor,
@@ -252,29 +230,12 @@ Status Prepare(const FitArgs& args, const char* who, Prepared* p) {
 // fills the manifest's objective, gate, figures, training and validation fields.
 Status PublishModel(Prepared* p, const trainer::Embeddings& model, store::VersionManifest m,
                     bool activate, uint64_t* version) {
-  const trainer::Interactions& train = p->state.train();
-  store::VersionWrite write;
-  m.created_ms = NowMs();
-  m.events_seen = p->cursor;
-  m.num_interactions = train.size();
-  m.num_users = model.num_users();
-  m.num_items = model.num_items();
-  m.dim = model.dim();
-  write.manifest = std::move(m);
-  write.users = {model.users().data(), model.num_users(), model.dim()};
-  write.items = {model.items().data(), model.num_items(), model.dim()};
-  write.item_degrees = train.item_degrees();
-  store::StateChange change;
-  p->state.CollectChanges(&change);
-  change.cursor = p->cursor;
-  change.version = &write;
-  change.activate_published = activate;
-  char holdout_text[32];
-  std::snprintf(holdout_text, sizeof holdout_text, "%.17g", p->holdout);
-  change.meta.emplace_back(kHoldoutKey, holdout_text);
-  PLUMB_RETURN_IF_ERROR(p->store->Commit(change, version));
-  p->state.MarkPersisted();
-  return Status::Ok();
+  return online::CommitVersion({.store = p->store.get(),
+                                .state = &p->state,
+                                .cursor = p->cursor,
+                                .holdout_fraction = p->holdout,
+                                .activate = activate},
+                               model, &m, version);
 }
 
 std::string Shares(const std::vector<double>& v) {
@@ -453,20 +414,7 @@ Status RunTune(const TuneArgs& given) {
   m.validation_group_shares = chosen.scores.group_shares;
   m.validation_shift = chosen.scores.shift.shift;
   m.validation_shift_distance = chosen.scores.shift.distance;
-  for (const trainer::TuneRow& row : r.report.rows) {
-    store::TuneRecord rec;
-    rec.beta = row.candidate.beta;
-    rec.cpr_mix_share = row.candidate.cpr_mix_share;
-    rec.recall = row.scores.recall;
-    rec.ndcg = row.scores.ndcg;
-    rec.arp = row.scores.arp;
-    rec.shift = row.scores.shift.shift;
-    rec.shift_distance = row.scores.shift.distance;
-    rec.standard_error = row.standard_error;
-    rec.near_tie = row.near_tie;
-    rec.chosen = row.chosen;
-    m.tune.push_back(rec);
-  }
+  m.tune = online::MakeTuneRecords(r.report.rows);
   m.tune_reason = r.report.reason;
   uint64_t version = 0;
   PLUMB_RETURN_IF_ERROR(PublishModel(&p, r.model, std::move(m), args.fit.activate, &version));

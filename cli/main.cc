@@ -71,10 +71,10 @@ void AddTrainOptions(CLI::App* cmd, FitArgs* a) {
   cmd->add_option("--epochs", a->epochs, "passes over the training pairs")
       ->check(CLI::Range(1u, 100000u))
       ->capture_default_str();
-  cmd->add_option("--cpr-k", a->k, "CPR sample size: interactions crossed per sample")
+  cmd->add_option("--cpr-k", a->cpr_k, "CPR sample size: interactions crossed per sample")
       ->check(CLI::Range(2u, 8u))
       ->capture_default_str();
-  cmd->add_option("--cpr-k3-share", a->k3_share, "CPR: share of 3-interaction samples mixed in")
+  cmd->add_option("--cpr-k3-share", a->cpr_k3_share, "CPR: share of 3-interaction samples mixed in")
       ->check(CLI::Range(0.0, 1.0))
       ->capture_default_str();
   cmd->add_option("--beta", a->beta,

@@ -5,6 +5,7 @@
 #include <filesystem>
 
 #include "store/version_reader.h"
+#include "trainer/online/stored_embeddings.h"
 
 namespace plumb::cli {
 
@@ -64,14 +65,7 @@ Status LoadModel(const store::Store& store, uint64_t version, LoadedModel* out) 
   LoadedModel m;
   m.manifest = reader.manifest();
   const auto& man = m.manifest;
-  trainer::RowMatrix users(man.num_users, man.dim);
-  trainer::RowMatrix items(man.num_items, man.dim);
-  PLUMB_RETURN_IF_ERROR(
-      reader.ReadMatrix(store::MatrixKind::kUsers, std::span<float>(users.data(), users.size())));
-  PLUMB_RETURN_IF_ERROR(
-      reader.ReadMatrix(store::MatrixKind::kItems, std::span<float>(items.data(), items.size())));
-  PLUMB_RETURN_IF_ERROR(
-      trainer::Embeddings::FromMatrices(std::move(users), std::move(items), 1, &m.model));
+  PLUMB_RETURN_IF_ERROR(online::ReadEmbeddings(reader, 1, &m.model));
   std::vector<trainer::Pair> pairs;
   PLUMB_RETURN_IF_ERROR(reader.ForEachInteraction([&](uint32_t u, uint32_t i) {
     pairs.push_back({u, i});

@@ -5,22 +5,12 @@
 #include <cctype>
 #include <cerrno>
 #include <cstring>
-#include <fstream>
-#include <sstream>
 #include <string_view>
+
+#include "rpc/read_file.h"
 
 namespace plumb::rpc {
 namespace {
-
-Status ReadFile(const std::string& path, std::string* out) {
-  std::ifstream in(path, std::ios::binary);
-  if (!in) return Status::IoError("cannot read " + path + ": " + std::strerror(errno));
-  std::ostringstream buf;
-  buf << in.rdbuf();
-  if (in.bad()) return Status::IoError("error reading " + path);
-  *out = buf.str();
-  return Status::Ok();
-}
 
 bool StartsWithNoCase(std::string_view s, std::string_view prefix) {
   if (s.size() < prefix.size()) return false;
@@ -49,7 +39,7 @@ bool SameSecret(std::string_view given, std::string_view expected) {
 Status BearerAuth::FromFile(const std::string& path, std::unique_ptr<BearerAuth>* out,
                             std::string* warning) {
   std::string content;
-  PLUMB_RETURN_IF_ERROR(ReadFile(path, &content));
+  PLUMB_RETURN_IF_ERROR(ReadWholeFile(path, "token", &content));
   size_t begin = 0, end = content.size();
   while (begin < end && std::isspace(static_cast<unsigned char>(content[begin]))) ++begin;
   while (end > begin && std::isspace(static_cast<unsigned char>(content[end - 1]))) --end;

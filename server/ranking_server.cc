@@ -4,11 +4,10 @@
 #include <grpcpp/health_check_service_interface.h>
 
 #include <algorithm>
-#include <fstream>
-#include <sstream>
 #include <thread>
 
 #include "rpc/listen_probe.h"
+#include "rpc/server_credentials.h"
 #include "server/transport_rejections.h"
 
 namespace plumb::server {
@@ -17,47 +16,13 @@ namespace {
 
 constexpr const char* kRankerServiceName = "plumb.v1.Ranker";
 
-Status ReadFile(const std::string& path, const char* what, std::string* out) {
-  std::ifstream in(path, std::ios::binary);
-  if (!in) return Status::IoError("cannot read " + std::string(what) + " file '" + path + "'");
-  std::ostringstream content;
-  content << in.rdbuf();
-  *out = content.str();
-  return Status::Ok();
-}
-
-Status Credentials(const EndpointOptions& options, std::shared_ptr<grpc::ServerCredentials>* out) {
-  const bool cert = !options.tls_cert_file.empty(), key = !options.tls_key_file.empty();
-  if (cert != key) {
-    return Status::InvalidArgument("TLS needs both tls_cert and tls_key (only one was given)");
-  }
-  if (!cert) {
-    if (!options.tls_client_ca_file.empty()) {
-      return Status::InvalidArgument("tls_client_ca needs tls_cert and tls_key");
-    }
-    *out = grpc::InsecureServerCredentials();
-    return Status::Ok();
-  }
-  grpc::SslServerCredentialsOptions ssl;
-  grpc::SslServerCredentialsOptions::PemKeyCertPair pair;
-  PLUMB_RETURN_IF_ERROR(ReadFile(options.tls_key_file, "TLS key", &pair.private_key));
-  PLUMB_RETURN_IF_ERROR(ReadFile(options.tls_cert_file, "TLS certificate", &pair.cert_chain));
-  ssl.pem_key_cert_pairs.push_back(std::move(pair));
-  if (!options.tls_client_ca_file.empty()) {
-    PLUMB_RETURN_IF_ERROR(
-        ReadFile(options.tls_client_ca_file, "TLS client CA", &ssl.pem_root_certs));
-    ssl.client_certificate_request = GRPC_SSL_REQUEST_AND_REQUIRE_CLIENT_CERTIFICATE_AND_VERIFY;
-  }
-  *out = grpc::SslServerCredentials(ssl);
-  return Status::Ok();
-}
-
 }  // namespace
 
 Status RankingServer::Start(const EndpointOptions& options, grpc::Service* ranker,
                             std::unique_ptr<RankingServer>* out) {
   std::shared_ptr<grpc::ServerCredentials> credentials;
-  PLUMB_RETURN_IF_ERROR(Credentials(options, &credentials));
+  PLUMB_RETURN_IF_ERROR(rpc::MakeServerCredentials(
+      {options.tls_cert_file, options.tls_key_file, options.tls_client_ca_file}, &credentials));
 
   // Both are process-wide switches that take effect for servers built afterwards.
   grpc::EnableDefaultHealthCheckService(true);

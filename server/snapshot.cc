@@ -11,6 +11,7 @@
 #include "core/scan.h"
 #include "server/fold_in.h"
 #include "store/store.h"
+#include "store/version_reader.h"
 
 namespace plumb::server {
 
@@ -204,13 +205,10 @@ size_t Snapshot::memory_bytes() const {
 
 Status LoadSnapshot(const store::Store& store, uint64_t version,
                     std::shared_ptr<const Snapshot>* out, const ApproxServingOptions& approx) {
-  store::VersionManifest manifest;
-  PLUMB_RETURN_IF_ERROR(store.ReadManifest(version, &manifest));
+  store::VersionReader reader;
+  PLUMB_RETURN_IF_ERROR(store::VersionReader::Open(store, version, &reader));
+  const store::VersionManifest& manifest = reader.manifest();
   const std::string where = "version " + std::to_string(version) + ": ";
-  if (manifest.version != version) {
-    return Status::Corruption(where + "manifest names version " + std::to_string(manifest.version));
-  }
-  if (manifest.dim == 0) return Status::Corruption(where + "manifest says dim 0");
 
   SnapshotParts parts;
   parts.version = version;
@@ -221,44 +219,35 @@ Status LoadSnapshot(const store::Store& store, uint64_t version,
   // ReadMatrix checks every block against the manifest's rows and dim (Corruption when a
   // block is missing or wrongly sized), so the matrices below have the manifest's shape.
   // The item matrix, the largest read, overlaps with everything else.
-  const uint32_t num_users = manifest.num_users, num_items = manifest.num_items;
+  const uint32_t num_users = manifest.num_users;
   Status s = RunBoth(
       [&]() -> Status {
-        return store.ReadMatrix(
-            version, store::MatrixKind::kItems,
+        return reader.ReadMatrix(
+            store::MatrixKind::kItems,
             std::span<float>(parts.items.data(), parts.items.rows() * parts.items.dim()));
       },
       [&]() -> Status {
-        PLUMB_RETURN_IF_ERROR(store.ReadMatrix(
-            version, store::MatrixKind::kUsers,
+        PLUMB_RETURN_IF_ERROR(reader.ReadMatrix(
+            store::MatrixKind::kUsers,
             std::span<float>(parts.users.data(), parts.users.rows() * parts.users.dim())));
         std::vector<uint32_t> degrees;
-        PLUMB_RETURN_IF_ERROR(store.ReadVersionDegrees(version, &degrees));
-        if (degrees.size() != num_items) {
-          return Status::Corruption(where + std::to_string(degrees.size()) +
-                                    " stored degrees for " + std::to_string(num_items) + " items");
-        }
+        PLUMB_RETURN_IF_ERROR(reader.ReadItemDegrees(&degrees));
         parts.item_degrees.assign(degrees.begin(), degrees.end());
+        PLUMB_RETURN_IF_ERROR(reader.LoadIds(store::IdSpace::kItem, &parts.item_ids));
+        PLUMB_RETURN_IF_ERROR(reader.LoadIds(store::IdSpace::kUser, &parts.user_ids));
 
-        // The dictionaries are append-only, so the version's rows are indexes [0, num_users)
-        // and [0, num_items) even if the trainer has added ids since.
-        PLUMB_RETURN_IF_ERROR(store.LoadIds(store::IdSpace::kItem, num_items, &parts.item_ids));
-        PLUMB_RETURN_IF_ERROR(store.LoadIds(store::IdSpace::kUser, num_users, &parts.user_ids));
-
-        // ForEachInteraction yields pairs ordered by user then item, so appending builds the
-        // compressed rows directly; the order is checked as it goes.
+        // ForEachInteraction yields the version's pairs ordered by user then item, so
+        // appending builds the compressed rows directly; the order is checked as it goes.
         parts.seen_offsets.assign(static_cast<size_t>(num_users) + 1, 0);
         parts.seen_items.reserve(manifest.num_interactions);
         uint64_t last_pair = 0;
         bool ordered = true;
-        PLUMB_RETURN_IF_ERROR(store.ForEachInteraction([&](uint32_t user, uint32_t item) {
+        PLUMB_RETURN_IF_ERROR(reader.ForEachInteraction([&](uint32_t user, uint32_t item) {
           const uint64_t pair = (static_cast<uint64_t>(user) << 32 | item) + 1;
           ordered = ordered && pair > last_pair;
           last_pair = pair;
-          if (user < num_users && item < num_items) {
-            parts.seen_items.push_back(item);
-            ++parts.seen_offsets[user + 1];
-          }
+          parts.seen_items.push_back(item);
+          ++parts.seen_offsets[user + 1];
         }));
         if (!ordered) {
           return Status::Corruption(where + "interactions not ordered by user then item");

@@ -22,6 +22,16 @@ Status VersionReader::ReadMatrix(MatrixKind kind, std::span<float> dest) const {
   return store_->ReadMatrix(manifest_.version, kind, dest);
 }
 
+Status VersionReader::ReadItemDegrees(std::vector<uint32_t>* out) const {
+  PLUMB_RETURN_IF_ERROR(store_->ReadVersionDegrees(manifest_.version, out));
+  if (out->size() != manifest_.num_items) {
+    return Status::Corruption("version " + std::to_string(manifest_.version) + ": " +
+                              std::to_string(out->size()) + " stored degrees for " +
+                              std::to_string(manifest_.num_items) + " items");
+  }
+  return Status::Ok();
+}
+
 Status VersionReader::LoadIds(IdSpace space, std::vector<std::string>* out) const {
   return store_->LoadIds(space, space == IdSpace::kUser ? manifest_.num_users : manifest_.num_items,
                          out);

@@ -3,9 +3,8 @@
 // ids and the version's interactions (the pairs inside its users x items; the dictionaries and
 // the interactions only grow, so later ones are left out).
 //
-// Used by the plumb command line (cli/store_access.cc). plumb-serve's snapshot loading
-// (server/snapshot.cc) and the online loop's embedding load (trainer/online/online_loop.cc)
-// read the same things by hand and should switch to it.
+// Used by the plumb command line (cli/store_access.cc), plumb-serve's snapshot loading
+// (server/snapshot.cc) and the trainers' embedding load (trainer/online/stored_embeddings.h).
 //
 // Holds a reference to the store, which must outlive it. Thread-compatible: the store's
 // const reads are thread-safe, so one reader may be used from several threads.
@@ -36,6 +35,10 @@ class VersionReader {
   // Fills dest (exactly rows * dim floats of that matrix) with the version's users or
   // items. Corruption for a missing or wrongly sized block.
   Status ReadMatrix(MatrixKind kind, std::span<float> dest) const;
+
+  // The training degree of each of the version's items, as published with it. Corruption
+  // when the stored degrees do not number num_items.
+  Status ReadItemDegrees(std::vector<uint32_t>* out) const;
 
   // The version's user or item ids: rows [0, num_users) or [0, num_items).
   Status LoadIds(IdSpace space, std::vector<std::string>* out) const;

@@ -45,12 +45,16 @@ class Sampler {
   virtual Status CheckData() const = 0;
 };
 
+// The size of the CPR samples mixed into batches at a mix share (CprSamplerOptions::mix_k,
+// TrainOptions::cpr_mix_k): the programs' `k3_share` settings name it.
+inline constexpr uint32_t kCprMixK = 3;
+
 struct CprSamplerOptions {
   // Pairs per sample, 2..kMaxSampleSlots.
   uint32_t k = 2;
   // Share of samples drawn with mix_k pairs instead of k (0 = none), so that several sample
   // sizes mix in one batch.
-  uint32_t mix_k = 3;
+  uint32_t mix_k = kCprMixK;
   double mix_share = 0.0;
   // Whole-sample draws tried before Draw gives up with ResourceExhausted.
   uint32_t max_attempts = 2000;

@@ -35,7 +35,7 @@ struct TrainOptions {
   ObjectiveKind objective = ObjectiveKind::kCpr;
   // CPR sample size, and the share of samples of size cpr_mix_k mixed in (0 = none).
   uint32_t cpr_k = 2;
-  uint32_t cpr_mix_k = 3;
+  uint32_t cpr_mix_k = kCprMixK;
   double cpr_mix_share = 0.0;
   // Whole-sample attempts before the CPR sampler reports the data as too dense.
   uint32_t cpr_max_attempts = 2000;

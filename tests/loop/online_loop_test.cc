@@ -19,6 +19,7 @@
 #include "cli/store_access.h"
 #include "store/store.h"
 #include "trainer/evaluate.h"
+#include "trainer/online/holdout_meta.h"
 #include "trainer/online/training_state.h"
 #include "trainer/synth.h"
 
@@ -369,6 +370,75 @@ TEST_F(OnlineLoopTest, RestartResumesFromTheDurableCursor) {
   const uint64_t v2 = PublishAndWait(*loop, *store_);
   EXPECT_GT(v2, v);
   loop->Stop();
+}
+
+// A hold-out share with more digits than a 6-digit rendering keeps (0.0123456789, which
+// std::to_string writes as 0.012346) is recorded exactly, and a loop restarted with another
+// configured share splits the same pairs the same way.
+TEST_F(OnlineLoopTest, AHoldoutShareWithManyDigitsGivesTheSameSplitAfterARestart) {
+  constexpr double kShare = 0.0123456789;
+  const double rounded = std::stod(std::to_string(kShare));
+  ASSERT_NE(rounded, kShare);
+  // A pair whose hash falls between the two shares (found by searching member numbers with
+  // IsHeldOut): it trains at kShare and would be held out at the rounded share.
+  const std::string probe_user = "probe-member-2071150", probe_item = "probe-tool";
+  ASSERT_FALSE(IsHeldOut(probe_user, probe_item, kShare));
+  ASSERT_TRUE(IsHeldOut(probe_user, probe_item, rounded));
+  auto append_probe = [&] {
+    store::EventInput ev;
+    ev.user_id = probe_user;
+    ev.item_id = probe_item;
+    ev.timestamp_ms = world_->events[0].ts_ms;
+    store::AppendResult r;
+    ASSERT_TRUE(store_->AppendEvents(std::span<const store::EventInput>(&ev, 1), &r).ok());
+  };
+  // Training pairs among world events [0, n) and the probe, at a share.
+  auto training_pairs = [&](size_t n, double share) {
+    std::set<std::pair<std::string, std::string>> pairs = {{probe_user, probe_item}};
+    for (size_t e = 0; e < n; ++e) {
+      pairs.emplace(trainer::MemberLabel(world_->events[e].user),
+                    trainer::ToolLabel(world_->events[e].item));
+    }
+    uint64_t trained = 0;
+    for (const auto& [user, item] : pairs) trained += IsHeldOut(user, item, share) ? 0 : 1;
+    return trained;
+  };
+  ASSERT_NE(training_pairs(4000, kShare), training_pairs(4000, rounded));
+
+  OnlineOptions o = Options();
+  o.refit = false;
+  o.holdout_fraction = kShare;
+  std::unique_ptr<OnlineLoop> loop;
+  ASSERT_TRUE(OnlineLoop::Create(store_.get(), o, &loop).ok());
+  loop->Start();
+  append_probe();
+  Append(0, 3000);
+  loop->NotifyAppended();
+  WaitCaughtUp(*loop, *store_, 0.0);
+  const uint64_t v1 = PublishAndWait(*loop, *store_);
+  loop->Stop();
+  loop.reset();
+  std::string text;
+  ASSERT_TRUE(store_->GetMeta(kHoldoutFractionKey, &text).ok());
+  double stored = 0.0;
+  ASSERT_TRUE(ParseHoldoutFraction(text, &stored).ok()) << text;
+  EXPECT_EQ(stored, kShare) << text;
+
+  // Restarted with another configured share: the store's wins, exactly.
+  o.holdout_fraction = 0.3;
+  ASSERT_TRUE(OnlineLoop::Create(store_.get(), o, &loop).ok());
+  loop->Start();
+  Append(3000, 4000);
+  loop->NotifyAppended();
+  WaitCaughtUp(*loop, *store_, 0.0);
+  const uint64_t v2 = PublishAndWait(*loop, *store_);
+  loop->Stop();
+  store::VersionManifest m1, m2;
+  ASSERT_TRUE(store_->ReadManifest(v1, &m1).ok());
+  ASSERT_TRUE(store_->ReadManifest(v2, &m2).ok());
+  EXPECT_EQ(m1.num_interactions, training_pairs(3000, kShare));
+  EXPECT_EQ(m2.num_interactions, training_pairs(4000, kShare));
+  EXPECT_EQ(m2.training.holdout_fraction, kShare);
 }
 
 TEST_F(OnlineLoopTest, PausedAutoActivationKeepsTheActiveVersion) {

@@ -1,5 +1,3 @@
-#include "trainer/online/auth.h"
-
 #include <gtest/gtest.h>
 #include <sys/stat.h>
 
@@ -8,6 +6,9 @@
 #include <sstream>
 #include <thread>
 
+#include "rpc/bearer_auth.h"
+#include "rpc/listen_address.h"
+#include "rpc/server_credentials.h"
 #include "tests/common/scratch_dir.h"
 #include "tests/online/ingest_server.h"
 #include "tests/online/memory_event_log.h"
@@ -16,6 +17,9 @@ namespace plumb::online {
 namespace {
 
 using ::plumb::testing::ScratchDir;
+using rpc::BearerAuth;
+using rpc::IsLoopbackAddress;
+using rpc::MakeServerCredentials;
 using testing::IngestServer;
 using testing::MemoryEventLog;
 using testing::Stream;
@@ -103,11 +107,13 @@ TEST(ListenPolicy, LoopbackAddresses) {
 
 TEST(ServerCredentials, TlsNeedsBothFiles) {
   std::shared_ptr<grpc::ServerCredentials> creds;
-  EXPECT_TRUE(MakeServerCredentials("", "", &creds).ok());
+  EXPECT_TRUE(MakeServerCredentials({}, &creds).ok());
   EXPECT_NE(creds, nullptr);
-  EXPECT_EQ(MakeServerCredentials("cert.pem", "", &creds).code(), Status::Code::kInvalidArgument);
-  EXPECT_EQ(MakeServerCredentials("/nonexistent/cert.pem", "/nonexistent/key.pem", &creds).code(),
-            Status::Code::kIoError);
+  EXPECT_EQ(MakeServerCredentials({"cert.pem", "", ""}, &creds).code(),
+            Status::Code::kInvalidArgument);
+  EXPECT_EQ(
+      MakeServerCredentials({"/nonexistent/cert.pem", "/nonexistent/key.pem", ""}, &creds).code(),
+      Status::Code::kIoError);
 }
 
 TEST(CallAdmission, ShutdownRefusesNewCallsAndWaitsForRunningOnes) {
@@ -157,7 +163,7 @@ TEST(ServerCredentials, TlsWithTokenEndToEnd) {
   if (std::system(make_cert.c_str()) != 0) GTEST_SKIP() << "openssl could not make a certificate";
 
   std::shared_ptr<grpc::ServerCredentials> server_creds;
-  ASSERT_TRUE(MakeServerCredentials(cert, key, &server_creds).ok());
+  ASSERT_TRUE(MakeServerCredentials({cert, key, ""}, &server_creds).ok());
   MemoryEventLog log;
   TrainMetrics metrics;
   GroupCommitter committer(&log, nullptr, GroupCommitOptions());

@@ -116,7 +116,7 @@ class ControlServiceTest : public ::testing::Test {
 
   bool refit_ = false;
   ScratchDir dir_;
-  std::unique_ptr<BearerAuth> auth_;
+  std::unique_ptr<rpc::BearerAuth> auth_;
   std::unique_ptr<store::Store> store_;
   std::unique_ptr<OnlineLoop> loop_;
   std::unique_ptr<StoreEventLog> log_;
@@ -317,7 +317,7 @@ TEST_F(ControlServiceWithRefitsTest, RetrainRebuildsAndVersionsSayHowTheyWereTra
 class ControlServiceWithTokenTest : public ControlServiceTest {
  protected:
   void SetUp() override {
-    auth_ = std::make_unique<BearerAuth>("shed-key-42");
+    auth_ = std::make_unique<rpc::BearerAuth>("shed-key-42");
     ControlServiceTest::SetUp();
   }
 };

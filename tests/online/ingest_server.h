@@ -18,7 +18,7 @@ namespace plumb::online::testing {
 
 class IngestServer {
  public:
-  explicit IngestServer(EventLog* log, const BearerAuth* auth = nullptr,
+  explicit IngestServer(EventLog* log, const rpc::BearerAuth* auth = nullptr,
                         GroupCommitOptions options = GroupCommitOptions(),
                         IngestLimits limits = IngestLimits())
       : committer_(log, nullptr, options),

@@ -6,7 +6,7 @@
 #pragma once
 
 #include "plumb/v1/control.grpc.pb.h"
-#include "trainer/online/auth.h"
+#include "trainer/online/call_admission.h"
 #include "trainer/online/train_metrics.h"
 
 namespace plumb::store {

@@ -13,7 +13,7 @@
 
 #include "plumb/v1/ingest.grpc.pb.h"
 #include "rpc/checked_methods.h"
-#include "trainer/online/auth.h"
+#include "trainer/online/call_admission.h"
 #include "trainer/online/group_commit.h"
 #include "trainer/online/train_metrics.h"
 

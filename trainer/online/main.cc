@@ -3,11 +3,6 @@
 // (plumb.v1.ModelControl) and Prometheus metrics. SIGTERM/SIGINT: stop accepting, let calls
 // in flight finish (up to shutdown_grace), write what is queued, stop the loop
 // (it publishes nothing half-done), close the store, exit 0.
-#include <grpc/grpc.h>
-#include <grpcpp/ext/proto_server_reflection_plugin.h>
-#include <grpcpp/health_check_service_interface.h>
-#include <grpcpp/server.h>
-#include <grpcpp/server_builder.h>
 #include <prometheus/registry.h>
 #include <pthread.h>
 #include <signal.h>
@@ -30,10 +25,7 @@
 #include "status/http_endpoint.h"
 #include "status/periodic_task.h"
 #include "store/store.h"
-#include "trainer/online/auth.h"
-#include "trainer/online/control_service.h"
 #include "trainer/online/group_commit.h"
-#include "trainer/online/inflight_calls.h"
 #include "trainer/online/ingest_service.h"
 #include "trainer/online/jetstream_source.h"
 #include "trainer/online/online_loop.h"
@@ -41,6 +33,7 @@
 #include "trainer/online/status_page.h"
 #include "trainer/online/train_config.h"
 #include "trainer/online/train_metrics.h"
+#include "trainer/online/train_server.h"
 
 namespace {
 
@@ -112,34 +105,18 @@ JetStreamOptions JetStreamOptionsFrom(const TrainConfig& config, const IngestLim
 
 int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
   // ---- who may call, decided before anything is opened --------------------------------
-  std::unique_ptr<BearerAuth> auth;
-  if (!config.token_file.empty()) {
-    std::string warning;
-    if (Status s = BearerAuth::FromFile(config.token_file, &auth, &warning); !s.ok()) {
-      spdlog::critical("cannot load the bearer token: {}", s.message());
-      return 2;
-    }
-    if (!warning.empty()) spdlog::warn("{}", warning);
-  }
-  const bool loopback = IsLoopbackAddress(config.listen);
-  if (auth == nullptr && !loopback) {
-    if (!config.allow_insecure_remote) {
-      spdlog::critical(
-          "refusing to serve {} without a bearer token: anyone who can reach it could write "
-          "events and change the active model. Set token_file, listen on a loopback address "
-          "(127.0.0.1), or pass --allow-insecure-remote if the network is trusted.",
-          config.listen);
-      return 2;
-    }
-    spdlog::warn("serving {} without a token (--allow-insecure-remote)", config.listen);
-  }
-  if (auth != nullptr && config.tls_cert.empty() && !loopback) {
-    spdlog::warn("the bearer token travels in clear text to {}: configure tls_cert/tls_key",
-                 config.listen);
-  }
-  std::shared_ptr<grpc::ServerCredentials> credentials;
-  if (Status s = MakeServerCredentials(config.tls_cert, config.tls_key, &credentials); !s.ok()) {
-    spdlog::critical("cannot set up TLS: {}", s.message());
+  TrainEndpointOptions endpoint;
+  endpoint.listen = config.listen;
+  endpoint.token_file = config.token_file;
+  endpoint.allow_insecure_remote = config.allow_insecure_remote;
+  endpoint.tls_cert_file = config.tls_cert;
+  endpoint.tls_key_file = config.tls_key;
+  // A full PublishBatch of events with ids at their limits is about 0.7 KB per event.
+  endpoint.max_receive_message_bytes =
+      static_cast<int>(std::max<uint64_t>(16u << 20, uint64_t{config.max_batch_events} << 10));
+  std::unique_ptr<TrainServer> server;
+  if (Status s = TrainServer::Prepare(endpoint, &server); !s.ok()) {
+    spdlog::critical("{}", s.message());
     return 2;
   }
 
@@ -243,10 +220,6 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
     spdlog::critical("{}", s.message());
     return 2;
   }
-  InflightCalls inflight;
-  const CallAdmission admission{auth.get(), &inflight};
-  IngestService ingest(&committer, &metrics, admission, limits);
-  ControlService control(store.get(), loop.get(), admission, &metrics);
   std::unique_ptr<EventSource> jetstream;
   if (!config.jetstream_servers.empty()) {
     jetstream = std::make_unique<JetStreamSource>(JetStreamOptionsFrom(config, limits), &committer,
@@ -261,25 +234,8 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
     spdlog::info("events also from {}", jetstream->Describe());
   }
 
-  grpc::EnableDefaultHealthCheckService(true);
-  grpc::reflection::InitProtoReflectionServerBuilderPlugin();
-  grpc::ServerBuilder builder;
-  int port = 0;
-  // gRPC sets SO_REUSEPORT on its listeners by default: a second trainer on the same port
-  // would then start and take a share of the calls, against another store. One port, one
-  // process.
-  builder.AddChannelArgument(GRPC_ARG_ALLOW_REUSEPORT, 0);
-  builder.AddListeningPort(config.listen, credentials, &port);
-  builder.RegisterService(&ingest);
-  builder.RegisterService(&control);
-  // A full PublishBatch of events with ids at their limits is about 0.7 KB per event.
-  builder.SetMaxReceiveMessageSize(
-      static_cast<int>(std::max<uint64_t>(16u << 20, uint64_t{config.max_batch_events} << 10)));
-  std::unique_ptr<grpc::Server> server = builder.BuildAndStart();
-  if (server == nullptr || port == 0) {
-    const Status why = plumb::rpc::ProbeListenAddress(config.listen, "gRPC");
-    spdlog::critical("cannot listen on {}: {}", config.listen,
-                     why.ok() ? "bad TLS files or address?" : why.message());
+  if (Status s = server->Start(&committer, &metrics, limits, store.get(), loop.get()); !s.ok()) {
+    spdlog::critical("cannot listen on {}: {}", config.listen, s.message());
     if (jetstream) jetstream->Stop();
     committer.Close();
     retention.Stop();
@@ -304,9 +260,9 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
   spdlog::info(
       "plumb-train serving {} (port {}{}{}), metrics {}; store {}: log at {}, active version "
       "{}, objective {}",
-      config.listen, port, auth ? ", token required" : "", config.tls_cert.empty() ? "" : ", TLS",
-      config.metrics.empty() ? "off" : config.metrics, config.db, store->LastSequence(),
-      initial.active_version, config.online.objective);
+      config.listen, server->port(), server->requires_token() ? ", token required" : "",
+      server->uses_tls() ? ", TLS" : "", config.metrics.empty() ? "off" : config.metrics, config.db,
+      store->LastSequence(), initial.active_version, config.online.objective);
 
   int signal_number = 0;
   sigwait(&shutdown_signals, &signal_number);
@@ -314,19 +270,8 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
 
   // Stop accepting; calls in flight get the grace period, then are cancelled. Handlers
   // waiting for the committer still get their answer: it keeps writing until Close().
-  server->GetHealthCheckService()->SetServingStatus(false);
-  const auto grace = std::chrono::milliseconds(std::llround(config.shutdown_grace_seconds * 1e3));
-  std::thread stopper([&] { server->Shutdown(std::chrono::system_clock::now() + grace); });
-  // Shutdown() returns only once every client connection is gone; idle clients keep theirs
-  // until the deadline. So as soon as no handler of ours runs (and new ones are refused),
-  // close the connections, as Shutdown() itself would at the deadline.
-  if (!inflight.CloseAndWait(std::chrono::steady_clock::now() + grace)) {
-    spdlog::warn("{} calls still running after the grace period; cancelling them",
-                 inflight.running());
-  }
-  grpc_server_cancel_all_calls(server->c_server());
-  stopper.join();
-  server->Wait();
+  server->Shutdown(std::chrono::milliseconds(std::llround(config.shutdown_grace_seconds * 1e3)));
+  server.reset();                    // its services borrow the committer, the store and the loop
   if (jetstream) jetstream->Stop();  // acks what it handed to the committer
   committer.Close();
   retention.Stop();

@@ -6,20 +6,25 @@
 #include <chrono>
 #include <cmath>
 #include <condition_variable>
-#include <cstdio>
-#include <cstdlib>
 #include <functional>
 #include <mutex>
+#include <optional>
 #include <thread>
 
-#include "core/clock.h"
 #include "core/thread_priority.h"
 #include "store/store.h"
+#include "store/version_reader.h"
 #include "trainer/embeddings.h"
 #include "trainer/online/gate.h"
+#include "trainer/online/holdout_meta.h"
+#include "trainer/online/idle_replay_budget.h"
+#include "trainer/online/publish_schedule.h"
 #include "trainer/online/refit.h"
+#include "trainer/online/stored_embeddings.h"
 #include "trainer/online/training_config.h"
 #include "trainer/online/training_state.h"
+#include "trainer/online/version_writer.h"
+#include "trainer/train_settings.h"
 #include "trainer/trainer.h"
 
 namespace plumb::online {
@@ -29,9 +34,6 @@ using Clock = std::chrono::steady_clock;
 
 constexpr char kAutoActivateKey[] = "auto_activate";
 constexpr char kAutoActivateReasonKey[] = "auto_activate_reason";
-// The hold-out share is a property of the store (the `plumb` command line uses the same key):
-// replaying the log with another share would disagree with the interaction sets written.
-constexpr char kHoldoutKey[] = "holdout_fraction";
 constexpr size_t kReadChunk = 4096;
 // Validation users scored per gate check: bounds the cost of a publish on a large catalogue.
 constexpr size_t kGateMaxUsers = 2000;
@@ -50,15 +52,11 @@ const char* GateName(store::GateOutcome gate) {
   return "unspecified";
 }
 
-Status LoadEmbeddings(const store::Store& store, const store::VersionManifest& m, uint64_t seed,
+Status LoadEmbeddings(const store::Store& store, uint64_t version, uint64_t seed,
                       trainer::Embeddings* out) {
-  trainer::RowMatrix users(m.num_users, m.dim);
-  trainer::RowMatrix items(m.num_items, m.dim);
-  PLUMB_RETURN_IF_ERROR(store.ReadMatrix(m.version, store::MatrixKind::kUsers,
-                                         std::span<float>(users.data(), users.size())));
-  PLUMB_RETURN_IF_ERROR(store.ReadMatrix(m.version, store::MatrixKind::kItems,
-                                         std::span<float>(items.data(), items.size())));
-  return trainer::Embeddings::FromMatrices(std::move(users), std::move(items), seed, out);
+  store::VersionReader reader;
+  PLUMB_RETURN_IF_ERROR(store::VersionReader::Open(store, version, &reader));
+  return ReadEmbeddings(reader, seed, out);
 }
 
 }  // namespace
@@ -74,10 +72,8 @@ struct OnlineLoop::Impl {
   trainer::Embeddings model;
   std::unique_ptr<trainer::FitLoop> fit;
   uint64_t cursor = 0;  // last log sequence folded into `state`
-  uint64_t events_since_publish = 0;
-  Clock::time_point last_publish_time = Clock::now();
-  uint64_t idle_samples_budget = 0;
-  uint64_t samples_since_publish = 0;
+  PublishSchedule schedule{0, 0.0, Clock::now()};  // set by Create
+  IdleReplayBudget idle_budget{0.0};               // set by Create
   uint64_t logged_errors = 0;
   // Refits: the background fit, the pairs the live model's last refit covered, and when the
   // next growth-triggered one may start.
@@ -109,8 +105,12 @@ struct OnlineLoop::Impl {
 
   std::thread thread;
 
+  // The training thread: until stopped, each round consumes the log, adopts a finished
+  // refit or starts one, trains, publishes when due and waits when there is nothing to do.
   void Run();
-  // One step of Run, each of which owns one concern.
+  // The steps of a round, each of which owns one concern.
+  // False when the loop is to stop; *requested: whether RequestPublish asked for a publish.
+  bool TakeRequests(bool* requested);
   bool ConsumeLog(std::vector<store::Event>* events, std::vector<uint64_t>* new_pairs);
   void TrainIncrement(std::span<const uint64_t> new_pairs, bool has_new);
   void MaybeStartRefit();
@@ -121,6 +121,14 @@ struct OnlineLoop::Impl {
   // Drops pairs that left the training window (between steps, never during a refit's catch-up
   // range: a refit snapshot is taken right after it).
   void ApplyWindow();
+  // Publishes when the schedule says so and publishing is allowed; answers RequestPublish.
+  void MaybePublish(bool requested);
+  // Whether the loop has nothing to train on now: no new events, and no idle replay left
+  // (or too few pairs to train). Reports the idle state in the status.
+  bool NothingToTrain(bool has_new);
+  // Sleeps until woken (new events, a request, Stop) or 100 ms pass.
+  void WaitForWork();
+  bool Trainable() const { return state.train().size() >= options.min_train_pairs; }
   Status Publish();
   void SetStatus(const std::function<void(OnlineStatus&)>& fn) {
     std::lock_guard<std::mutex> lock(mu);
@@ -141,20 +149,14 @@ Status OnlineLoop::Create(store::Store* store, const OnlineOptions& options,
   Impl& impl = *loop->impl_;
   impl.store = store;
   impl.options = options;
+  impl.schedule =
+      PublishSchedule(options.publish_every_events, options.publish_every_seconds, Clock::now());
+  impl.idle_budget = IdleReplayBudget(options.idle_replay_passes);
 
   trainer::TrainOptions& t = impl.train_options;
-  PLUMB_RETURN_IF_ERROR(trainer::ParseObjectiveKind(options.objective, &t.objective));
-  PLUMB_RETURN_IF_ERROR(trainer::ParseOptimizerKind(options.optimizer, &t.optimizer));
-  t.cpr_k = options.cpr_k;
-  t.cpr_mix_share = options.cpr_k3_share;
-  t.cpr_mix_k = 3;
-  t.beta = options.beta;
-  t.learning_rate = static_cast<float>(options.learning_rate);
-  t.l2 = static_cast<float>(options.l2);
-  t.batch_size = options.batch_size;
-  t.threads = 1;  // StepBatch runs on the training thread
-  t.seed = options.seed;
-  PLUMB_RETURN_IF_ERROR(trainer::ValidateTrainOptions(t));
+  trainer::TrainSettings settings = options;
+  settings.threads = 1;  // StepBatch runs on the training thread; options.threads are a refit's
+  PLUMB_RETURN_IF_ERROR(trainer::MakeTrainOptions(settings, &t));
   if (options.holdout_fraction < 0.0 || options.holdout_fraction >= 1.0) {
     return Status::InvalidArgument("holdout_fraction must be in [0, 1)");
   }
@@ -170,22 +172,14 @@ Status OnlineLoop::Create(store::Store* store, const OnlineOptions& options,
     return Status::InvalidArgument("threads must be in 1..256");
   }
 
-  std::string stored_holdout;
-  Status hs = store->GetMeta(kHoldoutKey, &stored_holdout);
-  if (hs.ok()) {
-    char* end = nullptr;
-    const double stored = std::strtod(stored_holdout.c_str(), &end);
-    if (end == stored_holdout.c_str() || *end != '\0' || !(stored >= 0.0 && stored < 1.0)) {
-      return Status::Corruption("meta holdout_fraction holds '" + stored_holdout +
-                                "', not a share in [0, 1)");
+  std::optional<double> stored_holdout;
+  PLUMB_RETURN_IF_ERROR(ReadHoldoutFraction(*store, &stored_holdout));
+  if (stored_holdout.has_value()) {
+    if (*stored_holdout != options.holdout_fraction) {
+      spdlog::warn("this store holds out {} of pairs; using that, not the configured {}",
+                   *stored_holdout, options.holdout_fraction);
     }
-    if (stored != options.holdout_fraction) {
-      spdlog::warn("this store holds out {} of pairs; using that, not the configured {}", stored,
-                   options.holdout_fraction);
-    }
-    impl.options.holdout_fraction = stored;
-  } else if (!hs.IsNotFound()) {
-    return hs;
+    impl.options.holdout_fraction = *stored_holdout;
   }
   if (!options.tune) impl.options.tune_betas.clear();
   impl.config =
@@ -220,7 +214,7 @@ Status OnlineLoop::Create(store::Store* store, const OnlineOptions& options,
   for (const store::VersionManifest& m : versions) {
     if (!impl.pending_config_change.empty()) break;
     if (m.gate == store::GateOutcome::kFailed && m.version != active) continue;
-    PLUMB_RETURN_IF_ERROR(LoadEmbeddings(*store, m, options.seed, &impl.model));
+    PLUMB_RETURN_IF_ERROR(LoadEmbeddings(*store, m.version, options.seed, &impl.model));
     impl.refit_pairs = m.training.refit_pairs;
     if (!impl.options.tune_betas.empty() && !m.tune.empty()) {
       // Continue with the beta the tuner chose for this lineage.
@@ -244,7 +238,7 @@ Status OnlineLoop::Create(store::Store* store, const OnlineOptions& options,
   for (const store::VersionManifest& m : versions) {
     if (m.version != active) continue;
     auto copy = std::make_shared<trainer::Embeddings>();
-    PLUMB_RETURN_IF_ERROR(LoadEmbeddings(*store, m, options.seed, copy.get()));
+    PLUMB_RETURN_IF_ERROR(LoadEmbeddings(*store, m.version, options.seed, copy.get()));
     impl.active_model = std::move(copy);
     impl.status.active_validation_recall = m.validation_recall;
   }
@@ -345,10 +339,11 @@ OnlineStatus OnlineLoop::status() const {
 Status OnlineLoop::Activate(uint64_t version, uint64_t* previous) {
   Impl& impl = *impl_;
   std::lock_guard<std::mutex> publishing(impl.publish_mu);
-  store::VersionManifest m;
-  PLUMB_RETURN_IF_ERROR(impl.store->ReadManifest(version, &m));
+  store::VersionReader reader;
+  PLUMB_RETURN_IF_ERROR(store::VersionReader::Open(*impl.store, version, &reader));
+  const store::VersionManifest& m = reader.manifest();
   auto copy = std::make_shared<trainer::Embeddings>();
-  PLUMB_RETURN_IF_ERROR(LoadEmbeddings(*impl.store, m, impl.options.seed, copy.get()));
+  PLUMB_RETURN_IF_ERROR(ReadEmbeddings(reader, impl.options.seed, copy.get()));
   uint64_t before = 0;
   PLUMB_RETURN_IF_ERROR(impl.store->GetActiveVersion(&before));
   // The operator's choice holds: automatic activation pauses in the same write.
@@ -404,7 +399,7 @@ bool OnlineLoop::Impl::ConsumeLog(std::vector<store::Event>* events,
       break;
     }
     cursor = ev.seq;
-    ++events_since_publish;
+    schedule.AddEvents(1);
   }
   if (events->empty()) return false;
   SetStatus([&](OnlineStatus& st) {
@@ -418,8 +413,7 @@ bool OnlineLoop::Impl::ConsumeLog(std::vector<store::Event>* events,
   });
   // After new data, allow a bounded amount of replay training while idle (about this many
   // passes over history), so a quiet stream still converges.
-  idle_samples_budget =
-      static_cast<uint64_t>(options.idle_replay_passes * static_cast<double>(state.train().size()));
+  idle_budget.Refill(state.train().size());
   return true;
 }
 
@@ -432,13 +426,13 @@ bool OnlineLoop::Impl::Step(std::span<const uint64_t> anchors, uint64_t replay, 
     return false;
   }
   *samples += st.samples;
-  samples_since_publish += st.samples;
+  schedule.AddSamples(st.samples);
   *loss_sum += st.mean_loss * static_cast<double>(st.samples);
   return true;
 }
 
 void OnlineLoop::Impl::TrainIncrement(std::span<const uint64_t> new_pairs, bool has_new) {
-  if (state.train().size() < options.min_train_pairs) return;
+  if (!Trainable()) return;
   const uint32_t bs = std::max<uint32_t>(1, options.batch_size);
   uint64_t samples = 0;
   double loss_sum = 0.0;
@@ -449,10 +443,8 @@ void OnlineLoop::Impl::TrainIncrement(std::span<const uint64_t> new_pairs, bool 
       const uint64_t replay = static_cast<uint64_t>(options.replay_ratio * n);
       if (!Step(new_pairs.subspan(off, n), replay, &samples, &loss_sum)) break;
     }
-  } else if (!has_new && idle_samples_budget > 0 && !options.refit) {
-    const uint64_t replay = std::min<uint64_t>(bs, idle_samples_budget);
-    idle_samples_budget -= replay;
-    Step({}, replay, &samples, &loss_sum);
+  } else if (!has_new && !idle_budget.empty() && !options.refit) {
+    Step({}, idle_budget.Take(bs), &samples, &loss_sum);
   }
   if (samples > 0) {
     SetStatus([&](OnlineStatus& st) {
@@ -578,21 +570,7 @@ bool OnlineLoop::Impl::AdoptFinishedRefit() {
     config.beta = r.beta;
     tuned_pairs = r.snapshot_pairs;
     tune_reason = r.tune.reason;
-    tune_rows.clear();
-    for (const trainer::TuneRow& row : r.tune.rows) {
-      store::TuneRecord rec;
-      rec.beta = row.candidate.beta;
-      rec.cpr_mix_share = row.candidate.cpr_mix_share;
-      rec.recall = row.scores.recall;
-      rec.ndcg = row.scores.ndcg;
-      rec.arp = row.scores.arp;
-      rec.shift = row.scores.shift.shift;
-      rec.shift_distance = row.scores.shift.distance;
-      rec.standard_error = row.standard_error;
-      rec.near_tie = row.near_tie;
-      rec.chosen = row.chosen;
-      tune_rows.push_back(rec);
-    }
+    tune_rows = MakeTuneRecords(r.tune.rows);
     spdlog::info("tuner: {}", tune_reason);
   }
   model = std::move(r.model);
@@ -620,7 +598,7 @@ bool OnlineLoop::Impl::AdoptFinishedRefit() {
   }
   refit_pairs = r.snapshot_pairs;
   // A converged fit needs no replay passes on top; new events bring their own budget.
-  idle_samples_budget = 0;
+  idle_budget.Clear();
   const bool config_landed = !pending_config_change.empty();
   pending_config_change.clear();
   spdlog::info(
@@ -646,49 +624,54 @@ bool OnlineLoop::Impl::AdoptFinishedRefit() {
 void OnlineLoop::Impl::Run() {
   std::vector<store::Event> events;
   std::vector<uint64_t> new_pairs;
-  while (true) {
-    bool publish_now = false;
-    {
-      std::lock_guard<std::mutex> lock(mu);
-      if (stop) return;
-      publish_now = publish_requested;
-    }
+  bool publish_requested_now = false;
+  while (TakeRequests(&publish_requested_now)) {
     const bool has_new = ConsumeLog(&events, &new_pairs);
     const bool adopted = AdoptFinishedRefit();
-    if (adopted) publish_now = true;
     MaybeStartRefit();
     TrainIncrement(new_pairs, has_new);
-
-    const bool trainable = state.train().size() >= options.min_train_pairs;
-    const double since = std::chrono::duration<double>(Clock::now() - last_publish_time).count();
-    // A requested publish happens even with nothing new (RequestPublish's contract).
-    const bool due = publish_now || ((events_since_publish > 0 || samples_since_publish > 0) &&
-                                     (events_since_publish >= options.publish_every_events ||
-                                      since >= options.publish_every_seconds));
-    // While a configuration change waits for its rebuild, the old versions stay in charge.
-    if (trainable && due && pending_config_change.empty()) {
-      Status ps = Publish();
-      if (!ps.ok()) spdlog::error("publish failed: {}", ps.ToString());
-      std::lock_guard<std::mutex> lock(mu);
-      publish_requested = false;
-    } else if (publish_now && (!trainable || !pending_config_change.empty())) {
-      std::lock_guard<std::mutex> lock(mu);
-      publish_requested = false;
-    }
-
-    const bool waiting_refit = refitter.running() || (RefitDue() && trainable);
-    if (options.refit) idle_samples_budget = 0;  // refits do what idle replay would
-    const bool idle = !has_new && (idle_samples_budget == 0 || !trainable) &&
-                      events_since_publish == 0 && samples_since_publish == 0 && !waiting_refit;
-    SetStatus([&](OnlineStatus& st) { st.idle = idle; });
-    if (!has_new && (idle_samples_budget == 0 || !trainable)) {
-      std::unique_lock<std::mutex> lock(mu);
-      wake.wait_for(lock, std::chrono::milliseconds(100), [this] {
-        return stop || appended || publish_requested || !retrain_requested.empty();
-      });
-      appended = false;
-    }
+    MaybePublish(publish_requested_now || adopted);  // an adopted refit is published at once
+    if (NothingToTrain(has_new)) WaitForWork();
   }
+}
+
+bool OnlineLoop::Impl::TakeRequests(bool* requested) {
+  std::lock_guard<std::mutex> lock(mu);
+  *requested = publish_requested;
+  return !stop;
+}
+
+void OnlineLoop::Impl::MaybePublish(bool requested) {
+  // While a configuration change waits for its rebuild, the old versions stay in charge.
+  const bool allowed = Trainable() && pending_config_change.empty();
+  // A requested publish happens even with nothing new (RequestPublish's contract).
+  if (allowed && schedule.Due(requested, Clock::now())) {
+    Status ps = Publish();
+    if (!ps.ok()) spdlog::error("publish failed: {}", ps.ToString());
+  } else if (!requested) {
+    return;
+  }
+  // Answered: published, or refused until publishing is allowed again.
+  std::lock_guard<std::mutex> lock(mu);
+  publish_requested = false;
+}
+
+bool OnlineLoop::Impl::NothingToTrain(bool has_new) {
+  const bool trainable = Trainable();
+  const bool waiting_refit = refitter.running() || (RefitDue() && trainable);
+  if (options.refit) idle_budget.Clear();  // refits do what idle replay would
+  const bool nothing = !has_new && (idle_budget.empty() || !trainable);
+  const bool idle = nothing && !schedule.HasUnpublished() && !waiting_refit;
+  SetStatus([&](OnlineStatus& st) { st.idle = idle; });
+  return nothing;
+}
+
+void OnlineLoop::Impl::WaitForWork() {
+  std::unique_lock<std::mutex> lock(mu);
+  wake.wait_for(lock, std::chrono::milliseconds(100), [this] {
+    return stop || appended || publish_requested || !retrain_requested.empty();
+  });
+  appended = false;
 }
 
 Status OnlineLoop::Impl::Publish() {
@@ -718,15 +701,8 @@ Status OnlineLoop::Impl::Publish() {
                            (gate == store::GateOutcome::kSkipped && !options.require_gate);
   const bool activate = gate_allows && auto_activate;
 
-  store::VersionWrite write;
-  store::VersionManifest& m = write.manifest;
-  m.created_ms = NowMs();
+  store::VersionManifest m;
   m.objective = options.objective;
-  m.events_seen = cursor;
-  m.num_interactions = state.train().size();
-  m.num_users = model.num_users();
-  m.num_items = model.num_items();
-  m.dim = model.dim();
   m.validation_recall = candidate_recall;
   m.validation_k = options.gate_k;
   m.gate = gate;
@@ -741,25 +717,14 @@ Status OnlineLoop::Impl::Publish() {
   m.validation_shift_distance = verdict.candidate_shift.distance;
   m.tune = tune_rows;
   m.tune_reason = tune_reason;
-  write.users = {model.users().data(), model.num_users(), model.dim()};
-  write.items = {model.items().data(), model.num_items(), model.dim()};
-  write.item_degrees = state.train().item_degrees();
-
-  store::StateChange change;
-  state.CollectChanges(&change);
-  change.cursor = cursor;
-  change.version = &write;
-  change.activate_published = activate;
-  // Written with full precision: a rounded share would change the split after a restart.
-  char holdout[32];
-  std::snprintf(holdout, sizeof holdout, "%.17g", options.holdout_fraction);
-  change.meta.emplace_back(kHoldoutKey, holdout);
   uint64_t version = 0;
-  PLUMB_RETURN_IF_ERROR(store->Commit(change, &version));
-  state.MarkPersisted();
-  events_since_publish = 0;
-  samples_since_publish = 0;
-  last_publish_time = Clock::now();
+  PLUMB_RETURN_IF_ERROR(CommitVersion({.store = store,
+                                       .state = &state,
+                                       .cursor = cursor,
+                                       .holdout_fraction = options.holdout_fraction,
+                                       .activate = activate},
+                                      model, &m, &version));
+  schedule.Published(Clock::now());
 
   std::shared_ptr<const trainer::Embeddings> copy;
   if (activate) copy = std::make_shared<trainer::Embeddings>(model);

@@ -27,26 +27,20 @@
 
 #include "core/status.h"
 #include "store/store.h"
+#include "trainer/train_settings.h"
 
 namespace plumb::online {
 
-struct OnlineOptions {
-  std::string objective = "cpr";  // cpr | bpr | bce
+// The training choices (objective, optimizer, cpr_k, cpr_k3_share, beta, learning_rate, l2,
+// batch_size, seed) are the TrainSettings every trainer shares; `threads` are those of a
+// background refit (the incremental steps run on the training thread).
+struct OnlineOptions : trainer::TrainSettings {
   uint32_t dim = 64;
-  uint32_t cpr_k = 2;         // CPR sample size
-  double cpr_k3_share = 0.0;  // share of k=3 samples mixed into CPR batches
-  double beta = 3.0;          // dynamic sampling: candidates drawn per kept sample
-  double learning_rate = 0.05;
-  double l2 = 1e-4;
-  std::string optimizer = "adagrad";  // sgd | adagrad
-  uint32_t batch_size = 1024;         // samples per mini-batch
-  double replay_ratio = 3.0;          // replayed history interactions per new interaction
+  double replay_ratio = 3.0;  // replayed history interactions per new interaction
   // Once the log is consumed, keep training on replayed history for about this many passes
   // over the training pairs (counted in samples), so a quiet stream still converges; what
   // it learns is published at the next publish interval. 0 = no idle training.
   double idle_replay_passes = 10.0;
-  // Threads of a background refit (the incremental steps run on the training thread).
-  uint32_t threads = 1;
   // Background refits (see the file comment). refit = false: incremental steps only.
   bool refit = true;
   uint32_t refit_epochs = 20;      // epochs of a refit, as `plumb fit --epochs`
@@ -62,7 +56,6 @@ struct OnlineOptions {
   // refits); training_state.h has the rule.
   int64_t training_window_ms = 0;
   std::vector<double> tune_betas = {1.0, 2.0, 3.0, 5.0};
-  uint64_t seed = 1;
   double holdout_fraction = 0.02;  // share of (user,item) pairs held out for validation
   uint64_t publish_every_events = 20000;
   double publish_every_seconds = 30.0;

@@ -112,4 +112,24 @@ std::string FormatTrainingConfig(const store::TrainingConfig& c) {
   return s;
 }
 
+std::vector<store::TuneRecord> MakeTuneRecords(const std::vector<trainer::TuneRow>& rows) {
+  std::vector<store::TuneRecord> out;
+  out.reserve(rows.size());
+  for (const trainer::TuneRow& row : rows) {
+    store::TuneRecord rec;
+    rec.beta = row.candidate.beta;
+    rec.cpr_mix_share = row.candidate.cpr_mix_share;
+    rec.recall = row.scores.recall;
+    rec.ndcg = row.scores.ndcg;
+    rec.arp = row.scores.arp;
+    rec.shift = row.scores.shift.shift;
+    rec.shift_distance = row.scores.shift.distance;
+    rec.standard_error = row.standard_error;
+    rec.near_tie = row.near_tie;
+    rec.chosen = row.chosen;
+    out.push_back(rec);
+  }
+  return out;
+}
+
 }  // namespace plumb::online

@@ -9,6 +9,7 @@
 
 #include "store/store.h"
 #include "trainer/trainer.h"
+#include "trainer/tuner.h"
 
 namespace plumb::online {
 
@@ -31,5 +32,8 @@ std::string DescribeConfigChange(const store::VersionManifest& before,
 // One line, e.g. "cpr k=2 beta=3 dim=32 adagrad lr=0.05 l2=0.0001 batch=1024 epochs=20
 // seed=1"; "unrecorded" for an unknown configuration.
 std::string FormatTrainingConfig(const store::TrainingConfig& config);
+
+// The tuner's table as a version records it (VersionManifest::tune), row for row.
+std::vector<store::TuneRecord> MakeTuneRecords(const std::vector<trainer::TuneRow>& rows);
 
 }  // namespace plumb::online

@@ -22,7 +22,9 @@ struct DurationTexts {
 void DefineOptions(CLI::App& app, ServeConfig* c, DurationTexts* d) {
   app.option_defaults()->always_capture_default();
   app.set_version_flag("--version", std::string("plumb-serve ") + PLUMB_VERSION);
-  app.add_option("--db", c->db, "Store directory written by plumb-train (required)");
+  app.add_option("--db", c->db,
+                 "Store directory written by plumb-train; with --replica-of, this replica's "
+                 "own directory of received versions (required)");
   app.add_option("--config", c->config_file,
                  "TOML file whose top-level keys are any of these flags' names");
   app.add_option("--listen", c->endpoint.listen, "HOST:PORT for gRPC (port 0: any free port)");
@@ -120,6 +122,22 @@ void DefineOptions(CLI::App& app, ServeConfig* c, DurationTexts* d) {
   app.add_option("--tls-key", c->endpoint.tls_key_file, "PEM private key for --tls-cert");
   app.add_option("--tls-client-ca", c->endpoint.tls_client_ca_file,
                  "PEM CA bundle; when set, clients must present a certificate it signed");
+  app.add_option("--replica-of", c->replica_of,
+                 "Serve as a remote replica: NATS servers (comma-separated nats://HOST:PORT) "
+                 "whose version stream and pointer to follow; --db is then a local directory "
+                 "of received versions (empty: follow the trainer's store at --db)");
+  app.add_option("--replica-token-file", c->replica_token_file,
+                 "File holding the token the NATS servers require");
+  app.add_option("--replica-credentials-file", c->replica_credentials_file,
+                 "NATS credentials file (.creds) for --replica-of");
+  app.add_option("--replica-tls-ca", c->replica_tls_ca, "CA to trust: connect to NATS with TLS");
+  app.add_option("--replica-tls-cert", c->replica_tls_cert,
+                 "PEM client certificate chain for NATS (when the servers verify clients)");
+  app.add_option("--replica-tls-key", c->replica_tls_key, "PEM key of --replica-tls-cert");
+  app.add_option("--replica-stream", c->replica_stream, "The version stream plumb-train fills");
+  app.add_option("--replica-subject", c->replica_subject, "Version N is on <this>.N");
+  app.add_option("--replica-bucket", c->replica_bucket,
+                 "Key-value bucket whose key 'active' names the version to serve");
   d->shutdown_grace = FormatDuration(c->shutdown_grace_ms);
   app.add_option("--shutdown-grace", d->shutdown_grace,
                  "On SIGTERM/SIGINT, how long in-flight calls may take to finish (up to 10m)");

@@ -21,6 +21,14 @@
 //       opens the store read-only (a secondary) and checks that each of the COUNT published
 //       events is in the log exactly once, under the id the trainer gives it. Prints what it
 //       found; exit 1 on a missing or repeated event.
+//   jetstream_tool bad-version SERVERS STREAM SUBJECT_PREFIX BUCKET VERSION DAMAGE
+//       publishes a small, valid version bundle (3 items, 2 users, dim 4) as VERSION on
+//       SUBJECT_PREFIX.VERSION of STREAM, damaged as DAMAGE says, then puts VERSION into
+//       BUCKET's key `active` (what plumb-train's version shipper does for a good one):
+//         chunk-crc   one payload byte of the second chunk changed (its CRC-32 no longer
+//                     matches)
+//         truncated   the last chunk left out (the trailer counts it)
+//         no-trailer  every chunk, no trailer
 #include <nats/nats.h>
 
 #include <atomic>
@@ -38,6 +46,7 @@
 #include <vector>
 
 #include "plumb/v1/ingest.pb.h"
+#include "replica/version_bundle.h"
 #include "store/store.h"
 
 namespace {
@@ -363,6 +372,57 @@ int Verify(const std::string& db, const std::string& prefix, uint64_t count, uin
 
 }  // namespace
 
+int BadVersion(const std::string& servers, const std::string& stream, const std::string& prefix,
+               const std::string& bucket, uint64_t version, const std::string& damage) {
+  plumb::replica::VersionBundle b;
+  b.version = version;
+  b.dim = 4;
+  b.objective = "cpr";
+  if (!plumb::ItemMatrix::Create(3, 4, &b.items).ok() ||
+      !plumb::ItemMatrix::Create(2, 4, &b.users).ok()) {
+    Die("allocation");
+  }
+  for (size_t k = 0; k < 12; ++k) b.items.data()[k] = 0.25f * static_cast<float>(k);
+  for (size_t k = 0; k < 8; ++k) b.users.data()[k] = 1.0f - 0.125f * static_cast<float>(k);
+  b.item_degrees = {3, 2, 1};
+  b.item_ids = {"t1", "t2", "t3"};
+  b.user_ids = {"u1", "u2"};
+  b.seen_offsets = {0, 1, 1};
+  b.seen_items = {2};
+  std::string bytes;
+  if (!plumb::replica::EncodeBundle(b, &bytes).ok()) Die("encode");
+  std::vector<std::string> messages = plumb::replica::CutIntoChunks(version, bytes, 64);
+  if (damage == "chunk-crc") {
+    messages[1][plumb::replica::kChunkHeaderBytes + 3] ^= 0x20;
+  } else if (damage == "truncated") {
+    messages.erase(messages.end() - 2);
+  } else if (damage == "no-trailer") {
+    messages.pop_back();
+  } else {
+    Die("unknown damage " + damage);
+  }
+  Connection c(servers);
+  const std::string subject = prefix + "." + std::to_string(version);
+  for (const std::string& m : messages) {
+    jsPubAck* ack = nullptr;
+    jsErrCode jerr = static_cast<jsErrCode>(0);
+    natsStatus s =
+        js_Publish(&ack, c.js, subject.c_str(), m.data(), static_cast<int>(m.size()), nullptr, &jerr);
+    jsPubAck_Destroy(ack);
+    if (s != NATS_OK) Die("publish to " + subject + " of " + stream, s);
+  }
+  kvStore* kv = nullptr;
+  natsStatus s = js_KeyValue(&kv, c.js, bucket.c_str());
+  if (s != NATS_OK) Die("bucket " + bucket, s);
+  uint64_t revision = 0;
+  s = kvStore_PutString(&revision, kv, "active", std::to_string(version).c_str());
+  kvStore_Destroy(kv);
+  if (s != NATS_OK) Die("put the pointer", s);
+  std::printf("published version %llu (%s, %zu messages) and pointed at it\n",
+              static_cast<unsigned long long>(version), damage.c_str(), messages.size());
+  return 0;
+}
+
 int main(int argc, char** argv) {
   const std::vector<std::string> a(argv, argv + argc);
   if (argc == 6 && a[1] == "create-stream") return CreateStream(a[2], a[3], a[4], std::stoi(a[5]));
@@ -372,6 +432,9 @@ int main(int argc, char** argv) {
   }
   if (argc == 6 && a[1] == "hostile") {
     return Hostile(a[2], a[3], std::stoull(a[4]), std::stoull(a[5]));
+  }
+  if (argc == 8 && a[1] == "bad-version") {
+    return BadVersion(a[2], a[3], a[4], a[5], std::stoull(a[6]), a[7]);
   }
   if (argc == 6 && a[1] == "verify")
     return Verify(a[2], a[3], std::stoull(a[4]), std::stoull(a[5]));

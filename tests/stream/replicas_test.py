@@ -240,8 +240,8 @@ def main():
                             os.path.join(tmp, "users.txt"), "--duration", "3s",
                             "--concurrency", "2", "--count", "20", "--json"],
                            capture_output=True, text=True, timeout=60)
-        report = json.loads(p.stdout)
-        if p.returncode != 0 or report["errors"] != 0:
+        report_a = json.loads(p.stdout)
+        if p.returncode != 0 or report_a["errors"] != 0:
             fail("replica a with NATS down: %s" % p.stdout, logs)
         procs["serve-b"].send_signal(signal.SIGTERM)
         if procs["serve-b"].wait(30) != 0:
@@ -257,7 +257,7 @@ def main():
         if p.returncode != 0 or report["errors"] != 0:
             fail("restarted replica b with NATS down: %s" % p.stdout, logs)
         print("NATS down: %d calls to replica a and %d to restarted replica b, no error" %
-              (report["requests"], json.loads(p.stdout)["requests"]))
+              (report_a["requests"], report["requests"]))
         middle = (first_version + active) // 2
         subprocess.run([query, "activate", "--model-version", str(middle), "--trainer",
                         train_addr], check=True, capture_output=True)

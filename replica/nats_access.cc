@@ -42,15 +42,16 @@ Status MakeNatsOptions(const NatsAccess& access, const char* client_name, natsOp
   Status s = [&]() -> Status {
     std::vector<const char*> urls;
     for (const std::string& u : access.servers) urls.push_back(u.c_str());
-    PLUMB_RETURN_IF_ERROR(
-        check(natsOptions_SetServers(o, urls.data(), static_cast<int>(urls.size())), "server list"));
+    PLUMB_RETURN_IF_ERROR(check(
+        natsOptions_SetServers(o, urls.data(), static_cast<int>(urls.size())), "server list"));
     natsOptions_SetName(o, client_name);
     natsOptions_SetMaxReconnect(o, -1);  // forever
     natsOptions_SetReconnectWait(o, 250);
     natsOptions_SetTimeout(o, 2000);
     if (!access.token_file.empty()) {
       std::ifstream in(access.token_file);
-      if (!in) return Status::InvalidArgument("NATS: cannot read the token file " + access.token_file);
+      if (!in)
+        return Status::InvalidArgument("NATS: cannot read the token file " + access.token_file);
       std::stringstream text;
       text << in.rdbuf();
       std::string token = text.str();
@@ -77,9 +78,9 @@ Status MakeNatsOptions(const NatsAccess& access, const char* client_name, natsOp
                                     "TLS CA " + access.tls_ca));
       }
       if (!access.tls_cert.empty()) {
-        PLUMB_RETURN_IF_ERROR(check(natsOptions_LoadCertificatesChain(o, access.tls_cert.c_str(),
-                                                                      access.tls_key.c_str()),
-                                    "TLS certificate " + access.tls_cert));
+        PLUMB_RETURN_IF_ERROR(check(
+            natsOptions_LoadCertificatesChain(o, access.tls_cert.c_str(), access.tls_key.c_str()),
+            "TLS certificate " + access.tls_cert));
       }
     }
     return Status::Ok();

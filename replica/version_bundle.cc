@@ -74,7 +74,8 @@ class Reader {
 
 Status GetIds(Reader* r, uint32_t count, std::vector<std::string>* ids, const char* what) {
   // Each id takes at least its 4-byte length.
-  if (!r->Fits(count, 4)) return Status::Corruption(std::string("version bundle: too few bytes for ") + what);
+  if (!r->Fits(count, 4))
+    return Status::Corruption(std::string("version bundle: too few bytes for ") + what);
   ids->resize(count);
   for (std::string& id : *ids) PLUMB_RETURN_IF_ERROR(r->GetStr(&id, what));
   return Status::Ok();
@@ -83,8 +84,8 @@ Status GetIds(Reader* r, uint32_t count, std::vector<std::string>* ids, const ch
 }  // namespace
 
 uint32_t Crc32(std::string_view bytes) {
-  return static_cast<uint32_t>(crc32_z(crc32_z(0L, Z_NULL, 0),
-                                       reinterpret_cast<const Bytef*>(bytes.data()), bytes.size()));
+  return static_cast<uint32_t>(
+      crc32_z(crc32_z(0L, Z_NULL, 0), reinterpret_cast<const Bytef*>(bytes.data()), bytes.size()));
 }
 
 Status ReadVersionBundle(const store::Store& store, uint64_t version, VersionBundle* out) {
@@ -164,7 +165,8 @@ Status EncodeBundle(const VersionBundle& b, std::string* out) {
 }
 
 Status DecodeBundle(std::string_view bytes, VersionBundle* out) {
-  if (bytes.size() < kBundleMagic.size() + 4 || bytes.substr(0, kBundleMagic.size()) != kBundleMagic) {
+  if (bytes.size() < kBundleMagic.size() + 4 ||
+      bytes.substr(0, kBundleMagic.size()) != kBundleMagic) {
     return Status::Corruption("not a version bundle (wrong magic)");
   }
   uint32_t stored_crc = 0;
@@ -181,7 +183,8 @@ Status DecodeBundle(std::string_view bytes, VersionBundle* out) {
   PLUMB_RETURN_IF_ERROR(r.Get(&out->events_seen, "the header"));
   PLUMB_RETURN_IF_ERROR(r.GetStr(&out->objective, "the objective"));
   PLUMB_RETURN_IF_ERROR(r.Get(&n, "the target shares"));
-  if (!r.Fits(n, 8)) return Status::Corruption("version bundle: too few bytes for the target shares");
+  if (!r.Fits(n, 8))
+    return Status::Corruption("version bundle: too few bytes for the target shares");
   out->target_group_shares.resize(n);
   PLUMB_RETURN_IF_ERROR(r.GetArray(out->target_group_shares.data(), n, "the target shares"));
   if (out->dim == 0) return Status::Corruption("version bundle: dim 0");
@@ -274,8 +277,8 @@ Status ParseTrailer(std::string_view message, Trailer* out) {
 }
 
 Status BundleAssembler::Add(std::string_view m) {
-  const std::string where = "version " + std::to_string(version_) + ", chunk " +
-                            std::to_string(next_index_) + ": ";
+  const std::string where =
+      "version " + std::to_string(version_) + ", chunk " + std::to_string(next_index_) + ": ";
   if (m.size() < kChunkHeaderBytes || m.substr(0, kChunkMagic.size()) != kChunkMagic) {
     return Status::Corruption(where + "not a chunk (" + std::to_string(m.size()) + " bytes)");
   }
@@ -294,8 +297,8 @@ Status BundleAssembler::Add(std::string_view m) {
   }
   const std::string_view payload = m.substr(kChunkHeaderBytes);
   if (payload.size() != length) {
-    return Status::Corruption(where + std::to_string(payload.size()) + " payload bytes, header says " +
-                              std::to_string(length));
+    return Status::Corruption(where + std::to_string(payload.size()) +
+                              " payload bytes, header says " + std::to_string(length));
   }
   if (Crc32(payload) != crc) return Status::Corruption(where + "CRC-32 mismatch");
   if (bytes_.size() + payload.size() > max_total_bytes_) {
@@ -316,12 +319,12 @@ Status BundleAssembler::Finish(std::string_view trailer_message, std::string* bu
     return Status::Corruption(where + "trailer names version " + std::to_string(t.version));
   }
   if (t.chunks != next_index_) {
-    return Status::Corruption(where + std::to_string(next_index_) + " chunks received, trailer says " +
-                              std::to_string(t.chunks));
+    return Status::Corruption(where + std::to_string(next_index_) +
+                              " chunks received, trailer says " + std::to_string(t.chunks));
   }
   if (t.total_bytes != bytes_.size()) {
-    return Status::Corruption(where + std::to_string(bytes_.size()) + " bytes received, trailer says " +
-                              std::to_string(t.total_bytes));
+    return Status::Corruption(where + std::to_string(bytes_.size()) +
+                              " bytes received, trailer says " + std::to_string(t.total_bytes));
   }
   if (Crc32(bytes_) != t.crc32) return Status::Corruption(where + "total CRC-32 mismatch");
   *bundle = std::move(bytes_);

@@ -91,8 +91,8 @@ struct VersionShipper::Impl {
       return Failed("cannot find or create bucket " + options.bucket, NatsErrorText(s));
     }
     const int64_t max_payload = natsConnection_GetMaxPayload(nc);
-    chunk_bytes = static_cast<size_t>(std::max<int64_t>(1024, max_payload - 1024)) -
-                  kChunkHeaderBytes;
+    chunk_bytes =
+        static_cast<size_t>(std::max<int64_t>(1024, max_payload - 1024)) - kChunkHeaderBytes;
     if (options.max_chunk_bytes > 0) chunk_bytes = std::min(chunk_bytes, options.max_chunk_bytes);
     char url[256] = {0};
     natsConnection_GetConnectedUrl(nc, url, sizeof url);
@@ -298,8 +298,8 @@ Status VersionShipper::Start() {
       impl_->options.bucket.empty()) {
     return Status::InvalidArgument("versions: stream, subject prefix and bucket must be named");
   }
-  PLUMB_RETURN_IF_ERROR(MakeNatsOptions(impl_->options.access, "plumb-train versions",
-                                        &impl_->nats_options));
+  PLUMB_RETURN_IF_ERROR(
+      MakeNatsOptions(impl_->options.access, "plumb-train versions", &impl_->nats_options));
   impl_->thread = std::thread([this] { impl_->Run(); });
   return Status::Ok();
 }

@@ -45,7 +45,7 @@ struct VersionShipOptions {
   std::string stream = "PLUMB_VERSIONS";
   std::string subject_prefix = "plumb.versions";  // version N goes to <prefix>.N
   std::string bucket = "PLUMB_POINTER";           // key "active": the version to serve
-  int replicas = 1;            // of the stream and bucket when they are created
+  int replicas = 1;                               // of the stream and bucket when they are created
   uint32_t keep_versions = 10;  // versions kept in the stream; older ones are purged
   std::chrono::milliseconds interval{500};
   // Payload bytes per chunk at most; 0: what the server allows (its max_payload, less room

@@ -154,8 +154,8 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   follow.on_swap = [&endpoint](const Snapshot&, double) {
     if (RankingServer* server = endpoint.load()) server->SetServing(true);
   };
-  CatchUpLoop loop = feed ? CatchUpLoop(feed.get(), &holder, follow)
-                         : CatchUpLoop(store.get(), &holder, follow);
+  CatchUpLoop loop =
+      feed ? CatchUpLoop(feed.get(), &holder, follow) : CatchUpLoop(store.get(), &holder, follow);
   // Load what is on disk before listening, so that a restarted server is ready at once
   // even if no trainer runs.
   s = loop.RunOnce();

@@ -166,11 +166,13 @@ struct ReplicaFeed::Impl {
     const std::string subject = options.subject_prefix + "." + std::to_string(v);
     natsMsg* last = nullptr;
     jsErrCode jerr = static_cast<jsErrCode>(0);
-    natsStatus s = js_GetLastMsg(&last, js, options.stream.c_str(), subject.c_str(), nullptr, &jerr);
+    natsStatus s =
+        js_GetLastMsg(&last, js, options.stream.c_str(), subject.c_str(), nullptr, &jerr);
     if (s == NATS_NOT_FOUND) {
       return Status::NotFound("stream " + options.stream + " holds nothing on " + subject);
     }
-    if (s != NATS_OK) return Status::Unavailable("reading " + subject + ": " + replica::NatsErrorText(s));
+    if (s != NATS_OK)
+      return Status::Unavailable("reading " + subject + ": " + replica::NatsErrorText(s));
     natsMsg_Destroy(last);
 
     jsSubOptions so;
@@ -189,8 +191,8 @@ struct ReplicaFeed::Impl {
       natsMsg* msg = nullptr;
       s = natsSubscription_NextMsg(&msg, sub, static_cast<int64_t>(options.fetch_timeout.count()));
       if (s != NATS_OK) {
-        result = Status::Unavailable("waiting for " + subject + "'s next message: " +
-                                     replica::NatsErrorText(s));
+        result = Status::Unavailable("waiting for " + subject +
+                                     "'s next message: " + replica::NatsErrorText(s));
         break;
       }
       const std::string_view data(natsMsg_GetData(msg), natsMsg_GetDataLength(msg));
@@ -209,7 +211,8 @@ struct ReplicaFeed::Impl {
       natsMsg_Destroy(msg);
       if (!result.ok()) break;
       if (pending == 0) {
-        result = Status::Corruption("version " + std::to_string(v) + ": the stream holds it without its trailer");
+        result = Status::Corruption("version " + std::to_string(v) +
+                                    ": the stream holds it without its trailer");
         break;
       }
     }
@@ -223,9 +226,9 @@ struct ReplicaFeed::Impl {
     refused_total.fetch_add(1);
     refused_version = v;
     refused_until = std::chrono::steady_clock::now() + options.refused_retry;
-    spdlog::error("replica: refused version {} ({}); still serving {}", v, why.ToString(),
-                  local_active.load() ? "version " + std::to_string(local_active.load())
-                                      : "nothing");
+    spdlog::error(
+        "replica: refused version {} ({}); still serving {}", v, why.ToString(),
+        local_active.load() ? "version " + std::to_string(local_active.load()) : "nothing");
   }
 
   Status SetPointer(uint64_t v) {
@@ -377,7 +380,8 @@ Status ReplicaFeed::Open() {
   const fs::path dir(impl_->options.dir);
   std::error_code ec;
   fs::create_directories(dir / "versions", ec);
-  if (ec) return Status::IoError("cannot create " + (dir / "versions").string() + ": " + ec.message());
+  if (ec)
+    return Status::IoError("cannot create " + (dir / "versions").string() + ": " + ec.message());
   for (const auto& entry : fs::directory_iterator(dir / "versions", ec)) {
     if (entry.path().extension() == ".tmp") fs::remove(entry.path(), ec);
   }
@@ -396,7 +400,9 @@ Status ReplicaFeed::Open() {
                                   &impl_->nats_options);
 }
 
-void ReplicaFeed::Start() { impl_->thread = std::thread([this] { impl_->Run(); }); }
+void ReplicaFeed::Start() {
+  impl_->thread = std::thread([this] { impl_->Run(); });
+}
 
 void ReplicaFeed::Stop() {
   {
@@ -413,7 +419,8 @@ Status ReplicaFeed::ActiveVersion(uint64_t* version) {
 }
 
 Status ReplicaFeed::Load(uint64_t version, const ApproxServingOptions& approx,
-                         std::shared_ptr<const Snapshot>* out, std::vector<std::string>* withdrawn) {
+                         std::shared_ptr<const Snapshot>* out,
+                         std::vector<std::string>* withdrawn) {
   std::string bytes;
   PLUMB_RETURN_IF_ERROR(ReadFile(impl_->BundlePath(version), &bytes));
   replica::VersionBundle bundle;
@@ -444,9 +451,10 @@ std::shared_ptr<prometheus::Registry> ReplicaFeed::registry() const { return imp
 
 std::string ReplicaFeed::Describe() const {
   std::string servers;
-  for (const std::string& s : impl_->options.access.servers) servers += (servers.empty() ? "" : ",") + s;
-  return "pointer " + impl_->options.bucket + "/active, stream " + impl_->options.stream +
-         " via " + servers + "; local directory " + impl_->options.dir;
+  for (const std::string& s : impl_->options.access.servers)
+    servers += (servers.empty() ? "" : ",") + s;
+  return "pointer " + impl_->options.bucket + "/active, stream " + impl_->options.stream + " via " +
+         servers + "; local directory " + impl_->options.dir;
 }
 
 uint64_t ReplicaFeed::received() const { return impl_->received_total.load(); }

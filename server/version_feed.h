@@ -21,7 +21,8 @@ class VersionFeed {
   // Builds version `version`'s snapshot (with `approx`) and returns the ids of the items
   // withdrawn with it. *out unchanged on error. Called from the loop's thread only.
   virtual Status Load(uint64_t version, const ApproxServingOptions& approx,
-                      std::shared_ptr<const Snapshot>* out, std::vector<std::string>* withdrawn) = 0;
+                      std::shared_ptr<const Snapshot>* out,
+                      std::vector<std::string>* withdrawn) = 0;
 };
 
 }  // namespace plumb::server

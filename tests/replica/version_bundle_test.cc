@@ -160,9 +160,8 @@ TEST_F(VersionBundleTest, EveryDamageToTheMessagesIsDetected) {
   with("the last chunk missing", [](auto* m) { m->erase(m->end() - 2); });
   with("a chunk repeated", [](auto* m) { m->insert(m->begin() + 2, (*m)[1]); });
   with("two chunks swapped", [](auto* m) { std::swap((*m)[1], (*m)[2]); });
-  with("a chunk of another version", [&](auto* m) {
-    (*m)[1] = CutIntoChunks(v + 1, bytes, 64)[1];
-  });
+  with("a chunk of another version",
+       [&](auto* m) { (*m)[1] = CutIntoChunks(v + 1, bytes, 64)[1]; });
   with("a chunk's magic wrong", [](auto* m) { (*m)[0][0] = 'X'; });
   with("the trailer's total CRC wrong (trailer CRC fixed up)", [](auto* m) {
     std::string& t = m->back();
@@ -185,9 +184,8 @@ TEST_F(VersionBundleTest, EveryDamageToTheMessagesIsDetected) {
   with("a trailer bit flipped", [](auto* m) { m->back()[17] ^= 0x02; });
   with("the trailer cut short", [](auto* m) { m->back().resize(20); });
   with("a chunk in place of the trailer", [](auto* m) { m->back() = (*m)[0]; });
-  with("the trailer of another version", [&](auto* m) {
-    m->back() = CutIntoChunks(v + 1, bytes, 64).back();
-  });
+  with("the trailer of another version",
+       [&](auto* m) { m->back() = CutIntoChunks(v + 1, bytes, 64).back(); });
   for (const Case& c : cases) {
     Status s = Reassemble(c.version, c.messages, &out);
     EXPECT_TRUE(s.IsCorruption()) << c.what << ": " << s.ToString();

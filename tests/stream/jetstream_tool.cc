@@ -406,8 +406,8 @@ int BadVersion(const std::string& servers, const std::string& stream, const std:
   for (const std::string& m : messages) {
     jsPubAck* ack = nullptr;
     jsErrCode jerr = static_cast<jsErrCode>(0);
-    natsStatus s =
-        js_Publish(&ack, c.js, subject.c_str(), m.data(), static_cast<int>(m.size()), nullptr, &jerr);
+    natsStatus s = js_Publish(&ack, c.js, subject.c_str(), m.data(), static_cast<int>(m.size()),
+                              nullptr, &jerr);
     jsPubAck_Destroy(ack);
     if (s != NATS_OK) Die("publish to " + subject + " of " + stream, s);
   }

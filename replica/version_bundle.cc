@@ -276,6 +276,10 @@ Status ParseTrailer(std::string_view message, Trailer* out) {
   return Status::Ok();
 }
 
+void BundleAssembler::Reserve(uint64_t bytes) {
+  bytes_.reserve(static_cast<size_t>(std::min(bytes, max_total_bytes_)));
+}
+
 Status BundleAssembler::Add(std::string_view m) {
   const std::string where =
       "version " + std::to_string(version_) + ", chunk " + std::to_string(next_index_) + ": ";

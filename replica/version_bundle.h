@@ -100,6 +100,9 @@ class BundleAssembler {
  public:
   BundleAssembler(uint64_t version, uint64_t max_total_bytes)
       : version_(version), max_total_bytes_(max_total_bytes) {}
+  // Reserves room for `bytes` (capped at max_total_bytes), when the total is known before
+  // the chunks (a receiver may read the trailer first): saves the copies of a growing buffer.
+  void Reserve(uint64_t bytes);
   Status Add(std::string_view chunk_message);
   // On OK, *bundle holds the verified bundle bytes.
   Status Finish(std::string_view trailer_message, std::string* bundle);

@@ -16,7 +16,10 @@ CatchUpLoop::CatchUpLoop(VersionFeed* feed, SnapshotHolder* holder, CatchUpOptio
 Status CatchUpLoop::RunFeedOnce() {
   uint64_t active = 0;
   PLUMB_RETURN_IF_ERROR(feed_->ActiveVersion(&active));
-  if (active == 0) return Status::Ok();
+  if (active == 0) {
+    failed_version_ = 0;  // a feed that withdrew a version may offer it again, repaired
+    return Status::Ok();
+  }
   std::shared_ptr<const Snapshot> current = holder_->Get();
   if (current != nullptr && current->version() == active) return Status::Ok();
   if (active == failed_version_) return Status::Ok();  // already reported; wait for another

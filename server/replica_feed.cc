@@ -173,6 +173,13 @@ struct ReplicaFeed::Impl {
     }
     if (s != NATS_OK)
       return Status::Unavailable("reading " + subject + ": " + replica::NatsErrorText(s));
+    // The last message is the trailer of a whole version: its total sizes the buffer.
+    replica::Trailer trailer;
+    const bool has_trailer =
+        replica::ParseTrailer(std::string_view(natsMsg_GetData(last), natsMsg_GetDataLength(last)),
+                              &trailer)
+            .ok() &&
+        trailer.version == v;
     natsMsg_Destroy(last);
 
     jsSubOptions so;
@@ -186,6 +193,7 @@ struct ReplicaFeed::Impl {
     }
     natsSubscription_SetPendingLimits(sub, -1, -1);
     replica::BundleAssembler assembler(v, options.max_version_bytes);
+    if (has_trailer) assembler.Reserve(trailer.total_bytes);
     Status result = Status::Unavailable("no trailer");
     while (true) {
       natsMsg* msg = nullptr;
@@ -298,11 +306,11 @@ struct ReplicaFeed::Impl {
       std::string bytes;
       const auto start = std::chrono::steady_clock::now();
       Status f = Fetch(v, &bytes);
+      auto decoded = std::make_shared<replica::VersionBundle>();
       if (f.ok()) {
-        replica::VersionBundle check;
-        f = replica::DecodeBundle(bytes, &check);
-        if (f.ok() && check.version != v) {
-          f = Status::Corruption("the bundle names version " + std::to_string(check.version));
+        f = replica::DecodeBundle(bytes, decoded.get());
+        if (f.ok() && decoded->version != v) {
+          f = Status::Corruption("the bundle names version " + std::to_string(decoded->version));
         }
       }
       if (f.IsNotFound()) {
@@ -325,6 +333,12 @@ struct ReplicaFeed::Impl {
       received_total.fetch_add(1);
       spdlog::info("replica: received version {} ({:.1f} MB) in {:.2f} s", v, bytes.size() / 1e6,
                    std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count());
+      std::string().swap(bytes);
+      {
+        // The catch-up thread builds from this copy rather than reading the file back.
+        std::lock_guard<std::mutex> lock(fresh_mu);
+        fresh = std::move(decoded);
+      }
     }
     if (Status p = SetPointer(v); !p.ok()) {
       spdlog::error("replica: cannot move the local pointer to {}: {}", v, p.ToString());
@@ -353,6 +367,10 @@ struct ReplicaFeed::Impl {
   std::array<prometheus::Counter*, 2> refused_counters{};
   std::atomic<uint64_t> received_total{0}, refused_total{0};
   std::atomic<uint64_t> local_active{0};
+  // The version last received, decoded, until the catch-up thread takes it (or another
+  // replaces it).
+  std::mutex fresh_mu;
+  std::shared_ptr<replica::VersionBundle> fresh;
 
   natsOptions* nats_options = nullptr;
   natsConnection* nc = nullptr;
@@ -421,11 +439,31 @@ Status ReplicaFeed::ActiveVersion(uint64_t* version) {
 Status ReplicaFeed::Load(uint64_t version, const ApproxServingOptions& approx,
                          std::shared_ptr<const Snapshot>* out,
                          std::vector<std::string>* withdrawn) {
-  std::string bytes;
-  PLUMB_RETURN_IF_ERROR(ReadFile(impl_->BundlePath(version), &bytes));
+  std::shared_ptr<replica::VersionBundle> fresh;
+  {
+    std::lock_guard<std::mutex> lock(impl_->fresh_mu);
+    if (impl_->fresh != nullptr && impl_->fresh->version == version)
+      fresh = std::move(impl_->fresh);
+    impl_->fresh.reset();
+  }
   replica::VersionBundle bundle;
-  PLUMB_RETURN_IF_ERROR(replica::DecodeBundle(bytes, &bundle));
-  std::string().swap(bytes);
+  if (fresh != nullptr) {
+    bundle = std::move(*fresh);
+    fresh.reset();
+  } else {
+    std::string bytes;
+    PLUMB_RETURN_IF_ERROR(ReadFile(impl_->BundlePath(version), &bytes));
+    Status decoded = replica::DecodeBundle(bytes, &bundle);
+    if (!decoded.ok()) {
+      // Damaged on this disk: drop the file, so that the feed's thread fetches the version
+      // again while the pointer names it (ActiveVersion says 0 until then).
+      std::error_code ec;
+      fs::remove(impl_->BundlePath(version), ec);
+      uint64_t expected = version;
+      impl_->local_active.compare_exchange_strong(expected, 0);
+      return decoded;
+    }
+  }
   if (bundle.version != version) {
     return Status::Corruption("the local bundle of version " + std::to_string(version) +
                               " names version " + std::to_string(bundle.version));

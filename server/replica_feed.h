@@ -5,7 +5,8 @@
 //
 // Local directory (--db):
 //   versions/<N>.bundle   a received version, verified (version_bundle.h format; the bundle's
-//                         own CRC-32 is checked again on every load)
+//                         own CRC-32 and structure are checked again whenever it is loaded
+//                         from disk: at a restart, or a rollback to it)
 //   POINTER               the version to serve, decimal: the last pointer whose version is
 //                         on disk here
 // Files are written to a .tmp name, fsync'ed, renamed into place and the directory
@@ -20,7 +21,10 @@
 // and not tried again for refused_retry; the version served does not change. Local
 // bundles beyond the newest keep_local (never POINTER's) are deleted.
 //
-// CatchUpLoop (server/catch_up_loop.h) asks ActiveVersion() and Load()s off the request path.
+// CatchUpLoop (server/catch_up_loop.h) asks ActiveVersion() and Load()s off the request path;
+// a version just received is handed over decoded, without reading the file back.
+// A local file found damaged when loaded is deleted and the version fetched again while the
+// pointer names it (the served version does not change meanwhile).
 //
 // Metrics (registry()): plumb_replica_connected, plumb_replica_pointer_version,
 // plumb_replica_versions_received_total, plumb_replica_versions_refused_total{reason}.

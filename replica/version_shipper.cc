@@ -52,7 +52,14 @@ struct VersionShipper::Impl {
   bool Connect() {
     natsStatus s = natsConnection_Connect(&nc, nats_options);
     if (s != NATS_OK) return Failed("cannot connect", NatsErrorText(s));
-    if ((s = natsConnection_JetStream(&js, nc, nullptr)) != NATS_OK) {
+    // Chunks are published asynchronously, a few in flight, and the ship waits for every
+    // acknowledgement (js_PublishAsyncComplete); a refused one is counted here.
+    jsOptions jo;
+    jsOptions_Init(&jo);
+    jo.PublishAsync.MaxPending = kChunksInFlight;
+    jo.PublishAsync.ErrHandler = &Impl::OnPublishError;
+    jo.PublishAsync.ErrHandlerClosure = &publish_errors;
+    if ((s = natsConnection_JetStream(&js, nc, &jo)) != NATS_OK) {
       return Failed("no JetStream context", NatsErrorText(s));
     }
     jsErrCode jerr = static_cast<jsErrCode>(0);
@@ -100,6 +107,11 @@ struct VersionShipper::Impl {
                  options.stream, options.bucket, url, chunk_bytes);
     failing.clear();
     return true;
+  }
+
+  static constexpr int kChunksInFlight = 16;
+  static void OnPublishError(jsCtx*, jsPubAckErr*, void* closure) {
+    static_cast<std::atomic<int>*>(closure)->fetch_add(1);
   }
 
   bool Failed(const std::string& what, const std::string& why) {
@@ -166,30 +178,45 @@ struct VersionShipper::Impl {
       PLUMB_RETURN_IF_ERROR(ReadVersionBundle(*store, version, &bundle));
       PLUMB_RETURN_IF_ERROR(EncodeBundle(bundle, &bytes));
     }
+    const auto encoded = std::chrono::steady_clock::now();
     const std::vector<std::string> messages = CutIntoChunks(version, bytes, chunk_bytes);
+    std::string().swap(bytes);
     const std::string subject = Subject(version);
-    jsPubOptions pub;
-    jsPubOptions_Init(&pub);
-    pub.MaxWait = 10000;
+    publish_errors.store(0);
     for (size_t i = 0; i < messages.size(); ++i) {
-      jsPubAck* ack = nullptr;
-      jsErrCode jerr = static_cast<jsErrCode>(0);
-      natsStatus s = js_Publish(&ack, js, subject.c_str(), messages[i].data(),
-                                static_cast<int>(messages[i].size()), &pub, &jerr);
-      jsPubAck_Destroy(ack);
+      natsStatus s = js_PublishAsync(js, subject.c_str(), messages[i].data(),
+                                     static_cast<int>(messages[i].size()), nullptr);
       if (s != NATS_OK) {
         return Status::Unavailable("publishing message " + std::to_string(i + 1) + " of " +
                                    std::to_string(messages.size()) + " of version " +
                                    std::to_string(version) + ": " + NatsErrorText(s));
       }
     }
+    jsPubOptions pub;
+    jsPubOptions_Init(&pub);
+    pub.MaxWait = 30000;
+    if (natsStatus s = js_PublishAsyncComplete(js, &pub); s != NATS_OK) {
+      return Status::Unavailable("waiting for the acknowledgements of version " +
+                                 std::to_string(version) + ": " + NatsErrorText(s));
+    }
+    if (const int errors = publish_errors.load(); errors > 0) {
+      return Status::Unavailable(std::to_string(errors) + " of the " +
+                                 std::to_string(messages.size()) + " messages of version " +
+                                 std::to_string(version) + " were not stored by JetStream");
+    }
     const double seconds =
         std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
     seconds_gauge->Set(seconds);
     shipped_counter->Increment();
     shipped_total.fetch_add(1);
-    spdlog::info("versions: shipped version {} ({:.1f} MB in {} chunks) in {:.2f} s", version,
-                 bytes.size() / 1e6, messages.size() - 1, seconds);
+    size_t total = 0;
+    for (const std::string& m : messages) total += m.size();
+    spdlog::info(
+        "versions: shipped version {} ({:.1f} MB in {} chunks) in {:.2f} s (read and encode "
+        "{:.2f} s, publish {:.2f} s)",
+        version, total / 1e6, messages.size() - 1, seconds,
+        std::chrono::duration<double>(encoded - start).count(),
+        std::chrono::duration<double>(std::chrono::steady_clock::now() - encoded).count());
     return Status::Ok();
   }
 
@@ -272,6 +299,7 @@ struct VersionShipper::Impl {
   kvStore* kv = nullptr;
   size_t chunk_bytes = 0;
   std::string failing;
+  std::atomic<int> publish_errors{0};
   std::atomic<uint64_t> pointer_put{0};
   std::atomic<uint64_t> shipped_total{0};
   prometheus::Counter* shipped_counter = nullptr;

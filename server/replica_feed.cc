@@ -45,8 +45,8 @@ Status FsyncPath(const fs::path& path, int flags) {
   return Status::Ok();
 }
 
-// Writes `bytes` to `path` durably: a .tmp file, fsync, rename, fsync of the directory.
-Status WriteDurably(const fs::path& path, std::string_view bytes) {
+// Writes `bytes` to `path`.tmp and fsyncs it; the file is removed on error.
+Status WriteTemporary(const fs::path& path, std::string_view bytes) {
   const fs::path tmp = path.string() + ".tmp";
   const int fd = ::open(tmp.c_str(), O_WRONLY | O_CREAT | O_TRUNC | O_CLOEXEC, 0644);
   if (fd < 0) return Errno("cannot create " + tmp.string());
@@ -69,12 +69,24 @@ Status WriteDurably(const fs::path& path, std::string_view bytes) {
     return s;
   }
   ::close(fd);
+  return Status::Ok();
+}
+
+// Moves `path`.tmp (WriteTemporary) into place and fsyncs the directory.
+Status CommitTemporary(const fs::path& path) {
+  const fs::path tmp = path.string() + ".tmp";
   if (::rename(tmp.c_str(), path.c_str()) != 0) {
     Status s = Errno("cannot rename " + tmp.string());
     ::unlink(tmp.c_str());
     return s;
   }
   return FsyncPath(path.parent_path(), O_RDONLY | O_DIRECTORY);
+}
+
+// Writes `bytes` to `path` durably: a .tmp file, fsync, rename, fsync of the directory.
+Status WriteDurably(const fs::path& path, std::string_view bytes) {
+  PLUMB_RETURN_IF_ERROR(WriteTemporary(path, bytes));
+  return CommitTemporary(path);
 }
 
 Status ReadFile(const fs::path& path, std::string* out) {
@@ -306,11 +318,22 @@ struct ReplicaFeed::Impl {
       std::string bytes;
       const auto start = std::chrono::steady_clock::now();
       Status f = Fetch(v, &bytes);
+      const auto fetched = std::chrono::steady_clock::now();
       auto decoded = std::make_shared<replica::VersionBundle>();
+      Status written = Status::Ok();
       if (f.ok()) {
+        // The bytes passed every chunk's and the total CRC: write them (to the .tmp name)
+        // while they are decoded, and move the file into place only if they decode.
+        std::thread writer([&] { written = WriteTemporary(BundlePath(v), bytes); });
         f = replica::DecodeBundle(bytes, decoded.get());
         if (f.ok() && decoded->version != v) {
           f = Status::Corruption("the bundle names version " + std::to_string(decoded->version));
+        }
+        writer.join();
+        if (f.ok() && written.ok()) written = CommitTemporary(BundlePath(v));
+        if (!f.ok() && written.ok()) {
+          std::error_code ec;
+          fs::remove(BundlePath(v).string() + ".tmp", ec);
         }
       }
       if (f.IsNotFound()) {
@@ -325,14 +348,18 @@ struct ReplicaFeed::Impl {
         spdlog::warn("replica: fetching version {}: {}; retrying", v, f.ToString());
         return;
       }
-      if (Status w = WriteDurably(BundlePath(v), bytes); !w.ok()) {
-        spdlog::error("replica: cannot keep version {}: {}", v, w.ToString());
+      if (!written.ok()) {
+        spdlog::error("replica: cannot keep version {}: {}", v, written.ToString());
         return;
       }
       received_counter->Increment();
       received_total.fetch_add(1);
-      spdlog::info("replica: received version {} ({:.1f} MB) in {:.2f} s", v, bytes.size() / 1e6,
-                   std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count());
+      const auto now = std::chrono::steady_clock::now();
+      auto secs = [](auto a, auto b) { return std::chrono::duration<double>(b - a).count(); };
+      spdlog::info(
+          "replica: received version {} ({:.1f} MB) in {:.2f} s (fetch {:.2f} s, then decode "
+          "and write {:.2f} s)",
+          v, bytes.size() / 1e6, secs(start, now), secs(start, fetched), secs(fetched, now));
       std::string().swap(bytes);
       {
         // The catch-up thread builds from this copy rather than reading the file back.

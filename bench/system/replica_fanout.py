@@ -93,6 +93,8 @@ def main():
                      lambda: scrape(metrics).get("plumb_model_version") == small, 60, logs)
 
         t0 = time.time()
+        print("activation called at %s" % time.strftime("%H:%M:%S", time.localtime(t0)) +
+              ".%03d" % int((t0 % 1) * 1000))
         subprocess.run([query, "activate", "--model-version", str(big), "--trainer", train_addr],
                        check=True, capture_output=True)
         served = {}
@@ -113,8 +115,11 @@ def main():
             log = open(os.path.join(tmp, "serve-%s.log" % name)).read()
             for line in log.splitlines():
                 if ("received version %d" % big) in line or ("serving version %d" % big) in line:
-                    print("  %s: %s" % (name, line.split("] ", 2)[-1]))
-        print("train peak %.0f MB" % proc_status(procs[0].pid, "VmHWM"))
+                    print("  %s: %s" % (name, line))
+        for line in open(logs[0]).read().splitlines():
+            if ("shipped version %d" % big) in line or "activ" in line.lower():
+                print("  train: " + line)
+        print("plumb-train peak %.0f MB" % proc_status(procs[0].pid, "VmHWM"))
     finally:
         for p in procs:
             if p.poll() is None:

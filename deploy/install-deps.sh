@@ -13,8 +13,9 @@ PACKAGES=(
   # the metrics address's HTTP server (status pages beside /metrics) and JSON
   libcivetweb-dev nlohmann-json3-dev
   libgtest-dev libgmock-dev libbenchmark-dev
-  # events from NATS JetStream: the C client, and the server the tests and benchmarks run
-  libnats-dev nats-server
+  # NATS JetStream (events in, versions out to replicas): the C client, the server the tests
+  # and benchmarks run, and zlib for the version bundles' CRC-32
+  libnats-dev nats-server zlib1g-dev
   # fuzzing (the Fuzz build type and CI's short fuzz runs): clang with libFuzzer
   clang libfuzzer-14-dev
   # the formatting check of changed lines (deploy/check_format.sh)

@@ -10,9 +10,56 @@ namespace plumb::server {
 CatchUpLoop::CatchUpLoop(store::Store* store, SnapshotHolder* holder, CatchUpOptions options)
     : store_(store), holder_(holder), options_(std::move(options)) {}
 
+CatchUpLoop::CatchUpLoop(VersionFeed* feed, SnapshotHolder* holder, CatchUpOptions options)
+    : store_(nullptr), feed_(feed), holder_(holder), options_(std::move(options)) {}
+
+Status CatchUpLoop::RunFeedOnce() {
+  uint64_t active = 0;
+  PLUMB_RETURN_IF_ERROR(feed_->ActiveVersion(&active));
+  if (active == 0) {
+    failed_version_ = 0;  // a feed that withdrew a version may offer it again, repaired
+    return Status::Ok();
+  }
+  std::shared_ptr<const Snapshot> current = holder_->Get();
+  if (current != nullptr && current->version() == active) return Status::Ok();
+  if (active == failed_version_) return Status::Ok();  // already reported; wait for another
+  const auto start = std::chrono::steady_clock::now();
+  loads_.fetch_add(1, std::memory_order_relaxed);
+  std::shared_ptr<const Snapshot> next;
+  std::vector<std::string> withdrawn;
+  Status s = feed_->Load(active, options_.approx, &next, &withdrawn);
+  const double seconds =
+      std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+  if (!s.ok()) {
+    failed_version_ = active;
+    failed_loads_.fetch_add(1, std::memory_order_relaxed);
+    spdlog::error("version {} failed to load and is skipped ({}); still serving {}", active,
+                  s.ToString(),
+                  current ? "version " + std::to_string(current->version()) : "nothing");
+    if (options_.on_load_failure) options_.on_load_failure(active, s);
+    return s;
+  }
+  failed_version_ = 0;
+  current.reset();
+  // The version's own withdrawn items, mapped to its rows, go in before the snapshot so that
+  // no request sees the new rows with the old set's positions.
+  holder_->SetWithdrawn(
+      std::make_shared<const WithdrawnItems>(std::move(withdrawn), active, next.get()));
+  std::shared_ptr<const Snapshot> previous = holder_->Swap(next);
+  swaps_.fetch_add(1, std::memory_order_relaxed);
+  spdlog::info("serving version {} ({} items, {} users, dim {}, {:.1f} MB) after {:.3f} s{}",
+               next->version(), next->num_items(), next->num_users(), next->dim(),
+               next->memory_bytes() / 1e6, seconds,
+               previous ? "; replaced version " + std::to_string(previous->version()) : "");
+  previous.reset();
+  if (options_.on_swap) options_.on_swap(*next, seconds);
+  return Status::Ok();
+}
+
 CatchUpLoop::~CatchUpLoop() { Stop(); }
 
 Status CatchUpLoop::RunOnce() {
+  if (feed_ != nullptr) return RunFeedOnce();
   Status s = store_->CatchUp();
   if (!s.ok()) {
     // A secondary that cannot catch up keeps serving what it has; log once per new error

@@ -6,6 +6,10 @@
 // that fails to load is logged, counted and not retried until the active version changes
 // again; the old snapshot keeps serving. Every round also follows the store's withdrawn items
 // (a small read; the list itself only when it changed) into the holder.
+//
+// With a VersionFeed instead of a store (plumb-serve --replica-of), a round asks the feed for
+// the version to serve and loads it from the feed; the withdrawn items are those that came
+// with the version. Counters and failure handling are the same.
 #pragma once
 
 #include <atomic>
@@ -19,6 +23,7 @@
 
 #include "core/status.h"
 #include "server/snapshot_holder.h"
+#include "server/version_feed.h"
 
 namespace plumb::store {
 class Store;
@@ -47,6 +52,8 @@ class CatchUpLoop {
  public:
   // `store` and `holder` are borrowed and must outlive the loop.
   CatchUpLoop(store::Store* store, SnapshotHolder* holder, CatchUpOptions options);
+  // Follows `feed` (borrowed, must outlive the loop) instead of a store.
+  CatchUpLoop(VersionFeed* feed, SnapshotHolder* holder, CatchUpOptions options);
   CatchUpLoop(const CatchUpLoop&) = delete;
   CatchUpLoop& operator=(const CatchUpLoop&) = delete;
   // Stops the thread if it runs.
@@ -77,11 +84,14 @@ class CatchUpLoop {
 
  private:
   void Run();
+  // RunOnce with a feed.
+  Status RunFeedOnce();
   // Rebuilds the holder's withdrawn set when the store's generation moved, or (swapped) for
   // the snapshot just swapped in.
   Status RefreshWithdrawn(bool swapped);
 
   store::Store* const store_;
+  VersionFeed* const feed_ = nullptr;
   SnapshotHolder* const holder_;
   const CatchUpOptions options_;
 

@@ -23,6 +23,7 @@
 #include "server/exposure_window.h"
 #include "server/ranker_service.h"
 #include "server/ranking_server.h"
+#include "server/replica_feed.h"
 #include "server/scorer.h"
 #include "server/serve_config.h"
 #include "server/serving_metrics.h"
@@ -68,6 +69,23 @@ class ScratchDir {
   bool owned_ = false;
 };
 
+// The replica feed's options from the configuration (replica_* keys).
+ReplicaOptions ReplicaOptionsFrom(const ServeConfig& config) {
+  ReplicaOptions o;
+  o.access.servers = plumb::replica::SplitServers(config.replica_of);
+  o.access.token_file = config.replica_token_file;
+  o.access.credentials_file = config.replica_credentials_file;
+  o.access.tls_ca = config.replica_tls_ca;
+  o.access.tls_cert = config.replica_tls_cert;
+  o.access.tls_key = config.replica_tls_key;
+  o.stream = config.replica_stream;
+  o.subject_prefix = config.replica_subject;
+  o.bucket = config.replica_bucket;
+  o.dir = config.db;
+  o.interval = std::chrono::milliseconds(config.catchup_interval_ms);
+  return o;
+}
+
 int Serve(const ServeConfig& config, const sigset_t& signals) {
   // Both addresses are checked before the store is opened and a snapshot loaded (seconds on
   // a large catalogue): a port held by another process is reported at once.
@@ -86,7 +104,17 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
     return 1;
   }
   std::unique_ptr<plumb::store::Store> store;
-  s = plumb::store::Store::OpenSecondary(config.db, scratch.path(), &store);
+  std::unique_ptr<ReplicaFeed> feed;
+  if (!config.replica_of.empty()) {
+    feed = std::make_unique<ReplicaFeed>(ReplicaOptionsFrom(config));
+    s = feed->Open();
+    if (!s.ok()) {
+      spdlog::critical("cannot serve as a replica: {}", s.ToString());
+      return s.code() == plumb::Status::Code::kInvalidArgument ? 2 : 1;
+    }
+  } else {
+    s = plumb::store::Store::OpenSecondary(config.db, scratch.path(), &store);
+  }
   if (!s.ok()) {
     spdlog::critical("cannot open store '{}' as a secondary: {}", config.db, s.ToString());
     return 1;
@@ -126,7 +154,8 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   follow.on_swap = [&endpoint](const Snapshot&, double) {
     if (RankingServer* server = endpoint.load()) server->SetServing(true);
   };
-  CatchUpLoop loop(store.get(), &holder, follow);
+  CatchUpLoop loop =
+      feed ? CatchUpLoop(feed.get(), &holder, follow) : CatchUpLoop(store.get(), &holder, follow);
   // Load what is on disk before listening, so that a restarted server is ready at once
   // even if no trainer runs.
   s = loop.RunOnce();
@@ -157,6 +186,7 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
     http = std::make_unique<plumb::status::StatusEndpoint>();
     http->RegisterCollectable(metrics);
     if (config.exposure_monitor) http->RegisterCollectable(exposure_metrics);
+    if (feed) http->RegisterCollectable(feed->registry());
     http->RegisterPage("/", [&status_page] {
       return plumb::status::HttpReply{200, "text/html; charset=utf-8", status_page.Html(NowMs())};
     });
@@ -197,6 +227,10 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   endpoint.store(server.get());
   server->SetServing(holder.Get() != nullptr);
   loop.Start(config.background_nice);
+  if (feed) {
+    feed->Start();
+    spdlog::info("replica of {}", feed->Describe());
+  }
   spdlog::info(
       "plumb-serve listening on port {} ({}{}{}), metrics on {}; {} calls score at once, {} more "
       "wait, {} threads",
@@ -209,6 +243,7 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   spdlog::info("received {}; finishing in-flight calls (up to {} ms) and stopping",
                signal_number == SIGTERM ? "SIGTERM" : "SIGINT", config.shutdown_grace_ms);
   server->Shutdown(std::chrono::milliseconds(config.shutdown_grace_ms));
+  if (feed) feed->Stop();
   loop.Stop();
   endpoint.store(nullptr);
   status_sampler.reset();

@@ -58,6 +58,15 @@ struct ServeConfig {
   ApproxServingOptions approx = DefaultApproxServing();
   // Niceness of the catch-up thread (snapshot and index builds); 0: the process's.
   int background_nice = 10;
+  // A remote replica (--replica-of, server/replica_feed.h): versions come from these NATS
+  // servers' version stream and --db is a local directory of this replica's own. Empty:
+  // follow the store at --db (a RocksDB secondary on the trainer's disk).
+  std::string replica_of;  // comma-separated nats://HOST:PORT (tls://... for TLS)
+  std::string replica_token_file, replica_credentials_file;
+  std::string replica_tls_ca, replica_tls_cert, replica_tls_key;
+  std::string replica_stream = "PLUMB_VERSIONS";
+  std::string replica_subject = "plumb.versions";
+  std::string replica_bucket = "PLUMB_POINTER";
 };
 
 // Parses argv (and the --config file it names) into *config.

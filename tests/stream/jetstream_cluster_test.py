@@ -186,6 +186,7 @@ def check_metrics_documented(metrics, logs):
     served = set(re.findall(r"^# TYPE (plumb_jetstream_[a-z0-9_]+) ", text, re.M))
     doc = open(os.path.join(os.path.dirname(__file__), "../../docs/operators.md")).read()
     section = doc.split("### plumb-train with a JetStream source", 1)[1].split("\n## ", 1)[0]
+    section = section.split("\n### ", 1)[0]
     documented = set(re.findall(r"^\| `(plumb_[a-z0-9_]+)", section, re.M))
     if served != documented:
         fail("JetStream metrics exported %s, documented %s" % (sorted(served),

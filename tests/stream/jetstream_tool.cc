@@ -21,6 +21,19 @@
 //       opens the store read-only (a secondary) and checks that each of the COUNT published
 //       events is in the log exactly once, under the id the trainer gives it. Prints what it
 //       found; exit 1 on a missing or repeated event.
+//   jetstream_tool bad-version SERVERS STREAM SUBJECT_PREFIX BUCKET VERSION DAMAGE
+//       publishes a small, valid version bundle (3 items, 2 users, dim 4) as VERSION on
+//       SUBJECT_PREFIX.VERSION of STREAM, damaged as DAMAGE says, then puts VERSION into
+//       BUCKET's key `active` (what plumb-train's version shipper does for a good one):
+//         chunk-crc   one payload byte of the second chunk changed (its CRC-32 no longer
+//                     matches)
+//         truncated   the last chunk left out (the trailer counts it)
+//         no-trailer  every chunk, no trailer
+//   jetstream_tool make-version DB ITEMS USERS DIM INTERACTIONS
+//       creates a store at DB (bench/system/replica_fanout.py) with ITEMS tools and USERS
+//       members, INTERACTIONS random pairs, and two versions: version 1 (the first 10 tools
+//       and members, active) and version 2 (all of them, DIM, values uniform in [-0.5, 0.5),
+//       not active). Prints both version numbers.
 #include <nats/nats.h>
 
 #include <atomic>
@@ -32,17 +45,20 @@
 #include <map>
 #include <memory>
 #include <mutex>
+#include <random>
 #include <set>
 #include <string>
 #include <thread>
 #include <vector>
 
 #include "plumb/v1/ingest.pb.h"
+#include "replica/version_bundle.h"
 #include "store/store.h"
 
 namespace {
 
 using Clock = std::chrono::steady_clock;
+using plumb::Status;
 
 std::vector<std::string> Split(const std::string& text) {
   std::vector<std::string> out;
@@ -363,6 +379,101 @@ int Verify(const std::string& db, const std::string& prefix, uint64_t count, uin
 
 }  // namespace
 
+int BadVersion(const std::string& servers, const std::string& stream, const std::string& prefix,
+               const std::string& bucket, uint64_t version, const std::string& damage) {
+  plumb::replica::VersionBundle b;
+  b.version = version;
+  b.dim = 4;
+  b.objective = "cpr";
+  if (!plumb::ItemMatrix::Create(3, 4, &b.items).ok() ||
+      !plumb::ItemMatrix::Create(2, 4, &b.users).ok()) {
+    Die("allocation");
+  }
+  for (size_t k = 0; k < 12; ++k) b.items.data()[k] = 0.25f * static_cast<float>(k);
+  for (size_t k = 0; k < 8; ++k) b.users.data()[k] = 1.0f - 0.125f * static_cast<float>(k);
+  b.item_degrees = {3, 2, 1};
+  b.item_ids = {"t1", "t2", "t3"};
+  b.user_ids = {"u1", "u2"};
+  b.seen_offsets = {0, 1, 1};
+  b.seen_items = {2};
+  std::string bytes;
+  if (!plumb::replica::EncodeBundle(b, &bytes).ok()) Die("encode");
+  std::vector<std::string> messages = plumb::replica::CutIntoChunks(version, bytes, 64);
+  if (damage == "chunk-crc") {
+    messages[1][plumb::replica::kChunkHeaderBytes + 3] ^= 0x20;
+  } else if (damage == "truncated") {
+    messages.erase(messages.end() - 2);
+  } else if (damage == "no-trailer") {
+    messages.pop_back();
+  } else {
+    Die("unknown damage " + damage);
+  }
+  Connection c(servers);
+  const std::string subject = prefix + "." + std::to_string(version);
+  for (const std::string& m : messages) {
+    jsPubAck* ack = nullptr;
+    jsErrCode jerr = static_cast<jsErrCode>(0);
+    natsStatus s = js_Publish(&ack, c.js, subject.c_str(), m.data(), static_cast<int>(m.size()),
+                              nullptr, &jerr);
+    jsPubAck_Destroy(ack);
+    if (s != NATS_OK) Die("publish to " + subject + " of " + stream, s);
+  }
+  kvStore* kv = nullptr;
+  natsStatus s = js_KeyValue(&kv, c.js, bucket.c_str());
+  if (s != NATS_OK) Die("bucket " + bucket, s);
+  uint64_t revision = 0;
+  s = kvStore_PutString(&revision, kv, "active", std::to_string(version).c_str());
+  kvStore_Destroy(kv);
+  if (s != NATS_OK) Die("put the pointer", s);
+  std::printf("published version %llu (%s, %zu messages) and pointed at it\n",
+              static_cast<unsigned long long>(version), damage.c_str(), messages.size());
+  return 0;
+}
+
+int MakeVersion(const std::string& db, uint32_t items, uint32_t users, uint32_t dim,
+                uint64_t interactions) {
+  plumb::store::StoreOptions options;
+  options.create_if_missing = true;
+  options.sync = false;
+  std::unique_ptr<plumb::store::Store> store;
+  if (!plumb::store::Store::OpenPrimary(db, options, &store).ok()) Die("open " + db);
+  std::mt19937_64 rng(17);
+  {
+    plumb::store::StateChange ids;
+    for (uint32_t i = 0; i < items; ++i) ids.new_items.emplace_back(i, "t" + std::to_string(i));
+    for (uint32_t u = 0; u < users; ++u) ids.new_users.emplace_back(u, "u" + std::to_string(u));
+    std::uniform_int_distribution<uint32_t> item(0, items - 1), user(0, users - 1);
+    for (uint64_t k = 0; k < interactions; ++k)
+      ids.new_interactions.emplace_back(user(rng), item(rng));
+    if (Status s = store->Commit(ids); !s.ok()) Die("ids: " + s.ToString());
+  }
+  uint64_t numbers[2] = {0, 0};
+  for (int v = 0; v < 2; ++v) {
+    const uint32_t n_items = v == 0 ? 10 : items, n_users = v == 0 ? 10 : users;
+    std::uniform_real_distribution<float> value(-0.5f, 0.5f);
+    std::vector<float> item_values(size_t{n_items} * dim), user_values(size_t{n_users} * dim);
+    for (float& x : item_values) x = value(rng);
+    for (float& x : user_values) x = value(rng);
+    std::vector<uint32_t> degrees(n_items);
+    for (uint32_t i = 0; i < n_items; ++i) degrees[i] = static_cast<uint32_t>(rng() % 50);
+    plumb::store::VersionWrite write;
+    write.manifest.objective = "cpr";
+    write.manifest.num_items = n_items;
+    write.manifest.num_users = n_users;
+    write.manifest.dim = dim;
+    write.users = {user_values.data(), n_users, dim};
+    write.items = {item_values.data(), n_items, dim};
+    write.item_degrees = degrees;
+    plumb::store::StateChange change;
+    change.version = &write;
+    change.activate_published = v == 0;
+    if (Status s = store->Commit(change, &numbers[v]); !s.ok()) Die("version: " + s.ToString());
+  }
+  std::printf("versions %llu %llu\n", static_cast<unsigned long long>(numbers[0]),
+              static_cast<unsigned long long>(numbers[1]));
+  return 0;
+}
+
 int main(int argc, char** argv) {
   const std::vector<std::string> a(argv, argv + argc);
   if (argc == 6 && a[1] == "create-stream") return CreateStream(a[2], a[3], a[4], std::stoi(a[5]));
@@ -372,6 +483,14 @@ int main(int argc, char** argv) {
   }
   if (argc == 6 && a[1] == "hostile") {
     return Hostile(a[2], a[3], std::stoull(a[4]), std::stoull(a[5]));
+  }
+  if (argc == 8 && a[1] == "bad-version") {
+    return BadVersion(a[2], a[3], a[4], a[5], std::stoull(a[6]), a[7]);
+  }
+  if (argc == 7 && a[1] == "make-version") {
+    return MakeVersion(a[2], static_cast<uint32_t>(std::stoul(a[3])),
+                       static_cast<uint32_t>(std::stoul(a[4])),
+                       static_cast<uint32_t>(std::stoul(a[5])), std::stoull(a[6]));
   }
   if (argc == 6 && a[1] == "verify")
     return Verify(a[2], a[3], std::stoull(a[4]), std::stoull(a[5]));

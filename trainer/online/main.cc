@@ -21,6 +21,7 @@
 #include <thread>
 
 #include "core/clock.h"
+#include "replica/version_shipper.h"
 #include "rpc/listen_probe.h"
 #include "status/http_endpoint.h"
 #include "status/periodic_task.h"
@@ -100,6 +101,23 @@ JetStreamOptions JetStreamOptionsFrom(const TrainConfig& config, const IngestLim
   o.max_future_skew_ms = limits.max_future_skew_ms;
   // Checked when the configuration was read, so it cannot fail here.
   plumb::ParseDuration(config.jetstream_ack_wait, &o.ack_wait_ms).IgnoreError();
+  return o;
+}
+
+// The version shipper's options from the configuration (jetstream_* keys).
+plumb::replica::VersionShipOptions VersionShipOptionsFrom(const TrainConfig& config) {
+  plumb::replica::VersionShipOptions o;
+  o.access.servers = plumb::replica::SplitServers(config.jetstream_servers);
+  o.access.token_file = config.jetstream_token_file;
+  o.access.credentials_file = config.jetstream_credentials_file;
+  o.access.tls_ca = config.jetstream_tls_ca;
+  o.access.tls_cert = config.jetstream_tls_cert;
+  o.access.tls_key = config.jetstream_tls_key;
+  o.stream = config.jetstream_versions_stream;
+  o.subject_prefix = config.jetstream_versions_subject;
+  o.bucket = config.jetstream_pointer_bucket;
+  o.replicas = static_cast<int>(std::max<uint32_t>(1, config.jetstream_create_replicas));
+  o.keep_versions = config.jetstream_keep_versions;
   return o;
 }
 
@@ -221,7 +239,7 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
     return 2;
   }
   std::unique_ptr<EventSource> jetstream;
-  if (!config.jetstream_servers.empty()) {
+  if (!config.jetstream_servers.empty() && config.jetstream_events) {
     jetstream = std::make_unique<JetStreamSource>(JetStreamOptionsFrom(config, limits), &committer,
                                                   &metrics);
     if (Status s = jetstream->Start(); !s.ok()) {
@@ -234,8 +252,25 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
     spdlog::info("events also from {}", jetstream->Describe());
   }
 
+  // Versions to remote serving replicas: a watcher of the active version of its own.
+  std::unique_ptr<plumb::replica::VersionShipper> shipper;
+  if (config.jetstream_versions) {
+    shipper = std::make_unique<plumb::replica::VersionShipper>(
+        store.get(), VersionShipOptionsFrom(config), metrics.registry().get());
+    if (Status s = shipper->Start(); !s.ok()) {
+      spdlog::critical("{}", s.message());
+      if (jetstream) jetstream->Stop();
+      committer.Close();
+      retention.Stop();
+      loop->Stop();
+      return 2;
+    }
+    spdlog::info("versions shipped to {}", shipper->Describe());
+  }
+
   if (Status s = server->Start(&committer, &metrics, limits, store.get(), loop.get()); !s.ok()) {
     spdlog::critical("cannot listen on {}: {}", config.listen, s.message());
+    if (shipper) shipper->Stop();
     if (jetstream) jetstream->Stop();
     committer.Close();
     retention.Stop();
@@ -273,6 +308,7 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
   server->Shutdown(std::chrono::milliseconds(std::llround(config.shutdown_grace_seconds * 1e3)));
   server.reset();                    // its services borrow the committer, the store and the loop
   if (jetstream) jetstream->Stop();  // acks what it handed to the committer
+  if (shipper) shipper->Stop();
   committer.Close();
   retention.Stop();
   status_sampler.reset();

@@ -102,6 +102,16 @@ Status CheckTrainConfig(const TrainConfig& c) {
       return bad("jetstream_ack_wait must be a duration of at least 1s");
     }
   }
+  if (c.jetstream_versions) {
+    if (c.jetstream_servers.empty()) return bad("jetstream_versions needs jetstream_servers");
+    if (c.jetstream_versions_stream.empty() || c.jetstream_versions_subject.empty() ||
+        c.jetstream_pointer_bucket.empty()) {
+      return bad(
+          "jetstream_versions_stream, jetstream_versions_subject and jetstream_pointer_bucket "
+          "must not be empty");
+    }
+    if (c.jetstream_keep_versions < 1) return bad("jetstream_keep_versions must be at least 1");
+  }
   if (c.status_history_step_ms < 1000 || c.status_history_step_ms > 3'600'000) {
     return bad("status_history_step must be within [1s, 1h]");
   }
@@ -237,6 +247,18 @@ std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConf
             "The consumer's ack wait: an unacknowledged message is redelivered after this long"},
            {"jetstream_create_replicas", &c.jetstream_create_replicas,
             "Create the stream when missing, with this many replicas (0 = it must exist)"},
+           {"jetstream_events", &c.jetstream_events,
+            "Consume the event stream (--no-jetstream-events: the servers only take versions)"},
+           {"jetstream_versions", &c.jetstream_versions,
+            "Ship every activated version to the version stream and point the replicas at it"},
+           {"jetstream_versions_stream", &c.jetstream_versions_stream,
+            "The stream of versions (created when missing)"},
+           {"jetstream_versions_subject", &c.jetstream_versions_subject,
+            "Version N is published on <this>.N"},
+           {"jetstream_pointer_bucket", &c.jetstream_pointer_bucket,
+            "Key-value bucket whose key 'active' names the version replicas serve"},
+           {"jetstream_keep_versions", &c.jetstream_keep_versions,
+            "Versions kept in the version stream; older ones are purged (never the active one)"},
        }},
       {"Training",
        {

@@ -56,6 +56,13 @@ struct TrainConfig {
   uint64_t jetstream_max_message_bytes = 1 << 20;
   std::string jetstream_ack_wait = "30s";
   uint32_t jetstream_create_replicas = 0;  // > 0: create a missing stream with these replicas
+  // Versions to remote serving replicas (replica/version_shipper.h), over the same servers.
+  bool jetstream_events = true;     // consume the event stream (off: only ship versions)
+  bool jetstream_versions = false;  // ship each activated version and move the pointer
+  std::string jetstream_versions_stream = "PLUMB_VERSIONS";
+  std::string jetstream_versions_subject = "plumb.versions";  // version N on <subject>.N
+  std::string jetstream_pointer_bucket = "PLUMB_POINTER";
+  uint32_t jetstream_keep_versions = 10;  // versions kept in the stream
 
   // The training loop. Its publish_every_seconds is set from publish_interval.
   OnlineOptions online;

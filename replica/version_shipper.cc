@@ -1,0 +1,352 @@
+#include "replica/version_shipper.h"
+
+#include <nats/nats.h>
+#include <prometheus/counter.h>
+#include <prometheus/gauge.h>
+#include <prometheus/registry.h>
+#include <spdlog/spdlog.h>
+
+#include <algorithm>
+#include <charconv>
+#include <condition_variable>
+#include <mutex>
+#include <thread>
+#include <vector>
+
+#include "replica/version_bundle.h"
+#include "store/store.h"
+
+namespace plumb::replica {
+
+struct VersionShipper::Impl {
+  Impl(const store::Store* s, VersionShipOptions o, prometheus::Registry* registry)
+      : store(s), options(std::move(o)) {
+    shipped_counter = &prometheus::BuildCounter()
+                           .Name("plumb_versions_shipped_total")
+                           .Help("Versions published whole to the JetStream version stream")
+                           .Register(*registry)
+                           .Add({});
+    failure_counter = &prometheus::BuildCounter()
+                           .Name("plumb_version_ship_failures_total")
+                           .Help(
+                               "Rounds in which shipping a version or moving the pointer "
+                               "failed (retried next round)")
+                           .Register(*registry)
+                           .Add({});
+    pointer_gauge = &prometheus::BuildGauge()
+                         .Name("plumb_version_pointer")
+                         .Help("The version the replicas' pointer names (0: not put yet)")
+                         .Register(*registry)
+                         .Add({});
+    seconds_gauge = &prometheus::BuildGauge()
+                         .Name("plumb_version_ship_seconds")
+                         .Help("Seconds the last version took to read, encode and publish")
+                         .Register(*registry)
+                         .Add({});
+  }
+
+  std::string Subject(uint64_t version) const {
+    return options.subject_prefix + "." + std::to_string(version);
+  }
+
+  bool Connect() {
+    natsStatus s = natsConnection_Connect(&nc, nats_options);
+    if (s != NATS_OK) return Failed("cannot connect", NatsErrorText(s));
+    // Chunks are published asynchronously, a few in flight, and the ship waits for every
+    // acknowledgement (js_PublishAsyncComplete); a refused one is counted here.
+    jsOptions jo;
+    jsOptions_Init(&jo);
+    jo.PublishAsync.MaxPending = kChunksInFlight;
+    jo.PublishAsync.ErrHandler = &Impl::OnPublishError;
+    jo.PublishAsync.ErrHandlerClosure = &publish_errors;
+    if ((s = natsConnection_JetStream(&js, nc, &jo)) != NATS_OK) {
+      return Failed("no JetStream context", NatsErrorText(s));
+    }
+    jsErrCode jerr = static_cast<jsErrCode>(0);
+    jsStreamInfo* info = nullptr;
+    s = js_GetStreamInfo(&info, js, options.stream.c_str(), nullptr, &jerr);
+    if (s == NATS_NOT_FOUND) {
+      jsStreamConfig config;
+      jsStreamConfig_Init(&config);
+      const std::string subjects = options.subject_prefix + ".>";
+      const char* list[] = {subjects.c_str()};
+      config.Name = options.stream.c_str();
+      config.Subjects = list;
+      config.SubjectsLen = 1;
+      config.Storage = js_FileStorage;
+      config.Replicas = options.replicas;
+      s = js_AddStream(&info, js, &config, nullptr, &jerr);
+      if (s == NATS_OK) spdlog::info("versions: created stream {} ({})", options.stream, subjects);
+    }
+    if (s != NATS_OK) {
+      return Failed("cannot find or create stream " + options.stream,
+                    NatsErrorText(s) + " [JetStream error " + std::to_string(jerr) + "]");
+    }
+    jsStreamInfo_Destroy(info);
+    s = js_KeyValue(&kv, js, options.bucket.c_str());
+    if (s == NATS_NOT_FOUND) {
+      kvConfig config;
+      kvConfig_Init(&config);
+      config.Bucket = options.bucket.c_str();
+      config.History = 10;
+      config.StorageType = js_FileStorage;
+      config.Replicas = options.replicas;
+      s = js_CreateKeyValue(&kv, js, &config);
+      if (s == NATS_OK) spdlog::info("versions: created key-value bucket {}", options.bucket);
+    }
+    if (s != NATS_OK) {
+      return Failed("cannot find or create bucket " + options.bucket, NatsErrorText(s));
+    }
+    const int64_t max_payload = natsConnection_GetMaxPayload(nc);
+    chunk_bytes =
+        static_cast<size_t>(std::max<int64_t>(1024, max_payload - 1024)) - kChunkHeaderBytes;
+    if (options.max_chunk_bytes > 0) chunk_bytes = std::min(chunk_bytes, options.max_chunk_bytes);
+    char url[256] = {0};
+    natsConnection_GetConnectedUrl(nc, url, sizeof url);
+    spdlog::info("versions: shipping to stream {} and bucket {} via {} ({} bytes a chunk)",
+                 options.stream, options.bucket, url, chunk_bytes);
+    failing.clear();
+    return true;
+  }
+
+  static constexpr int kChunksInFlight = 16;
+  static void OnPublishError(jsCtx*, jsPubAckErr*, void* closure) {
+    static_cast<std::atomic<int>*>(closure)->fetch_add(1);
+  }
+
+  bool Failed(const std::string& what, const std::string& why) {
+    const std::string text = what + ": " + why;
+    if (text != failing) spdlog::warn("versions: {}; retrying", text);
+    failing = text;
+    failure_counter->Increment();
+    Disconnect();
+    return false;
+  }
+
+  void Disconnect() {
+    if (kv != nullptr) kvStore_Destroy(kv);
+    kv = nullptr;
+    if (js != nullptr) jsCtx_Destroy(js);
+    js = nullptr;
+    if (nc != nullptr) {
+      natsConnection_Close(nc);
+      natsConnection_Destroy(nc);
+    }
+    nc = nullptr;
+  }
+
+  // Whether the stream holds all of `version`: its subject's last message is its trailer.
+  // *partial is set when the subject holds something else (an interrupted ship).
+  Status InStream(uint64_t version, bool* whole, bool* partial) {
+    *whole = *partial = false;
+    natsMsg* last = nullptr;
+    jsErrCode jerr = static_cast<jsErrCode>(0);
+    natsStatus s =
+        js_GetLastMsg(&last, js, options.stream.c_str(), Subject(version).c_str(), nullptr, &jerr);
+    if (s == NATS_NOT_FOUND) return Status::Ok();
+    if (s != NATS_OK) return Status::Unavailable("reading the stream: " + NatsErrorText(s));
+    const std::string_view data(natsMsg_GetData(last), natsMsg_GetDataLength(last));
+    Trailer t;
+    *whole = ParseTrailer(data, &t).ok() && t.version == version;
+    *partial = !*whole;
+    natsMsg_Destroy(last);
+    return Status::Ok();
+  }
+
+  Status Purge(const std::string& subject) {
+    jsOptions o;
+    jsOptions_Init(&o);
+    o.Stream.Purge.Subject = subject.c_str();
+    jsErrCode jerr = static_cast<jsErrCode>(0);
+    natsStatus s = js_PurgeStream(js, options.stream.c_str(), &o, &jerr);
+    if (s != NATS_OK) return Status::Unavailable("purging " + subject + ": " + NatsErrorText(s));
+    return Status::Ok();
+  }
+
+  Status Ship(uint64_t version) {
+    bool whole = false, partial = false;
+    PLUMB_RETURN_IF_ERROR(InStream(version, &whole, &partial));
+    if (whole) {
+      spdlog::info("versions: version {} is already in stream {}", version, options.stream);
+      return Status::Ok();
+    }
+    if (partial) PLUMB_RETURN_IF_ERROR(Purge(Subject(version)));
+    const auto start = std::chrono::steady_clock::now();
+    std::string bytes;
+    {
+      VersionBundle bundle;
+      PLUMB_RETURN_IF_ERROR(ReadVersionBundle(*store, version, &bundle));
+      PLUMB_RETURN_IF_ERROR(EncodeBundle(bundle, &bytes));
+    }
+    const auto encoded = std::chrono::steady_clock::now();
+    const std::vector<std::string> messages = CutIntoChunks(version, bytes, chunk_bytes);
+    std::string().swap(bytes);
+    const std::string subject = Subject(version);
+    publish_errors.store(0);
+    for (size_t i = 0; i < messages.size(); ++i) {
+      natsStatus s = js_PublishAsync(js, subject.c_str(), messages[i].data(),
+                                     static_cast<int>(messages[i].size()), nullptr);
+      if (s != NATS_OK) {
+        return Status::Unavailable("publishing message " + std::to_string(i + 1) + " of " +
+                                   std::to_string(messages.size()) + " of version " +
+                                   std::to_string(version) + ": " + NatsErrorText(s));
+      }
+    }
+    jsPubOptions pub;
+    jsPubOptions_Init(&pub);
+    pub.MaxWait = 30000;
+    if (natsStatus s = js_PublishAsyncComplete(js, &pub); s != NATS_OK) {
+      return Status::Unavailable("waiting for the acknowledgements of version " +
+                                 std::to_string(version) + ": " + NatsErrorText(s));
+    }
+    if (const int errors = publish_errors.load(); errors > 0) {
+      return Status::Unavailable(std::to_string(errors) + " of the " +
+                                 std::to_string(messages.size()) + " messages of version " +
+                                 std::to_string(version) + " were not stored by JetStream");
+    }
+    const double seconds =
+        std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+    seconds_gauge->Set(seconds);
+    shipped_counter->Increment();
+    shipped_total.fetch_add(1);
+    size_t total = 0;
+    for (const std::string& m : messages) total += m.size();
+    spdlog::info(
+        "versions: shipped version {} ({:.1f} MB in {} chunks) in {:.2f} s (read and encode "
+        "{:.2f} s, publish {:.2f} s)",
+        version, total / 1e6, messages.size() - 1, seconds,
+        std::chrono::duration<double>(encoded - start).count(),
+        std::chrono::duration<double>(std::chrono::steady_clock::now() - encoded).count());
+    return Status::Ok();
+  }
+
+  // Drops the stream's versions beyond the newest keep_versions, never `active`.
+  void Prune(uint64_t active) {
+    jsOptions o;
+    jsOptions_Init(&o);
+    const std::string filter = options.subject_prefix + ".>";
+    o.Stream.Info.SubjectsFilter = filter.c_str();
+    jsStreamInfo* info = nullptr;
+    jsErrCode jerr = static_cast<jsErrCode>(0);
+    if (js_GetStreamInfo(&info, js, options.stream.c_str(), &o, &jerr) != NATS_OK) return;
+    std::vector<uint64_t> versions;
+    if (info->State.Subjects != nullptr) {
+      for (int i = 0; i < info->State.Subjects->Count; ++i) {
+        const std::string_view subject = info->State.Subjects->List[i].Subject;
+        const std::string_view number = subject.substr(options.subject_prefix.size() + 1);
+        uint64_t v = 0;
+        if (std::from_chars(number.data(), number.data() + number.size(), v).ec == std::errc()) {
+          versions.push_back(v);
+        }
+      }
+    }
+    jsStreamInfo_Destroy(info);
+    std::sort(versions.rbegin(), versions.rend());
+    for (size_t i = options.keep_versions; i < versions.size(); ++i) {
+      if (versions[i] == active) continue;
+      if (Purge(Subject(versions[i])).ok()) {
+        spdlog::info("versions: purged version {} from stream {} (keeping the newest {})",
+                     versions[i], options.stream, options.keep_versions);
+      }
+    }
+  }
+
+  void Round() {
+    if (nc == nullptr && !Connect()) return;
+    uint64_t active = 0;
+    if (Status s = store->GetActiveVersion(&active); !s.ok()) {
+      spdlog::warn("versions: cannot read the active version: {}", s.ToString());
+      return;
+    }
+    if (active == 0 || active == pointer_put.load()) return;
+    Status s = Ship(active);
+    if (s.ok()) {
+      uint64_t revision = 0;
+      const natsStatus put =
+          kvStore_PutString(&revision, kv, "active", std::to_string(active).c_str());
+      if (put != NATS_OK) {
+        s = Status::Unavailable("putting the pointer: " + NatsErrorText(put));
+      }
+    }
+    if (!s.ok()) {
+      Failed("version " + std::to_string(active), s.ToString());
+      return;
+    }
+    spdlog::info("versions: the pointer names version {}", active);
+    pointer_put.store(active);
+    pointer_gauge->Set(static_cast<double>(active));
+    failing.clear();
+    Prune(active);
+  }
+
+  void Run() {
+    std::unique_lock<std::mutex> lock(mu);
+    while (!stopping) {
+      lock.unlock();
+      Round();
+      lock.lock();
+      wake.wait_for(lock, options.interval, [this] { return stopping; });
+    }
+    lock.unlock();
+    Disconnect();
+  }
+
+  const store::Store* const store;
+  const VersionShipOptions options;
+  natsOptions* nats_options = nullptr;
+  natsConnection* nc = nullptr;
+  jsCtx* js = nullptr;
+  kvStore* kv = nullptr;
+  size_t chunk_bytes = 0;
+  std::string failing;
+  std::atomic<int> publish_errors{0};
+  std::atomic<uint64_t> pointer_put{0};
+  std::atomic<uint64_t> shipped_total{0};
+  prometheus::Counter* shipped_counter = nullptr;
+  prometheus::Counter* failure_counter = nullptr;
+  prometheus::Gauge* pointer_gauge = nullptr;
+  prometheus::Gauge* seconds_gauge = nullptr;
+  std::mutex mu;
+  std::condition_variable wake;
+  bool stopping = false;
+  std::thread thread;
+};
+
+VersionShipper::VersionShipper(const store::Store* store, VersionShipOptions options,
+                               prometheus::Registry* registry)
+    : impl_(std::make_unique<Impl>(store, std::move(options), registry)) {}
+
+VersionShipper::~VersionShipper() {
+  Stop();
+  if (impl_->nats_options != nullptr) natsOptions_Destroy(impl_->nats_options);
+}
+
+Status VersionShipper::Start() {
+  if (impl_->options.stream.empty() || impl_->options.subject_prefix.empty() ||
+      impl_->options.bucket.empty()) {
+    return Status::InvalidArgument("versions: stream, subject prefix and bucket must be named");
+  }
+  PLUMB_RETURN_IF_ERROR(
+      MakeNatsOptions(impl_->options.access, "plumb-train versions", &impl_->nats_options));
+  impl_->thread = std::thread([this] { impl_->Run(); });
+  return Status::Ok();
+}
+
+void VersionShipper::Stop() {
+  {
+    std::lock_guard<std::mutex> lock(impl_->mu);
+    impl_->stopping = true;
+  }
+  impl_->wake.notify_all();
+  if (impl_->thread.joinable()) impl_->thread.join();
+}
+
+std::string VersionShipper::Describe() const {
+  return "stream " + impl_->options.stream + " (" + impl_->options.subject_prefix +
+         ".<version>), pointer in bucket " + impl_->options.bucket;
+}
+
+uint64_t VersionShipper::shipped() const { return impl_->shipped_total.load(); }
+uint64_t VersionShipper::pointer() const { return impl_->pointer_put.load(); }
+
+}  // namespace plumb::replica

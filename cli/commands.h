@@ -130,5 +130,4 @@ Status RunForget(const AdminArgs& args);
 Status RunExport(const AdminArgs& args);
 Status RunTop(const TopArgs& args);
 
-
 }  // namespace plumb::cli

@@ -13,6 +13,16 @@ CatchUpLoop::CatchUpLoop(store::Store* store, SnapshotHolder* holder, CatchUpOpt
 CatchUpLoop::CatchUpLoop(VersionFeed* feed, SnapshotHolder* holder, CatchUpOptions options)
     : store_(nullptr), feed_(feed), holder_(holder), options_(std::move(options)) {}
 
+Status CatchUpLoop::SkipFailedLoad(uint64_t active, const Snapshot* current, const Status& s) {
+  failed_version_ = active;
+  failed_loads_.fetch_add(1, std::memory_order_relaxed);
+  spdlog::error("version {} failed to load and is skipped ({}); still serving {}", active,
+                s.ToString(),
+                current ? "version " + std::to_string(current->version()) : "nothing");
+  if (options_.on_load_failure) options_.on_load_failure(active, s);
+  return s;
+}
+
 Status CatchUpLoop::RunFeedOnce() {
   uint64_t active = 0;
   PLUMB_RETURN_IF_ERROR(feed_->ActiveVersion(&active));
@@ -30,15 +40,7 @@ Status CatchUpLoop::RunFeedOnce() {
   Status s = feed_->Load(active, options_.approx, &next, &withdrawn);
   const double seconds =
       std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
-  if (!s.ok()) {
-    failed_version_ = active;
-    failed_loads_.fetch_add(1, std::memory_order_relaxed);
-    spdlog::error("version {} failed to load and is skipped ({}); still serving {}", active,
-                  s.ToString(),
-                  current ? "version " + std::to_string(current->version()) : "nothing");
-    if (options_.on_load_failure) options_.on_load_failure(active, s);
-    return s;
-  }
+  if (!s.ok()) return SkipFailedLoad(active, current.get(), s);
   failed_version_ = 0;
   current.reset();
   // The version's own withdrawn items, mapped to its rows, go in before the snapshot so that
@@ -121,15 +123,7 @@ Status CatchUpLoop::RunOnce() {
                                       " active but holds no such version (" + s.message() + ")")
                    : files;
   }
-  if (!s.ok()) {
-    failed_version_ = active;
-    failed_loads_.fetch_add(1, std::memory_order_relaxed);
-    spdlog::error("version {} failed to load and is skipped ({}); still serving {}", active,
-                  s.ToString(),
-                  current ? "version " + std::to_string(current->version()) : "nothing");
-    if (options_.on_load_failure) options_.on_load_failure(active, s);
-    return s;
-  }
+  if (!s.ok()) return SkipFailedLoad(active, current.get(), s);
   failed_version_ = 0;
   // Release our reference to the old snapshot before swapping, so that its memory goes as
   // soon as the last request holding it ends.

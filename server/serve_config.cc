@@ -124,16 +124,12 @@ void DefineOptions(CLI::App& app, config::FlagFile* keys, ServeConfig* c, Durati
             "File holding the token the NATS servers require");
   keys->Add("replica_credentials_file", &c->replica_credentials_file,
             "NATS credentials file (.creds) for --replica-of");
-  keys->Add("replica_tls_ca", &c->replica_tls_ca,
-            "CA to trust: connect to NATS with TLS");
+  keys->Add("replica_tls_ca", &c->replica_tls_ca, "CA to trust: connect to NATS with TLS");
   keys->Add("replica_tls_cert", &c->replica_tls_cert,
             "PEM client certificate chain for NATS (when the servers verify clients)");
-  keys->Add("replica_tls_key", &c->replica_tls_key,
-            "PEM key of --replica-tls-cert");
-  keys->Add("replica_stream", &c->replica_stream,
-            "The version stream plumb-train fills");
-  keys->Add("replica_subject", &c->replica_subject,
-            "Version N is on <this>.N");
+  keys->Add("replica_tls_key", &c->replica_tls_key, "PEM key of --replica-tls-cert");
+  keys->Add("replica_stream", &c->replica_stream, "The version stream plumb-train fills");
+  keys->Add("replica_subject", &c->replica_subject, "Version N is on <this>.N");
   keys->Add("replica_bucket", &c->replica_bucket,
             "Key-value bucket whose key 'active' names the version to serve");
   d->shutdown_grace = FormatDuration(c->shutdown_grace_ms);

@@ -13,6 +13,7 @@
 #include <thread>
 #include <vector>
 
+#include "core/run_every.h"
 #include "replica/version_bundle.h"
 #include "store/store.h"
 
@@ -270,14 +271,7 @@ struct VersionShipper::Impl {
   }
 
   void Run() {
-    std::unique_lock<std::mutex> lock(mu);
-    while (!stopping) {
-      lock.unlock();
-      Round();
-      lock.lock();
-      wake.wait_for(lock, options.interval, [this] { return stopping; });
-    }
-    lock.unlock();
+    RunEvery(mu, wake, stopping, options.interval, [this] { Round(); });
     Disconnect();
   }
 

@@ -2,6 +2,7 @@
 
 #include <spdlog/spdlog.h>
 
+#include "core/run_every.h"
 #include "core/thread_priority.h"
 #include "store/store.h"
 
@@ -187,13 +188,8 @@ void CatchUpLoop::Stop() {
 }
 
 void CatchUpLoop::Run() {
-  std::unique_lock<std::mutex> lock(mu_);
-  while (!stopping_) {
-    lock.unlock();
-    RunOnce().IgnoreError();  // errors are logged and counted inside
-    lock.lock();
-    wake_.wait_for(lock, options_.interval, [this] { return stopping_; });
-  }
+  // Errors are logged and counted inside RunOnce.
+  RunEvery(mu_, wake_, stopping_, options_.interval, [this] { RunOnce().IgnoreError(); });
 }
 
 }  // namespace plumb::server

@@ -18,6 +18,7 @@
 #include <mutex>
 #include <thread>
 
+#include "core/run_every.h"
 #include "replica/version_bundle.h"
 
 namespace plumb::server {
@@ -366,14 +367,7 @@ struct ReplicaFeed::Impl {
   }
 
   void Run() {
-    std::unique_lock<std::mutex> lock(mu);
-    while (!stopping) {
-      lock.unlock();
-      Round();
-      lock.lock();
-      wake.wait_for(lock, options.interval, [this] { return stopping; });
-    }
-    lock.unlock();
+    RunEvery(mu, wake, stopping, options.interval, [this] { Round(); });
     Disconnect();
   }
 

@@ -2,6 +2,7 @@
 
 #include <charconv>
 #include <cmath>
+#include <cstdio>
 #include <fstream>
 #include <optional>
 
@@ -225,6 +226,22 @@ Status ReadEventCsv(const std::string& path, const CsvReadOptions& options,
         "are dated 1970; multiply by 1000");
   }
   if (in.bad()) return Status::IoError(path + ": read error after line " + std::to_string(line_no));
+  return Status::Ok();
+}
+
+Status ReadEventCsvTelling(const char* command, const std::string& path, bool skip_bad,
+                           std::vector<CsvEvent>* out) {
+  CsvReadReport report;
+  CsvReadOptions opt;
+  opt.skip_bad = skip_bad;
+  PLUMB_RETURN_IF_ERROR(ReadEventCsv(path, opt, out, &report));
+  if (report.skipped > 0) {
+    std::fprintf(stderr, "%s: skipped %llu malformed lines (first: %s)\n", command,
+                 static_cast<unsigned long long>(report.skipped), report.first_skip_reason.c_str());
+  }
+  for (const std::string& w : report.warnings) {
+    std::fprintf(stderr, "%s: warning: %s\n", command, w.c_str());
+  }
   return Status::Ok();
 }
 

@@ -79,4 +79,9 @@ inline constexpr int64_t kPlausibleTimestampMs = 100'000'000'000;
 Status ReadEventCsv(const std::string& path, const CsvReadOptions& options,
                     std::vector<CsvEvent>* out, CsvReadReport* report);
 
+// ReadEventCsv for a command: how many malformed lines were skipped (with the first) and
+// each warning are told on stderr as "<command>: ...".
+Status ReadEventCsvTelling(const char* command, const std::string& path, bool skip_bad,
+                           std::vector<CsvEvent>* out);
+
 }  // namespace plumb::cli

@@ -130,15 +130,7 @@ namespace {
 Status LoadOwnData(const CompareArgs& args, trainer::Interactions* train,
                    std::vector<trainer::Pair>* test) {
   std::vector<CsvEvent> rows;
-  CsvReadReport report;
-  CsvReadOptions opt;
-  opt.skip_bad = args.skip_bad;
-  PLUMB_RETURN_IF_ERROR(ReadEventCsv(args.events, opt, &rows, &report));
-  if (report.skipped > 0) {
-    std::fprintf(stderr, "compare: skipped %llu malformed lines (first: %s)\n",
-                 static_cast<unsigned long long>(report.skipped), report.first_skip_reason.c_str());
-  }
-  for (const std::string& w : report.warnings) Say("compare", "warning: " + w);
+  PLUMB_RETURN_IF_ERROR(ReadEventCsvTelling("compare", args.events, args.skip_bad, &rows));
   std::unordered_map<std::string, uint32_t> users, items;
   std::vector<trainer::Pair> pairs;
   pairs.reserve(rows.size());
@@ -150,6 +142,7 @@ Status LoadOwnData(const CompareArgs& args, trainer::Interactions* train,
   if (pairs.empty()) return Status::InvalidArgument(args.events + ": no events");
   PLUMB_RETURN_IF_ERROR(trainer::Interactions::Build(pairs, static_cast<uint32_t>(users.size()),
                                                      static_cast<uint32_t>(items.size()), train));
+  CsvReadReport report;
   PLUMB_RETURN_IF_ERROR(ReadEventCsv(args.test, CsvReadOptions{}, &rows, &report));
   test->clear();
   uint64_t unknown = 0;

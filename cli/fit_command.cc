@@ -49,17 +49,7 @@ void HashBytes(const void* data, size_t n, uint64_t* h) {
 Status ReadForImport(const ImportArgs& args, std::vector<store::EventInput>* events,
                      ImportIdentity* identity) {
   std::vector<CsvEvent> rows;
-  CsvReadReport report;
-  CsvReadOptions opt;
-  opt.skip_bad = args.skip_bad;
-  PLUMB_RETURN_IF_ERROR(ReadEventCsv(args.events, opt, &rows, &report));
-  if (report.skipped > 0) {
-    std::fprintf(stderr, "import: skipped %llu malformed lines (first: %s)\n",
-                 static_cast<unsigned long long>(report.skipped),
-                 report.first_skip_reason.c_str());
-  }
-  for (const std::string& w : report.warnings)
-    std::fprintf(stderr, "import: warning: %s\n", w.c_str());
+  PLUMB_RETURN_IF_ERROR(ReadEventCsvTelling("import", args.events, args.skip_bad, &rows));
   *identity = ImportIdentity{};
   events->clear();
   events->reserve(rows.size());

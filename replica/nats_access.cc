@@ -26,18 +26,20 @@ std::string NatsErrorText(int nats_status) {
   return text;
 }
 
-Status MakeNatsOptions(const NatsAccess& access, const char* client_name, natsOptions** out) {
-  if (access.servers.empty()) return Status::InvalidArgument("NATS: no server URL");
+Status MakeNatsOptions(const NatsAccess& access, const char* client_name, natsOptions** out,
+                       const char* label) {
+  const std::string who = std::string(label) + ": ";
+  if (access.servers.empty()) return Status::InvalidArgument(who + "no server URL");
   if (access.tls_cert.empty() != access.tls_key.empty()) {
-    return Status::InvalidArgument("NATS: a TLS certificate and its key go together");
+    return Status::InvalidArgument(who + "a TLS certificate and its key go together");
   }
   natsOptions* o = nullptr;
   if (natsOptions_Create(&o) != NATS_OK) {
-    return Status::Unavailable("NATS: cannot create the client options");
+    return Status::Unavailable(who + "cannot create the client options");
   }
-  auto check = [o](natsStatus s, const std::string& what) {
+  auto check = [o, &who](natsStatus s, const std::string& what) {
     if (s == NATS_OK) return Status::Ok();
-    return Status::InvalidArgument("NATS: " + what + ": " + NatsErrorText(s));
+    return Status::InvalidArgument(who + what + ": " + NatsErrorText(s));
   };
   Status s = [&]() -> Status {
     std::vector<const char*> urls;
@@ -51,20 +53,20 @@ Status MakeNatsOptions(const NatsAccess& access, const char* client_name, natsOp
     if (!access.token_file.empty()) {
       std::ifstream in(access.token_file);
       if (!in)
-        return Status::InvalidArgument("NATS: cannot read the token file " + access.token_file);
+        return Status::InvalidArgument(who + "cannot read the token file " + access.token_file);
       std::stringstream text;
       text << in.rdbuf();
       std::string token = text.str();
       const size_t begin = token.find_first_not_of(" \t\r\n");
       if (begin == std::string::npos) {
-        return Status::InvalidArgument("NATS: the token file " + access.token_file + " is empty");
+        return Status::InvalidArgument(who + "the token file " + access.token_file + " is empty");
       }
       token = token.substr(begin, token.find_last_not_of(" \t\r\n") - begin + 1);
       PLUMB_RETURN_IF_ERROR(check(natsOptions_SetToken(o, token.c_str()), "token"));
     }
     if (!access.credentials_file.empty()) {
       if (!std::ifstream(access.credentials_file)) {
-        return Status::InvalidArgument("NATS: cannot read the credentials file " +
+        return Status::InvalidArgument(who + "cannot read the credentials file " +
                                        access.credentials_file);
       }
       PLUMB_RETURN_IF_ERROR(check(
@@ -91,6 +93,35 @@ Status MakeNatsOptions(const NatsAccess& access, const char* client_name, natsOp
   }
   *out = o;
   return Status::Ok();
+}
+
+int ConnectJetStream(natsOptions* options, jsOptions* js_options, natsConnection** nc, jsCtx** js,
+                     const char** failed_step) {
+  natsStatus s = natsConnection_Connect(nc, options);
+  if (s != NATS_OK) {
+    *failed_step = "cannot connect";
+    return s;
+  }
+  if ((s = natsConnection_JetStream(js, *nc, js_options)) != NATS_OK) {
+    *failed_step = "no JetStream context";
+  }
+  return s;
+}
+
+void CloseNats(natsConnection** nc, jsCtx** js) {
+  if (*js != nullptr) jsCtx_Destroy(*js);
+  *js = nullptr;
+  if (*nc != nullptr) {
+    natsConnection_Close(*nc);
+    natsConnection_Destroy(*nc);
+  }
+  *nc = nullptr;
+}
+
+std::string ConnectedUrl(natsConnection* nc) {
+  char url[256] = {0};
+  natsConnection_GetConnectedUrl(nc, url, sizeof url);
+  return url;
 }
 
 }  // namespace plumb::replica

@@ -1,6 +1,7 @@
-// NatsAccess: how plumb reaches a NATS cluster (servers, token or credentials, TLS), and the
-// libnats connection options built from it. Shared by the version publisher (plumb-train)
-// and the replica feed (plumb-serve --replica-of).
+// NatsAccess: how plumb reaches a NATS cluster (servers, token or credentials, TLS), the
+// libnats connection options built from it, and connecting to and closing a JetStream
+// context. Shared by the version publisher (plumb-train), the replica feed (plumb-serve
+// --replica-of) and the JetStream event source (plumb-train).
 #pragma once
 
 #include <string>
@@ -9,6 +10,9 @@
 #include "core/status.h"
 
 typedef struct __natsOptions natsOptions;
+typedef struct __natsConnection natsConnection;
+typedef struct __jsCtx jsCtx;
+typedef struct jsOptions jsOptions;
 
 namespace plumb::replica {
 
@@ -24,9 +28,23 @@ struct NatsAccess {
 std::vector<std::string> SplitServers(const std::string& comma_separated);
 
 // Builds connection options (reconnecting forever, every 250 ms) into *out, owned by the
-// caller (natsOptions_Destroy). InvalidArgument naming the problem: no server, an
-// unreadable or empty token file, credentials or TLS files that do not load.
-Status MakeNatsOptions(const NatsAccess& access, const char* client_name, natsOptions** out);
+// caller (natsOptions_Destroy). InvalidArgument naming the problem, after "<label>: ": no
+// server, an unreadable or empty token file, credentials or TLS files that do not load, a
+// TLS certificate without its key or the other way round.
+Status MakeNatsOptions(const NatsAccess& access, const char* client_name, natsOptions** out,
+                       const char* label = "NATS");
+
+// Connects with `options` into *nc and makes a JetStream context into *js (js_options null:
+// libnats' defaults). Returns libnats' status; on failure *failed_step is "cannot connect"
+// or "no JetStream context", and what was made stays for CloseNats.
+int ConnectJetStream(natsOptions* options, jsOptions* js_options, natsConnection** nc, jsCtx** js,
+                     const char** failed_step);
+
+// Destroys *js, then closes and destroys *nc, where set; both are null afterwards.
+void CloseNats(natsConnection** nc, jsCtx** js);
+
+// The URL nc is connected to ("" when it is not).
+std::string ConnectedUrl(natsConnection* nc);
 
 // libnats' text for a status, with its last error when there is one.
 std::string NatsErrorText(int nats_status);

@@ -13,6 +13,7 @@
 #include <thread>
 #include <vector>
 
+#include "core/run_every.h"
 #include "replica/version_bundle.h"
 #include "store/store.h"
 
@@ -50,8 +51,6 @@ struct VersionShipper::Impl {
   }
 
   bool Connect() {
-    natsStatus s = natsConnection_Connect(&nc, nats_options);
-    if (s != NATS_OK) return Failed("cannot connect", NatsErrorText(s));
     // Chunks are published asynchronously, a few in flight, and the ship waits for every
     // acknowledgement (js_PublishAsyncComplete); a refused one is counted here.
     jsOptions jo;
@@ -59,9 +58,9 @@ struct VersionShipper::Impl {
     jo.PublishAsync.MaxPending = kChunksInFlight;
     jo.PublishAsync.ErrHandler = &Impl::OnPublishError;
     jo.PublishAsync.ErrHandlerClosure = &publish_errors;
-    if ((s = natsConnection_JetStream(&js, nc, &jo)) != NATS_OK) {
-      return Failed("no JetStream context", NatsErrorText(s));
-    }
+    const char* step = "";
+    natsStatus s = static_cast<natsStatus>(ConnectJetStream(nats_options, &jo, &nc, &js, &step));
+    if (s != NATS_OK) return Failed(step, NatsErrorText(s));
     jsErrCode jerr = static_cast<jsErrCode>(0);
     jsStreamInfo* info = nullptr;
     s = js_GetStreamInfo(&info, js, options.stream.c_str(), nullptr, &jerr);
@@ -101,10 +100,8 @@ struct VersionShipper::Impl {
     chunk_bytes =
         static_cast<size_t>(std::max<int64_t>(1024, max_payload - 1024)) - kChunkHeaderBytes;
     if (options.max_chunk_bytes > 0) chunk_bytes = std::min(chunk_bytes, options.max_chunk_bytes);
-    char url[256] = {0};
-    natsConnection_GetConnectedUrl(nc, url, sizeof url);
     spdlog::info("versions: shipping to stream {} and bucket {} via {} ({} bytes a chunk)",
-                 options.stream, options.bucket, url, chunk_bytes);
+                 options.stream, options.bucket, ConnectedUrl(nc), chunk_bytes);
     failing.clear();
     return true;
   }
@@ -126,13 +123,7 @@ struct VersionShipper::Impl {
   void Disconnect() {
     if (kv != nullptr) kvStore_Destroy(kv);
     kv = nullptr;
-    if (js != nullptr) jsCtx_Destroy(js);
-    js = nullptr;
-    if (nc != nullptr) {
-      natsConnection_Close(nc);
-      natsConnection_Destroy(nc);
-    }
-    nc = nullptr;
+    CloseNats(&nc, &js);
   }
 
   // Whether the stream holds all of `version`: its subject's last message is its trailer.
@@ -280,14 +271,7 @@ struct VersionShipper::Impl {
   }
 
   void Run() {
-    std::unique_lock<std::mutex> lock(mu);
-    while (!stopping) {
-      lock.unlock();
-      Round();
-      lock.lock();
-      wake.wait_for(lock, options.interval, [this] { return stopping; });
-    }
-    lock.unlock();
+    RunEvery(mu, wake, stopping, options.interval, [this] { Round(); });
     Disconnect();
   }
 

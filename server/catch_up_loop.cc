@@ -2,6 +2,7 @@
 
 #include <spdlog/spdlog.h>
 
+#include "core/run_every.h"
 #include "core/thread_priority.h"
 #include "store/store.h"
 
@@ -12,6 +13,16 @@ CatchUpLoop::CatchUpLoop(store::Store* store, SnapshotHolder* holder, CatchUpOpt
 
 CatchUpLoop::CatchUpLoop(VersionFeed* feed, SnapshotHolder* holder, CatchUpOptions options)
     : store_(nullptr), feed_(feed), holder_(holder), options_(std::move(options)) {}
+
+Status CatchUpLoop::SkipFailedLoad(uint64_t active, const Snapshot* current, const Status& s) {
+  failed_version_ = active;
+  failed_loads_.fetch_add(1, std::memory_order_relaxed);
+  spdlog::error("version {} failed to load and is skipped ({}); still serving {}", active,
+                s.ToString(),
+                current ? "version " + std::to_string(current->version()) : "nothing");
+  if (options_.on_load_failure) options_.on_load_failure(active, s);
+  return s;
+}
 
 Status CatchUpLoop::RunFeedOnce() {
   uint64_t active = 0;
@@ -30,15 +41,7 @@ Status CatchUpLoop::RunFeedOnce() {
   Status s = feed_->Load(active, options_.approx, &next, &withdrawn);
   const double seconds =
       std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
-  if (!s.ok()) {
-    failed_version_ = active;
-    failed_loads_.fetch_add(1, std::memory_order_relaxed);
-    spdlog::error("version {} failed to load and is skipped ({}); still serving {}", active,
-                  s.ToString(),
-                  current ? "version " + std::to_string(current->version()) : "nothing");
-    if (options_.on_load_failure) options_.on_load_failure(active, s);
-    return s;
-  }
+  if (!s.ok()) return SkipFailedLoad(active, current.get(), s);
   failed_version_ = 0;
   current.reset();
   // The version's own withdrawn items, mapped to its rows, go in before the snapshot so that
@@ -121,15 +124,7 @@ Status CatchUpLoop::RunOnce() {
                                       " active but holds no such version (" + s.message() + ")")
                    : files;
   }
-  if (!s.ok()) {
-    failed_version_ = active;
-    failed_loads_.fetch_add(1, std::memory_order_relaxed);
-    spdlog::error("version {} failed to load and is skipped ({}); still serving {}", active,
-                  s.ToString(),
-                  current ? "version " + std::to_string(current->version()) : "nothing");
-    if (options_.on_load_failure) options_.on_load_failure(active, s);
-    return s;
-  }
+  if (!s.ok()) return SkipFailedLoad(active, current.get(), s);
   failed_version_ = 0;
   // Release our reference to the old snapshot before swapping, so that its memory goes as
   // soon as the last request holding it ends.
@@ -193,13 +188,8 @@ void CatchUpLoop::Stop() {
 }
 
 void CatchUpLoop::Run() {
-  std::unique_lock<std::mutex> lock(mu_);
-  while (!stopping_) {
-    lock.unlock();
-    RunOnce().IgnoreError();  // errors are logged and counted inside
-    lock.lock();
-    wake_.wait_for(lock, options_.interval, [this] { return stopping_; });
-  }
+  // Errors are logged and counted inside RunOnce.
+  RunEvery(mu_, wake_, stopping_, options_.interval, [this] { RunOnce().IgnoreError(); });
 }
 
 }  // namespace plumb::server

@@ -86,6 +86,9 @@ class CatchUpLoop {
   void Run();
   // RunOnce with a feed.
   Status RunFeedOnce();
+  // Remembers `active` as failed (not tried again until another version is named), counts
+  // and logs the failure, tells on_load_failure, and returns s.
+  Status SkipFailedLoad(uint64_t active, const Snapshot* current, const Status& s);
   // Rebuilds the holder's withdrawn set when the store's generation moved, or (swapped) for
   // the snapshot just swapped in.
   Status RefreshWithdrawn(bool swapped);

@@ -18,6 +18,7 @@
 #include <mutex>
 #include <thread>
 
+#include "core/run_every.h"
 #include "replica/version_bundle.h"
 
 namespace plumb::server {
@@ -140,15 +141,12 @@ struct ReplicaFeed::Impl {
 
   // ---- NATS side (the feed's thread) --------------------------------------------------
   bool Connect() {
-    natsStatus s = natsConnection_Connect(&nc, nats_options);
-    if (s != NATS_OK) return Failed("cannot connect", s);
-    if ((s = natsConnection_JetStream(&js, nc, nullptr)) != NATS_OK) {
-      return Failed("no JetStream context", s);
-    }
-    char url[256] = {0};
-    natsConnection_GetConnectedUrl(nc, url, sizeof url);
-    spdlog::info("replica: connected to {}; following bucket {} and stream {}", url, options.bucket,
-                 options.stream);
+    const char* step = "";
+    const natsStatus s =
+        static_cast<natsStatus>(replica::ConnectJetStream(nats_options, nullptr, &nc, &js, &step));
+    if (s != NATS_OK) return Failed(step, s);
+    spdlog::info("replica: connected to {}; following bucket {} and stream {}",
+                 replica::ConnectedUrl(nc), options.bucket, options.stream);
     return true;
   }
 
@@ -163,13 +161,7 @@ struct ReplicaFeed::Impl {
   void Disconnect() {
     if (kv != nullptr) kvStore_Destroy(kv);
     kv = nullptr;
-    if (js != nullptr) jsCtx_Destroy(js);
-    js = nullptr;
-    if (nc != nullptr) {
-      natsConnection_Close(nc);
-      natsConnection_Destroy(nc);
-    }
-    nc = nullptr;
+    replica::CloseNats(&nc, &js);
     connected_gauge->Set(0);
   }
 
@@ -375,14 +367,7 @@ struct ReplicaFeed::Impl {
   }
 
   void Run() {
-    std::unique_lock<std::mutex> lock(mu);
-    while (!stopping) {
-      lock.unlock();
-      Round();
-      lock.lock();
-      wake.wait_for(lock, options.interval, [this] { return stopping; });
-    }
-    lock.unlock();
+    RunEvery(mu, wake, stopping, options.interval, [this] { Round(); });
     Disconnect();
   }
 

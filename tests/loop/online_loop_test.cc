@@ -120,6 +120,15 @@ class OnlineLoopTest : public ::testing::Test {
     return path.string();
   }
 
+  // Appends events [from, to) of the world, waits until the loop has consumed them, then
+  // publishes and returns the new version's number.
+  uint64_t AppendAndPublish(OnlineLoop& loop, size_t from, size_t to) {
+    Append(from, to);
+    loop.NotifyAppended();
+    WaitCaughtUp(loop, *store_, 0.0);
+    return PublishAndWait(loop, *store_);
+  }
+
   // Publishes now and waits for the new version number.
   static uint64_t PublishAndWait(OnlineLoop& loop, const store::Store& store) {
     std::vector<store::VersionManifest> before;
@@ -174,10 +183,7 @@ TEST_F(OnlineLoopTest, LearningHappensWhileEventsStreamIn) {
   ASSERT_TRUE(OnlineLoop::Create(store_.get(), Options(), &loop).ok());
   loop->Start();
   const size_t n = world_->events.size();
-  Append(0, n / 10);
-  loop->NotifyAppended();
-  WaitCaughtUp(*loop, *store_, 0.0);
-  const uint64_t first = PublishAndWait(*loop, *store_);
+  const uint64_t first = AppendAndPublish(*loop, 0, n / 10);
   for (size_t part = 1; part < 10; ++part) {
     Append(part * n / 10, (part + 1) * n / 10);
     loop->NotifyAppended();
@@ -344,10 +350,7 @@ TEST_F(OnlineLoopTest, RestartResumesFromTheDurableCursor) {
   std::unique_ptr<OnlineLoop> loop;
   ASSERT_TRUE(OnlineLoop::Create(store_.get(), o, &loop).ok());
   loop->Start();
-  Append(0, 5000);
-  loop->NotifyAppended();
-  WaitCaughtUp(*loop, *store_, 0.0);
-  const uint64_t v = PublishAndWait(*loop, *store_);
+  const uint64_t v = AppendAndPublish(*loop, 0, 5000);
   Append(5000, 8000);  // consumed but not published before the "crash"
   loop->NotifyAppended();
   WaitCaughtUp(*loop, *store_, 0.0);
@@ -412,10 +415,7 @@ TEST_F(OnlineLoopTest, AHoldoutShareWithManyDigitsGivesTheSameSplitAfterARestart
   ASSERT_TRUE(OnlineLoop::Create(store_.get(), o, &loop).ok());
   loop->Start();
   append_probe();
-  Append(0, 3000);
-  loop->NotifyAppended();
-  WaitCaughtUp(*loop, *store_, 0.0);
-  const uint64_t v1 = PublishAndWait(*loop, *store_);
+  const uint64_t v1 = AppendAndPublish(*loop, 0, 3000);
   loop->Stop();
   loop.reset();
   std::string text;
@@ -428,10 +428,7 @@ TEST_F(OnlineLoopTest, AHoldoutShareWithManyDigitsGivesTheSameSplitAfterARestart
   o.holdout_fraction = 0.3;
   ASSERT_TRUE(OnlineLoop::Create(store_.get(), o, &loop).ok());
   loop->Start();
-  Append(3000, 4000);
-  loop->NotifyAppended();
-  WaitCaughtUp(*loop, *store_, 0.0);
-  const uint64_t v2 = PublishAndWait(*loop, *store_);
+  const uint64_t v2 = AppendAndPublish(*loop, 3000, 4000);
   loop->Stop();
   store::VersionManifest m1, m2;
   ASSERT_TRUE(store_->ReadManifest(v1, &m1).ok());
@@ -445,15 +442,9 @@ TEST_F(OnlineLoopTest, PausedAutoActivationKeepsTheActiveVersion) {
   std::unique_ptr<OnlineLoop> loop;
   ASSERT_TRUE(OnlineLoop::Create(store_.get(), Options(), &loop).ok());
   loop->Start();
-  Append(0, 5000);
-  loop->NotifyAppended();
-  WaitCaughtUp(*loop, *store_, 0.0);
-  const uint64_t v1 = PublishAndWait(*loop, *store_);
+  const uint64_t v1 = AppendAndPublish(*loop, 0, 5000);
   ASSERT_TRUE(loop->SetAutoActivate(false).ok());
-  Append(5000, 9000);
-  loop->NotifyAppended();
-  WaitCaughtUp(*loop, *store_, 0.0);
-  const uint64_t v2 = PublishAndWait(*loop, *store_);
+  const uint64_t v2 = AppendAndPublish(*loop, 5000, 9000);
   uint64_t active = 0;
   ASSERT_TRUE(store_->GetActiveVersion(&active).ok());
   EXPECT_EQ(active, v1);
@@ -522,10 +513,7 @@ TEST_F(OnlineLoopTest, SkippedCandidatesAreCountedAsSkippedAndCanBeRefused) {
   std::unique_ptr<OnlineLoop> loop;
   ASSERT_TRUE(OnlineLoop::Create(store_.get(), o, &loop).ok());
   loop->Start();
-  Append(0, 5000);
-  loop->NotifyAppended();
-  WaitCaughtUp(*loop, *store_, 0.0);
-  const uint64_t v = PublishAndWait(*loop, *store_);
+  const uint64_t v = AppendAndPublish(*loop, 0, 5000);
   ASSERT_GT(v, 0u);
   loop->Stop();
   const OnlineStatus st = loop->status();

@@ -20,14 +20,8 @@ class CorruptionTest : public StoreFixture {
  protected:
   void SetUp() override {
     StoreFixture::SetUp();
-    StoreOptions options = testing::TestOptions();
-    options.rows_per_block = 4;
-    Open(options);
-    AddIds(6, 10);  // items: 3 blocks of 4, 4, 2 rows
-    AppendResult r;
-    ASSERT_TRUE(store_->AppendEvents(Loans(5, 0), &r).ok());
-    version_ = Publish(3, 1.0f, true);
-    ASSERT_EQ(version_, 1u);
+    ASSERT_NO_FATAL_FAILURE(OpenWithFirstVersion());  // items: blocks of 4, 4, 2 rows
+    version_ = 1;
   }
 
   // Closes the store, replaces one raw record, and opens the store again.

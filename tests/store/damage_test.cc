@@ -41,14 +41,9 @@ class DamageTest : public StoreFixture {
   // meta value naming it active in the newer ones.
   void SetUp() override {
     StoreFixture::SetUp();
-    StoreOptions options = testing::TestOptions();
-    options.rows_per_block = 4;
-    Open(options);
-    AddIds(6, 10);
-    AppendResult r;
-    ASSERT_TRUE(store_->AppendEvents(Loans(5, 0), &r).ok());
-    ASSERT_EQ(Publish(3, 1.0f, true), 1u);
+    ASSERT_NO_FATAL_FAILURE(OpenWithFirstVersion());
     Reopen();
+    AppendResult r;
     ASSERT_TRUE(store_->AppendEvents(Loans(5, 5), &r).ok());
     ASSERT_EQ(Publish(3, 2.0f, true), 2u);
     Close();

@@ -98,6 +98,18 @@ class StoreFixture : public ::testing::Test {
     return published;
   }
 
+  // Reopens the store with blocks of 4 rows, adds 6 members and 10 tools (item blocks of
+  // 4, 4 and 2 rows), appends 5 loans and publishes version 1 (dim 3, tag 1) as active.
+  void OpenWithFirstVersion() {
+    StoreOptions options = TestOptions();
+    options.rows_per_block = 4;
+    Open(options);
+    AddIds(6, 10);
+    AppendResult r;
+    ASSERT_TRUE(store_->AppendEvents(Loans(5, 0), &r).ok());
+    ASSERT_EQ(Publish(3, 1.0f, true), 1u);
+  }
+
   static std::vector<EventInput> Loans(int n, int first, bool with_ids = true) {
     std::vector<EventInput> out;
     for (int k = first; k < first + n; ++k) {

@@ -178,27 +178,37 @@ def scrape(addr):
     return values
 
 
-def check_metrics_documented(metrics, logs):
-    """The plumb_jetstream_* families of a live scrape are exactly those docs/operators.md
-    lists under "plumb-train with a JetStream source", and promtool's linter passes."""
-    with urllib.request.urlopen("http://%s/metrics" % metrics, timeout=2) as r:
+def check_documented(metrics_addr, prefix, section, logs, what=None):
+    """The families starting with `prefix` of a live scrape are exactly those
+    docs/operators.md lists under the heading `section`, and promtool's linter passes (when
+    installed). Fails with "<what> exported ..., documented ..." (what: "<section>:").
+    Returns (families served, whether promtool ran)."""
+    with urllib.request.urlopen("http://%s/metrics" % metrics_addr, timeout=2) as r:
         text = r.read().decode()
-    served = set(re.findall(r"^# TYPE (plumb_jetstream_[a-z0-9_]+) ", text, re.M))
+    served = set(re.findall(r"^# TYPE (%s[a-z0-9_]*) " % prefix, text, re.M))
     doc = open(os.path.join(os.path.dirname(__file__), "../../docs/operators.md")).read()
-    section = doc.split("### plumb-train with a JetStream source", 1)[1].split("\n## ", 1)[0]
-    section = section.split("\n### ", 1)[0]
-    documented = set(re.findall(r"^\| `(plumb_[a-z0-9_]+)", section, re.M))
+    part = doc.split("### " + section, 1)[1].split("\n## ", 1)[0].split("\n### ", 1)[0]
+    documented = set(re.findall(r"^\| `(plumb_[a-z0-9_]+)", part, re.M))
     if served != documented:
-        fail("JetStream metrics exported %s, documented %s" % (sorted(served),
-                                                               sorted(documented)), logs)
+        fail("%s exported %s, documented %s" % (what or section + ":", sorted(served),
+                                                sorted(documented)), logs)
     promtool = shutil.which("promtool")
     if promtool:
         r = subprocess.run([promtool, "check", "metrics"], input=text, capture_output=True,
                            text=True)
         if r.stdout.strip() or r.stderr.strip():
             fail("promtool check metrics: " + r.stdout + r.stderr, logs)
+    return len(served), bool(promtool)
+
+
+def check_metrics_documented(metrics, logs):
+    """The plumb_jetstream_* families of a live scrape are exactly those docs/operators.md
+    lists under "plumb-train with a JetStream source", and promtool's linter passes."""
+    served, promtool = check_documented(metrics, "plumb_jetstream_",
+                                        "plumb-train with a JetStream source", logs,
+                                        what="JetStream metrics")
     print("metrics: %d plumb_jetstream_ families, as documented%s" %
-          (len(served), ", promtool clean" if promtool else ""))
+          (served, ", promtool clean" if promtool else ""))
 
 
 def wait_for(what, predicate, timeout, logs=()):

@@ -31,6 +31,7 @@ import time
 import urllib.request
 
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+import jetstream_cluster_test  # noqa: E402
 from jetstream_cluster_test import TOKEN, Node, fail, free_port, scrape, wait_for  # noqa: E402
 
 SERVE_WITHIN = 20  # seconds a replica may take to serve the pointer's version
@@ -41,22 +42,8 @@ def metric(addr, name):
 
 
 def check_documented(metrics_addr, prefix, section, logs):
-    with urllib.request.urlopen("http://%s/metrics" % metrics_addr, timeout=2) as r:
-        text = r.read().decode()
-    served = set(re.findall(r"^# TYPE (%s[a-z0-9_]*) " % prefix, text, re.M))
-    doc = open(os.path.join(os.path.dirname(__file__), "../../docs/operators.md")).read()
-    part = doc.split("### " + section, 1)[1].split("\n## ", 1)[0].split("\n### ", 1)[0]
-    documented = set(re.findall(r"^\| `(plumb_[a-z0-9_]+)", part, re.M))
-    if served != documented:
-        fail("%s: exported %s, documented %s" % (section, sorted(served), sorted(documented)),
-             logs)
-    promtool = shutil.which("promtool")
-    if promtool:
-        r = subprocess.run([promtool, "check", "metrics"], input=text, capture_output=True,
-                           text=True)
-        if r.stdout.strip() or r.stderr.strip():
-            fail("promtool check metrics: " + r.stdout + r.stderr, logs)
-    print("metrics: %s: %d families, as documented" % (section, len(served)))
+    served, _ = jetstream_cluster_test.check_documented(metrics_addr, prefix, section, logs)
+    print("metrics: %s: %d families, as documented" % (section, served))
 
 
 def main():

@@ -12,41 +12,22 @@
 #include <chrono>
 #include <cstring>
 #include <deque>
-#include <fstream>
 #include <future>
 #include <mutex>
-#include <sstream>
 #include <utility>
 
 #include "core/clock.h"
 #include "plumb/v1/ingest.pb.h"
+#include "replica/nats_access.h"
 #include "rpc/message_decoding.h"
 
 namespace plumb::online {
 namespace {
 
 std::string NatsError(natsStatus s, jsErrCode jerr = static_cast<jsErrCode>(0)) {
-  std::string text = natsStatus_GetText(s);
-  if (const char* last = nats_GetLastError(nullptr); last != nullptr && last[0] != '\0') {
-    text += std::string(" (") + last + ")";
-  }
+  std::string text = replica::NatsErrorText(s);
   if (jerr != 0) text += " [JetStream error " + std::to_string(static_cast<int>(jerr)) + "]";
   return text;
-}
-
-Status ReadToken(const std::string& path, std::string* token) {
-  std::ifstream in(path);
-  if (!in) return Status::InvalidArgument("cannot read the JetStream token file " + path);
-  std::stringstream text;
-  text << in.rdbuf();
-  std::string s = text.str();
-  const size_t begin = s.find_first_not_of(" \t\r\n");
-  const size_t end = s.find_last_not_of(" \t\r\n");
-  if (begin == std::string::npos) {
-    return Status::InvalidArgument("the JetStream token file " + path + " is empty");
-  }
-  *token = s.substr(begin, end - begin + 1);
-  return Status::Ok();
 }
 
 // A delivery's reply subject carries its metadata: $JS.ACK.<stream>.<consumer>.<delivered>.
@@ -140,21 +121,15 @@ struct JetStreamSource::Impl {
     if (options.stream.empty() || options.subject.empty() || options.consumer.empty()) {
       return Status::InvalidArgument("JetStream: stream, subject and consumer must be named");
     }
-    if (natsOptions_Create(&nats_options) != NATS_OK) {
-      return Status::Unavailable("JetStream: cannot create the client options");
-    }
-    std::vector<const char*> urls;
-    for (const std::string& u : options.servers) urls.push_back(u.c_str());
-    auto check = [](natsStatus s, const std::string& what) {
-      return s == NATS_OK ? Status::Ok()
-                          : Status::InvalidArgument("JetStream: " + what + ": " + NatsError(s));
-    };
+    replica::NatsAccess access;
+    access.servers = options.servers;
+    access.token_file = options.token_file;
+    access.credentials_file = options.credentials_file;
+    access.tls_ca = options.tls_ca;
+    access.tls_cert = options.tls_cert;
+    access.tls_key = options.tls_key;
     PLUMB_RETURN_IF_ERROR(
-        check(natsOptions_SetServers(nats_options, urls.data(), static_cast<int>(urls.size())),
-              "server list"));
-    natsOptions_SetName(nats_options, "plumb-train");
-    natsOptions_SetMaxReconnect(nats_options, -1);  // forever
-    natsOptions_SetReconnectWait(nats_options, 250);
+        replica::MakeNatsOptions(access, "plumb-train", &nats_options, "JetStream"));
     {
       // Never freed (see CallbackState); kept reachable, so leak checkers stay quiet.
       static std::mutex pool_mu;
@@ -165,35 +140,6 @@ struct JetStreamSource::Impl {
     callbacks->connected = connected_gauge;
     natsOptions_SetDisconnectedCB(nats_options, &Impl::OnDisconnected, callbacks);
     natsOptions_SetReconnectedCB(nats_options, &Impl::OnReconnected, callbacks);
-    if (!options.token_file.empty()) {
-      std::string token;
-      PLUMB_RETURN_IF_ERROR(ReadToken(options.token_file, &token));
-      PLUMB_RETURN_IF_ERROR(check(natsOptions_SetToken(nats_options, token.c_str()), "token"));
-    }
-    if (!options.credentials_file.empty()) {
-      std::ifstream probe(options.credentials_file);
-      if (!probe) {
-        return Status::InvalidArgument("JetStream: cannot read the credentials file " +
-                                       options.credentials_file);
-      }
-      PLUMB_RETURN_IF_ERROR(check(natsOptions_SetUserCredentialsFromFiles(
-                                      nats_options, options.credentials_file.c_str(), nullptr),
-                                  "credentials file"));
-    }
-    if (!options.tls_ca.empty() || !options.tls_cert.empty()) {
-      PLUMB_RETURN_IF_ERROR(check(natsOptions_SetSecure(nats_options, true), "TLS"));
-      if (!options.tls_ca.empty()) {
-        PLUMB_RETURN_IF_ERROR(
-            check(natsOptions_LoadCATrustedCertificates(nats_options, options.tls_ca.c_str()),
-                  "TLS CA " + options.tls_ca));
-      }
-      if (!options.tls_cert.empty()) {
-        PLUMB_RETURN_IF_ERROR(
-            check(natsOptions_LoadCertificatesChain(nats_options, options.tls_cert.c_str(),
-                                                    options.tls_key.c_str()),
-                  "TLS certificate " + options.tls_cert));
-      }
-    }
     return Status::Ok();
   }
 
@@ -216,10 +162,8 @@ struct JetStreamSource::Impl {
     auto* state = static_cast<CallbackState*>(closure);
     std::lock_guard<std::mutex> lock(state->mu);
     if (!state->alive) return;
-    char url[256] = {0};
-    natsConnection_GetConnectedUrl(nc, url, sizeof url);
     state->connected->Set(1);
-    spdlog::info("JetStream: reconnected to {}", url);
+    spdlog::info("JetStream: reconnected to {}", replica::ConnectedUrl(nc));
   }
   // Called once the consumer thread has ended: no callback touches the source afterwards.
   void SilenceCallbacks() {
@@ -230,12 +174,15 @@ struct JetStreamSource::Impl {
   // Connects and binds to the durable consumer (creating it when missing). Logs and
   // returns false on failure; the caller retries.
   bool Connect() {
-    natsStatus s = natsConnection_Connect(&nc, nats_options);
-    if (s != NATS_OK) return Failed("cannot connect to " + Servers(), s);
     jsOptions js_options;
     jsOptions_Init(&js_options);
-    if ((s = natsConnection_JetStream(&js, nc, &js_options)) != NATS_OK) {
-      return Failed("no JetStream context", s);
+    const char* step = "";
+    natsStatus s = static_cast<natsStatus>(
+        replica::ConnectJetStream(nats_options, &js_options, &nc, &js, &step));
+    if (s != NATS_OK) {
+      std::string what = step;
+      if (what == "cannot connect") what += " to " + Servers();
+      return Failed(what, s);
     }
     jsErrCode jerr = static_cast<jsErrCode>(0);
     if (options.create_replicas > 0) {
@@ -301,10 +248,8 @@ struct JetStreamSource::Impl {
     natsSubscription_SetPendingLimits(sub, -1, -1);  // bounded by max_ack_pending
     next_subject = "$JS.API.CONSUMER.MSG.NEXT." + options.stream + "." + options.consumer;
     outstanding = false;
-    char url[256] = {0};
-    natsConnection_GetConnectedUrl(nc, url, sizeof url);
     spdlog::info("JetStream: consuming stream {} subject {} as {} via {}", options.stream,
-                 options.subject, options.consumer, url);
+                 options.subject, options.consumer, replica::ConnectedUrl(nc));
     failing = false;
     connected_gauge->Set(1);
     return true;
@@ -321,13 +266,7 @@ struct JetStreamSource::Impl {
   void Disconnect() {
     if (sub != nullptr) natsSubscription_Destroy(sub);  // keeps the durable consumer
     sub = nullptr;
-    if (js != nullptr) jsCtx_Destroy(js);
-    js = nullptr;
-    if (nc != nullptr) {
-      natsConnection_Close(nc);
-      natsConnection_Destroy(nc);
-    }
-    nc = nullptr;
+    replica::CloseNats(&nc, &js);
     connected_gauge->Set(0);
   }
 

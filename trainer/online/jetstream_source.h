@@ -80,7 +80,8 @@ class JetStreamSource final : public EventSource {
   ~JetStreamSource() override;  // Stop()
 
   // InvalidArgument when the options are unusable (no server, an unreadable token file,
-  // TLS files that do not load); otherwise starts the consumer thread and returns OK even
+  // TLS files that do not load, a TLS certificate without its key; see
+  // replica::MakeNatsOptions); otherwise starts the consumer thread and returns OK even
   // when no server answers yet.
   Status Start() override;
   void Stop() override;

@@ -24,7 +24,77 @@ Status CatchUpLoop::SkipFailedLoad(uint64_t active, const Snapshot* current, con
   return s;
 }
 
+std::shared_ptr<const Snapshot> CatchUpLoop::CanaryAs(uint64_t version) const {
+  std::shared_ptr<const CanaryArm> canary = holder_->GetCanary();
+  if (canary != nullptr && canary->snapshot->version() == version) return canary->snapshot;
+  return nullptr;
+}
+
+Status CatchUpLoop::FollowCanary(
+    uint64_t version, uint32_t share_bp,
+    const std::function<Status(uint64_t, std::shared_ptr<const Snapshot>*)>& load) {
+  std::shared_ptr<const CanaryArm> arm = holder_->GetCanary();
+  if (version == 0) {
+    failed_canary_ = 0;
+    if (arm != nullptr) {
+      holder_->SetCanary(nullptr);
+      spdlog::info("canary of version {} ended", arm->snapshot->version());
+    }
+    return Status::Ok();
+  }
+  std::shared_ptr<const Snapshot> snapshot;
+  if (arm != nullptr && arm->snapshot->version() == version) {
+    if (arm->share_bp == share_bp) return Status::Ok();
+    snapshot = arm->snapshot;
+  } else {
+    if (version == failed_canary_) return Status::Ok();  // already reported
+    std::shared_ptr<const Snapshot> current = holder_->Get();
+    if (current != nullptr && current->version() == version) {
+      snapshot = current;
+    } else {
+      const auto start = std::chrono::steady_clock::now();
+      loads_.fetch_add(1, std::memory_order_relaxed);
+      Status s = load(version, &snapshot);
+      if (!s.ok()) {
+        failed_canary_ = version;
+        failed_loads_.fetch_add(1, std::memory_order_relaxed);
+        spdlog::error("canary version {} failed to load and is not served ({})", version,
+                      s.ToString());
+        if (options_.on_load_failure) options_.on_load_failure(version, s);
+        return s;
+      }
+      spdlog::info("canary version {} built in {:.3f} s", version,
+                   std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count());
+    }
+  }
+  failed_canary_ = 0;
+  auto next = std::make_shared<CanaryArm>();
+  next->snapshot = std::move(snapshot);
+  next->share_bp = share_bp;
+  holder_->SetCanary(std::move(next));
+  spdlog::info("canary: version {} serves {:.2f} % of the subjects (was {:.2f} %)", version,
+               share_bp / 100.0, arm != nullptr && arm->snapshot->version() == version
+                                     ? arm->share_bp / 100.0
+                                     : 0.0);
+  return Status::Ok();
+}
+
 Status CatchUpLoop::RunFeedOnce() {
+  Status result = RunFeedActiveOnce();
+  uint64_t canary = 0;
+  uint32_t share_bp = 0;
+  Status c = feed_->Canary(&canary, &share_bp);
+  if (c.ok()) {
+    c = FollowCanary(canary, share_bp,
+                     [this](uint64_t version, std::shared_ptr<const Snapshot>* out) {
+                       // Kept for a promotion; until then the active version's apply.
+                       return feed_->Load(version, options_.approx, out, &canary_withdrawn_);
+                     });
+  }
+  return result.ok() ? c : result;
+}
+
+Status CatchUpLoop::RunFeedActiveOnce() {
   uint64_t active = 0;
   PLUMB_RETURN_IF_ERROR(feed_->ActiveVersion(&active));
   if (active == 0) {
@@ -36,9 +106,15 @@ Status CatchUpLoop::RunFeedOnce() {
   if (active == failed_version_) return Status::Ok();  // already reported; wait for another
   const auto start = std::chrono::steady_clock::now();
   loads_.fetch_add(1, std::memory_order_relaxed);
-  std::shared_ptr<const Snapshot> next;
+  // A promoted canary's snapshot is already built.
+  std::shared_ptr<const Snapshot> next = CanaryAs(active);
   std::vector<std::string> withdrawn;
-  Status s = feed_->Load(active, options_.approx, &next, &withdrawn);
+  Status s = Status::Ok();
+  if (next != nullptr) {
+    withdrawn = canary_withdrawn_;
+  } else {
+    s = feed_->Load(active, options_.approx, &next, &withdrawn);
+  }
   const double seconds =
       std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
   if (!s.ok()) return SkipFailedLoad(active, current.get(), s);
@@ -102,17 +178,34 @@ Status CatchUpLoop::RunOnce() {
     spdlog::warn("cannot read the withdrawn items: {}", w.ToString());
   }
 
+  s = FollowActive();
+  store::Canary canary;
+  Status c = store_->GetCanary(&canary);
+  if (c.ok()) {
+    c = FollowCanary(canary.version, canary.share_bp,
+                     [this](uint64_t version, std::shared_ptr<const Snapshot>* out) {
+                       return LoadSnapshot(*store_, version, out, options_.approx);
+                     });
+  }
+  if (!s.ok()) return s;
+  if (!c.ok()) return c;
+  return damage;
+}
+
+Status CatchUpLoop::FollowActive() {
   uint64_t active = 0;
   PLUMB_RETURN_IF_ERROR(store_->GetActiveVersion(&active));
-  if (active == 0) return damage;  // nothing published yet
+  if (active == 0) return Status::Ok();  // nothing published yet
   std::shared_ptr<const Snapshot> current = holder_->Get();
-  if (current != nullptr && current->version() == active) return damage;
-  if (active == failed_version_) return damage;  // already reported; wait for another
+  if (current != nullptr && current->version() == active) return Status::Ok();
+  if (active == failed_version_) return Status::Ok();  // already reported; wait for another
 
   const auto start = std::chrono::steady_clock::now();
   loads_.fetch_add(1, std::memory_order_relaxed);
-  std::shared_ptr<const Snapshot> next;
-  s = LoadSnapshot(*store_, active, &next, options_.approx);
+  // A promoted canary's snapshot is already built.
+  std::shared_ptr<const Snapshot> next = CanaryAs(active);
+  Status s = next != nullptr ? Status::Ok()
+                             : LoadSnapshot(*store_, active, &next, options_.approx);
   const double seconds =
       std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
   if (s.IsNotFound()) {
@@ -143,7 +236,7 @@ Status CatchUpLoop::RunOnce() {
     spdlog::warn("cannot read the withdrawn items: {}", w.ToString());
   }
   if (options_.on_swap) options_.on_swap(*next, seconds);
-  return damage;
+  return Status::Ok();
 }
 
 Status CatchUpLoop::RefreshWithdrawn(bool swapped) {

@@ -7,6 +7,12 @@
 // again; the old snapshot keeps serving. Every round also follows the store's withdrawn items
 // (a small read; the list itself only when it changed) into the holder.
 //
+// Every round also follows the canary (a candidate version served to a share of the subjects,
+// store::Canary): the candidate's snapshot is built the same way, off the request path, and
+// set beside the current one (SnapshotHolder::SetCanary); a new share only changes the share;
+// a promotion swaps in the candidate's snapshot without building it again. A candidate that
+// fails to load is counted and skipped like an active version, and nothing is served from it.
+//
 // With a VersionFeed instead of a store (plumb-serve --replica-of), a round asks the feed for
 // the version to serve and loads it from the feed; the withdrawn items are those that came
 // with the version. Counters and failure handling are the same.
@@ -19,6 +25,7 @@
 #include <functional>
 #include <mutex>
 #include <string>
+#include <vector>
 #include <thread>
 
 #include "core/status.h"
@@ -86,9 +93,18 @@ class CatchUpLoop {
   void Run();
   // RunOnce with a feed.
   Status RunFeedOnce();
+  Status RunFeedActiveOnce();
+  // The store's active version: loads and swaps it when it changed.
+  Status FollowActive();
   // Remembers `active` as failed (not tried again until another version is named), counts
   // and logs the failure, tells on_load_failure, and returns s.
   Status SkipFailedLoad(uint64_t active, const Snapshot* current, const Status& s);
+  // Follows the canary `version` (0: none) at `share_bp`; `load` builds a snapshot.
+  Status FollowCanary(
+      uint64_t version, uint32_t share_bp,
+      const std::function<Status(uint64_t, std::shared_ptr<const Snapshot>*)>& load);
+  // The canary's snapshot when it is version `version` (a promotion), else null.
+  std::shared_ptr<const Snapshot> CanaryAs(uint64_t version) const;
   // Rebuilds the holder's withdrawn set when the store's generation moved, or (swapped) for
   // the snapshot just swapped in.
   Status RefreshWithdrawn(bool swapped);
@@ -99,6 +115,8 @@ class CatchUpLoop {
   const CatchUpOptions options_;
 
   uint64_t failed_version_ = 0;  // last version that failed to load (loop thread only)
+  uint64_t failed_canary_ = 0;   // last canary version that failed to load (loop thread only)
+  std::vector<std::string> canary_withdrawn_;  // the feed's withdrawn items of the canary
   std::string last_catch_up_error_;
   std::string last_damage_;
   std::chrono::steady_clock::time_point next_file_check_{};

@@ -178,7 +178,7 @@ grpc::Status RankerService::Recommend(grpc::ServerContext* context,
 
     AdmissionQueue::Ticket ticket;
     if (grpc::Status a = Admit(RankerMethod::kRecommend, *context, &ticket); !a.ok()) return a;
-    std::shared_ptr<const Snapshot> snap = holder_->Get();
+    std::shared_ptr<const Snapshot> snap = holder_->GetFor(request->user_id());
     if (snap == nullptr) return NoSnapshot();
     const std::shared_ptr<const WithdrawnItems> withdrawn = holder_->GetWithdrawn();
     RecommendQuery query;
@@ -232,7 +232,7 @@ grpc::Status RankerService::RankCandidates(grpc::ServerContext* context,
 
     AdmissionQueue::Ticket ticket;
     if (grpc::Status a = Admit(RankerMethod::kRankCandidates, *context, &ticket); !a.ok()) return a;
-    std::shared_ptr<const Snapshot> snap = holder_->Get();
+    std::shared_ptr<const Snapshot> snap = holder_->GetFor(request->user_id());
     if (snap == nullptr) return NoSnapshot();
     const std::shared_ptr<const WithdrawnItems> withdrawn = holder_->GetWithdrawn();
     CandidatesQuery query;
@@ -279,7 +279,7 @@ grpc::Status RankerService::SimilarItems(grpc::ServerContext* context,
 
     AdmissionQueue::Ticket ticket;
     if (grpc::Status a = Admit(RankerMethod::kSimilarItems, *context, &ticket); !a.ok()) return a;
-    std::shared_ptr<const Snapshot> snap = holder_->Get();
+    std::shared_ptr<const Snapshot> snap = holder_->GetFor(request->item_id());
     if (snap == nullptr) return NoSnapshot();
     const std::shared_ptr<const WithdrawnItems> withdrawn = holder_->GetWithdrawn();
     SimilarQuery query;

@@ -18,6 +18,13 @@ class VersionFeed {
   virtual ~VersionFeed() = default;
   // The version to serve (0: none yet). Called from the loop's thread only.
   virtual Status ActiveVersion(uint64_t* version) = 0;
+  // The canary to serve beside it: *version 0 when none runs; share_bp 1..10000 otherwise.
+  // Default: never a canary.
+  virtual Status Canary(uint64_t* version, uint32_t* share_bp) {
+    *version = 0;
+    *share_bp = 0;
+    return Status::Ok();
+  }
   // Builds version `version`'s snapshot (with `approx`) and returns the ids of the items
   // withdrawn with it. *out unchanged on error. Called from the loop's thread only.
   virtual Status Load(uint64_t version, const ApproxServingOptions& approx,

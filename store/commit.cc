@@ -141,6 +141,55 @@ Status Store::Impl::ChooseActive(const rocksdb::ReadOptions& ro, const StateChan
   return Status::Ok();
 }
 
+Status Store::Impl::ChooseCanary(const rocksdb::ReadOptions& ro, const StateChange& change,
+                                 CommitPlan* plan) const {
+  PLUMB_RETURN_IF_ERROR(ReadCanary(ro, &plan->canary));
+  plan->new_canary = plan->canary;
+  if (change.canary) {
+    const Canary& asked = *change.canary;
+    if (asked.version == 0) {
+      plan->new_canary = Canary{};
+    } else {
+      if (asked.share_bp == 0 || asked.share_bp > 10000) {
+        return Status::InvalidArgument("a canary's share must be 1..10000 basis points (0.01 % .. "
+                                       "100 %), got " + std::to_string(asked.share_bp));
+      }
+      if (asked.version == plan->new_active) {
+        return Status::FailedPrecondition("version " + std::to_string(asked.version) +
+                                          " is the active version; a canary needs another one");
+      }
+      Status s = CheckComplete(ro, asked.version);
+      if (s.IsNotFound()) return s;
+      if (!s.ok()) {
+        return Status::FailedPrecondition("cannot serve version " +
+                                          std::to_string(asked.version) + " as a canary: " +
+                                          s.message());
+      }
+      plan->new_canary = asked;
+      if (asked.version == plan->canary.version) {
+        plan->new_canary.started_ms = plan->canary.started_ms;
+      } else if (plan->new_canary.started_ms == 0) {
+        plan->new_canary.started_ms = NowMs();
+      }
+    }
+  }
+  // Activating the candidate promotes it: the canary ends in the same write.
+  if (plan->new_canary.version != 0 && plan->new_canary.version == plan->new_active) {
+    plan->new_canary = Canary{};
+  }
+  return Status::Ok();
+}
+
+void Store::Impl::PutCanary(const Canary& canary, rocksdb::WriteBatch* batch) const {
+  if (canary.version == 0) {
+    batch->Delete(meta, AsSlice(keys::kMetaCanary));
+    return;
+  }
+  const std::string value = keys::Fixed64(canary.version) + keys::Fixed32(canary.share_bp) +
+                            keys::Fixed64(static_cast<uint64_t>(canary.started_ms));
+  batch->Put(meta, AsSlice(keys::kMetaCanary), AsSlice(value));
+}
+
 void Store::Impl::PutState(const StateChange& change, rocksdb::WriteBatch* batch) const {
   for (IdSpace space : {IdSpace::kUser, IdSpace::kItem}) {
     for (const auto& [index, external] :
@@ -193,7 +242,10 @@ Status Store::Impl::PruneVersions(const rocksdb::ReadOptions& ro, const CommitPl
   PLUMB_RETURN_IF_ERROR(PinnedVersions(ro, &pinned));
   const int64_t now_ms = NowMs();
   for (size_t k = options.keep_versions; k < versions.size(); ++k) {
-    if (versions[k] == plan.new_active || pinned.contains(versions[k])) continue;
+    if (versions[k] == plan.new_active || versions[k] == plan.new_canary.version ||
+        pinned.contains(versions[k])) {
+      continue;
+    }
     if (options.keep_versions_for_ms > 0) {
       VersionManifest old;
       uint32_t old_rpb = 0;
@@ -222,6 +274,7 @@ Status Store::Commit(const StateChange& change, uint64_t* published) {
   PLUMB_RETURN_IF_ERROR(d.ValidateChange(change, &plan));
   PLUMB_RETURN_IF_ERROR(d.NumberVersion(change, &plan));
   PLUMB_RETURN_IF_ERROR(d.ChooseActive(ro, change, &plan));
+  PLUMB_RETURN_IF_ERROR(d.ChooseCanary(ro, change, &plan));
 
   // One batch.
   rocksdb::WriteBatch batch;
@@ -231,6 +284,9 @@ Status Store::Commit(const StateChange& change, uint64_t* published) {
     PLUMB_RETURN_IF_ERROR(d.PruneVersions(ro, plan, &batch));
   }
   if (plan.new_active != plan.active) d.PutActive(plan.new_active, &batch);
+  const Canary& was = plan.canary;
+  const Canary& now = plan.new_canary;
+  if (now.version != was.version || now.share_bp != was.share_bp) d.PutCanary(now, &batch);
 
   if (batch.Count() > 0) PLUMB_RETURN_IF_ERROR(d.Write(&batch, "committing state"));
   d.user_count.store(plan.users_after);
@@ -243,9 +299,14 @@ Status Store::Commit(const StateChange& change, uint64_t* published) {
 Status Store::Activate(uint64_t version) {
   PLUMB_RETURN_IF_ERROR(impl_->RequirePrimary("Activate"));
   std::lock_guard write_lock(impl_->write_mu);
-  PLUMB_RETURN_IF_ERROR(impl_->CheckActivatable(rocksdb::ReadOptions(), version));
+  const rocksdb::ReadOptions ro;
+  PLUMB_RETURN_IF_ERROR(impl_->CheckActivatable(ro, version));
+  Canary canary;
+  PLUMB_RETURN_IF_ERROR(impl_->ReadCanary(ro, &canary));
   rocksdb::WriteBatch batch;
   impl_->PutActive(version, &batch);
+  // Activating the candidate promotes it: the canary ends in the same write.
+  if (canary.version == version) impl_->PutCanary(Canary{}, &batch);
   return impl_->Write(&batch, "activating version " + std::to_string(version));
 }
 

@@ -291,6 +291,13 @@ Status Store::Verify(VerifyReport* report) const {
   meta64(keys::kMetaActiveVersion, &active);
   meta64(keys::kMetaNextVersion, &next_version);
   meta64(keys::kMetaLastSequence, &recorded_last);
+  Canary canary;
+  if (Status s = d.ReadCanary(ro, &canary); !s.ok()) {
+    r.problems.push_back(s.message());
+  } else if (canary.version != 0 && d.CheckComplete(ro, canary.version).IsNotFound()) {
+    r.problems.push_back("the canary names version " + std::to_string(canary.version) +
+                         ", which is not stored");
+  }
   if (cursor > d.last_seq.load()) {
     r.problems.push_back("the consumer cursor (" + std::to_string(cursor) +
                          ") is beyond the end of the event log (" +

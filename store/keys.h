@@ -71,6 +71,9 @@ inline constexpr std::string_view kMetaNextVersion = "plumb.next_version";
 inline constexpr std::string_view kMetaLastSequence = "plumb.last_sequence";
 // The pinned versions: big-endian uint64 version numbers, ascending, concatenated.
 inline constexpr std::string_view kMetaPinnedVersions = "plumb.pinned_versions";
+// The canary (Store::GetCanary): Fixed64 version, Fixed32 share in basis points, Fixed64
+// started_ms; absent when no canary runs.
+inline constexpr std::string_view kMetaCanary = "plumb.canary";
 // Stored bytes (key + value) of every event ever appended, Fixed64 (written with each append).
 inline constexpr std::string_view kMetaLogBytes = "plumb.log_bytes";
 // Retention totals: StoredRetention (store/retention.cc).

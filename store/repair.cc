@@ -206,6 +206,16 @@ Status Store::Repair(const std::string& dir, const StoreOptions& options, Repair
     }
     fixes.Put(d.meta, AsSlice(keys::kMetaActiveVersion), AsSlice(keys::Fixed64(r.active_after)));
   }
+  {
+    // A canary whose version was dropped, made active, or that cannot be read ends.
+    Canary canary;
+    const bool unreadable = !d.ReadCanary(ro, &canary).ok();
+    const bool kept =
+        std::find(complete.begin(), complete.end(), canary.version) != complete.end();
+    if (unreadable || (canary.version != 0 && (!kept || canary.version == r.active_after))) {
+      d.PutCanary(Canary{}, &fixes);
+    }
+  }
   uint64_t next = d.next_version;
   if (!r.dropped_versions.empty()) next = std::max(next, r.dropped_versions.back() + 1);
   fixes.Put(d.meta, AsSlice(keys::kMetaNextVersion), AsSlice(keys::Fixed64(next)));

@@ -252,6 +252,15 @@ struct VersionWrite {
 };
 
 // A group of changes that Commit() applies as one atomic write.
+// A canary rollout: a candidate version served beside the active one to a stable share of the
+// subjects (users; items for SimilarItems), chosen by core/canary_bucket.h. share_bp is in
+// basis points (1 = 0.01 %, 10000 = everyone).
+struct Canary {
+  uint64_t version = 0;  // 0: no canary
+  uint32_t share_bp = 0;
+  int64_t started_ms = 0;  // when this candidate's canary began (widening keeps it)
+};
+
 struct StateChange {
   // New dictionary entries (index, external id). Indexes must continue the dictionary
   // without gaps: the next user index is IdCount(kUser), and so on.
@@ -271,6 +280,12 @@ struct StateChange {
   std::optional<uint64_t> activate;
   // Named meta values to set (e.g. "auto_activate"). Keys starting with "plumb." are reserved.
   std::vector<std::pair<std::string, std::string>> meta;
+  // Starts, changes (a new share; started_ms is kept for the same version) or, with version 0,
+  // ends the canary. The candidate must be kept and complete (NotFound / FailedPrecondition as
+  // for activation), must not be the active version after the change (FailedPrecondition), and
+  // share_bp must be 1..10000 (InvalidArgument). Independently of this field, a change that
+  // activates the canary's version ends the canary in the same write (a promotion).
+  std::optional<Canary> canary;
 };
 
 // Event-log retention (RetainEvents). Events leave the log from the oldest on, each one only
@@ -527,6 +542,9 @@ class Store {
   // Makes a kept, complete version active (manifest readable, every block present and of
   // the right size). NotFound / FailedPrecondition (naming the damaged record) otherwise.
   Status Activate(uint64_t version);
+
+  // The canary (version 0 when none runs). A canary's version is never pruned.
+  Status GetCanary(Canary* out) const;
 
   // Pins a kept version (it is then never pruned, whatever its age or rank) or unpins it.
   // NotFound for a version that is not kept. Primary only. Idempotent.

@@ -192,6 +192,7 @@ struct Store::Impl {
   Status DeleteVersion(const rocksdb::ReadOptions& ro, uint64_t version,
                        rocksdb::WriteBatch* batch) const;
   Status PinnedVersions(const rocksdb::ReadOptions& ro, std::set<uint64_t>* out) const;
+  Status ReadCanary(const rocksdb::ReadOptions& ro, Canary* out) const;
   // ---- dictionary.cc ----
   // Checks one dictionary extension; `count` is the dictionary size before the change.
   Status CheckNewIds(IdSpace space, uint32_t count,
@@ -206,6 +207,8 @@ struct Store::Impl {
     uint64_t version = 0;      // its number, 0 when none is published
     uint64_t active = 0;       // the active version before and after
     uint64_t new_active = 0;
+    Canary canary;      // the canary before the change
+    Canary new_canary;  // and after
   };
   // InvalidArgument unless the dictionary extensions, interactions, degrees, cursor, meta
   // keys and the version's shape are consistent with the stored state.
@@ -227,6 +230,10 @@ struct Store::Impl {
   Status PruneVersions(const rocksdb::ReadOptions& ro, const CommitPlan& plan,
                        rocksdb::WriteBatch* batch) const;
   void PutActive(uint64_t version, rocksdb::WriteBatch* batch) const;
+  // The canary after the change (plan->new_canary), checked; after ChooseActive.
+  Status ChooseCanary(const rocksdb::ReadOptions& ro, const StateChange& change,
+                      CommitPlan* plan) const;
+  void PutCanary(const Canary& canary, rocksdb::WriteBatch* batch) const;
 };
 
 }  // namespace plumb::store

@@ -47,6 +47,29 @@ Status Store::Impl::PinnedVersions(const rocksdb::ReadOptions& ro, std::set<uint
   return Status::Ok();
 }
 
+Status Store::Impl::ReadCanary(const rocksdb::ReadOptions& ro, Canary* out) const {
+  *out = Canary{};
+  std::string value;
+  Status s = Get(ro, meta, keys::kMetaCanary, &value, "meta: canary");
+  if (s.IsNotFound()) return Status::Ok();
+  PLUMB_RETURN_IF_ERROR(s);
+  if (value.size() != 20) {
+    return Status::Corruption("meta: canary holds " + std::to_string(value.size()) +
+                              " bytes, not 20");
+  }
+  const std::string_view v(value);
+  out->version = *keys::ParseFixed64(v.substr(0, 8));
+  out->share_bp = *keys::ParseFixed32(v.substr(8, 4));
+  out->started_ms = static_cast<int64_t>(*keys::ParseFixed64(v.substr(12, 8)));
+  if (out->version == 0 || out->share_bp == 0 || out->share_bp > 10000) {
+    const uint32_t bp = out->share_bp;
+    *out = Canary{};
+    return Status::Corruption("meta: canary names version 0 or a share of " + std::to_string(bp) +
+                              " basis points");
+  }
+  return Status::Ok();
+}
+
 Status Store::Impl::ReadManifestLocked(const rocksdb::ReadOptions& ro, uint64_t version,
                                        VersionManifest* out, uint32_t* rows_per_block) const {
   std::string value;
@@ -127,6 +150,11 @@ Status Store::Impl::DeleteVersion(const rocksdb::ReadOptions& ro, uint64_t versi
 Status Store::GetActiveVersion(uint64_t* version) const {
   Impl::ReadView view(*impl_);
   return impl_->ActiveVersion(view.options(), version);
+}
+
+Status Store::GetCanary(Canary* out) const {
+  Impl::ReadView view(*impl_);
+  return impl_->ReadCanary(view.options(), out);
 }
 
 Status Store::ListVersions(std::vector<VersionManifest>* out) const {

@@ -14,6 +14,7 @@
 #include <vector>
 
 #include "core/run_every.h"
+#include "replica/canary_pointer.h"
 #include "replica/version_bundle.h"
 #include "store/store.h"
 
@@ -211,8 +212,8 @@ struct VersionShipper::Impl {
     return Status::Ok();
   }
 
-  // Drops the stream's versions beyond the newest keep_versions, never `active`.
-  void Prune(uint64_t active) {
+  // Drops the stream's versions beyond the newest keep_versions, never `active` or `canary`.
+  void Prune(uint64_t active, uint64_t canary) {
     jsOptions o;
     jsOptions_Init(&o);
     const std::string filter = options.subject_prefix + ".>";
@@ -234,7 +235,7 @@ struct VersionShipper::Impl {
     jsStreamInfo_Destroy(info);
     std::sort(versions.rbegin(), versions.rend());
     for (size_t i = options.keep_versions; i < versions.size(); ++i) {
-      if (versions[i] == active) continue;
+      if (versions[i] == active || versions[i] == canary) continue;
       if (Purge(Subject(versions[i])).ok()) {
         spdlog::info("versions: purged version {} from stream {} (keeping the newest {})",
                      versions[i], options.stream, options.keep_versions);
@@ -245,29 +246,47 @@ struct VersionShipper::Impl {
   void Round() {
     if (nc == nullptr && !Connect()) return;
     uint64_t active = 0;
-    if (Status s = store->GetActiveVersion(&active); !s.ok()) {
-      spdlog::warn("versions: cannot read the active version: {}", s.ToString());
+    store::Canary canary;
+    Status read = store->GetActiveVersion(&active);
+    if (read.ok()) read = store->GetCanary(&canary);
+    if (!read.ok()) {
+      spdlog::warn("versions: cannot read the active version or the canary: {}", read.ToString());
       return;
     }
-    if (active == 0 || active == pointer_put.load()) return;
-    Status s = Ship(active);
-    if (s.ok()) {
-      uint64_t revision = 0;
-      const natsStatus put =
-          kvStore_PutString(&revision, kv, "active", std::to_string(active).c_str());
-      if (put != NATS_OK) {
-        s = Status::Unavailable("putting the pointer: " + NatsErrorText(put));
+    if (active == 0) return;
+    if (active != pointer_put.load()) {
+      if (Status s = ShipAndPoint(active, "active", std::to_string(active)); !s.ok()) {
+        Failed("version " + std::to_string(active), s.ToString());
+        return;
       }
+      spdlog::info("versions: the pointer names version {}", active);
+      pointer_put.store(active);
+      pointer_gauge->Set(static_cast<double>(active));
     }
-    if (!s.ok()) {
-      Failed("version " + std::to_string(active), s.ToString());
-      return;
+    // The canary after the active version: a promotion names the candidate active first, so a
+    // replica never sees the canary end before the candidate serves everyone.
+    const std::string canary_text = FormatCanaryPointer(canary.version, canary.share_bp);
+    if (canary_text != canary_put) {
+      if (Status s = ShipAndPoint(canary.version, "canary", canary_text); !s.ok()) {
+        Failed("canary version " + std::to_string(canary.version), s.ToString());
+        return;
+      }
+      spdlog::info("versions: the canary key holds \"{}\"", canary_text);
+      canary_put = canary_text;
     }
-    spdlog::info("versions: the pointer names version {}", active);
-    pointer_put.store(active);
-    pointer_gauge->Set(static_cast<double>(active));
     failing.clear();
-    Prune(active);
+    Prune(active, canary.version);
+  }
+
+  // Ships `version` (unless 0) and then puts `value` under `key` of the bucket.
+  Status ShipAndPoint(uint64_t version, const char* key, const std::string& value) {
+    if (version != 0) PLUMB_RETURN_IF_ERROR(Ship(version));
+    uint64_t revision = 0;
+    const natsStatus put = kvStore_PutString(&revision, kv, key, value.c_str());
+    if (put != NATS_OK) {
+      return Status::Unavailable(std::string("putting the ") + key + " key: " + NatsErrorText(put));
+    }
+    return Status::Ok();
   }
 
   void Run() {
@@ -283,6 +302,7 @@ struct VersionShipper::Impl {
   kvStore* kv = nullptr;
   size_t chunk_bytes = 0;
   std::string failing;
+  std::string canary_put;  // the canary key as last put ("" before the first)
   std::atomic<int> publish_errors{0};
   std::atomic<uint64_t> pointer_put{0};
   std::atomic<uint64_t> shipped_total{0};

@@ -10,7 +10,10 @@
 //      interrupted ship is purged first. A version is shipped once: a rollback to it only
 //      moves the pointer.
 //   2. puts the version number (decimal text) under key `active` of the key-value bucket.
-//   3. purges the stream's versions beyond the newest keep_versions (never the active one).
+//   3. does the same for the store's canary (store::Canary): ships the candidate, then puts
+//      key `canary` (replica/canary_pointer.h: "<version> <share_bp>" or "none").
+//   4. purges the stream's versions beyond the newest keep_versions (never the active or the
+//      canary's).
 // The stream (file storage, subjects `<subject_prefix>.>`) and the bucket are created with
 // `replicas` replicas when missing. A failure (NATS down, a publish not acknowledged) is
 // logged once per episode, counted, and retried every interval; the pointer never names a

@@ -3,6 +3,7 @@
 // docs/operators.md: plumb_exposure_* and plumb_interaction_*.
 #pragma once
 
+#include <string>
 #include <vector>
 
 #include <prometheus/collectable.h>
@@ -12,6 +13,14 @@
 #include "server/snapshot_holder.h"
 
 namespace plumb::server {
+
+// The exposure gauges of `fig` (summarised against `snap`), named `prefix` + the part after
+// "plumb_exposure_" of the names in docs/operators.md, each metric carrying `labels`; the
+// interaction and validation-target gauges (the same for every arm) only with
+// with_interaction.
+std::vector<prometheus::MetricFamily> ExposureFamilies(
+    const ExposureFigures& fig, const Snapshot& snap, const std::string& prefix,
+    const std::vector<prometheus::ClientMetric::Label>& labels, bool with_interaction);
 
 class ExposureMetrics final : public prometheus::Collectable {
  public:

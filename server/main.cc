@@ -17,6 +17,7 @@
 #include "rpc/listen_address.h"
 #include "rpc/listen_probe.h"
 #include "server/admission_queue.h"
+#include "server/canary_exposure.h"
 #include "server/catch_up_loop.h"
 #include "server/exposure_metrics.h"
 #include "server/exposure_sink.h"
@@ -146,7 +147,10 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   Scorer scorer(config.fold_in);
   ExposureCounter exposure;
   ExposureWindow window(config.exposure);
-  ExposureTee exposure_tee(&exposure, config.exposure_monitor ? &window : nullptr);
+  // Each arm of a canary is watched apart (its windows exist only while a canary runs).
+  auto canary_exposure = std::make_shared<CanaryExposure>(&holder, config.exposure);
+  ExposureTee monitors(config.exposure_monitor ? &window : nullptr, canary_exposure.get());
+  ExposureTee exposure_tee(&exposure, &monitors);
   std::atomic<RankingServer*> endpoint{nullptr};
   CatchUpOptions follow;
   follow.interval = std::chrono::milliseconds(config.catchup_interval_ms);
@@ -186,6 +190,7 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
     http = std::make_unique<plumb::status::StatusEndpoint>();
     http->RegisterCollectable(metrics);
     if (config.exposure_monitor) http->RegisterCollectable(exposure_metrics);
+    http->RegisterCollectable(canary_exposure);
     if (feed) http->RegisterCollectable(feed->registry());
     http->RegisterPage("/", [&status_page] {
       return plumb::status::HttpReply{200, "text/html; charset=utf-8", status_page.Html(NowMs())};

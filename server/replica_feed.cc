@@ -19,6 +19,7 @@
 #include <thread>
 
 #include "core/run_every.h"
+#include "replica/canary_pointer.h"
 #include "replica/version_bundle.h"
 
 namespace plumb::server {
@@ -263,8 +264,73 @@ struct ReplicaFeed::Impl {
     std::sort(kept.rbegin(), kept.rend());
     for (size_t i = options.keep_local; i < kept.size(); ++i) {
       if (kept[i] == local_active.load()) continue;
+      {
+        std::lock_guard<std::mutex> lock(canary_mu);
+        if (kept[i] == canary_version) continue;
+      }
       fs::remove(BundlePath(kept[i]), ec);
     }
+  }
+
+  // True when version v is on this disk, fetched now if it was not; false (logged, counted)
+  // when it could not be fetched or was refused.
+  bool Have(uint64_t v) {
+    std::error_code ec;
+    if (!fs::exists(BundlePath(v), ec)) {
+      if (v == refused_version && std::chrono::steady_clock::now() < refused_until) return false;
+      std::string bytes;
+      const auto start = std::chrono::steady_clock::now();
+      Status f = Fetch(v, &bytes);
+      const auto fetched = std::chrono::steady_clock::now();
+      auto decoded = std::make_shared<replica::VersionBundle>();
+      Status written = Status::Ok();
+      if (f.ok()) {
+        // The bytes passed every chunk's and the total CRC: write them (to the .tmp name)
+        // while they are decoded, and move the file into place only if they decode.
+        std::thread writer([&] { written = WriteTemporary(BundlePath(v), bytes); });
+        f = replica::DecodeBundle(bytes, decoded.get());
+        if (f.ok() && decoded->version != v) {
+          f = Status::Corruption("the bundle names version " + std::to_string(decoded->version));
+        }
+        writer.join();
+        if (f.ok() && written.ok()) written = CommitTemporary(BundlePath(v));
+        if (!f.ok() && written.ok()) {
+          std::error_code ec;
+          fs::remove(BundlePath(v).string() + ".tmp", ec);
+        }
+      }
+      if (f.IsNotFound()) {
+        Refuse(v, RefusedReason::kMissing, f);
+        return false;
+      }
+      if (f.IsCorruption()) {
+        Refuse(v, RefusedReason::kDamaged, f);
+        return false;
+      }
+      if (!f.ok()) {
+        spdlog::warn("replica: fetching version {}: {}; retrying", v, f.ToString());
+        return false;
+      }
+      if (!written.ok()) {
+        spdlog::error("replica: cannot keep version {}: {}", v, written.ToString());
+        return false;
+      }
+      received_counter->Increment();
+      received_total.fetch_add(1);
+      const auto now = std::chrono::steady_clock::now();
+      auto secs = [](auto a, auto b) { return std::chrono::duration<double>(b - a).count(); };
+      spdlog::info(
+          "replica: received version {} ({:.1f} MB) in {:.2f} s (fetch {:.2f} s, then decode "
+          "and write {:.2f} s)",
+          v, bytes.size() / 1e6, secs(start, now), secs(start, fetched), secs(fetched, now));
+      std::string().swap(bytes);
+      {
+        // The catch-up thread builds from this copy rather than reading the file back.
+        std::lock_guard<std::mutex> lock(fresh_mu);
+        fresh = std::move(decoded);
+      }
+    }
+    return true;
   }
 
   void Round() {
@@ -304,66 +370,51 @@ struct ReplicaFeed::Impl {
       return;
     }
     pointer_gauge->Set(static_cast<double>(v));
-    std::error_code ec;
-    if (!fs::exists(BundlePath(v), ec)) {
-      if (v == refused_version && std::chrono::steady_clock::now() < refused_until) return;
-      std::string bytes;
-      const auto start = std::chrono::steady_clock::now();
-      Status f = Fetch(v, &bytes);
-      const auto fetched = std::chrono::steady_clock::now();
-      auto decoded = std::make_shared<replica::VersionBundle>();
-      Status written = Status::Ok();
-      if (f.ok()) {
-        // The bytes passed every chunk's and the total CRC: write them (to the .tmp name)
-        // while they are decoded, and move the file into place only if they decode.
-        std::thread writer([&] { written = WriteTemporary(BundlePath(v), bytes); });
-        f = replica::DecodeBundle(bytes, decoded.get());
-        if (f.ok() && decoded->version != v) {
-          f = Status::Corruption("the bundle names version " + std::to_string(decoded->version));
-        }
-        writer.join();
-        if (f.ok() && written.ok()) written = CommitTemporary(BundlePath(v));
-        if (!f.ok() && written.ok()) {
-          std::error_code ec;
-          fs::remove(BundlePath(v).string() + ".tmp", ec);
-        }
-      }
-      if (f.IsNotFound()) {
-        Refuse(v, RefusedReason::kMissing, f);
-        return;
-      }
-      if (f.IsCorruption()) {
-        Refuse(v, RefusedReason::kDamaged, f);
-        return;
-      }
-      if (!f.ok()) {
-        spdlog::warn("replica: fetching version {}: {}; retrying", v, f.ToString());
-        return;
-      }
-      if (!written.ok()) {
-        spdlog::error("replica: cannot keep version {}: {}", v, written.ToString());
-        return;
-      }
-      received_counter->Increment();
-      received_total.fetch_add(1);
-      const auto now = std::chrono::steady_clock::now();
-      auto secs = [](auto a, auto b) { return std::chrono::duration<double>(b - a).count(); };
-      spdlog::info(
-          "replica: received version {} ({:.1f} MB) in {:.2f} s (fetch {:.2f} s, then decode "
-          "and write {:.2f} s)",
-          v, bytes.size() / 1e6, secs(start, now), secs(start, fetched), secs(fetched, now));
-      std::string().swap(bytes);
-      {
-        // The catch-up thread builds from this copy rather than reading the file back.
-        std::lock_guard<std::mutex> lock(fresh_mu);
-        fresh = std::move(decoded);
-      }
-    }
+    if (!Have(v)) return;
     if (Status p = SetPointer(v); !p.ok()) {
       spdlog::error("replica: cannot move the local pointer to {}: {}", v, p.ToString());
       return;
     }
+    FollowCanaryKey();
     PruneLocal();
+  }
+
+  // The canary key: its version fetched like the active one, then the local CANARY file moved.
+  void FollowCanaryKey() {
+    kvEntry* entry = nullptr;
+    uint64_t v = 0;
+    uint32_t share_bp = 0;
+    natsStatus s = kvStore_Get(&entry, kv, "canary");
+    if (s == NATS_OK) {
+      const bool parsed = replica::ParseCanaryPointer(kvEntry_ValueString(entry), &v, &share_bp);
+      kvEntry_Destroy(entry);
+      if (!parsed) {
+        if (!canary_unreadable) spdlog::error("replica: the canary key holds no canary");
+        canary_unreadable = true;
+        return;
+      }
+      canary_unreadable = false;
+    } else if (s != NATS_NOT_FOUND) {
+      Failed("reading the canary key", s);
+      return;
+    }
+    if (v != 0 && !Have(v)) return;
+    if (Status c = SetCanary(v, share_bp); !c.ok()) {
+      spdlog::error("replica: cannot move the local canary to {}: {}", v, c.ToString());
+    }
+  }
+
+  Status SetCanary(uint64_t v, uint32_t share_bp) {
+    {
+      std::lock_guard<std::mutex> lock(canary_mu);
+      if (canary_version == v && canary_share_bp == share_bp) return Status::Ok();
+    }
+    PLUMB_RETURN_IF_ERROR(WriteDurably(fs::path(options.dir) / "CANARY",
+                                       replica::FormatCanaryPointer(v, share_bp) + "\n"));
+    std::lock_guard<std::mutex> lock(canary_mu);
+    canary_version = v;
+    canary_share_bp = share_bp;
+    return Status::Ok();
   }
 
   void Run() {
@@ -389,6 +440,11 @@ struct ReplicaFeed::Impl {
   jsCtx* js = nullptr;
   kvStore* kv = nullptr;
   std::string failing;
+  bool canary_unreadable = false;
+  // The canary as the CANARY file holds it (0: none); its bundle is on disk.
+  mutable std::mutex canary_mu;
+  uint64_t canary_version = 0;
+  uint32_t canary_share_bp = 0;
   uint64_t refused_version = 0;
   std::chrono::steady_clock::time_point refused_until{};
 
@@ -426,6 +482,16 @@ Status ReplicaFeed::Open() {
                    (dir / "POINTER").string());
     }
   }
+  if (ReadFile(dir / "CANARY", &text).ok()) {
+    uint32_t share_bp = 0;
+    if (replica::ParseCanaryPointer(text, &v, &share_bp) && v != 0 &&
+        fs::exists(impl_->BundlePath(v), ec)) {
+      impl_->canary_version = v;
+      impl_->canary_share_bp = share_bp;
+      spdlog::info("replica: {} names canary version {} at {:.2f} %, on disk",
+                   (dir / "CANARY").string(), v, share_bp / 100.0);
+    }
+  }
   return replica::MakeNatsOptions(impl_->options.access, "plumb-serve replica",
                                   &impl_->nats_options);
 }
@@ -445,6 +511,13 @@ void ReplicaFeed::Stop() {
 
 Status ReplicaFeed::ActiveVersion(uint64_t* version) {
   *version = impl_->local_active.load();
+  return Status::Ok();
+}
+
+Status ReplicaFeed::Canary(uint64_t* version, uint32_t* share_bp) {
+  std::lock_guard<std::mutex> lock(impl_->canary_mu);
+  *version = impl_->canary_version;
+  *share_bp = impl_->canary_share_bp;
   return Status::Ok();
 }
 

@@ -9,6 +9,8 @@
 //                         from disk: at a restart, or a rollback to it)
 //   POINTER               the version to serve, decimal: the last pointer whose version is
 //                         on disk here
+//   CANARY                the canary to serve beside it (replica/canary_pointer.h text): the
+//                         last canary key whose version is on disk here
 // Files are written to a .tmp name, fsync'ed, renamed into place and the directory
 // fsync'ed, so a crash leaves either the old file or the whole new one.
 //
@@ -16,10 +18,11 @@
 // version not on disk, the thread reads that version's subject from the stream (an ordered
 // consumer), checks every chunk, the count, the total size and CRC (BundleAssembler) and
 // decodes the bundle; only then is it written and POINTER moved. A rollback to a version on
-// disk only moves POINTER. A damaged version (any check fails, or the stream holds it without
+// disk only moves POINTER. The canary key is followed the same way after the pointer: its
+// version fetched when missing, then CANARY moved. A damaged version (any check fails, or the stream holds it without
 // its trailer) is refused: logged, counted in plumb_replica_versions_refused_total{reason},
 // and not tried again for refused_retry; the version served does not change. Local
-// bundles beyond the newest keep_local (never POINTER's) are deleted.
+// bundles beyond the newest keep_local (never POINTER's or CANARY's) are deleted.
 //
 // CatchUpLoop (server/catch_up_loop.h) asks ActiveVersion() and Load()s off the request path;
 // a version just received is handed over decoded, without reading the file back.
@@ -81,6 +84,7 @@ class ReplicaFeed final : public VersionFeed {
   void Stop();
 
   Status ActiveVersion(uint64_t* version) override;
+  Status Canary(uint64_t* version, uint32_t* share_bp) override;
   Status Load(uint64_t version, const ApproxServingOptions& approx,
               std::shared_ptr<const Snapshot>* out, std::vector<std::string>* withdrawn) override;
 

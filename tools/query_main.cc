@@ -1,7 +1,8 @@
 // plumb-query: one call to a running plumb process, answer printed for people.
 //
 //   plumb-serve (Ranker, health):  recommend, similar, rank, health
-//   plumb-train (ModelControl):    versions, status, activate, pin, unpin, auto-activate,
+//   plumb-train (ModelControl):    versions, status, activate, canary-start, canary-widen,
+//                                  canary-promote, canary-abort, pin, unpin, auto-activate,
 //                                  retrain, items withdraw|restore|list
 //
 // Exit status: 0 success (health: only when SERVING); 1 the call failed, with one line
@@ -290,6 +291,13 @@ void PrintStatus(const plumb::v1::TrainerStatus& s) {
               static_cast<unsigned long long>(lag));
   std::printf("auto-activate:     %s%s%s\n", s.auto_activate() ? "on" : "off",
               s.auto_activate_reason().empty() ? "" : " - ", s.auto_activate_reason().c_str());
+  if (s.canary_version() != 0) {
+    std::printf("canary:            version %llu serves %g %% of the subjects since %s\n",
+                static_cast<unsigned long long>(s.canary_version()), s.canary_share_percent(),
+                FormatTime(s.canary_started_ms()).c_str());
+  } else {
+    std::printf("canary:            none\n");
+  }
   std::printf("idle:              %s\n", s.idle() ? "yes (caught up, everything published)" : "no");
   std::printf("training:          %s\n", FormatTraining(s.training()).c_str());
   if (!s.pending_config_change().empty()) {
@@ -419,6 +427,56 @@ int Pin(const Connection& c, uint64_t version, bool pinned) {
   std::printf(
       "version %llu is %s\n", static_cast<unsigned long long>(response.version()),
       response.pinned() ? "pinned: never pruned" : "unpinned: pruned by the retention rules");
+  return 0;
+}
+
+// canary-start (version given) and canary-widen (version 0: the running canary's).
+int StartCanary(const Connection& c, uint64_t version, double share_percent) {
+  if (version == 0) {
+    plumb::v1::TrainerStatus status;
+    if (int rc = Call<plumb::v1::ModelControl>(c, Answerer::kTrain,
+                                               &plumb::v1::ModelControl::Stub::GetStatus,
+                                               plumb::v1::GetStatusRequest(), &status)) {
+      return rc;
+    }
+    if (status.canary_version() == 0) {
+      std::fprintf(stderr,
+                   "plumb-query: no canary runs; start one with canary-start --model-version N "
+                   "--share PERCENT\n");
+      return 1;
+    }
+    version = status.canary_version();
+  }
+  plumb::v1::SetCanaryRequest request;
+  request.set_version(version);
+  request.set_share_percent(share_percent);
+  plumb::v1::TrainerStatus response;
+  if (int rc = Call<plumb::v1::ModelControl>(
+          c, Answerer::kTrain, &plumb::v1::ModelControl::Stub::SetCanary, request, &response)) {
+    return rc;
+  }
+  std::printf("canary: version %llu serves %g %% of the subjects, version %llu the rest\n",
+              static_cast<unsigned long long>(response.canary_version()),
+              response.canary_share_percent(),
+              static_cast<unsigned long long>(response.active_version()));
+  return 0;
+}
+
+int EndCanary(const Connection& c, bool promote) {
+  plumb::v1::EndCanaryRequest request;
+  request.set_promote(promote);
+  plumb::v1::TrainerStatus response;
+  if (int rc = Call<plumb::v1::ModelControl>(
+          c, Answerer::kTrain, &plumb::v1::ModelControl::Stub::EndCanary, request, &response)) {
+    return rc;
+  }
+  if (promote) {
+    std::printf("canary promoted: version %llu is active and serves everyone\n",
+                static_cast<unsigned long long>(response.active_version()));
+  } else {
+    std::printf("canary aborted: version %llu serves everyone\n",
+                static_cast<unsigned long long>(response.active_version()));
+  }
   return 0;
 }
 
@@ -659,6 +717,33 @@ int main(int argc, char** argv) {
       ->required()
       ->check(CLI::IsMember({"on", "off"}));
 
+  uint64_t canary_version = 0;
+  double canary_share = 0;
+  CLI::App* canary_start = app.add_subcommand(
+      "canary-start",
+      "Serve a kept version to a share of the users beside the active one "
+      "(ModelControl/SetCanary; pauses automatic activation)");
+  AddConnection(canary_start, &control, true);
+  canary_start->add_option("--model-version", canary_version, "The candidate version")
+      ->required()
+      ->default_str("")
+      ->check(CLI::PositiveNumber);
+  CLI::App* canary_widen = app.add_subcommand(
+      "canary-widen", "Change the running canary's share (ModelControl/SetCanary)");
+  AddConnection(canary_widen, &control, true);
+  for (CLI::App* cmd : {canary_start, canary_widen}) {
+    cmd->add_option("--share", canary_share, "Percent of the users served the candidate")
+        ->required()
+        ->default_str("")
+        ->check(CLI::Range(0.01, 100.0));
+  }
+  CLI::App* canary_promote = app.add_subcommand(
+      "canary-promote", "Make the canary's version active for everyone (ModelControl/EndCanary)");
+  AddConnection(canary_promote, &control, true);
+  CLI::App* canary_abort = app.add_subcommand(
+      "canary-abort", "End the canary: serve everyone the active version (ModelControl/EndCanary)");
+  AddConnection(canary_abort, &control, true);
+
   std::string retrain_reason;
   CLI::App* retrain = app.add_subcommand(
       "retrain", "Rebuild the model from the whole event log in the background (a refit)");
@@ -712,6 +797,10 @@ int main(int argc, char** argv) {
   if (*withdraw) return SetAvailability(items_args, true);
   if (*restore) return SetAvailability(items_args, false);
   if (*list_withdrawn) return ListWithdrawn(items_args);
+  if (*canary_start) return StartCanary(control, canary_version, canary_share);
+  if (*canary_widen) return StartCanary(control, 0, canary_share);
+  if (*canary_promote) return EndCanary(control, true);
+  if (*canary_abort) return EndCanary(control, false);
   if (*pin) return Pin(control, pin_version, true);
   if (*unpin) return Pin(control, pin_version, false);
   return AutoActivate(control, setting);

@@ -1,6 +1,8 @@
 #include "trainer/online/control_service.h"
 
 #include <algorithm>
+#include <cmath>
+#include <cstdio>
 #include <string>
 #include <vector>
 
@@ -11,6 +13,12 @@
 
 namespace plumb::online {
 namespace {
+
+std::string FormatShare(double percent) {
+  char text[32];
+  std::snprintf(text, sizeof text, "%g", percent);
+  return text;
+}
 
 using rpc::ToGrpcStatus;
 
@@ -107,6 +115,16 @@ ControlService::ControlService(store::Store* store, OnlineLoop* loop,
                          [this](grpc::ServerContext* c, const SetAutoActivateRequest* q,
                                 TrainerStatus* r) { return SetAutoActivate(c, q, r); },
                          observer("SetAutoActivate")));
+  MarkMethodStreamed(rpc::MethodIndex(service, "SetCanary"),
+                     rpc::CheckedUnary<SetCanaryRequest, TrainerStatus>(
+                         [this](grpc::ServerContext* c, const SetCanaryRequest* q,
+                                TrainerStatus* r) { return SetCanary(c, q, r); },
+                         observer("SetCanary")));
+  MarkMethodStreamed(rpc::MethodIndex(service, "EndCanary"),
+                     rpc::CheckedUnary<EndCanaryRequest, TrainerStatus>(
+                         [this](grpc::ServerContext* c, const EndCanaryRequest* q,
+                                TrainerStatus* r) { return EndCanary(c, q, r); },
+                         observer("EndCanary")));
   MarkMethodStreamed(rpc::MethodIndex(service, "SetPinned"),
                      rpc::CheckedUnary<SetPinnedRequest, VersionInfo>(
                          [this](grpc::ServerContext* c, const SetPinnedRequest* q, VersionInfo* r) {
@@ -235,6 +253,9 @@ void ControlService::FillStatus(plumb::v1::TrainerStatus* out) const {
   out->set_candidates_skipped(s.candidates_skipped);
   out->set_tuned_beta(s.tuned_beta);
   out->set_tune_reason(s.tune_reason);
+  out->set_canary_version(s.canary.version);
+  out->set_canary_share_percent(s.canary.share_bp / 100.0);
+  out->set_canary_started_ms(s.canary.started_ms);
   uint64_t generation = 0, withdrawn = 0;
   if (store_->GetAvailability(&generation, &withdrawn).ok()) out->set_withdrawn_items(withdrawn);
   store::LogStats log;
@@ -272,6 +293,46 @@ grpc::Status ControlService::Activate(grpc::ServerContext* context,
   }
   response->set_active_version(request->version());
   response->set_previous_version(previous);
+  return grpc::Status::OK;
+}
+
+grpc::Status ControlService::SetCanary(grpc::ServerContext* context,
+                                       const plumb::v1::SetCanaryRequest* request,
+                                       plumb::v1::TrainerStatus* response) {
+  InflightCalls::Scope scope;
+  if (grpc::Status s = Admit(admission_, *context, &scope); !s.ok()) return s;
+  if (request->version() == 0) {
+    return grpc::Status(grpc::StatusCode::INVALID_ARGUMENT,
+                        "version is 0; name a kept version other than the active one (see "
+                        "ListVersions)");
+  }
+  const double percent = request->share_percent();
+  // Resolution 0.01 %: one basis point.
+  const double bp = std::round(percent * 100.0);
+  if (!std::isfinite(percent) || bp < 1.0 || bp > 10000.0) {
+    return grpc::Status(grpc::StatusCode::INVALID_ARGUMENT,
+                        "share_percent must be 0.01..100, got " + FormatShare(percent));
+  }
+  if (Status s = loop_->SetCanary(request->version(), static_cast<uint32_t>(bp), nullptr);
+      !s.ok()) {
+    return ToGrpcStatus(s, "cannot serve version " + std::to_string(request->version()) +
+                               " as a canary");
+  }
+  FillStatus(response);
+  return grpc::Status::OK;
+}
+
+grpc::Status ControlService::EndCanary(grpc::ServerContext* context,
+                                       const plumb::v1::EndCanaryRequest* request,
+                                       plumb::v1::TrainerStatus* response) {
+  InflightCalls::Scope scope;
+  if (grpc::Status s = Admit(admission_, *context, &scope); !s.ok()) return s;
+  uint64_t version = 0;
+  if (Status s = loop_->EndCanary(request->promote(), &version); !s.ok()) {
+    return ToGrpcStatus(s, request->promote() ? "cannot promote the canary"
+                                              : "cannot abort the canary");
+  }
+  FillStatus(response);
   return grpc::Status::OK;
 }
 

@@ -42,6 +42,10 @@ class ControlService final : public plumb::v1::ModelControl::Service {
   grpc::Status Retrain(grpc::ServerContext* context, const plumb::v1::RetrainRequest* request,
                        plumb::v1::TrainerStatus* response) override;
   // NOT_FOUND for a version that is not kept, INVALID_ARGUMENT for version 0.
+  grpc::Status SetCanary(grpc::ServerContext* context, const plumb::v1::SetCanaryRequest* request,
+                         plumb::v1::TrainerStatus* response) override;
+  grpc::Status EndCanary(grpc::ServerContext* context, const plumb::v1::EndCanaryRequest* request,
+                         plumb::v1::TrainerStatus* response) override;
   grpc::Status SetPinned(grpc::ServerContext* context, const plumb::v1::SetPinnedRequest* request,
                          plumb::v1::VersionInfo* response) override;
   // INVALID_ARGUMENT for no ids, more than kMaxAvailabilityIds, or an id that is empty or

@@ -273,6 +273,7 @@ Status OnlineLoop::Create(store::Store* store, const OnlineOptions& options,
   s.pending_config_change = impl.pending_config_change;
   s.refit_pairs = impl.refit_pairs;
   s.train_pairs = impl.state.train().size();
+  PLUMB_RETURN_IF_ERROR(store->GetCanary(&s.canary));
   s.tuned_beta = impl.tune_rows.empty() ? 0.0 : t.beta;
   s.tune_reason = impl.tune_reason;
   spdlog::info(
@@ -358,12 +359,78 @@ Status OnlineLoop::Activate(uint64_t version, uint64_t* previous) {
   if (previous) *previous = before;
   std::lock_guard<std::mutex> lock(impl.mu);
   impl.active_model = std::move(copy);
+  if (impl.status.canary.version == version) impl.status.canary = store::Canary{};
   impl.status.active_version = version;
   impl.status.active_validation_recall = m.validation_recall;
   impl.status.auto_activate = false;
   impl.status.auto_activate_reason = reason;
   spdlog::info("version {} activated by request (was {}); automatic activation paused", version,
                before);
+  return Status::Ok();
+}
+
+Status OnlineLoop::SetCanary(uint64_t version, uint32_t share_bp, store::Canary* before) {
+  Impl& impl = *impl_;
+  std::lock_guard<std::mutex> publishing(impl.publish_mu);
+  store::Canary was;
+  PLUMB_RETURN_IF_ERROR(impl.store->GetCanary(&was));
+  if (before != nullptr) *before = was;
+  store::StateChange change;
+  change.canary = store::Canary{version, share_bp, 0};
+  std::string reason;
+  const bool starting = was.version != version;
+  if (starting) {
+    reason = "paused: a canary of version " + std::to_string(version) +
+             " started; promote or abort it (`plumb-query canary-promote` / `canary-abort`), "
+             "then turn it back on with `plumb-query auto-activate on`";
+    change.meta.emplace_back(kAutoActivateKey, "0");
+    change.meta.emplace_back(kAutoActivateReasonKey, reason);
+  }
+  PLUMB_RETURN_IF_ERROR(impl.store->Commit(change));
+  store::Canary now;
+  PLUMB_RETURN_IF_ERROR(impl.store->GetCanary(&now));
+  std::lock_guard<std::mutex> lock(impl.mu);
+  impl.status.canary = now;
+  if (starting) {
+    impl.status.auto_activate = false;
+    impl.status.auto_activate_reason = reason;
+    spdlog::info("canary: version {} serves {:.2f} % of the subjects; automatic activation "
+                 "paused",
+                 version, share_bp / 100.0);
+  } else {
+    spdlog::info("canary: version {} now serves {:.2f} % of the subjects (was {:.2f} %)", version,
+                 share_bp / 100.0, was.share_bp / 100.0);
+  }
+  return Status::Ok();
+}
+
+Status OnlineLoop::EndCanary(bool promote, uint64_t* version) {
+  store::Canary was;
+  {
+    std::lock_guard<std::mutex> publishing(impl_->publish_mu);
+    PLUMB_RETURN_IF_ERROR(impl_->store->GetCanary(&was));
+    if (was.version == 0) {
+      return Status::FailedPrecondition("no canary runs; start one with `plumb-query "
+                                        "canary-start --model-version N --share PERCENT`");
+    }
+    if (version != nullptr) *version = was.version;
+    if (!promote) {
+      store::StateChange change;
+      change.canary = store::Canary{};
+      PLUMB_RETURN_IF_ERROR(impl_->store->Commit(change));
+      std::lock_guard<std::mutex> lock(impl_->mu);
+      impl_->status.canary = store::Canary{};
+      spdlog::info("canary of version {} aborted; everyone is served the active version",
+                   was.version);
+      return Status::Ok();
+    }
+  }
+  // Activating the candidate ends the canary in the same write (Store::Commit).
+  uint64_t previous = 0;
+  PLUMB_RETURN_IF_ERROR(Activate(was.version, &previous));
+  std::lock_guard<std::mutex> lock(impl_->mu);
+  impl_->status.canary = store::Canary{};
+  spdlog::info("canary of version {} promoted (was {})", was.version, previous);
   return Status::Ok();
 }
 

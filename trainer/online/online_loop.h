@@ -107,6 +107,8 @@ struct OnlineStatus {
   int64_t last_publish_ms = 0;
   // Caught up with the log, idle replay spent, and everything learned is published.
   bool idle = false;
+  // The canary (version 0: none).
+  store::Canary canary;
 };
 
 class OnlineLoop {
@@ -144,6 +146,18 @@ class OnlineLoop {
   // NotFound / FailedPrecondition as Store::Activate. `previous` receives the version that
   // was active.
   Status Activate(uint64_t version, uint64_t* previous);
+
+  // Canary rollouts (store::Canary): serves `version` to `share_bp` basis points of the
+  // subjects beside the active version. Starting one pauses automatic activation in the same
+  // write, so that the version it is compared with stays put until an operator decides;
+  // calling it again for the running candidate only changes the share (widening). `before`
+  // (may be null) receives the canary that ran. NotFound / FailedPrecondition /
+  // InvalidArgument as Store::Commit.
+  Status SetCanary(uint64_t version, uint32_t share_bp, store::Canary* before);
+  // Ends the canary: `promote` makes its version active (exactly as Activate), otherwise
+  // everyone is served the active version again. `version` (may be null) receives the
+  // candidate. FailedPrecondition when no canary runs.
+  Status EndCanary(bool promote, uint64_t* version);
 
   // Turns automatic activation on or off (persisted in the store's meta "auto_activate" and
   // "auto_activate_reason").

@@ -36,12 +36,14 @@ class FollowingServer {
  public:
   // Opens the secondary (its own files in `scratch`), runs one catch-up pass, starts the
   // server, then the loop's thread.
-  Status Start(const std::string& db, const std::string& scratch, const CatchUpOptions& follow) {
+  // Served lists go to `exposure` (borrowed, may be null).
+  Status Start(const std::string& db, const std::string& scratch, const CatchUpOptions& follow,
+               ExposureSink* exposure = nullptr) {
     PLUMB_RETURN_IF_ERROR(store::Store::OpenSecondary(db, scratch, &secondary_));
     loop_ = std::make_unique<CatchUpLoop>(secondary_.get(), &holder_, follow);
     PLUMB_RETURN_IF_ERROR(loop_->RunOnce());
     service_ =
-        std::make_unique<RankerService>(&holder_, &scorer_, RankerLimits{}, nullptr, nullptr);
+        std::make_unique<RankerService>(&holder_, &scorer_, RankerLimits{}, exposure, nullptr);
     PLUMB_RETURN_IF_ERROR(ServeOnLoopback(service_.get(), &server_, &channel_));
     loop_->Start();
     return Status::Ok();

@@ -5,6 +5,7 @@
 #include <gtest/gtest.h>
 
 #include <chrono>
+#include <cmath>
 #include <thread>
 
 #include "store/store.h"
@@ -191,6 +192,75 @@ TEST_F(ControlServiceTest, StatusVersionsPromotionAndRollback) {
   EXPECT_EQ(Status().active_version(), v1);
   EXPECT_FALSE(Status().auto_activate());
   EXPECT_NE(Status().auto_activate_reason().find("activated by request"), std::string::npos);
+}
+
+// Canary rollouts through ModelControl: refusals with their codes, start (automatic activation
+// paused, new versions kept but not activated), widen, abort, promote; the status shows each.
+TEST_F(ControlServiceTest, CanaryStartWidenAbortPromote) {
+  auto set = [&](uint64_t version, double percent, plumb::v1::TrainerStatus* after) {
+    grpc::ClientContext context;
+    plumb::v1::SetCanaryRequest request;
+    request.set_version(version);
+    request.set_share_percent(percent);
+    return control_stub_->SetCanary(&context, request, after);
+  };
+  auto end = [&](bool promote, plumb::v1::TrainerStatus* after) {
+    grpc::ClientContext context;
+    plumb::v1::EndCanaryRequest request;
+    request.set_promote(promote);
+    return control_stub_->EndCanary(&context, request, after);
+  };
+  plumb::v1::TrainerStatus after;
+  EXPECT_EQ(end(false, &after).error_code(), grpc::StatusCode::FAILED_PRECONDITION);
+  Publish(0, 3'000);
+  ASSERT_TRUE(WaitForVersions(1));
+  const uint64_t v1 = Versions().versions(0).version();
+  Publish(3'000, 1'000);
+  ASSERT_TRUE(WaitForVersions(2));
+  const uint64_t v2 = Versions().versions(0).version();
+  ASSERT_EQ(Status().active_version(), v2);  // automatic activation is on
+
+  EXPECT_EQ(set(0, 5, &after).error_code(), grpc::StatusCode::INVALID_ARGUMENT);
+  EXPECT_EQ(set(v1, 0, &after).error_code(), grpc::StatusCode::INVALID_ARGUMENT);
+  EXPECT_EQ(set(v1, 0.004, &after).error_code(), grpc::StatusCode::INVALID_ARGUMENT);
+  EXPECT_EQ(set(v1, 100.5, &after).error_code(), grpc::StatusCode::INVALID_ARGUMENT);
+  EXPECT_EQ(set(v1, std::nan(""), &after).error_code(), grpc::StatusCode::INVALID_ARGUMENT);
+  EXPECT_EQ(set(v2, 5, &after).error_code(), grpc::StatusCode::FAILED_PRECONDITION);  // active
+  EXPECT_EQ(set(99, 5, &after).error_code(), grpc::StatusCode::NOT_FOUND);
+  EXPECT_EQ(Status().canary_version(), 0u);
+  EXPECT_TRUE(Status().auto_activate());  // nothing changed by the refusals
+
+  // Start: v1 (the older one) to 5 % of the users; automatic activation pauses.
+  ASSERT_TRUE(set(v1, 5, &after).ok());
+  EXPECT_EQ(after.canary_version(), v1);
+  EXPECT_DOUBLE_EQ(after.canary_share_percent(), 5.0);
+  EXPECT_GT(after.canary_started_ms(), 0);
+  EXPECT_FALSE(after.auto_activate());
+  EXPECT_NE(after.auto_activate_reason().find("canary"), std::string::npos);
+  // A new version meanwhile is kept, not activated.
+  Publish(4'000, 1'000);
+  ASSERT_TRUE(WaitForVersions(3));
+  const uint64_t v3 = Versions().versions(0).version();
+  EXPECT_EQ(Status().active_version(), v2);
+  // Widen (the start time stays), then abort: the active version is untouched.
+  const int64_t started = after.canary_started_ms();
+  ASSERT_TRUE(set(v1, 12.34, &after).ok());
+  EXPECT_DOUBLE_EQ(after.canary_share_percent(), 12.34);
+  EXPECT_EQ(after.canary_started_ms(), started);
+  ASSERT_TRUE(end(false, &after).ok());
+  EXPECT_EQ(after.canary_version(), 0u);
+  EXPECT_EQ(after.active_version(), v2);
+  // Promote: a canary of v3, then made active.
+  ASSERT_TRUE(set(v3, 50, &after).ok());
+  ASSERT_TRUE(end(true, &after).ok());
+  EXPECT_EQ(after.canary_version(), 0u);
+  EXPECT_EQ(after.active_version(), v3);
+  store::Canary stored;
+  ASSERT_TRUE(store_->GetCanary(&stored).ok());
+  EXPECT_EQ(stored.version, 0u);
+  uint64_t active = 0;
+  ASSERT_TRUE(store_->GetActiveVersion(&active).ok());
+  EXPECT_EQ(active, v3);
 }
 
 // SetItemAvailability and ListWithdrawnItems: counts by hand from the ids sent; every invalid

@@ -16,7 +16,14 @@
 5. NATS down (all three nodes stopped): both replicas keep serving (plumb-load, zero
    failures); one is restarted and serves its last version from its local directory. A
    version activated meanwhile reaches both once NATS is back.
-6. Metrics of both processes' replica sections are those docs/operators.md lists.
+6. Canary: `plumb-query canary-start` of an older version at 20 %: both replicas fetch it and
+   serve it beside the active one. 10,000 Recommend calls to each replica from Python (grpcio,
+   distinct user ids, unknown ones answered by the fallback list): every call's version is
+   the one the published bucket rule, computed here in Python, names; the candidate's share
+   is within 1 percentage point of 20 %; both replicas agree on every user. Widening to 50 %
+   keeps every user already in; promotion makes the candidate active everywhere; a second
+   canary is aborted.
+7. Metrics of both processes' replica sections are those docs/operators.md lists.
 """
 import argparse
 import json
@@ -35,6 +42,52 @@ import jetstream_cluster_test  # noqa: E402
 from jetstream_cluster_test import TOKEN, Node, fail, free_port, scrape, wait_for  # noqa: E402
 
 SERVE_WITHIN = 20  # seconds a replica may take to serve the pointer's version
+SOURCE = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
+M64 = (1 << 64) - 1
+
+
+def canary_bucket(subject, version):
+    """core/canary_bucket.h's rule, written again from its comment."""
+    h = 0xcbf29ce484222325
+    for c in subject.encode():
+        h = ((h ^ c) * 0x100000001b3) & M64
+    x = h ^ ((version * 0x9e3779b97f4a7c15) & M64)
+    x ^= x >> 30
+    x = (x * 0xbf58476d1ce4e5b9) & M64
+    x ^= x >> 27
+    x = (x * 0x94d049bb133111eb) & M64
+    x ^= x >> 31
+    return x % 10000
+
+
+class Caller:
+    """Recommend over grpcio with the message classes protoc generates at test time."""
+
+    def __init__(self, tmp, addr):
+        gen = os.path.join(tmp, "gen")
+        if not os.path.isdir(gen):
+            os.makedirs(gen)
+            subprocess.run(["protoc", "-I", os.path.join(SOURCE, "proto"), "--python_out=" + gen,
+                            "plumb/v1/ranker.proto"], check=True)
+        if gen not in sys.path:
+            sys.path.insert(0, gen)
+        import grpc
+        from plumb.v1 import ranker_pb2
+        self.pb = ranker_pb2
+        self.channel = grpc.insecure_channel(addr)
+        self.call = self.channel.unary_unary(
+            "/plumb.v1.Ranker/Recommend",
+            request_serializer=ranker_pb2.RecommendRequest.SerializeToString,
+            response_deserializer=ranker_pb2.RecommendResponse.FromString)
+
+    def versions(self, users):
+        out = {}
+        for u in users:
+            r = self.call(self.pb.RecommendRequest(
+                user_id=u, count=10, unknown_user=self.pb.UNKNOWN_USER_MOST_INTERACTED),
+                timeout=10)
+            out[u] = r.model_version
+        return out
 
 
 def metric(addr, name):
@@ -218,6 +271,81 @@ def main():
         subprocess.run([query, "activate", "--model-version", str(active), "--trainer",
                         train_addr], check=True, capture_output=True)
         both_serve(active, what="(after the hostile versions)")
+
+        # ---- canary --------------------------------------------------------------------------
+        candidate = active - 1
+        canary_key = 'plumb_canary_version{arm="candidate"}'
+
+        def canary_on_both(version, share):
+            return all(metric(replicas[n]["metrics"], canary_key) == version and
+                       metric(replicas[n]["metrics"], "plumb_canary_share_ratio") == share
+                       for n in replicas)
+
+        subprocess.run([query, "canary-start", "--model-version", str(candidate), "--share", "20",
+                        "--trainer", train_addr], check=True, capture_output=True)
+        start = time.time()
+        wait_for("both replicas to serve canary version %d" % candidate,
+                 lambda: canary_on_both(candidate, 0.2), SERVE_WITHIN, logs)
+        print("canary of version %d at 20 %%: served by both replicas after %.1f s" %
+              (candidate, time.time() - start))
+        known = open(os.path.join(tmp, "users.txt")).read().split()
+        subjects = known + ["visitor-%d" % k for k in range(10000 - len(known))]
+        answered = {n: Caller(tmp, replicas[n]["listen"]).versions(subjects) for n in replicas}
+        if answered["a"] != answered["b"]:
+            differ = [u for u in subjects if answered["a"][u] != answered["b"][u]]
+            fail("the replicas disagree on %d users, e.g. %s" % (len(differ), differ[:3]), logs)
+        wrong = [u for u in subjects if answered["a"][u] !=
+                 (candidate if canary_bucket(u, candidate) < 2000 else active)]
+        if wrong:
+            fail("%d of %d users got another version than the bucket rule names, e.g. %s" %
+                 (len(wrong), len(subjects), wrong[:3]), logs)
+        share = sum(1 for u in subjects if answered["a"][u] == candidate) / len(subjects)
+        if abs(share - 0.20) > 0.01:
+            fail("the candidate served %.2f %% of %d users, not 20 +- 1 %%" %
+                 (100 * share, len(subjects)), logs)
+        print("%d calls to each replica: candidate share %.2f %%, every user as the bucket rule "
+              "(Python) says, both replicas agree" % (len(subjects), 100 * share))
+        arm_lists = metric(replicas["a"]["metrics"],
+                           'plumb_canary_served_lists{arm="candidate"}')
+        if not arm_lists:
+            fail("replica a counts no lists for the candidate arm", logs)
+        subprocess.run([query, "canary-widen", "--share", "50", "--trainer", train_addr],
+                       check=True, capture_output=True)
+        wait_for("both replicas to widen the canary to 50 %",
+                 lambda: canary_on_both(candidate, 0.5), SERVE_WITHIN, logs)
+        sample = subjects[::5]
+        widened = Caller(tmp, replicas["b"]["listen"]).versions(sample)
+        left = [u for u in sample if answered["a"][u] == candidate and widened[u] != candidate]
+        if left:
+            fail("%d users left the canary when it widened, e.g. %s" % (len(left), left[:3]),
+                 logs)
+        print("widened to 50 %%: %.1f %% of %d sampled users on the candidate, none left it" %
+              (100 * sum(1 for u in sample if widened[u] == candidate) / len(sample),
+               len(sample)))
+        subprocess.run([query, "canary-promote", "--trainer", train_addr], check=True,
+                       capture_output=True)
+        took = both_serve(candidate, what="(canary promoted)")
+        wait_for("both replicas to end the canary",
+                 lambda: all(metric(replicas[n]["metrics"], "plumb_canary_share_ratio") == 0
+                             for n in replicas), SERVE_WITHIN, logs)
+        print("promoted: both replicas serve version %d to everyone after %.1f s" %
+              (candidate, took))
+        subprocess.run([query, "canary-start", "--model-version", str(active), "--share", "100",
+                        "--trainer", train_addr], check=True, capture_output=True)
+        wait_for("both replicas to serve the second canary",
+                 lambda: canary_on_both(active, 1.0), SERVE_WITHIN, logs)
+        subprocess.run([query, "canary-abort", "--trainer", train_addr], check=True,
+                       capture_output=True)
+        wait_for("both replicas to end the aborted canary",
+                 lambda: all(metric(replicas[n]["metrics"], "plumb_canary_share_ratio") == 0
+                             for n in replicas), SERVE_WITHIN, logs)
+        if serving("a") != candidate or serving("b") != candidate:
+            fail("an aborted canary changed the active version", logs)
+        print("second canary (version %d at 100 %%) aborted: both back on version %d" %
+              (active, candidate))
+        subprocess.run([query, "activate", "--model-version", str(active), "--trainer",
+                        train_addr], check=True, capture_output=True)
+        both_serve(active, what="(after the canaries)")
 
         # ---- NATS down ----------------------------------------------------------------------
         for n in nodes:

@@ -38,6 +38,17 @@ user=$(head -1 "$tmp/users.txt")
 $PY "$SRC/tests/system/undecodable_messages.py" "$TRAIN_ADDR" "$SERVE_ADDR" >/dev/null \
   || fail "undecodable messages"
 
+# A canary of an older kept version at 50 %, so that the per-arm gauges appear too.
+older=$("$QUERY" versions --trainer "$TRAIN_ADDR" | awk '$1 ~ /^[0-9]+$/ {print $1}' | tail -1)
+[ -n "$older" ] || fail "no kept version other than the active one"
+"$QUERY" canary-start --trainer "$TRAIN_ADDR" --model-version "$older" --share 50 >/dev/null \
+  || fail "canary-start"
+for _ in $(seq 100); do
+  curl -sf "http://$SERVE_METRICS/metrics" | grep -q '^plumb_canary_version' && break; sleep 0.2
+done
+"$LOAD" --server "$SERVE_ADDR" --users-file "$tmp/users.txt" --duration 1s --concurrency 2 \
+  >/dev/null 2>&1 || fail "plumb-load during the canary"
+
 curl -sf "http://$SERVE_METRICS/metrics" > "$tmp/serve.prom" || fail "scrape plumb-serve"
 curl -sf "http://$TRAIN_METRICS/metrics" > "$tmp/train.prom" || fail "scrape plumb-train"
 for p in serve train; do

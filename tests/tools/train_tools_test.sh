@@ -93,6 +93,32 @@ check "activate of a version not kept: NOT_FOUND, exit 1 [$out]" \
   '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "^plumb-query: NOT_FOUND"'
 out=$("$QUERY" activate --trainer "$train" --token-file "$tmp/token" --model-version "$active" 2>&1); rc=$?
 check "activate the active version again [$out]" '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "^active version $active (was $active)"'
+# Canary commands: refusals first, then start, widen, abort; status shows each step.
+older=$(awk '$1 ~ /^[0-9]+$/ {print $1}' "$tmp/versions.txt" | tail -1)
+out=$("$QUERY" canary-abort --trainer "$train" --token-file "$tmp/token" 2>&1); rc=$?
+check "canary-abort with none running: FAILED_PRECONDITION, exit 1 [$out]" \
+  '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "^plumb-query: FAILED_PRECONDITION.*no canary"'
+out=$("$QUERY" canary-widen --trainer "$train" --token-file "$tmp/token" --share 10 2>&1); rc=$?
+check "canary-widen with none running: exit 1, says how to start one [$out]" \
+  '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "canary-start"'
+out=$("$QUERY" canary-start --trainer "$train" --token-file "$tmp/token" --model-version 1 --share 0 2>&1); rc=$?
+check "canary-start --share 0: usage error, exit 2" '[ $rc -eq 2 ]'
+out=$("$QUERY" canary-start --trainer "$train" --token-file "$tmp/token" --model-version "$active" --share 5 2>&1); rc=$?
+check "canary of the active version: FAILED_PRECONDITION, exit 1 [$out]" \
+  '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "^plumb-query: FAILED_PRECONDITION"'
+if [ -n "$older" ]; then
+  out=$("$QUERY" canary-start --trainer "$train" --token-file "$tmp/token" --model-version "$older" --share 5 2>&1); rc=$?
+  check "canary-start of version $older at 5 % [$out]" \
+    '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "^canary: version $older serves 5 % of the subjects, version $active the rest"'
+  out=$("$QUERY" canary-widen --trainer "$train" --token-file "$tmp/token" --share 30 2>&1); rc=$?
+  check "canary-widen to 30 % [$out]" '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "serves 30 %"'
+  out=$("$QUERY" status --trainer "$train" --token-file "$tmp/token" 2>&1)
+  check "status shows the canary" 'printf "%s" "$out" | grep -q "^canary: *version $older serves 30 % of the subjects since"'
+  out=$("$QUERY" canary-abort --trainer "$train" --token-file "$tmp/token" 2>&1); rc=$?
+  check "canary-abort [$out]" '[ $rc -eq 0 ] && printf "%s" "$out" | grep -q "^canary aborted: version $active serves everyone"'
+else
+  check "a kept version other than the active one for the canary commands" 'false'
+fi
 out=$("$QUERY" recommend --server "$train" --user m1 2>&1); rc=$?
 check "recommend against plumb-train: exit 1, names plumb-serve [$out]" \
   '[ $rc -eq 1 ] && printf "%s" "$out" | grep -q "UNIMPLEMENTED.*answered by plumb-serve"'

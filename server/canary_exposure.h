@@ -14,13 +14,13 @@
 // own cost), Collect from the metrics endpoint's threads.
 #pragma once
 
+#include <prometheus/collectable.h>
+#include <prometheus/metric_family.h>
+
 #include <atomic>
 #include <memory>
 #include <mutex>
 #include <vector>
-
-#include <prometheus/collectable.h>
-#include <prometheus/metric_family.h>
 
 #include "server/exposure_sink.h"
 #include "server/exposure_window.h"

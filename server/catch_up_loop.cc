@@ -73,9 +73,8 @@ Status CatchUpLoop::FollowCanary(
   next->share_bp = share_bp;
   holder_->SetCanary(std::move(next));
   spdlog::info("canary: version {} serves {:.2f} % of the subjects (was {:.2f} %)", version,
-               share_bp / 100.0, arm != nullptr && arm->snapshot->version() == version
-                                     ? arm->share_bp / 100.0
-                                     : 0.0);
+               share_bp / 100.0,
+               arm != nullptr && arm->snapshot->version() == version ? arm->share_bp / 100.0 : 0.0);
   return Status::Ok();
 }
 
@@ -204,8 +203,7 @@ Status CatchUpLoop::FollowActive() {
   loads_.fetch_add(1, std::memory_order_relaxed);
   // A promoted canary's snapshot is already built.
   std::shared_ptr<const Snapshot> next = CanaryAs(active);
-  Status s = next != nullptr ? Status::Ok()
-                             : LoadSnapshot(*store_, active, &next, options_.approx);
+  Status s = next != nullptr ? Status::Ok() : LoadSnapshot(*store_, active, &next, options_.approx);
   const double seconds =
       std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
   if (s.IsNotFound()) {

@@ -25,8 +25,8 @@
 #include <functional>
 #include <mutex>
 #include <string>
-#include <vector>
 #include <thread>
+#include <vector>
 
 #include "core/status.h"
 #include "server/snapshot_holder.h"

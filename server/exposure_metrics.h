@@ -3,11 +3,11 @@
 // docs/operators.md: plumb_exposure_* and plumb_interaction_*.
 #pragma once
 
-#include <string>
-#include <vector>
-
 #include <prometheus/collectable.h>
 #include <prometheus/metric_family.h>
+
+#include <string>
+#include <vector>
 
 #include "server/exposure_window.h"
 #include "server/snapshot_holder.h"

@@ -3,8 +3,8 @@
 // Each method does three things in order, as gRPC's own examples do: validate the request
 // (INVALID_ARGUMENT with a message naming the field), call the domain (Scorer) on the
 // snapshot current at the start of the call (the canary's for a subject in its share: the user
-// of Recommend and RankCandidates, the item of SimilarItems; SnapshotHolder::GetFor), and translate the answer into the response.
-// It knows protobuf and gRPC; the Scorer knows neither.
+// of Recommend and RankCandidates, the item of SimilarItems; SnapshotHolder::GetFor), and translate
+// the answer into the response. It knows protobuf and gRPC; the Scorer knows neither.
 #pragma once
 
 #include <grpcpp/grpcpp.h>

@@ -19,10 +19,11 @@
 // consumer), checks every chunk, the count, the total size and CRC (BundleAssembler) and
 // decodes the bundle; only then is it written and POINTER moved. A rollback to a version on
 // disk only moves POINTER. The canary key is followed the same way after the pointer: its
-// version fetched when missing, then CANARY moved. A damaged version (any check fails, or the stream holds it without
-// its trailer) is refused: logged, counted in plumb_replica_versions_refused_total{reason},
-// and not tried again for refused_retry; the version served does not change. Local
-// bundles beyond the newest keep_local (never POINTER's or CANARY's) are deleted.
+// version fetched when missing, then CANARY moved. A damaged version (any check fails, or the
+// stream holds it without its trailer) is refused: logged, counted in
+// plumb_replica_versions_refused_total{reason}, and not tried again for refused_retry; the version
+// served does not change. Local bundles beyond the newest keep_local (never POINTER's or CANARY's)
+// are deleted.
 //
 // CatchUpLoop (server/catch_up_loop.h) asks ActiveVersion() and Load()s off the request path;
 // a version just received is handed over decoded, without reading the file back.

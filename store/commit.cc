@@ -151,8 +151,10 @@ Status Store::Impl::ChooseCanary(const rocksdb::ReadOptions& ro, const StateChan
       plan->new_canary = Canary{};
     } else {
       if (asked.share_bp == 0 || asked.share_bp > 10000) {
-        return Status::InvalidArgument("a canary's share must be 1..10000 basis points (0.01 % .. "
-                                       "100 %), got " + std::to_string(asked.share_bp));
+        return Status::InvalidArgument(
+            "a canary's share must be 1..10000 basis points (0.01 % .. "
+            "100 %), got " +
+            std::to_string(asked.share_bp));
       }
       if (asked.version == plan->new_active) {
         return Status::FailedPrecondition("version " + std::to_string(asked.version) +
@@ -161,9 +163,8 @@ Status Store::Impl::ChooseCanary(const rocksdb::ReadOptions& ro, const StateChan
       Status s = CheckComplete(ro, asked.version);
       if (s.IsNotFound()) return s;
       if (!s.ok()) {
-        return Status::FailedPrecondition("cannot serve version " +
-                                          std::to_string(asked.version) + " as a canary: " +
-                                          s.message());
+        return Status::FailedPrecondition("cannot serve version " + std::to_string(asked.version) +
+                                          " as a canary: " + s.message());
       }
       plan->new_canary = asked;
       if (asked.version == plan->canary.version) {

@@ -210,8 +210,7 @@ Status Store::Repair(const std::string& dir, const StoreOptions& options, Repair
     // A canary whose version was dropped, made active, or that cannot be read ends.
     Canary canary;
     const bool unreadable = !d.ReadCanary(ro, &canary).ok();
-    const bool kept =
-        std::find(complete.begin(), complete.end(), canary.version) != complete.end();
+    const bool kept = std::find(complete.begin(), complete.end(), canary.version) != complete.end();
     if (unreadable || (canary.version != 0 && (!kept || canary.version == r.active_after))) {
       d.PutCanary(Canary{}, &fixes);
     }

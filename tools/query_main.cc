@@ -719,10 +719,10 @@ int main(int argc, char** argv) {
 
   uint64_t canary_version = 0;
   double canary_share = 0;
-  CLI::App* canary_start = app.add_subcommand(
-      "canary-start",
-      "Serve a kept version to a share of the users beside the active one "
-      "(ModelControl/SetCanary; pauses automatic activation)");
+  CLI::App* canary_start =
+      app.add_subcommand("canary-start",
+                         "Serve a kept version to a share of the users beside the active one "
+                         "(ModelControl/SetCanary; pauses automatic activation)");
   AddConnection(canary_start, &control, true);
   canary_start->add_option("--model-version", canary_version, "The candidate version")
       ->required()

@@ -315,8 +315,8 @@ grpc::Status ControlService::SetCanary(grpc::ServerContext* context,
   }
   if (Status s = loop_->SetCanary(request->version(), static_cast<uint32_t>(bp), nullptr);
       !s.ok()) {
-    return ToGrpcStatus(s, "cannot serve version " + std::to_string(request->version()) +
-                               " as a canary");
+    return ToGrpcStatus(
+        s, "cannot serve version " + std::to_string(request->version()) + " as a canary");
   }
   FillStatus(response);
   return grpc::Status::OK;
@@ -329,8 +329,8 @@ grpc::Status ControlService::EndCanary(grpc::ServerContext* context,
   if (grpc::Status s = Admit(admission_, *context, &scope); !s.ok()) return s;
   uint64_t version = 0;
   if (Status s = loop_->EndCanary(request->promote(), &version); !s.ok()) {
-    return ToGrpcStatus(s, request->promote() ? "cannot promote the canary"
-                                              : "cannot abort the canary");
+    return ToGrpcStatus(
+        s, request->promote() ? "cannot promote the canary" : "cannot abort the canary");
   }
   FillStatus(response);
   return grpc::Status::OK;

@@ -394,9 +394,10 @@ Status OnlineLoop::SetCanary(uint64_t version, uint32_t share_bp, store::Canary*
   if (starting) {
     impl.status.auto_activate = false;
     impl.status.auto_activate_reason = reason;
-    spdlog::info("canary: version {} serves {:.2f} % of the subjects; automatic activation "
-                 "paused",
-                 version, share_bp / 100.0);
+    spdlog::info(
+        "canary: version {} serves {:.2f} % of the subjects; automatic activation "
+        "paused",
+        version, share_bp / 100.0);
   } else {
     spdlog::info("canary: version {} now serves {:.2f} % of the subjects (was {:.2f} %)", version,
                  share_bp / 100.0, was.share_bp / 100.0);
@@ -410,8 +411,9 @@ Status OnlineLoop::EndCanary(bool promote, uint64_t* version) {
     std::lock_guard<std::mutex> publishing(impl_->publish_mu);
     PLUMB_RETURN_IF_ERROR(impl_->store->GetCanary(&was));
     if (was.version == 0) {
-      return Status::FailedPrecondition("no canary runs; start one with `plumb-query "
-                                        "canary-start --model-version N --share PERCENT`");
+      return Status::FailedPrecondition(
+          "no canary runs; start one with `plumb-query "
+          "canary-start --model-version N --share PERCENT`");
     }
     if (version != nullptr) *version = was.version;
     if (!promote) {

@@ -1,6 +1,7 @@
 #include "server/status_page.h"
 
 #include <cmath>
+#include <cstdio>
 #include <limits>
 
 #include "core/metrics.h"
@@ -128,6 +129,11 @@ nlohmann::json ServeStatusPage::Json(int64_t now_ms) const {
     model["users"] = snap->num_users();
     model["dim"] = snap->dim();
   }
+  std::shared_ptr<const CanaryArm> canary = holder_ ? holder_->GetCanary() : nullptr;
+  if (canary != nullptr) {
+    model["canary_version"] = canary->snapshot->version();
+    model["canary_share"] = canary->share_bp / 10000.0;
+  }
   if (loop_ != nullptr) {
     model["swaps"] = loop_->swaps();
     model["load_failures"] = loop_->failed_loads();
@@ -202,6 +208,13 @@ std::string ServeStatusPage::Html(int64_t now_ms) const {
     AppendCard(&s, "dim", "dimensions", NumberAt(model, "dim"), "", 6);
   } else {
     AppendTextCard(&s, "version", "active version", "none loaded yet");
+  }
+  if (model.contains("canary_version")) {
+    char text[96];
+    std::snprintf(text, sizeof text, "version %llu to %.2f %% of the users",
+                  static_cast<unsigned long long>(model["canary_version"].get<uint64_t>()),
+                  100.0 * model["canary_share"].get<double>());
+    AppendTextCard(&s, "canary", "canary", text);
   }
   if (model.contains("swaps"))
     AppendCard(&s, "swaps", "swaps since start", NumberAt(model, "swaps"), "", 9);

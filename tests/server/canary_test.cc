@@ -17,6 +17,7 @@
 #include "core/canary_bucket.h"
 #include "plumb/v1/ranker.grpc.pb.h"
 #include "server/canary_exposure.h"
+#include "server/status_page.h"
 #include "tests/server/loopback_server.h"
 #include "tests/server/test_model.h"
 
@@ -138,6 +139,8 @@ TEST_F(CanaryServingTest, ServesTheShareToAStableSubsetThenPromotesWithoutARebui
     candidate += v == 2 ? 1 : 0;
   }
   EXPECT_NEAR(candidate / static_cast<double>(kUsers), 0.20, 0.01);
+  std::printf("candidate served %d of %d users (%.2f %%)\n", candidate, kUsers,
+              100.0 * candidate / kUsers);
   // The same user always gets the same version.
   EXPECT_EQ(CallEveryone(stub.get()), first);
   // The arms' exposure counts are the calls each served (two passes).
@@ -156,6 +159,16 @@ TEST_F(CanaryServingTest, ServesTheShareToAStableSubsetThenPromotesWithoutARebui
     }
   }
   EXPECT_TRUE(candidate_arm_exported);
+
+  // The status page names the canary.
+  {
+    ServeStatusPage page(&holder, nullptr, nullptr, nullptr, ServeStatusOptions{});
+    const nlohmann::json j = page.Json(1'700'000'000'000);
+    EXPECT_EQ(j["model"]["canary_version"].get<uint64_t>(), 2u);
+    EXPECT_DOUBLE_EQ(j["model"]["canary_share"].get<double>(), 0.2);
+    EXPECT_NE(page.Html(1'700'000'000'000).find("version 2 to 20.00 % of the users"),
+              std::string::npos);
+  }
 
   // Widening to 50 % keeps every user already in the canary.
   SetCanary(2, 5000);

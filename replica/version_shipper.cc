@@ -21,7 +21,7 @@
 namespace plumb::replica {
 
 struct VersionShipper::Impl {
-  Impl(const store::Store* s, VersionShipOptions o, prometheus::Registry* registry)
+  Impl(store::Store* s, VersionShipOptions o, prometheus::Registry* registry)
       : store(s), options(std::move(o)) {
     shipped_counter = &prometheus::BuildCounter()
                            .Name("plumb_versions_shipped_total")
@@ -212,33 +212,63 @@ struct VersionShipper::Impl {
     return Status::Ok();
   }
 
-  // Drops the stream's versions beyond the newest keep_versions, never `active` or `canary`.
-  void Prune(uint64_t active, uint64_t canary) {
+  // The version numbers the stream holds (any subject <prefix>.<number>), newest first.
+  bool StreamVersions(std::vector<uint64_t>* versions) {
+    versions->clear();
     jsOptions o;
     jsOptions_Init(&o);
     const std::string filter = options.subject_prefix + ".>";
     o.Stream.Info.SubjectsFilter = filter.c_str();
     jsStreamInfo* info = nullptr;
     jsErrCode jerr = static_cast<jsErrCode>(0);
-    if (js_GetStreamInfo(&info, js, options.stream.c_str(), &o, &jerr) != NATS_OK) return;
-    std::vector<uint64_t> versions;
+    if (js_GetStreamInfo(&info, js, options.stream.c_str(), &o, &jerr) != NATS_OK) return false;
     if (info->State.Subjects != nullptr) {
       for (int i = 0; i < info->State.Subjects->Count; ++i) {
         const std::string_view subject = info->State.Subjects->List[i].Subject;
         const std::string_view number = subject.substr(options.subject_prefix.size() + 1);
         uint64_t v = 0;
         if (std::from_chars(number.data(), number.data() + number.size(), v).ec == std::errc()) {
-          versions.push_back(v);
+          versions->push_back(v);
         }
       }
     }
     jsStreamInfo_Destroy(info);
-    std::sort(versions.rbegin(), versions.rend());
-    for (size_t i = options.keep_versions; i < versions.size(); ++i) {
-      if (versions[i] == active || versions[i] == canary) continue;
-      if (Purge(Subject(versions[i])).ok()) {
-        spdlog::info("versions: purged version {} from stream {} (keeping the newest {})",
-                     versions[i], options.stream, options.keep_versions);
+    std::sort(versions->rbegin(), versions->rend());
+    return true;
+  }
+
+  // A number must never name two versions: replicas keep bundles by number. When the stream
+  // holds a number this store has not reached (its store was restored from an older backup,
+  // or another trainer shipped to the same stream), the store's numbering moves past it.
+  void KeepNumberingAhead(const std::vector<uint64_t>& in_stream) {
+    if (in_stream.empty()) return;
+    uint64_t was = 0;
+    Status s = store->SkipVersionNumbers(in_stream.front() + 1, &was);
+    if (!s.ok()) {
+      spdlog::warn("versions: cannot move the version numbering past {}: {}", in_stream.front(),
+                   s.ToString());
+    } else if (was <= in_stream.front()) {
+      spdlog::warn(
+          "versions: stream {} holds version {}, beyond this store's numbering (next was {}); "
+          "new versions are numbered from {} so that no number names two versions",
+          options.stream, in_stream.front(), was, in_stream.front() + 1);
+    }
+  }
+
+  // Drops the stream's versions beyond the newest keep_versions, never `active` or `canary`.
+  // Numbers above the store's newest version (not this trainer's: another writer's) are not
+  // ranked, so that they cannot push this trainer's versions out.
+  void Prune(const std::vector<uint64_t>& versions, uint64_t active, uint64_t canary) {
+    std::vector<store::VersionManifest> own;
+    if (!store->ListVersions(&own).ok() || own.empty()) return;
+    const uint64_t newest_own = own.front().version;
+    size_t rank = 0;
+    for (uint64_t v : versions) {
+      if (v > newest_own) continue;
+      if (rank++ < options.keep_versions || v == active || v == canary) continue;
+      if (Purge(Subject(v)).ok()) {
+        spdlog::info("versions: purged version {} from stream {} (keeping the newest {})", v,
+                     options.stream, options.keep_versions);
       }
     }
   }
@@ -253,6 +283,9 @@ struct VersionShipper::Impl {
       spdlog::warn("versions: cannot read the active version or the canary: {}", read.ToString());
       return;
     }
+    std::vector<uint64_t> in_stream;
+    const bool listed = StreamVersions(&in_stream);
+    if (listed) KeepNumberingAhead(in_stream);
     if (active == 0) return;
     if (active != pointer_put.load()) {
       if (Status s = ShipAndPoint(active, "active", std::to_string(active)); !s.ok()) {
@@ -275,7 +308,7 @@ struct VersionShipper::Impl {
       canary_put = canary_text;
     }
     failing.clear();
-    Prune(active, canary.version);
+    if (listed && StreamVersions(&in_stream)) Prune(in_stream, active, canary.version);
   }
 
   // Ships `version` (unless 0) and then puts `value` under `key` of the bucket.
@@ -294,7 +327,7 @@ struct VersionShipper::Impl {
     Disconnect();
   }
 
-  const store::Store* const store;
+  store::Store* const store;
   const VersionShipOptions options;
   natsOptions* nats_options = nullptr;
   natsConnection* nc = nullptr;
@@ -316,7 +349,7 @@ struct VersionShipper::Impl {
   std::thread thread;
 };
 
-VersionShipper::VersionShipper(const store::Store* store, VersionShipOptions options,
+VersionShipper::VersionShipper(store::Store* store, VersionShipOptions options,
                                prometheus::Registry* registry)
     : impl_(std::make_unique<Impl>(store, std::move(options), registry)) {}
 

@@ -14,6 +14,9 @@
 //      key `canary` (replica/canary_pointer.h: "<version> <share_bp>" or "none").
 //   4. purges the stream's versions beyond the newest keep_versions (never the active or the
 //      canary's).
+// Every round also moves the store's version numbering past the newest number the stream
+// holds (Store::SkipVersionNumbers), so that a trainer restored from an older backup never
+// gives a number that replicas already know to a different version.
 // The stream (file storage, subjects `<subject_prefix>.>`) and the bucket are created with
 // `replicas` replicas when missing. A failure (NATS down, a publish not acknowledged) is
 // logged once per episode, counted, and retried every interval; the pointer never names a
@@ -58,8 +61,9 @@ struct VersionShipOptions {
 
 class VersionShipper {
  public:
-  // `store` and `registry` are borrowed and must outlive the shipper.
-  VersionShipper(const store::Store* store, VersionShipOptions options,
+  // `store` (a primary: the shipper may move its version numbering) and `registry` are
+  // borrowed and must outlive the shipper.
+  VersionShipper(store::Store* store, VersionShipOptions options,
                  prometheus::Registry* registry);
   ~VersionShipper();  // Stop()
 

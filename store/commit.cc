@@ -297,6 +297,19 @@ Status Store::Commit(const StateChange& change, uint64_t* published) {
   return Status::Ok();
 }
 
+Status Store::SkipVersionNumbers(uint64_t next, uint64_t* was) {
+  PLUMB_RETURN_IF_ERROR(impl_->RequirePrimary("SkipVersionNumbers"));
+  std::lock_guard write_lock(impl_->write_mu);
+  if (was != nullptr) *was = impl_->next_version;
+  if (next <= impl_->next_version) return Status::Ok();
+  rocksdb::WriteBatch batch;
+  batch.Put(impl_->meta, AsSlice(keys::kMetaNextVersion), AsSlice(keys::Fixed64(next)));
+  PLUMB_RETURN_IF_ERROR(
+      impl_->Write(&batch, "moving the next version number to " + std::to_string(next)));
+  impl_->next_version = next;
+  return Status::Ok();
+}
+
 Status Store::Activate(uint64_t version) {
   PLUMB_RETURN_IF_ERROR(impl_->RequirePrimary("Activate"));
   std::lock_guard write_lock(impl_->write_mu);

@@ -543,6 +543,12 @@ class Store {
   // the right size). NotFound / FailedPrecondition (naming the damaged record) otherwise.
   Status Activate(uint64_t version);
 
+  // Makes the next published version number at least `next` (never lower than it is): for a
+  // trainer whose store is behind the versions it finds elsewhere (restored from a backup while
+  // remote replicas hold newer numbers), so that a number never names two different versions.
+  // Durable; primary only. `*was` (may be null) receives the next number before.
+  Status SkipVersionNumbers(uint64_t next, uint64_t* was = nullptr);
+
   // The canary (version 0 when none runs). A canary's version is never pruned.
   Status GetCanary(Canary* out) const;
 

@@ -237,6 +237,22 @@ TEST_F(VersionsTest, ActivatePublishedAndActivateStored) {
   EXPECT_EQ(Active(), v1);
 }
 
+// SkipVersionNumbers moves the numbering forward only, durably.
+TEST_F(VersionsTest, SkipVersionNumbersMovesForwardOnly) {
+  ASSERT_EQ(Publish(2, 1, true), 1u);
+  uint64_t was = 0;
+  ASSERT_TRUE(store_->SkipVersionNumbers(50, &was).ok());
+  EXPECT_EQ(was, 2u);
+  ASSERT_TRUE(store_->SkipVersionNumbers(10, &was).ok());  // never back
+  EXPECT_EQ(was, 50u);
+  Reopen();
+  EXPECT_EQ(Publish(2, 2, false), 50u);
+  EXPECT_EQ(Publish(2, 3, false), 51u);
+  VerifyReport report;
+  ASSERT_TRUE(store_->Verify(&report).ok());
+  EXPECT_TRUE(report.problems.empty()) << report.problems.front();
+}
+
 TEST_F(VersionsTest, ExplicitVersionNumbersMustBeNew) {
   auto v = MakeVersion(10, 7, 2, 1.0f);
   v->write.manifest.version = 10;

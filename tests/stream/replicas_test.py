@@ -273,6 +273,25 @@ def main():
                         train_addr], check=True, capture_output=True)
         both_serve(active, what="(after the hostile versions)")
 
+        # ---- numbering past what the stream holds -------------------------------------------
+        # The hostile versions above carry numbers this trainer never gave: its numbering moves
+        # past them, so a number never names two versions on a replica's disk.
+        wait_for("plumb-train to number new versions past the stream's 900003",
+                 lambda: "numbered from 900004" in open(log("train")).read(), 30, logs)
+        subprocess.run([query, "retrain", "--trainer", train_addr], check=True,
+                       capture_output=True)
+
+        def newest_version():
+            r = subprocess.run([query, "versions", "--trainer", train_addr], capture_output=True,
+                               text=True)
+            numbers = [int(w[-1]) for w in (l.replace("*", " ").split()[:1] for l in
+                                            r.stdout.splitlines()) if w and w[-1].isdigit()]
+            return max(numbers) if numbers else 0
+
+        wait_for("the rebuild to be published as version 900004 or later",
+                 lambda: newest_version() >= 900004, 90, logs)
+        print("hostile numbers: the trainer's next version is %d" % newest_version())
+
         # ---- canary --------------------------------------------------------------------------
         candidate = active - 1
         canary_key = 'plumb_canary_version{arm="candidate"}'

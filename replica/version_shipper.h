@@ -63,8 +63,7 @@ class VersionShipper {
  public:
   // `store` (a primary: the shipper may move its version numbering) and `registry` are
   // borrowed and must outlive the shipper.
-  VersionShipper(store::Store* store, VersionShipOptions options,
-                 prometheus::Registry* registry);
+  VersionShipper(store::Store* store, VersionShipOptions options, prometheus::Registry* registry);
   ~VersionShipper();  // Stop()
 
   // InvalidArgument for unusable options (see MakeNatsOptions); otherwise starts the thread

@@ -340,11 +340,6 @@ OnlineStatus OnlineLoop::status() const {
 Status OnlineLoop::Activate(uint64_t version, uint64_t* previous) {
   Impl& impl = *impl_;
   std::lock_guard<std::mutex> publishing(impl.publish_mu);
-  store::VersionReader reader;
-  PLUMB_RETURN_IF_ERROR(store::VersionReader::Open(*impl.store, version, &reader));
-  const store::VersionManifest& m = reader.manifest();
-  auto copy = std::make_shared<trainer::Embeddings>();
-  PLUMB_RETURN_IF_ERROR(ReadEmbeddings(reader, impl.options.seed, copy.get()));
   uint64_t before = 0;
   PLUMB_RETURN_IF_ERROR(impl.store->GetActiveVersion(&before));
   // The operator's choice holds: automatic activation pauses in the same write.
@@ -355,17 +350,35 @@ Status OnlineLoop::Activate(uint64_t version, uint64_t* previous) {
   change.activate = version;
   change.meta.emplace_back(kAutoActivateKey, "0");
   change.meta.emplace_back(kAutoActivateReasonKey, reason);
+  // The store first (it checks the version is whole): servers and the version shipper start on
+  // it while this thread reads the version back for the gate (seconds at a million items).
   PLUMB_RETURN_IF_ERROR(impl.store->Commit(change));
   if (previous) *previous = before;
-  std::lock_guard<std::mutex> lock(impl.mu);
-  impl.active_model = std::move(copy);
-  if (impl.status.canary.version == version) impl.status.canary = store::Canary{};
-  impl.status.active_version = version;
-  impl.status.active_validation_recall = m.validation_recall;
-  impl.status.auto_activate = false;
-  impl.status.auto_activate_reason = reason;
+  {
+    std::lock_guard<std::mutex> lock(impl.mu);
+    if (impl.status.canary.version == version) impl.status.canary = store::Canary{};
+    impl.status.active_version = version;
+    impl.status.auto_activate = false;
+    impl.status.auto_activate_reason = reason;
+  }
   spdlog::info("version {} activated by request (was {}); automatic activation paused", version,
                before);
+  store::VersionReader reader;
+  auto copy = std::make_shared<trainer::Embeddings>();
+  Status read = store::VersionReader::Open(*impl.store, version, &reader);
+  if (read.ok()) read = ReadEmbeddings(reader, impl.options.seed, copy.get());
+  std::lock_guard<std::mutex> lock(impl.mu);
+  if (!read.ok()) {
+    // Active all the same; the gate then compares the next candidates with nothing (skipped)
+    // until a version it can read is active.
+    spdlog::error("version {} is active but cannot be read back for the gate: {}", version,
+                  read.ToString());
+    impl.active_model.reset();
+    impl.status.active_validation_recall = 0.0;
+    return Status::Ok();
+  }
+  impl.active_model = std::move(copy);
+  impl.status.active_validation_recall = reader.manifest().validation_recall;
   return Status::Ok();
 }
 

@@ -1,7 +1,6 @@
 #include "replica/nats_access.h"
 
 #include <nats/nats.h>
-
 #include <spdlog/spdlog.h>
 
 #include <deque>
@@ -94,17 +93,20 @@ std::string ExplainNatsFailure(int nats_status, std::string_view last_error) {
     // With TLS 1.3 the client finishes its handshake before the server checks the client's
     // certificate; a server that refuses it closes the connection (after the alert
     // "certificate required", which the client may or may not read first).
-    why = "the server closed the connection while connecting, as a NATS server that verifies "
-          "TLS clients does when the client's certificate is missing or not signed by its CA";
+    why =
+        "the server closed the connection while connecting, as a NATS server that verifies "
+        "TLS clients does when the client's certificate is missing or not signed by its CA";
   } else if (s == NATS_SSL_ERROR) {
     // OpenSSL's verification results (X509_V_ERR_*) as libnats reports them.
     if (says("unable to get local issuer certificate") || says("unable to get issuer") ||
         says("self-signed certificate") || says("self signed certificate")) {
-      why = "TLS handshake failed: the server's certificate is not signed by a CA this client "
-            "trusts (check the TLS CA file)";
+      why =
+          "TLS handshake failed: the server's certificate is not signed by a CA this client "
+          "trusts (check the TLS CA file)";
     } else if (says("hostname mismatch") || says("IP address mismatch")) {
-      why = "TLS handshake failed: the server's certificate does not name the host of the URL "
-            "(its subject alternative names)";
+      why =
+          "TLS handshake failed: the server's certificate does not name the host of the URL "
+          "(its subject alternative names)";
     } else if (says("certificate has expired") || says("certificate is not yet valid")) {
       why = "TLS handshake failed: the server's certificate is outside its validity period";
     } else {

@@ -31,9 +31,9 @@ std::vector<std::string> SplitServers(const std::string& comma_separated);
 // Builds connection options into *out, owned by the caller (natsOptions_Destroy). A lost
 // connection is reconnected forever, every 250-350 ms; why a reconnect fails is logged as a
 // warning naming `label` (or `client_name` when label is "NATS"), once per distinct reason
-// and episode (ExplainNatsFailure's wording). InvalidArgument naming the problem, after "<label>: ": no
-// server, an unreadable or empty token file, credentials or TLS files that do not load, a
-// TLS certificate without its key or the other way round.
+// and episode (ExplainNatsFailure's wording). InvalidArgument naming the problem, after
+// "<label>: ": no server, an unreadable or empty token file, credentials or TLS files that
+// do not load, a TLS certificate without its key or the other way round.
 Status MakeNatsOptions(const NatsAccess& access, const char* client_name, natsOptions** out,
                        const char* label = "NATS");
 

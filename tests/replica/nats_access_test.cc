@@ -23,8 +23,9 @@ TEST(ExplainNatsFailure, ServerCertificateFromAnotherCa) {  // seen
       NATS_SSL_ERROR,
       "(conn.c:733): SSL handshake error: 20:unable to get local issuer certificate:depth=0:"
       "cert=/CN=localhost:issuer=/CN=plumb test CA");
-  EXPECT_TRUE(Contains(text, "TLS handshake failed: the server's certificate is not signed by a "
-                             "CA this client trusts"))
+  EXPECT_TRUE(Contains(text,
+                       "TLS handshake failed: the server's certificate is not signed by a "
+                       "CA this client trusts"))
       << text;
   // libnats' own words stay, without its source location.
   EXPECT_TRUE(Contains(text, "(SSL Error: SSL handshake error: 20:unable to get local issuer"))
@@ -34,15 +35,17 @@ TEST(ExplainNatsFailure, ServerCertificateFromAnotherCa) {  // seen
 
 TEST(ExplainNatsFailure, SelfSignedServerCertificate) {
   // OpenSSL 3 spells X509_V_ERR_DEPTH_ZERO_SELF_SIGNED_CERT (18) with a hyphen.
-  EXPECT_TRUE(Contains(ExplainNatsFailure(NATS_SSL_ERROR, "SSL handshake error: 18:self-signed "
-                                                          "certificate:depth=0"),
+  EXPECT_TRUE(Contains(ExplainNatsFailure(NATS_SSL_ERROR,
+                                          "SSL handshake error: 18:self-signed "
+                                          "certificate:depth=0"),
                        "not signed by a CA this client trusts"));
 }
 
 TEST(ExplainNatsFailure, ServerCertificateForAnotherHost) {  // seen
-  const std::string text = ExplainNatsFailure(
-      NATS_SSL_ERROR, "(conn.c:733): SSL handshake error: 64:IP address mismatch:depth=0:"
-                      "cert=/CN=elsewhere:issuer=/CN=plumb test CA");
+  const std::string text =
+      ExplainNatsFailure(NATS_SSL_ERROR,
+                         "(conn.c:733): SSL handshake error: 64:IP address mismatch:depth=0:"
+                         "cert=/CN=elsewhere:issuer=/CN=plumb test CA");
   EXPECT_TRUE(Contains(text, "does not name the host of the URL")) << text;
 }
 
@@ -56,11 +59,13 @@ TEST(ExplainNatsFailure, ServerThatRefusesTheClientCertificate) {
   // and closes the connection; libnats then reads nothing where it expects PONG.
   const std::string text =
       ExplainNatsFailure(NATS_PROTOCOL_ERROR, "(conn.c:1909): Expected 'PONG', got ''");
-  EXPECT_TRUE(Contains(text, "verifies TLS clients does when the client's certificate is "
-                             "missing or not signed by its CA"))
+  EXPECT_TRUE(Contains(text,
+                       "verifies TLS clients does when the client's certificate is "
+                       "missing or not signed by its CA"))
       << text;
-  EXPECT_TRUE(Contains(ExplainNatsFailure(NATS_SSL_ERROR, "SSL_read: tlsv13 alert certificate "
-                                                          "required"),
+  EXPECT_TRUE(Contains(ExplainNatsFailure(NATS_SSL_ERROR,
+                                          "SSL_read: tlsv13 alert certificate "
+                                          "required"),
                        "client's certificate is missing"));
   // A different protocol error is not mistaken for it.
   EXPECT_FALSE(Contains(ExplainNatsFailure(NATS_PROTOCOL_ERROR, "Expected 'PONG', got 'PING'"),
@@ -71,8 +76,8 @@ TEST(ExplainNatsFailure, TlsOnOneSideOnly) {  // the first seen
   EXPECT_TRUE(Contains(ExplainNatsFailure(NATS_SECURE_CONNECTION_WANTED,
                                           "(conn.c:773): Secure Connection not available"),
                        "TLS is configured but the server does not offer it"));
-  EXPECT_TRUE(Contains(ExplainNatsFailure(NATS_SECURE_CONNECTION_REQUIRED, ""),
-                       "the server requires TLS"));
+  EXPECT_TRUE(
+      Contains(ExplainNatsFailure(NATS_SECURE_CONNECTION_REQUIRED, ""), "the server requires TLS"));
 }
 
 TEST(ExplainNatsFailure, UnknownCausesAreLibnatsText) {
@@ -93,8 +98,7 @@ TEST(MakeNatsOptions, TlsFilesThatDoNotLoadAreNamed) {
   access.tls_ca.clear();
   access.tls_cert = "/nonexistent/client.pem";
   s = MakeNatsOptions(access, "test", &options, "replica");
-  EXPECT_TRUE(Contains(s.ToString(), "a TLS certificate and its key go together"))
-      << s.ToString();
+  EXPECT_TRUE(Contains(s.ToString(), "a TLS certificate and its key go together")) << s.ToString();
 }
 
 }  // namespace

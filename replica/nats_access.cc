@@ -96,8 +96,9 @@ std::string ExplainNatsFailure(int nats_status, std::string_view last_error) {
     why =
         "the server closed the connection while connecting, as a NATS server that verifies "
         "TLS clients does when the client's certificate is missing or not signed by its CA";
-  } else if (s == NATS_SSL_ERROR) {
-    // OpenSSL's verification results (X509_V_ERR_*) as libnats reports them.
+  } else if (s == NATS_SSL_ERROR && says("handshake")) {
+    // OpenSSL's verification results (X509_V_ERR_*) as libnats reports them. (Other TLS
+    // errors, such as files that do not load, are libnats' words alone.)
     if (says("unable to get local issuer certificate") || says("unable to get issuer") ||
         says("self-signed certificate") || says("self signed certificate")) {
       why =
@@ -174,6 +175,11 @@ Status MakeNatsOptions(const NatsAccess& access, const char* client_name, natsOp
       PLUMB_RETURN_IF_ERROR(check(
           natsOptions_SetUserCredentialsFromFiles(o, access.credentials_file.c_str(), nullptr),
           "credentials file"));
+    }
+    for (const std::string* file : {&access.tls_ca, &access.tls_cert, &access.tls_key}) {
+      if (!file->empty() && !std::ifstream(*file)) {
+        return Status::InvalidArgument(who + "cannot read the TLS file " + *file);
+      }
     }
     if (!access.tls_ca.empty() || !access.tls_cert.empty()) {
       PLUMB_RETURN_IF_ERROR(check(natsOptions_SetSecure(o, true), "TLS"));

@@ -32,8 +32,8 @@ std::vector<std::string> SplitServers(const std::string& comma_separated);
 // connection is reconnected forever, every 250-350 ms; why a reconnect fails is logged as a
 // warning naming `label` (or `client_name` when label is "NATS"), once per distinct reason
 // and episode (ExplainNatsFailure's wording). InvalidArgument naming the problem, after
-// "<label>: ": no server, an unreadable or empty token file, credentials or TLS files that
-// do not load, a TLS certificate without its key or the other way round.
+// "<label>: ": no server, an unreadable or empty token file, unreadable credentials or TLS
+// files or ones that do not load, a TLS certificate without its key or the other way round.
 Status MakeNatsOptions(const NatsAccess& access, const char* client_name, natsOptions** out,
                        const char* label = "NATS");
 

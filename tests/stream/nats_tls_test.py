@@ -12,7 +12,8 @@ directory. One nats-server with JetStream requires TLS from every client.
 2. The wrong CA: a plumb-serve replica and a plumb-train trusting the unrelated CA keep
    running and retrying, as documented (docs/operators.md: plumb_replica_connected,
    plumb_jetstream_connected, plumb_version_ship_failures_total), and their logs say that
-   the server's certificate is not signed by a CA they trust.
+   the server's certificate is not signed by a CA they trust. A CA file that does not exist
+   is a configuration error: both exit 2 at once, naming it.
 3. The server restarted with verify on (client certificates required): the running
    plumb-train and replica without a client certificate fail to reconnect and say that the
    server wants a client certificate (not a silent "reconnecting"); the replica keeps
@@ -220,6 +221,20 @@ def main():
         still_running("train-wrong-ca")
         stop("serve-wrong-ca")
         stop("train-wrong-ca")
+        # A CA file that is not there is a configuration error: both exit 2 at once, saying so.
+        missing = os.path.join(tmp, "tls", "missing-ca.pem")
+        for cmd in ([serve, "--db", os.path.join(tmp, "unused-replica"), "--listen",
+                     "127.0.0.1:%d" % free_port(), "--metrics", "", "--replica-of", url,
+                     "--replica-tls-ca", missing],
+                    [train, "--db", os.path.join(tmp, "unused-db"), "--listen",
+                     "127.0.0.1:%d" % free_port(), "--metrics", "", "--jetstream-servers", url,
+                     "--jetstream-tls-ca", missing]):
+            r = subprocess.run(cmd, capture_output=True, text=True, timeout=60)
+            if r.returncode != 2 or "cannot read the TLS file " + missing not in r.stdout + r.stderr:
+                fail("%s with a missing CA file: exit %d, %s" % (os.path.basename(cmd[0]),
+                                                                 r.returncode, r.stdout + r.stderr),
+                     logs)
+        print("a missing CA file: plumb-serve and plumb-train exit 2 naming it")
 
         # ---- 3. client certificates required ---------------------------------------------------
         node.tls["verify"] = True

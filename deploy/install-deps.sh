@@ -16,6 +16,8 @@ PACKAGES=(
   # NATS JetStream (events in, versions out to replicas): the C client, the server the tests
   # and benchmarks run, and zlib for the version bundles' CRC-32
   libnats-dev nats-server zlib1g-dev
+  # the TLS test of the NATS connections makes its throwaway CA and certificates with it
+  openssl
   # fuzzing (the Fuzz build type and CI's short fuzz runs): clang with libFuzzer
   clang libfuzzer-14-dev
   # the formatting check of changed lines (deploy/check_format.sh)

@@ -5,6 +5,7 @@
 #pragma once
 
 #include <string>
+#include <string_view>
 #include <vector>
 
 #include "core/status.h"
@@ -27,10 +28,12 @@ struct NatsAccess {
 // Splits "a,b,c" into its non-empty parts.
 std::vector<std::string> SplitServers(const std::string& comma_separated);
 
-// Builds connection options (reconnecting forever, every 250 ms) into *out, owned by the
-// caller (natsOptions_Destroy). InvalidArgument naming the problem, after "<label>: ": no
-// server, an unreadable or empty token file, credentials or TLS files that do not load, a
-// TLS certificate without its key or the other way round.
+// Builds connection options into *out, owned by the caller (natsOptions_Destroy). A lost
+// connection is reconnected forever, every 250-350 ms; why a reconnect fails is logged as a
+// warning naming `label` (or `client_name` when label is "NATS"), once per distinct reason
+// and episode (ExplainNatsFailure's wording). InvalidArgument naming the problem, after
+// "<label>: ": no server, an unreadable or empty token file, unreadable credentials or TLS
+// files or ones that do not load, a TLS certificate without its key or the other way round.
 Status MakeNatsOptions(const NatsAccess& access, const char* client_name, natsOptions** out,
                        const char* label = "NATS");
 
@@ -46,7 +49,15 @@ void CloseNats(natsConnection** nc, jsCtx** js);
 // The URL nc is connected to ("" when it is not).
 std::string ConnectedUrl(natsConnection* nc);
 
-// libnats' text for a status, with its last error when there is one.
+// libnats' text for a status, with the calling thread's last libnats error when there is
+// one, explained by ExplainNatsFailure.
 std::string NatsErrorText(int nats_status);
+
+// libnats' text for a status and its error text (last_error, may be empty), preceded by what
+// an operator should check where the failure has a known cause: a TLS handshake that failed
+// (the server's certificate not signed by a trusted CA, not naming the host, expired), TLS
+// wanted by one side only, or a server that closed the connection while connecting (what a
+// NATS server verifying TLS clients does to a client without an accepted certificate).
+std::string ExplainNatsFailure(int nats_status, std::string_view last_error);
 
 }  // namespace plumb::replica

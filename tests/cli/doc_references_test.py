@@ -4,7 +4,8 @@ units uses a subcommand and flags its program offers (checked against its --help
 repository path they mention (a name with a '/', or a file name ending in .md) is in the
 repository: a path starting with one of the repository's top-level directories must exist, and
 a bare file name with a source or document extension must exist somewhere in it. Paths
-outside it (starting with ../) and installation paths (/etc, /var, ...) are not checked.
+outside it (starting with ../), installation paths (/etc, /var, ...) and the systemd units of
+Debian packages (DEBIAN_UNITS) are not checked.
 
 Usage: doc_references_test.py SOURCE_DIR BIN_DIR
 """
@@ -16,7 +17,9 @@ import sys
 SRC, BIN = sys.argv[1], sys.argv[2]
 DOCS = ["README.md", "DEVELOPERS.md", "docs/operators.md", "deploy/prometheus/alerts.yml",
         "deploy/plumb-serve.toml", "deploy/plumb-train.toml", "deploy/systemd/plumb-serve.service",
-        "deploy/systemd/plumb-train.service", "examples/python/plumb_client.py"]
+        "deploy/systemd/plumb-train.service", "deploy/plumb-replica.toml",
+        "deploy/systemd/plumb-replica.service", "deploy/systemd/plumb-nats.service",
+        "deploy/nats/nats-server.conf", "examples/python/plumb_client.py"]
 BINARIES = {"plumb": "cli/plumb", "plumb-serve": "server/plumb-serve",
             "plumb-train": "trainer/online/plumb-train", "plumb-query": "tools/plumb-query",
             "plumb-load": "tools/plumb-load"}
@@ -27,6 +30,8 @@ SUBCOMMANDS = {
                     "pin", "unpin", "auto-activate", "retrain"},
     "plumb-load": {"replay"},
 }
+# Units that Debian packages install (deploy/systemd/plumb-nats.service replaces one).
+DEBIAN_UNITS = {"nats-server.service"}
 TOP_DIRS = {e for e in os.listdir(SRC) if os.path.isdir(os.path.join(SRC, e)) and
             not e.startswith((".", "build"))}
 FILE_NAMES = {f for root, _, files in os.walk(SRC)
@@ -78,7 +83,8 @@ for doc in DOCS:
             candidates = [path, os.path.join(os.path.dirname(doc), path)]
             if not any(os.path.exists(os.path.join(SRC, c)) for c in candidates):
                 failures.append("%s mentions %s, which is not in the repository" % (doc, path))
-        elif path not in FILE_NAMES and not re.match(r"^(plumb|grpc)\.", path):
+        elif (path not in FILE_NAMES and not re.match(r"^(plumb|grpc)\.", path)
+              and path not in DEBIAN_UNITS):
             failures.append("%s mentions %s, which is not in the repository" % (doc, path))
 
 for f in failures:

@@ -165,5 +165,18 @@ TEST(ServeConfigTest, ExampleFileParsesAndNamesEveryKey) {
   EXPECT_GT(keys.size(), 20u);
 }
 
+// deploy/plumb-replica.toml (deploy/systemd/plumb-replica.service) parses: every key is one
+// plumb-serve knows, it follows NATS instead of a store, and its directory is its own.
+TEST(ServeConfigTest, ExampleReplicaFileParses) {
+  const std::string example = std::string(PLUMB_SOURCE_DIR) + "/deploy/plumb-replica.toml";
+  ServeConfig c;
+  std::string err;
+  ASSERT_EQ(Parse({"--config", example}, &c, nullptr, &err), -1) << err;
+  EXPECT_EQ(c.replica_of.rfind("nats://", 0), 0u) << c.replica_of;
+  EXPECT_EQ(c.db, "/var/lib/plumb-replica");
+  EXPECT_FALSE(c.replica_token_file.empty());
+  EXPECT_EQ(c.replica_stream, "PLUMB_VERSIONS");
+}
+
 }  // namespace
 }  // namespace plumb::server

@@ -1,5 +1,8 @@
 // jetstream_tool: the NATS side of plumb's JetStream tests and benchmark (not installed).
 //
+// Every command that connects to NATS uses TLS when JETSTREAM_TOOL_TLS_CA names a CA file
+// (and presents JETSTREAM_TOOL_TLS_CERT / JETSTREAM_TOOL_TLS_KEY when set).
+//
 //   jetstream_tool create-stream SERVERS STREAM SUBJECT REPLICAS
 //       creates (or keeps) a file-backed stream with REPLICAS replicas, retrying for up to
 //       60 s while the cluster elects its leaders.
@@ -92,6 +95,16 @@ struct Connection {
     natsOptions_SetMaxReconnect(opts, -1);
     natsOptions_SetReconnectWait(opts, 100);
     natsOptions_SetRetryOnFailedConnect(opts, true, nullptr, nullptr);
+    if (const char* ca = std::getenv("JETSTREAM_TOOL_TLS_CA"); ca != nullptr && ca[0] != '\0') {
+      natsStatus t = natsOptions_SetSecure(opts, true);
+      if (t == NATS_OK) t = natsOptions_LoadCATrustedCertificates(opts, ca);
+      const char* cert = std::getenv("JETSTREAM_TOOL_TLS_CERT");
+      const char* key = std::getenv("JETSTREAM_TOOL_TLS_KEY");
+      if (t == NATS_OK && cert != nullptr && key != nullptr) {
+        t = natsOptions_LoadCertificatesChain(opts, cert, key);
+      }
+      if (t != NATS_OK) Die("TLS files", t);
+    }
     natsStatus s = natsConnection_Connect(&nc, opts);
     natsOptions_Destroy(opts);
     if (s != NATS_OK && s != NATS_NOT_YET_CONNECTED) Die("connect to " + servers, s);

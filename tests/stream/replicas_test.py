@@ -1,7 +1,7 @@
 #!/usr/bin/env python3
 """Remote serving replicas over NATS JetStream, all real processes on loopback.
 
-1. Three nats-server processes form a cluster (jetstream_cluster_test.py's Node). plumb-train
+1. Three nats-server processes form a cluster (stream_support.py's Node). plumb-train
    (--jetstream-versions, --no-jetstream-events) creates the version stream and the pointer
    bucket with three replicas and ships every activated version.
 2. Two `plumb-serve --replica-of` with separate local directories follow the activations
@@ -39,8 +39,8 @@ import time
 import urllib.request
 
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
-import jetstream_cluster_test  # noqa: E402
-from jetstream_cluster_test import TOKEN, Node, fail, free_port, scrape, wait_for  # noqa: E402
+import stream_support  # noqa: E402
+from stream_support import TOKEN, Node, fail, free_port, metric, wait_for  # noqa: E402
 
 SERVE_WITHIN = 20  # seconds a replica may take to serve the pointer's version
 SOURCE = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
@@ -91,12 +91,8 @@ class Caller:
         return out
 
 
-def metric(addr, name):
-    return scrape(addr).get(name)
-
-
 def check_documented(metrics_addr, prefix, section, logs):
-    served, _ = jetstream_cluster_test.check_documented(metrics_addr, prefix, section, logs)
+    served, _ = stream_support.check_documented(metrics_addr, prefix, section, logs)
     print("metrics: %s: %d families, as documented" % (section, served))
 
 

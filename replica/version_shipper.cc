@@ -57,11 +57,23 @@ struct VersionShipper::Impl {
     jsOptions jo;
     jsOptions_Init(&jo);
     jo.PublishAsync.MaxPending = kChunksInFlight;
+    // With kChunksInFlight unacknowledged, the next publish waits for room. libnats' default
+    // wait (200 ms) is shorter than a three-replica stream takes to store a few megabytes on a
+    // busy host: the publish then failed and the whole version was shipped again from the
+    // start, over and over (measured: 1M x 64 versions retried for minutes). Wait as long as
+    // for the final acknowledgements.
+    jo.PublishAsync.StallWait = kAckWaitMs;
     jo.PublishAsync.ErrHandler = &Impl::OnPublishError;
     jo.PublishAsync.ErrHandlerClosure = &publish_errors;
     const char* step = "";
     natsStatus s = static_cast<natsStatus>(ConnectJetStream(nats_options, &jo, &nc, &js, &step));
-    if (s != NATS_OK) return Failed(step, NatsErrorText(s));
+    if (s != NATS_OK) {
+      std::string servers;
+      for (const std::string& url : options.access.servers) {
+        servers += (servers.empty() ? "" : ",") + url;
+      }
+      return Failed(std::string(step) + " (" + servers + ")", NatsErrorText(s));
+    }
     jsErrCode jerr = static_cast<jsErrCode>(0);
     jsStreamInfo* info = nullptr;
     s = js_GetStreamInfo(&info, js, options.stream.c_str(), nullptr, &jerr);
@@ -108,6 +120,7 @@ struct VersionShipper::Impl {
   }
 
   static constexpr int kChunksInFlight = 16;
+  static constexpr int64_t kAckWaitMs = 30000;
   static void OnPublishError(jsCtx*, jsPubAckErr*, void* closure) {
     static_cast<std::atomic<int>*>(closure)->fetch_add(1);
   }
@@ -186,7 +199,7 @@ struct VersionShipper::Impl {
     }
     jsPubOptions pub;
     jsPubOptions_Init(&pub);
-    pub.MaxWait = 30000;
+    pub.MaxWait = kAckWaitMs;
     if (natsStatus s = js_PublishAsyncComplete(js, &pub); s != NATS_OK) {
       return Status::Unavailable("waiting for the acknowledgements of version " +
                                  std::to_string(version) + ": " + NatsErrorText(s));

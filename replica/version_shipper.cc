@@ -300,6 +300,7 @@ struct VersionShipper::Impl {
     const bool listed = StreamVersions(&in_stream);
     if (listed) KeepNumberingAhead(in_stream);
     if (active == 0) return;
+    bool moved = false;  // the pointer or the canary key was put this round
     if (active != pointer_put.load()) {
       if (Status s = ShipAndPoint(active, "active", std::to_string(active)); !s.ok()) {
         Failed("version " + std::to_string(active), s.ToString());
@@ -308,6 +309,7 @@ struct VersionShipper::Impl {
       spdlog::info("versions: the pointer names version {}", active);
       pointer_put.store(active);
       pointer_gauge->Set(static_cast<double>(active));
+      moved = true;
     }
     // The canary after the active version: a promotion names the candidate active first, so a
     // replica never sees the canary end before the candidate serves everyone.
@@ -319,9 +321,11 @@ struct VersionShipper::Impl {
       }
       spdlog::info("versions: the canary key holds \"{}\"", canary_text);
       canary_put = canary_text;
+      moved = true;
     }
     failing.clear();
-    if (listed && StreamVersions(&in_stream)) Prune(in_stream, active, canary.version);
+    // Pruning reads every manifest of the store: only after something was shipped or moved.
+    if (moved && StreamVersions(&in_stream)) Prune(in_stream, active, canary.version);
   }
 
   // Ships `version` (unless 0) and then puts `value` under `key` of the bucket.

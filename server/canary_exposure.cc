@@ -8,22 +8,6 @@ namespace plumb::server {
 
 namespace {
 
-prometheus::MetricFamily GaugeFamily(const std::string& name, const std::string& help) {
-  prometheus::MetricFamily f;
-  f.name = name;
-  f.help = help;
-  f.type = prometheus::MetricType::Gauge;
-  return f;
-}
-
-void AddGauge(prometheus::MetricFamily* f, double value,
-              std::vector<prometheus::ClientMetric::Label> labels = {}) {
-  prometheus::ClientMetric m;
-  m.gauge.value = value;
-  m.label = std::move(labels);
-  f->metric.push_back(std::move(m));
-}
-
 // Appends `more` to `out`, merging families of the same name.
 void Merge(std::vector<prometheus::MetricFamily> more, std::vector<prometheus::MetricFamily>* out) {
   for (prometheus::MetricFamily& f : more) {

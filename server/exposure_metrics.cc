@@ -5,9 +5,7 @@
 #include "core/metrics.h"
 
 namespace plumb::server {
-namespace {
-
-prometheus::MetricFamily Gauge(const std::string& name, const std::string& help) {
+prometheus::MetricFamily GaugeFamily(const std::string& name, const std::string& help) {
   prometheus::MetricFamily f;
   f.name = name;
   f.help = help;
@@ -15,15 +13,13 @@ prometheus::MetricFamily Gauge(const std::string& name, const std::string& help)
   return f;
 }
 
-void Add(prometheus::MetricFamily* f, double value,
-         std::vector<prometheus::ClientMetric::Label> labels = {}) {
+void AddGauge(prometheus::MetricFamily* family, double value,
+              std::vector<prometheus::ClientMetric::Label> labels) {
   prometheus::ClientMetric m;
   m.gauge.value = value;
   m.label = std::move(labels);
-  f->metric.push_back(std::move(m));
+  family->metric.push_back(std::move(m));
 }
-
-}  // namespace
 
 std::vector<prometheus::MetricFamily> ExposureFamilies(
     const ExposureFigures& fig, const Snapshot& snap, const std::string& prefix,
@@ -35,8 +31,8 @@ std::vector<prometheus::MetricFamily> ExposureFamilies(
     return more;
   };
   auto single = [&](const std::string& name, const std::string& help, double v) {
-    prometheus::MetricFamily f = Gauge(name, help);
-    Add(&f, v, labels);
+    prometheus::MetricFamily f = GaugeFamily(name, help);
+    AddGauge(&f, v, labels);
     out.push_back(std::move(f));
   };
   single(prefix + "window_lists", "Served lists in the exposure window",
@@ -56,19 +52,20 @@ std::vector<prometheus::MetricFamily> ExposureFamilies(
   single(prefix + "gini_ratio", "Gini coefficient of item exposure in the window", s.gini);
   single(prefix + "coverage_ratio", "Share of the catalogue served at least once in the window",
          s.coverage);
-  prometheus::MetricFamily exp = Gauge(
+  prometheus::MetricFamily exp = GaugeFamily(
       prefix + "group_share_ratio",
       "Share of served slots per popularity group (group 1 = least popular, as in plumb eval)");
   for (size_t g = 0; g < s.exposure_group_shares.size(); ++g) {
-    Add(&exp, s.exposure_group_shares[g], with({{"group", std::to_string(g + 1)}}));
+    AddGauge(&exp, s.exposure_group_shares[g], with({{"group", std::to_string(g + 1)}}));
   }
   out.push_back(std::move(exp));
   if (with_interaction) {
-    prometheus::MetricFamily inter = Gauge("plumb_interaction_group_share_ratio",
-                                           "Share of training interactions per popularity group "
-                                           "(group 1 = least popular)");
+    prometheus::MetricFamily inter =
+        GaugeFamily("plumb_interaction_group_share_ratio",
+                    "Share of training interactions per popularity group "
+                    "(group 1 = least popular)");
     for (size_t g = 0; g < s.interaction_group_shares.size(); ++g) {
-      Add(&inter, s.interaction_group_shares[g], {{"group", std::to_string(g + 1)}});
+      AddGauge(&inter, s.interaction_group_shares[g], {{"group", std::to_string(g + 1)}});
     }
     out.push_back(std::move(inter));
   }
@@ -86,12 +83,12 @@ std::vector<prometheus::MetricFamily> ExposureFamilies(
   const std::span<const double> target = snap.target_group_shares();
   if (!target.empty() && target.size() == s.exposure_group_shares.size() && fig.slots > 0) {
     if (with_interaction) {
-      prometheus::MetricFamily t = Gauge(
+      prometheus::MetricFamily t = GaugeFamily(
           "plumb_validation_target_group_share_ratio",
           "The served version's debiased validation split: share of held-out interactions per "
           "popularity group (group 1 = least popular), the target of served exposure");
       for (size_t g = 0; g < target.size(); ++g) {
-        Add(&t, target[g], {{"group", std::to_string(g + 1)}});
+        AddGauge(&t, target[g], {{"group", std::to_string(g + 1)}});
       }
       out.push_back(std::move(t));
     }

@@ -14,6 +14,12 @@
 
 namespace plumb::server {
 
+// A gauge family named `name`, and one metric of it with `labels`: the pieces every
+// hand-built collector of plumb-serve's exposure gauges uses.
+prometheus::MetricFamily GaugeFamily(const std::string& name, const std::string& help);
+void AddGauge(prometheus::MetricFamily* family, double value,
+              std::vector<prometheus::ClientMetric::Label> labels = {});
+
 // The exposure gauges of `fig` (summarised against `snap`), named `prefix` + the part after
 // "plumb_exposure_" of the names in docs/operators.md, each metric carrying `labels`; the
 // interaction and validation-target gauges (the same for every arm) only with

@@ -35,14 +35,6 @@ class CanaryTest : public StoreFixture {
     change.canary = Canary{version, share_bp, 0};
     return store_->Commit(change);
   }
-
-  std::vector<uint64_t> Listed() {
-    std::vector<VersionManifest> versions;
-    EXPECT_TRUE(store_->ListVersions(&versions).ok());
-    std::vector<uint64_t> out;
-    for (const auto& m : versions) out.push_back(m.version);
-    return out;
-  }
 };
 
 TEST_F(CanaryTest, NoneUntilSetThenKeptAcrossAReopen) {

@@ -85,6 +85,15 @@ class StoreFixture : public ::testing::Test {
     ASSERT_TRUE(s.ok()) << s.ToString();
   }
 
+  // The kept version numbers, newest first.
+  std::vector<uint64_t> Listed() {
+    std::vector<VersionManifest> versions;
+    EXPECT_TRUE(store_->ListVersions(&versions).ok());
+    std::vector<uint64_t> out;
+    for (const auto& m : versions) out.push_back(m.version);
+    return out;
+  }
+
   // Publishes a version of the current dictionary sizes; returns its number.
   uint64_t Publish(uint32_t dim, float tag, bool activate) {
     auto v =

@@ -25,14 +25,6 @@ class VersionsTest : public StoreFixture {
     AddIds(10, 7);
   }
 
-  std::vector<uint64_t> Listed() {
-    std::vector<VersionManifest> versions;
-    EXPECT_TRUE(store_->ListVersions(&versions).ok());
-    std::vector<uint64_t> out;
-    for (const auto& m : versions) out.push_back(m.version);
-    return out;
-  }
-
   uint64_t Active() {
     uint64_t v = 0;
     EXPECT_TRUE(store_->GetActiveVersion(&v).ok());

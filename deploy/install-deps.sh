@@ -20,6 +20,9 @@ PACKAGES=(
   openssl
   # fuzzing (the Fuzz build type and CI's short fuzz runs): clang with libFuzzer
   clang libfuzzer-14-dev
+  # bench_index_choice: faiss, the other index library, beside hnswlib (faiss's k-means and
+  # flat searches run on BLAS: OpenBLAS rather than the slow reference build)
+  libfaiss-dev libopenblas0-pthread
   # the formatting check of changed lines (deploy/check_format.sh)
   clang-format
   # tests and demo: a real Prometheus (promtool), Python reference checks and clients

@@ -23,14 +23,12 @@
 #include <string>
 #include <vector>
 
+#include "bench/server/catalogue_world.h"
 #include "core/metrics.h"
 #include "core/scan.h"
 #include "server/scorer.h"
 #include "server/snapshot.h"
 #include "tools/latency_record.h"
-#include "trainer/embeddings.h"
-#include "trainer/synth.h"
-#include "trainer/trainer.h"
 
 namespace plumb::server {
 namespace {
@@ -38,106 +36,18 @@ namespace {
 using Clock = std::chrono::steady_clock;
 
 struct Args {
-  uint32_t users = 20'000;
-  uint32_t items = 1'000'000;
-  uint32_t dim = 64;
-  uint64_t interactions = 2'000'000;
-  double zipf = 1.0;
-  uint32_t epochs = 8;
-  uint32_t tile = 1;
-  double tile_noise = 0.05;
+  CatalogueWorldOptions world;
   uint32_t queries = 2000;
   uint32_t count = 20;
   std::vector<uint32_t> breadths = {32, 64, 128, 256};
   uint32_t links = 16;
   uint32_t build_breadth = 200;
   uint32_t build_threads = 2;
-  uint32_t train_threads = 2;
-  uint64_t seed = 7;
   bool similar = true;
 };
 
 double Seconds(Clock::time_point since) {
   return std::chrono::duration<double>(Clock::now() - since).count();
-}
-
-// Resident and peak resident memory of this process, MB (Linux /proc/self/status).
-std::pair<double, double> RssMb() {
-  std::ifstream status("/proc/self/status");
-  std::string line;
-  double rss = 0, hwm = 0;
-  while (std::getline(status, line)) {
-    if (line.starts_with("VmRSS:")) rss = std::stod(line.substr(6)) / 1024.0;
-    if (line.starts_with("VmHWM:")) hwm = std::stod(line.substr(6)) / 1024.0;
-  }
-  return {rss, hwm};
-}
-
-// The fitted world as snapshot parts, tiled `tile` times.
-Status MakeParts(const Args& a, SnapshotParts* p) {
-  trainer::SynthOptions so;
-  so.users = a.users;
-  so.items = a.items;
-  so.zipf = a.zipf;
-  so.target_interactions = a.interactions;
-  so.seed = a.seed;
-  trainer::SynthWorld world;
-  Clock::time_point t0 = Clock::now();
-  PLUMB_RETURN_IF_ERROR(trainer::GenerateSynthWorld(so, &world));
-  trainer::Interactions train;
-  PLUMB_RETURN_IF_ERROR(world.TrainInteractions(&train));
-  trainer::Embeddings model;
-  PLUMB_RETURN_IF_ERROR(trainer::Embeddings::Create(a.dim, a.users, a.items, a.seed, &model));
-  trainer::TrainOptions o;  // CPR, beta 3: plumb's default objective
-  o.learning_rate = 0.05f;
-  o.l2 = 1e-3f;
-  o.batch_size = 256;
-  o.threads = a.train_threads;
-  std::unique_ptr<trainer::FitLoop> loop;
-  PLUMB_RETURN_IF_ERROR(trainer::FitLoop::Create(o, &model, &train, &loop));
-  std::printf("world: %u members x %u tools, %zu training pairs, dim %u; generated in %.1f s\n",
-              a.users, a.items, train.size(), a.dim, Seconds(t0));
-  t0 = Clock::now();
-  for (uint32_t e = 0; e < a.epochs; ++e) {
-    PLUMB_RETURN_IF_ERROR(loop->RunEpochs(1));
-    std::printf("  CPR epoch %u/%u, %.0f s\n", e + 1, a.epochs, Seconds(t0));
-    std::fflush(stdout);
-  }
-  const uint32_t dim = a.dim, base = a.items, items = base * a.tile;
-  p->version = 1;
-  p->items = ItemMatrix(items, dim);
-  p->users = ItemMatrix(a.users, dim);
-  std::copy(model.users().data(), model.users().data() + size_t{a.users} * dim, p->users.data());
-  std::mt19937_64 rng(a.seed + 1);
-  std::normal_distribution<float> gauss(0.0f, 1.0f);
-  for (uint32_t c = 0; c < a.tile; ++c) {
-    for (uint32_t i = 0; i < base; ++i) {
-      const float* src = model.items().data() + size_t{i} * dim;
-      float* dst = p->items.data() + (size_t{c} * base + i) * dim;
-      double norm = 0;
-      for (uint32_t d = 0; d < dim; ++d) norm += double{src[d]} * src[d];
-      const float sigma = c == 0 ? 0.0f : static_cast<float>(a.tile_noise * std::sqrt(norm / dim));
-      for (uint32_t d = 0; d < dim; ++d) dst[d] = src[d] + sigma * gauss(rng);
-      p->item_ids.push_back(c == 0 ? trainer::ToolLabel(i)
-                                   : trainer::ToolLabel(i) + "#" + std::to_string(c));
-      p->item_degrees.push_back(train.item_degree(i));
-    }
-  }
-  p->seen_offsets.push_back(0);
-  for (uint32_t u = 0; u < a.users; ++u) {
-    p->user_ids.push_back(trainer::MemberLabel(u));
-    std::vector<uint32_t> seen(train.items_of(u).begin(), train.items_of(u).end());
-    std::sort(seen.begin(), seen.end());
-    p->seen_items.insert(p->seen_items.end(), seen.begin(), seen.end());
-    p->seen_offsets.push_back(p->seen_items.size());
-  }
-  if (a.tile > 1) {
-    std::printf(
-        "catalogue tiled %u times to %u items (copies: the fitted rows plus Gaussian "
-        "noise of %.0f %% of each row's RMS; same degrees)\n",
-        a.tile, items, 100 * a.tile_noise);
-  }
-  return Status::Ok();
 }
 
 struct Sweep {
@@ -188,7 +98,7 @@ void PrintHeader(const char* what, size_t groups) {
 
 int Run(const Args& a) {
   SnapshotParts parts;
-  Status s = MakeParts(a, &parts);
+  Status s = FitCatalogueWorld(a.world, &parts);
   if (!s.ok()) {
     std::fprintf(stderr, "bench_catalogue: %s\n", s.ToString().c_str());
     return 1;
@@ -198,7 +108,7 @@ int Run(const Args& a) {
   parts.approx.index.build_breadth = a.build_breadth;
   parts.approx.index.build_threads = a.build_threads;
   parts.approx.similar_items = a.similar;
-  const auto [rss_before, hwm_before] = RssMb();
+  const auto [rss_before, hwm_before] = ProcessRssMb();
   Clock::time_point t0 = Clock::now();
   std::shared_ptr<const Snapshot> snap;
   s = Snapshot::Build(std::move(parts), &snap);
@@ -207,7 +117,7 @@ int Run(const Args& a) {
     return 1;
   }
   const double build_total = Seconds(t0);
-  const auto [rss_after, hwm_after] = RssMb();
+  const auto [rss_after, hwm_after] = ProcessRssMb();
   const uint32_t items = snap->num_items(), dim = snap->dim();
   std::printf(
       "\nsnapshot of %u items x %u: built in %.1f s, of which the two approximate "
@@ -242,7 +152,7 @@ int Run(const Args& a) {
                 static_cast<long long>(keep % 7));
   }
 
-  std::mt19937_64 rng(a.seed + 3);
+  std::mt19937_64 rng(a.world.seed + 3);
   std::vector<uint32_t> users(a.queries), uniform_items(a.queries), viewed_items(a.queries);
   for (uint32_t& u : users) u = static_cast<uint32_t>(rng() % snap->num_users());
   for (uint32_t& i : uniform_items) i = static_cast<uint32_t>(rng() % items);
@@ -344,16 +254,7 @@ int main(int argc, char** argv) {
   CLI::App app{
       "bench_catalogue: Recommend and SimilarItems at 1M-10M items, the exact pruned "
       "scan against the approximate index, on a CPR-fitted synthetic world"};
-  app.add_option("--users", a.users, "members of the synthetic world")->capture_default_str();
-  app.add_option("--items", a.items, "tools fitted (before tiling)")->capture_default_str();
-  app.add_option("--dim", a.dim, "embedding dimension")->capture_default_str();
-  app.add_option("--interactions", a.interactions, "target training pairs")->capture_default_str();
-  app.add_option("--zipf", a.zipf, "popularity skew of the world")->capture_default_str();
-  app.add_option("--epochs", a.epochs, "CPR epochs")->capture_default_str();
-  app.add_option("--tile", a.tile, "repeat the fitted catalogue this many times")
-      ->capture_default_str();
-  app.add_option("--tile-noise", a.tile_noise, "noise of each copy, relative to the row's RMS")
-      ->capture_default_str();
+  AddCatalogueWorldOptions(&app, &a.world);
   app.add_option("--queries", a.queries, "calls per path")->capture_default_str();
   app.add_option("--breadths", a.breadths, "search breadths to sweep")
       ->delimiter(',')
@@ -363,9 +264,6 @@ int main(int argc, char** argv) {
       ->capture_default_str();
   app.add_option("--build-threads", a.build_threads, "threads building each index")
       ->capture_default_str();
-  app.add_option("--train-threads", a.train_threads, "threads fitting the world")
-      ->capture_default_str();
-  app.add_option("--seed", a.seed, "seed of the world and the queries")->capture_default_str();
   app.add_flag("!--no-similar", a.similar, "skip SimilarItems");
   CLI11_PARSE(app, argc, argv);
   return plumb::server::Run(a);

@@ -8,12 +8,6 @@
 
 namespace plumb::server {
 
-CatchUpLoop::CatchUpLoop(store::Store* store, SnapshotHolder* holder, CatchUpOptions options)
-    : store_(store), holder_(holder), options_(std::move(options)) {}
-
-CatchUpLoop::CatchUpLoop(VersionFeed* feed, SnapshotHolder* holder, CatchUpOptions options)
-    : store_(nullptr), feed_(feed), holder_(holder), options_(std::move(options)) {}
-
 namespace {
 
 double SecondsSince(std::chrono::steady_clock::time_point start) {
@@ -21,6 +15,12 @@ double SecondsSince(std::chrono::steady_clock::time_point start) {
 }
 
 }  // namespace
+
+CatchUpLoop::CatchUpLoop(store::Store* store, SnapshotHolder* holder, CatchUpOptions options)
+    : store_(store), holder_(holder), options_(std::move(options)) {}
+
+CatchUpLoop::CatchUpLoop(VersionFeed* feed, SnapshotHolder* holder, CatchUpOptions options)
+    : store_(nullptr), feed_(feed), holder_(holder), options_(std::move(options)) {}
 
 CatchUpLoop::~CatchUpLoop() { Stop(); }
 

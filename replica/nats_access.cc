@@ -23,6 +23,17 @@ std::vector<std::string> SplitServers(const std::string& list) {
   return out;
 }
 
+NatsAccess ToNatsAccess(const NatsSettings& settings) {
+  NatsAccess access;
+  access.servers = SplitServers(settings.servers);
+  access.token_file = settings.token_file;
+  access.credentials_file = settings.credentials_file;
+  access.tls_ca = settings.tls_ca;
+  access.tls_cert = settings.tls_cert;
+  access.tls_key = settings.tls_key;
+  return access;
+}
+
 namespace {
 
 // libnats prefixes its last error with where it was set, "(conn.c:733): ": not for operators.

@@ -25,6 +25,17 @@ struct NatsAccess {
   std::string tls_cert, tls_key;     // a client certificate, when the server asks
 };
 
+// A NATS connection as a daemon's configuration holds it, one key (and flag) a field:
+// plumb-serve's replica_* keys, plumb-train's jetstream_* keys.
+struct NatsSettings {
+  std::string servers;  // comma-separated nats://HOST:PORT (tls://... for TLS); "" = none
+  std::string token_file, credentials_file;  // as in NatsAccess
+  std::string tls_ca, tls_cert, tls_key;     // as in NatsAccess
+};
+
+// The NatsAccess that `settings` describe: the servers split by SplitServers, the rest as is.
+NatsAccess ToNatsAccess(const NatsSettings& settings);
+
 // Splits "a,b,c" into its non-empty parts.
 std::vector<std::string> SplitServers(const std::string& comma_separated);
 

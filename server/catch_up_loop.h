@@ -15,7 +15,9 @@
 //
 // With a VersionFeed instead of a store (plumb-serve --replica-of), a round asks the feed for
 // the version to serve and loads it from the feed; the withdrawn items are those that came
-// with the version. Counters and failure handling are the same.
+// with the version. Counters and failure handling are the same, but for a NotFound: the
+// store's is explained (a missing or damaged table file, or a version deleted right after it
+// was named), a feed's is reported as the feed worded it.
 #pragma once
 
 #include <atomic>
@@ -91,18 +93,27 @@ class CatchUpLoop {
 
  private:
   void Run();
-  // RunOnce with a feed.
-  Status RunFeedOnce();
-  Status RunFeedActiveOnce();
-  // The store's active version: loads and swaps it when it changed.
+  // The store's part of a round: catch up with the primary (its error is returned), check the
+  // table files when file_check_interval has passed (their damage into *damage, which does
+  // not stop the round) and follow the withdrawn items.
+  Status FollowStore(Status* damage);
+  // Builds version `version`'s snapshot from the feed or the store into *out. A feed's version
+  // brings its withdrawn items into *withdrawn; the store's are its own (RefreshWithdrawn).
+  Status Load(uint64_t version, std::shared_ptr<const Snapshot>* out,
+              std::vector<std::string>* withdrawn);
+  // The version the feed or the store names active: loads and swaps it in when it changed.
   Status FollowActive();
-  // Remembers `active` as failed (not tried again until another version is named), counts
-  // and logs the failure, tells on_load_failure, and returns s.
-  Status SkipFailedLoad(uint64_t active, const Snapshot* current, const Status& s);
-  // Follows the canary `version` (0: none) at `share_bp`; `load` builds a snapshot.
-  Status FollowCanary(
-      uint64_t version, uint32_t share_bp,
-      const std::function<Status(uint64_t, std::shared_ptr<const Snapshot>*)>& load);
+  // Makes `next` (version `active`, loaded in `seconds`) the current snapshot, with the
+  // withdrawn items that came with it from a feed, and logs and reports the swap.
+  void SwapIn(uint64_t active, std::shared_ptr<const Snapshot> next,
+              std::vector<std::string> withdrawn, double seconds);
+  // Remembers `version` as failed (the active one, or the canary: not tried again until
+  // another version is named), counts and logs the failure, tells on_load_failure, and
+  // returns s.
+  Status SkipFailedLoad(uint64_t version, bool canary, const Status& s);
+  // The canary the feed or the store names (version 0: none): builds its snapshot, or takes
+  // the current one or its own earlier one, and sets it with its share beside the current.
+  Status FollowCanary();
   // The canary's snapshot when it is version `version` (a promotion), else null.
   std::shared_ptr<const Snapshot> CanaryAs(uint64_t version) const;
   // Rebuilds the holder's withdrawn set when the store's generation moved, or (swapped) for
@@ -116,7 +127,7 @@ class CatchUpLoop {
 
   uint64_t failed_version_ = 0;  // last version that failed to load (loop thread only)
   uint64_t failed_canary_ = 0;   // last canary version that failed to load (loop thread only)
-  std::vector<std::string> canary_withdrawn_;  // the feed's withdrawn items of the canary
+  std::vector<std::string> canary_withdrawn_;  // a feed's withdrawn items of the canary
   std::string last_catch_up_error_;
   std::string last_damage_;
   std::chrono::steady_clock::time_point next_file_check_{};

@@ -73,12 +73,7 @@ class ScratchDir {
 // The replica feed's options from the configuration (replica_* keys).
 ReplicaOptions ReplicaOptionsFrom(const ServeConfig& config) {
   ReplicaOptions o;
-  o.access.servers = plumb::replica::SplitServers(config.replica_of);
-  o.access.token_file = config.replica_token_file;
-  o.access.credentials_file = config.replica_credentials_file;
-  o.access.tls_ca = config.replica_tls_ca;
-  o.access.tls_cert = config.replica_tls_cert;
-  o.access.tls_key = config.replica_tls_key;
+  o.access = plumb::replica::ToNatsAccess(config.replica_nats);
   o.stream = config.replica_stream;
   o.subject_prefix = config.replica_subject;
   o.bucket = config.replica_bucket;
@@ -106,7 +101,7 @@ int Serve(const ServeConfig& config, const sigset_t& signals) {
   }
   std::unique_ptr<plumb::store::Store> store;
   std::unique_ptr<ReplicaFeed> feed;
-  if (!config.replica_of.empty()) {
+  if (!config.replica_nats.servers.empty()) {
     feed = std::make_unique<ReplicaFeed>(ReplicaOptionsFrom(config));
     s = feed->Open();
     if (!s.ok()) {

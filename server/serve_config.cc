@@ -116,18 +116,18 @@ void DefineOptions(CLI::App& app, config::FlagFile* keys, ServeConfig* c, Durati
   keys->Add("tls_key", &c->endpoint.tls_key_file, "PEM private key for --tls-cert");
   keys->Add("tls_client_ca", &c->endpoint.tls_client_ca_file,
             "PEM CA bundle; when set, clients must present a certificate it signed");
-  keys->Add("replica_of", &c->replica_of,
+  keys->Add("replica_of", &c->replica_nats.servers,
             "Serve as a remote replica: NATS servers (comma-separated nats://HOST:PORT) "
             "whose version stream and pointer to follow; --db is then a local directory "
             "of received versions (empty: follow the trainer's store at --db)");
-  keys->Add("replica_token_file", &c->replica_token_file,
+  keys->Add("replica_token_file", &c->replica_nats.token_file,
             "File holding the token the NATS servers require");
-  keys->Add("replica_credentials_file", &c->replica_credentials_file,
+  keys->Add("replica_credentials_file", &c->replica_nats.credentials_file,
             "NATS credentials file (.creds) for --replica-of");
-  keys->Add("replica_tls_ca", &c->replica_tls_ca, "CA to trust: connect to NATS with TLS");
-  keys->Add("replica_tls_cert", &c->replica_tls_cert,
+  keys->Add("replica_tls_ca", &c->replica_nats.tls_ca, "CA to trust: connect to NATS with TLS");
+  keys->Add("replica_tls_cert", &c->replica_nats.tls_cert,
             "PEM client certificate chain for NATS (when the servers verify clients)");
-  keys->Add("replica_tls_key", &c->replica_tls_key, "PEM key of --replica-tls-cert");
+  keys->Add("replica_tls_key", &c->replica_nats.tls_key, "PEM key of --replica-tls-cert");
   keys->Add("replica_stream", &c->replica_stream, "The version stream plumb-train fills");
   keys->Add("replica_subject", &c->replica_subject, "Version N is on <this>.N");
   keys->Add("replica_bucket", &c->replica_bucket,

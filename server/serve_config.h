@@ -13,6 +13,7 @@
 #include <string>
 #include <thread>
 
+#include "replica/nats_access.h"
 #include "server/admission_queue.h"
 #include "server/exposure_window.h"
 #include "server/fold_in.h"
@@ -61,9 +62,8 @@ struct ServeConfig {
   // A remote replica (--replica-of, server/replica_feed.h): versions come from these NATS
   // servers' version stream and --db is a local directory of this replica's own. Empty:
   // follow the store at --db (a RocksDB secondary on the trainer's disk).
-  std::string replica_of;  // comma-separated nats://HOST:PORT (tls://... for TLS)
-  std::string replica_token_file, replica_credentials_file;
-  std::string replica_tls_ca, replica_tls_cert, replica_tls_key;
+  // replica_of (the servers), replica_token_file, replica_credentials_file, replica_tls_*.
+  replica::NatsSettings replica_nats;
   std::string replica_stream = "PLUMB_VERSIONS";
   std::string replica_subject = "plumb.versions";
   std::string replica_bucket = "PLUMB_POINTER";

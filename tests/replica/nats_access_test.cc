@@ -3,13 +3,15 @@
 // named; the rest is libnats' text unchanged. Error texts marked "seen" are what libnats 3.4.1
 // (Debian bookworm) reported against nats-server 2.9.10 while tests/stream/nats_tls_test.py
 // was written (the real processes are checked there); the others are OpenSSL's names of
-// verification results and alerts, from memory. Also the option checks of MakeNatsOptions.
+// verification results and alerts, from memory. Also the option checks of MakeNatsOptions and
+// the mapping of a configuration's NATS settings (ToNatsAccess).
 #include "replica/nats_access.h"
 
 #include <gtest/gtest.h>
 #include <nats/nats.h>
 
 #include <string>
+#include <vector>
 
 namespace plumb::replica {
 namespace {
@@ -104,6 +106,27 @@ TEST(MakeNatsOptions, TlsFilesThatDoNotLoadAreNamed) {
   access.tls_cert = "/nonexistent/client.pem";
   s = MakeNatsOptions(access, "test", &options, "replica");
   EXPECT_TRUE(Contains(s.ToString(), "a TLS certificate and its key go together")) << s.ToString();
+}
+
+// Hand-worked: the list as an operator may type it, with empty parts (a doubled or trailing
+// comma) dropped and the order kept; every file name passed on as it is.
+TEST(ToNatsAccess, SplitsTheServersAndKeepsTheFiles) {
+  NatsSettings settings;
+  settings.servers = "nats://10.0.0.1:4222,,tls://10.0.0.2:4222,";
+  settings.token_file = "/etc/plumb/nats.token";
+  settings.credentials_file = "/etc/plumb/nats.creds";
+  settings.tls_ca = "ca.pem";
+  settings.tls_cert = "client.pem";
+  settings.tls_key = "client.key";
+  const NatsAccess access = ToNatsAccess(settings);
+  EXPECT_EQ(access.servers,
+            (std::vector<std::string>{"nats://10.0.0.1:4222", "tls://10.0.0.2:4222"}));
+  EXPECT_EQ(access.token_file, "/etc/plumb/nats.token");
+  EXPECT_EQ(access.credentials_file, "/etc/plumb/nats.creds");
+  EXPECT_EQ(access.tls_ca, "ca.pem");
+  EXPECT_EQ(access.tls_cert, "client.pem");
+  EXPECT_EQ(access.tls_key, "client.key");
+  EXPECT_TRUE(ToNatsAccess(NatsSettings{}).servers.empty());  // "": no server
 }
 
 }  // namespace

@@ -18,6 +18,7 @@
 #include "plumb/v1/ranker.grpc.pb.h"
 #include "server/canary_exposure.h"
 #include "server/status_page.h"
+#include "tests/server/expected_top.h"
 #include "tests/server/loopback_server.h"
 #include "tests/server/test_model.h"
 
@@ -27,21 +28,6 @@ namespace {
 using testing::TestModel;
 
 constexpr uint32_t kUsers = 10000, kItems = 200, kDim = 8, kTop = 5;
-
-// The scorer's answer on a snapshot of `m` built in memory: what the arm serving `m` must say.
-std::vector<std::string> ExpectedTop(const Snapshot& snap, const TestModel& m,
-                                     const std::string& user) {
-  Scorer scorer;
-  RankedList list;
-  RecommendQuery q;
-  q.user_id = user;
-  q.count = kTop;
-  q.exclude_seen = true;
-  EXPECT_TRUE(scorer.Recommend(snap, q, &list).ok());
-  std::vector<std::string> ids;
-  for (const ScoredIndex& s : list.items) ids.push_back(m.item_ids[s.index]);
-  return ids;
-}
 
 class CanaryServingTest : public ::testing::Test {
  protected:
@@ -97,7 +83,8 @@ class CanaryServingTest : public ::testing::Test {
       if (u % 20 == 0 && v >= 1 && v <= models_.size()) {
         std::vector<std::string> ids;
         for (const auto& item : response.items()) ids.push_back(item.item_id());
-        EXPECT_EQ(ids, ExpectedTop(*snapshots_[v - 1], models_[v - 1], user)) << user;
+        // The arm serving version v must say what its model says.
+        EXPECT_EQ(ids, testing::ExpectedTop(*snapshots_[v - 1], user, kTop)) << user;
       }
     }
     return versions;

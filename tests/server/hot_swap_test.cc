@@ -17,8 +17,8 @@
 #include "server/catch_up_loop.h"
 #include "server/ranker_service.h"
 #include "server/ranking_server.h"
-#include "server/scorer.h"
 #include "server/snapshot_holder.h"
+#include "tests/server/expected_top.h"
 #include "tests/server/loopback_server.h"
 #include "tests/server/test_model.h"
 
@@ -41,24 +41,6 @@ TestModel ModelForSeed(uint64_t seed) {
   m.seen = interactions.seen;
   m.degrees = interactions.degrees;
   return m;
-}
-
-// The expected answer of Recommend(kUser, kTop, exclude_seen) for a model: the scorer's on
-// a snapshot built in memory from the same model (same arithmetic, so even near-ties agree).
-// With approximate indexes the snapshot is built with the same options (one build thread:
-// the graph, and so the answer, is then the same for the same rows).
-std::vector<std::string> ExpectedTop(const TestModel& m, const ApproxServingOptions& approx) {
-  auto snap = testing::BuildSnapshot(m, 1, approx);
-  Scorer scorer;
-  RankedList list;
-  RecommendQuery q;
-  q.user_id = kUser;
-  q.count = kTop;
-  q.exclude_seen = true;
-  EXPECT_TRUE(scorer.Recommend(*snap, q, &list).ok());
-  std::vector<std::string> ids;
-  for (const ScoredIndex& s : list.items) ids.push_back(m.item_ids[s.index]);
-  return ids;
 }
 
 struct Observation {
@@ -89,7 +71,9 @@ TEST_P(HotSwapTest, FourClientsSeeOnlyActiveVersionsInOrderWithoutAFailure) {
     Status s = testing::CommitModel(primary.get(), m, activate, &v);
     EXPECT_TRUE(s.ok()) << s.ToString();
     if (activate) {
-      expected[v] = ExpectedTop(m, approx);
+      // With approximate indexes the snapshot is built with the same options (one build
+      // thread: the graph, and so the answer, is then the same for the same rows).
+      expected[v] = testing::ExpectedTop(*testing::BuildSnapshot(m, 1, approx), kUser, kTop);
     } else {
       inactive.insert(v);
     }

@@ -172,9 +172,9 @@ TEST(ServeConfigTest, ExampleReplicaFileParses) {
   ServeConfig c;
   std::string err;
   ASSERT_EQ(Parse({"--config", example}, &c, nullptr, &err), -1) << err;
-  EXPECT_EQ(c.replica_of.rfind("nats://", 0), 0u) << c.replica_of;
+  EXPECT_EQ(c.replica_nats.servers.rfind("nats://", 0), 0u) << c.replica_nats.servers;
   EXPECT_EQ(c.db, "/var/lib/plumb-replica");
-  EXPECT_FALSE(c.replica_token_file.empty());
+  EXPECT_FALSE(c.replica_nats.token_file.empty());
   EXPECT_EQ(c.replica_stream, "PLUMB_VERSIONS");
 }
 

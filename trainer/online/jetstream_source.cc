@@ -117,19 +117,12 @@ struct JetStreamSource::Impl {
   }
 
   Status Configure() {
-    if (options.servers.empty()) return Status::InvalidArgument("JetStream: no server URL");
+    if (options.access.servers.empty()) return Status::InvalidArgument("JetStream: no server URL");
     if (options.stream.empty() || options.subject.empty() || options.consumer.empty()) {
       return Status::InvalidArgument("JetStream: stream, subject and consumer must be named");
     }
-    replica::NatsAccess access;
-    access.servers = options.servers;
-    access.token_file = options.token_file;
-    access.credentials_file = options.credentials_file;
-    access.tls_ca = options.tls_ca;
-    access.tls_cert = options.tls_cert;
-    access.tls_key = options.tls_key;
     PLUMB_RETURN_IF_ERROR(
-        replica::MakeNatsOptions(access, "plumb-train", &nats_options, "JetStream"));
+        replica::MakeNatsOptions(options.access, "plumb-train", &nats_options, "JetStream"));
     {
       // Never freed (see CallbackState); kept reachable, so leak checkers stay quiet.
       static std::mutex pool_mu;
@@ -272,7 +265,7 @@ struct JetStreamSource::Impl {
 
   std::string Servers() const {
     std::string all;
-    for (const std::string& u : options.servers) all += (all.empty() ? "" : ",") + u;
+    for (const std::string& u : options.access.servers) all += (all.empty() ? "" : ",") + u;
     return all;
   }
 

@@ -26,7 +26,7 @@
 //                    in plumb_events_rejected_total{reason}, as for gRPC ingest)
 // A message with some valid events stores them, counts the others as rejected, and is acked.
 //
-// Connection: every URL of options.servers is tried; the client reconnects by itself and
+// Connection: every URL of options.access.servers is tried; the client reconnects by itself and
 // the source resubscribes after a failure, logging once per episode. Messages are pulled
 // in batches (options.fetch_batch), with up to options.max_pulls_in_flight batches being
 // written while the next is fetched.
@@ -41,6 +41,7 @@
 #include <thread>
 #include <vector>
 
+#include "replica/nats_access.h"
 #include "trainer/online/event_source.h"
 #include "trainer/online/event_validation.h"
 #include "trainer/online/group_commit.h"
@@ -49,14 +50,10 @@
 namespace plumb::online {
 
 struct JetStreamOptions {
-  std::vector<std::string> servers;  // nats://HOST:PORT (tls://... for TLS); at least one
+  replica::NatsAccess access;  // the servers (at least one), token or credentials, TLS
   std::string stream = "PLUMB_EVENTS";
   std::string subject = "plumb.events";  // the consumer's filter subject
   std::string consumer = "plumb-train";  // durable consumer name
-  std::string token_file;                // a file holding the server's token; "" = none
-  std::string credentials_file;          // a NATS .creds file (JWT + seed); "" = none
-  std::string tls_ca;                    // CA to trust: connect with TLS
-  std::string tls_cert, tls_key;         // a client certificate, when the server asks
   int fetch_batch = 1000;                // messages per pull
   int max_pulls_in_flight = 4;           // pulled batches being written at once
   size_t max_message_bytes = 1 << 20;    // larger payloads are terminated (oversized)

@@ -80,20 +80,10 @@ class MetricsPoller {
 // The JetStream event source's options from the configuration (jetstream_* keys).
 JetStreamOptions JetStreamOptionsFrom(const TrainConfig& config, const IngestLimits& limits) {
   JetStreamOptions o;
-  for (size_t begin = 0; begin <= config.jetstream_servers.size();) {
-    size_t end = config.jetstream_servers.find(',', begin);
-    if (end == std::string::npos) end = config.jetstream_servers.size();
-    if (end > begin) o.servers.push_back(config.jetstream_servers.substr(begin, end - begin));
-    begin = end + 1;
-  }
+  o.access = plumb::replica::ToNatsAccess(config.jetstream_nats);
   o.stream = config.jetstream_stream;
   o.subject = config.jetstream_subject;
   o.consumer = config.jetstream_consumer;
-  o.token_file = config.jetstream_token_file;
-  o.credentials_file = config.jetstream_credentials_file;
-  o.tls_ca = config.jetstream_tls_ca;
-  o.tls_cert = config.jetstream_tls_cert;
-  o.tls_key = config.jetstream_tls_key;
   o.fetch_batch = static_cast<int>(config.jetstream_fetch_batch);
   o.max_message_bytes = config.jetstream_max_message_bytes;
   o.max_message_events = limits.max_batch_events;
@@ -107,12 +97,7 @@ JetStreamOptions JetStreamOptionsFrom(const TrainConfig& config, const IngestLim
 // The version shipper's options from the configuration (jetstream_* keys).
 plumb::replica::VersionShipOptions VersionShipOptionsFrom(const TrainConfig& config) {
   plumb::replica::VersionShipOptions o;
-  o.access.servers = plumb::replica::SplitServers(config.jetstream_servers);
-  o.access.token_file = config.jetstream_token_file;
-  o.access.credentials_file = config.jetstream_credentials_file;
-  o.access.tls_ca = config.jetstream_tls_ca;
-  o.access.tls_cert = config.jetstream_tls_cert;
-  o.access.tls_key = config.jetstream_tls_key;
+  o.access = plumb::replica::ToNatsAccess(config.jetstream_nats);
   o.stream = config.jetstream_versions_stream;
   o.subject_prefix = config.jetstream_versions_subject;
   o.bucket = config.jetstream_pointer_bucket;
@@ -239,7 +224,7 @@ int Run(const TrainConfig& config, const sigset_t& shutdown_signals) {
     return 2;
   }
   std::unique_ptr<EventSource> jetstream;
-  if (!config.jetstream_servers.empty() && config.jetstream_events) {
+  if (!config.jetstream_nats.servers.empty() && config.jetstream_events) {
     jetstream = std::make_unique<JetStreamSource>(JetStreamOptionsFrom(config, limits), &committer,
                                                   &metrics);
     if (Status s = jetstream->Start(); !s.ok()) {

@@ -82,7 +82,7 @@ Status CheckTrainConfig(const TrainConfig& c) {
   if (c.tls_cert.empty() != c.tls_key.empty()) {
     return bad("TLS needs both tls_cert and tls_key (or neither)");
   }
-  if (!c.jetstream_servers.empty()) {
+  if (!c.jetstream_nats.servers.empty()) {
     if (c.jetstream_stream.empty() || c.jetstream_subject.empty() || c.jetstream_consumer.empty()) {
       return bad("jetstream_stream, jetstream_subject and jetstream_consumer must not be empty");
     }
@@ -95,7 +95,7 @@ Status CheckTrainConfig(const TrainConfig& c) {
     if (c.jetstream_create_replicas > 5) {
       return bad("jetstream_create_replicas must be within [0, 5] (JetStream's limit)");
     }
-    if (c.jetstream_tls_cert.empty() != c.jetstream_tls_key.empty()) {
+    if (c.jetstream_nats.tls_cert.empty() != c.jetstream_nats.tls_key.empty()) {
       return bad("jetstream_tls_cert and jetstream_tls_key go together");
     }
     if (Status s = ParseDuration(c.jetstream_ack_wait, &ms); !s.ok() || ms < 1000) {
@@ -103,7 +103,7 @@ Status CheckTrainConfig(const TrainConfig& c) {
     }
   }
   if (c.jetstream_versions) {
-    if (c.jetstream_servers.empty()) return bad("jetstream_versions needs jetstream_servers");
+    if (c.jetstream_nats.servers.empty()) return bad("jetstream_versions needs jetstream_servers");
     if (c.jetstream_versions_stream.empty() || c.jetstream_versions_subject.empty() ||
         c.jetstream_pointer_bucket.empty()) {
       return bad(
@@ -223,22 +223,22 @@ std::optional<int> ParseTrainConfig(int argc, const char* const* argv, TrainConf
        }},
       {"Events from NATS JetStream (besides gRPC)",
        {
-           {"jetstream_servers", &c.jetstream_servers,
+           {"jetstream_servers", &c.jetstream_nats.servers,
             "NATS servers, comma-separated nats://HOST:PORT (tls://... for TLS); empty = off"},
            {"jetstream_stream", &c.jetstream_stream, "The stream to consume"},
            {"jetstream_subject", &c.jetstream_subject,
             "The consumer's filter subject (wildcards allowed)"},
            {"jetstream_consumer", &c.jetstream_consumer,
             "Durable pull consumer name (created when missing)"},
-           {"jetstream_token_file", &c.jetstream_token_file,
+           {"jetstream_token_file", &c.jetstream_nats.token_file,
             "File holding the token the NATS servers require; empty = none"},
-           {"jetstream_credentials_file", &c.jetstream_credentials_file,
+           {"jetstream_credentials_file", &c.jetstream_nats.credentials_file,
             "NATS credentials file (.creds: user JWT and seed); empty = none"},
-           {"jetstream_tls_ca", &c.jetstream_tls_ca,
+           {"jetstream_tls_ca", &c.jetstream_nats.tls_ca,
             "CA to trust: connect to NATS with TLS; empty = no TLS unless tls:// URLs"},
-           {"jetstream_tls_cert", &c.jetstream_tls_cert,
+           {"jetstream_tls_cert", &c.jetstream_nats.tls_cert,
             "PEM client certificate chain for NATS (when the servers verify clients)"},
-           {"jetstream_tls_key", &c.jetstream_tls_key, "PEM key of jetstream_tls_cert"},
+           {"jetstream_tls_key", &c.jetstream_nats.tls_key, "PEM key of jetstream_tls_cert"},
            {"jetstream_fetch_batch", &c.jetstream_fetch_batch,
             "Messages per pull from the consumer"},
            {"jetstream_max_message_bytes", &c.jetstream_max_message_bytes,

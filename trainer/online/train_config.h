@@ -12,6 +12,7 @@
 
 #include "core/duration.h"
 #include "core/status.h"
+#include "replica/nats_access.h"
 #include "trainer/online/online_loop.h"
 
 namespace plumb::online {
@@ -43,15 +44,11 @@ struct TrainConfig {
 
   // Events from a NATS JetStream stream as well as over gRPC (JetStreamSource); off while
   // jetstream_servers is empty. deploy/plumb-train.toml explains each key.
-  std::string jetstream_servers;  // comma-separated nats://HOST:PORT (tls://... for TLS)
+  // jetstream_servers, jetstream_token_file, jetstream_credentials_file, jetstream_tls_*.
+  replica::NatsSettings jetstream_nats;
   std::string jetstream_stream = "PLUMB_EVENTS";
   std::string jetstream_subject = "plumb.events";
   std::string jetstream_consumer = "plumb-train";  // durable consumer name
-  std::string jetstream_token_file;
-  std::string jetstream_credentials_file;
-  std::string jetstream_tls_ca;
-  std::string jetstream_tls_cert;
-  std::string jetstream_tls_key;
   uint32_t jetstream_fetch_batch = 1000;
   uint64_t jetstream_max_message_bytes = 1 << 20;
   std::string jetstream_ack_wait = "30s";

@@ -27,7 +27,12 @@ metric() { curl -s "http://$1/metrics" | awk -v m="$2" '$1 == m {print $2}'; }
 "$PLUMB" synth --out "$tmp/world" --users 2000 --items 800 --interactions 60000 --seed 4 >/dev/null 2>&1 || fail synth
 head -1 "$tmp/world/events.csv" > "$tmp/first.csv"; sed -n '2,20001p' "$tmp/world/events.csv" >> "$tmp/first.csv"
 head -1 "$tmp/world/events.csv" > "$tmp/rest.csv"; sed -n '20002,$p' "$tmp/world/events.csv" >> "$tmp/rest.csv"
-awk -F, 'NR>1 && NR<=20001 {print $1}' "$tmp/world/events.csv" | sort -u > "$tmp/users.txt"
+# The calls' users: those with at least 5 distinct tools in the first part. plumb-train holds
+# out 2 % of (user, tool) pairs, so a user with one or two pairs may be in no version yet, and
+# a call for it is rightly NOT_FOUND (once seen in CI: a user with its only pairs held out).
+awk -F, 'NR>1 && NR<=20001 {print $1 "," $2}' "$tmp/world/events.csv" | sort -u |
+  awk -F, '{n[$1]++} END {for (u in n) if (n[u] >= 5) print u}' | sort > "$tmp/users.txt"
+[ "$(wc -l < "$tmp/users.txt")" -ge 500 ] || fail "too few users with 5 tools: $(wc -l < "$tmp/users.txt")"
 
 TRAIN_ADDR=127.0.0.1:$(free_port); SERVE_ADDR=127.0.0.1:$(free_port); SERVE_METRICS=127.0.0.1:$(free_port)
 start_trainer() {

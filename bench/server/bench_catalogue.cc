@@ -46,10 +46,6 @@ struct Args {
   bool similar = true;
 };
 
-double Seconds(Clock::time_point since) {
-  return std::chrono::duration<double>(Clock::now() - since).count();
-}
-
 struct Sweep {
   tools::LatencySummary latency;
   double recall = 0;
@@ -65,27 +61,13 @@ double Overlap(const RankedList& a, const RankedList& b) {
   return b.items.empty() ? 1.0 : static_cast<double>(hit) / b.items.size();
 }
 
-std::string Ms(int64_t ns) {
-  char buf[32];
-  std::snprintf(buf, sizeof buf, "%.3f", ns / 1e6);
-  return buf;
-}
-
 void PrintRow(const std::string& label, const Sweep& s, const Sweep& exact) {
-  std::printf("%-22s %8s %8s %8s %7.4f %6.3f ", label.c_str(), Ms(s.latency.p50_ns).c_str(),
-              Ms(s.latency.p90_ns).c_str(), Ms(s.latency.p99_ns).c_str(), s.recall,
-              s.approximate_share);
-  // The largest relative change of a group's share against exact's, over the groups holding
-  // at least 2 % of exact's slots (smaller shares are a few slots in a run of this length),
-  // and the tail group's ratio on its own, whatever its size.
-  double worst = 0;
-  for (size_t g = 0; g < s.shares.size(); ++g) {
-    std::printf(" %6.4f", s.shares[g]);
-    if (exact.shares[g] >= 0.02) {
-      worst = std::max(worst, std::abs(s.shares[g] / exact.shares[g] - 1));
-    }
-  }
-  std::printf("  %6.1f%% %6.3f\n", 100 * worst,
+  std::printf("%-22s %8s %8s %8s %7.4f %6.3f ", label.c_str(),
+              Milliseconds(s.latency.p50_ns).c_str(), Milliseconds(s.latency.p90_ns).c_str(),
+              Milliseconds(s.latency.p99_ns).c_str(), s.recall, s.approximate_share);
+  // The worst group's change, and the tail group's ratio on its own, whatever its size.
+  for (double share : s.shares) std::printf(" %6.4f", share);
+  std::printf("  %6.1f%% %6.3f\n", 100 * WorstGroupChange(s.shares, exact.shares),
               exact.shares[0] > 0 ? s.shares[0] / exact.shares[0] : 1.0);
 }
 
@@ -116,7 +98,7 @@ int Run(const Args& a) {
     std::fprintf(stderr, "bench_catalogue: %s\n", s.ToString().c_str());
     return 1;
   }
-  const double build_total = Seconds(t0);
+  const double build_total = SecondsSince(t0);
   const auto [rss_after, hwm_after] = ProcessRssMb();
   const uint32_t items = snap->num_items(), dim = snap->dim();
   std::printf(
@@ -148,7 +130,7 @@ int Run(const Args& a) {
       floor.Add(std::chrono::duration_cast<std::chrono::nanoseconds>(Clock::now() - c0).count());
     }
     std::printf("floor: reading %.0f MB (the int8 copy's size) p50 %s ms (checksum %lld)\n",
-                buffer.size() * 8 / 1e6, Ms(floor.Percentile(50)).c_str(),
+                buffer.size() * 8 / 1e6, Milliseconds(floor.Percentile(50)).c_str(),
                 static_cast<long long>(keep % 7));
   }
 

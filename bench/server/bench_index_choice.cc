@@ -63,16 +63,6 @@ struct Args {
   std::vector<std::string> indexes = {"hnswlib", "faiss-hnsw", "faiss-ivf", "faiss-ivf-sq8"};
 };
 
-double Seconds(Clock::time_point since) {
-  return std::chrono::duration<double>(Clock::now() - since).count();
-}
-
-std::string Ms(int64_t ns) {
-  char buf[32];
-  std::snprintf(buf, sizeof buf, "%.3f", ns / 1e6);
-  return buf;
-}
-
 constexpr size_t kGroups = 5;
 
 using FaissId = faiss::Index::idx_t;
@@ -144,16 +134,11 @@ struct Bench {
   void PrintRow(const std::string& index, const std::string& setting, double build_s,
                 double size_mb, const Outcome& o) const {
     std::printf("%-14s %-12s %8.1f %8.0f %8s %8s %8s %7.4f", index.c_str(), setting.c_str(),
-                build_s, size_mb, Ms(o.latency.p50_ns).c_str(), Ms(o.latency.p90_ns).c_str(),
-                Ms(o.latency.p99_ns).c_str(), o.recall);
-    double worst = 0;
-    for (size_t g = 0; g < kGroups; ++g) {
-      std::printf(" %6.4f", o.shares[g]);
-      if (exact_outcome.shares[g] >= 0.02) {
-        worst = std::max(worst, std::abs(o.shares[g] / exact_outcome.shares[g] - 1));
-      }
-    }
-    std::printf(" %7.1f%%\n", 100 * worst);
+                build_s, size_mb, Milliseconds(o.latency.p50_ns).c_str(),
+                Milliseconds(o.latency.p90_ns).c_str(), Milliseconds(o.latency.p99_ns).c_str(),
+                o.recall);
+    for (double share : o.shares) std::printf(" %6.4f", share);
+    std::printf(" %7.1f%%\n", 100 * WorstGroupChange(o.shares, exact_outcome.shares));
     std::fflush(stdout);
   }
 };
@@ -179,7 +164,7 @@ void RunHnswlib(const Bench& b) {
   std::unique_ptr<const ApproxIndex> index;
   const Clock::time_point t0 = Clock::now();
   Status s = ApproxIndex::Build(b.snap->items(), ApproxIndex::Metric::kDot, o, &index);
-  const double build_s = Seconds(t0);
+  const double build_s = SecondsSince(t0);
   if (!s.ok()) {
     std::fprintf(stderr, "hnswlib: %s\n", s.ToString().c_str());
     return;
@@ -202,7 +187,7 @@ void RunFaissHnsw(const Bench& b) {
   omp_set_num_threads(static_cast<int>(b.a.build_threads));
   const Clock::time_point t0 = Clock::now();
   index->add(static_cast<FaissId>(items.rows), items.data);
-  const double build_s = Seconds(t0);
+  const double build_s = SecondsSince(t0);
   omp_set_num_threads(1);
   const double size = SerializedBytes(*index) / 1e6;
   std::vector<float> distances;
@@ -240,9 +225,9 @@ void RunFaissIvf(const Bench& b, bool sq8) {
   const Clock::time_point t0 = Clock::now();
   index->cp.spherical = b.a.spherical;
   index->train(static_cast<FaissId>(items.rows), items.data);
-  const double train_s = Seconds(t0);
+  const double train_s = SecondsSince(t0);
   index->add(static_cast<FaissId>(items.rows), items.data);
-  const double build_s = Seconds(t0);
+  const double build_s = SecondsSince(t0);
   omp_set_num_threads(1);
   const double size = SerializedBytes(*index) / 1e6;
   const std::string name = sq8 ? "faiss-ivf-sq8" : "faiss-ivf";

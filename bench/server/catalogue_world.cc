@@ -14,15 +14,26 @@
 #include "trainer/trainer.h"
 
 namespace plumb::server {
-namespace {
 
 using Clock = std::chrono::steady_clock;
 
-double Seconds(Clock::time_point since) {
+double SecondsSince(Clock::time_point since) {
   return std::chrono::duration<double>(Clock::now() - since).count();
 }
 
-}  // namespace
+std::string Milliseconds(int64_t ns) {
+  char buf[32];
+  std::snprintf(buf, sizeof buf, "%.3f", ns / 1e6);
+  return buf;
+}
+
+double WorstGroupChange(const std::vector<double>& shares, const std::vector<double>& exact) {
+  double worst = 0;
+  for (size_t g = 0; g < shares.size() && g < exact.size(); ++g) {
+    if (exact[g] >= 0.02) worst = std::max(worst, std::abs(shares[g] / exact[g] - 1));
+  }
+  return worst;
+}
 
 std::pair<double, double> ProcessRssMb() {
   std::ifstream status("/proc/self/status");
@@ -57,11 +68,11 @@ Status FitCatalogueWorld(const CatalogueWorldOptions& a, SnapshotParts* p) {
   std::unique_ptr<trainer::FitLoop> loop;
   PLUMB_RETURN_IF_ERROR(trainer::FitLoop::Create(o, &model, &train, &loop));
   std::printf("world: %u members x %u tools, %zu training pairs, dim %u; generated in %.1f s\n",
-              a.users, a.items, train.size(), a.dim, Seconds(t0));
+              a.users, a.items, train.size(), a.dim, SecondsSince(t0));
   t0 = Clock::now();
   for (uint32_t e = 0; e < a.epochs; ++e) {
     PLUMB_RETURN_IF_ERROR(loop->RunEpochs(1));
-    std::printf("  CPR epoch %u/%u, %.0f s\n", e + 1, a.epochs, Seconds(t0));
+    std::printf("  CPR epoch %u/%u, %.0f s\n", e + 1, a.epochs, SecondsSince(t0));
     std::fflush(stdout);
   }
   const uint32_t dim = a.dim, base = a.items, items = base * a.tile;

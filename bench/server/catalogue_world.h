@@ -5,8 +5,11 @@
 #pragma once
 
 #include <CLI/CLI.hpp>
+#include <chrono>
 #include <cstdint>
+#include <string>
 #include <utility>
+#include <vector>
 
 #include "core/status.h"
 #include "server/snapshot.h"
@@ -34,6 +37,17 @@ void AddCatalogueWorldOptions(CLI::App* app, CatalogueWorldOptions* w);
 // fitted (and tiled) items, the members, their training items as seen lists, and degrees.
 // No approximate index options are set.
 Status FitCatalogueWorld(const CatalogueWorldOptions& o, SnapshotParts* parts);
+
+// Seconds since `since` (steady clock).
+double SecondsSince(std::chrono::steady_clock::time_point since);
+
+// Nanoseconds as milliseconds with three decimals, for the tables.
+std::string Milliseconds(int64_t ns);
+
+// The largest relative change of a popularity group's share of the answers' slots against
+// exact's, over the groups holding at least 2 % of exact's slots (smaller shares are a few
+// slots in a run of these lengths). Both vectors have one entry per group.
+double WorstGroupChange(const std::vector<double>& shares, const std::vector<double>& exact);
 
 // Resident and peak resident memory of this process, MB (Linux /proc/self/status).
 std::pair<double, double> ProcessRssMb();
